@@ -1,0 +1,4 @@
+//! The machines of DESIGN §3, one module each, each behind its cargo feature.
+
+#[cfg(feature = "stepper")]
+pub mod stepper;

@@ -1,0 +1,520 @@
+//! The shared vocabulary of every machine (DESIGN §2): limits, the rules and
+//! their contraction counts, outcomes, error and limit kinds, and the trait and
+//! enum through which a caller picks a machine.
+
+use std::fmt;
+
+use crate::term::{Arena, Term};
+use crate::validate::Program;
+
+/// Default fuel: one hundred million contractions (a few seconds on the fast
+/// machines).
+pub const DEFAULT_FUEL: u64 = 100_000_000;
+
+/// Default memory limit: 256 MiB of machine-owned runtime data.
+pub const DEFAULT_MEMORY: usize = 256 << 20;
+
+/// How far a run may go. Both bounds are finite by default.
+///
+/// * `fuel` — the number of contractions (attempted ones included) the run may
+///   make; with none left, the outcome is [`Outcome::OutOfFuel`].
+/// * `memory` — bytes of runtime data the machine may hold at once (terms built
+///   by substitution, environments, closures, continuation frames, strings).
+///   The program's own arena and the caller's output arena are not counted.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::Limits;
+/// let limits = Limits::default().with_fuel(1_000).with_memory(1 << 20);
+/// assert_eq!(limits.fuel, 1_000);
+/// assert_eq!(Limits::default().fuel, orrery::DEFAULT_FUEL);
+/// ```
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[non_exhaustive]
+pub struct Limits {
+    /// Contractions allowed.
+    pub fuel: u64,
+    /// Bytes of runtime data allowed.
+    pub memory: usize,
+}
+
+impl Default for Limits {
+    fn default() -> Self {
+        Limits {
+            fuel: DEFAULT_FUEL,
+            memory: DEFAULT_MEMORY,
+        }
+    }
+}
+
+impl Limits {
+    /// These limits with a different fuel bound.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// assert_eq!(orrery::Limits::default().with_fuel(5).fuel, 5);
+    /// ```
+    pub fn with_fuel(mut self, fuel: u64) -> Self {
+        self.fuel = fuel;
+        self
+    }
+
+    /// These limits with a different memory bound, in bytes.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// assert_eq!(orrery::Limits::default().with_memory(4096).memory, 4096);
+    /// ```
+    pub fn with_memory(mut self, bytes: usize) -> Self {
+        self.memory = bytes;
+        self
+    }
+}
+
+/// The contraction rules of DESIGN §1. Every contraction, and every attempted
+/// contraction that fails, is counted under exactly one of them.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::Rule;
+/// assert_eq!(Rule::BetaRec.name(), "beta_rec");
+/// assert_eq!(Rule::ALL.len(), 6);
+/// ```
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub enum Rule {
+    /// `(λ. t) v → t[#0 := v]`; also applying a non-function.
+    Beta,
+    /// `(μλ. t) v → t[#0 := v, #1 := μλ. t]`.
+    BetaRec,
+    /// `let v in t → t[#0 := v]`.
+    Let,
+    /// `if true/false then t else u`; also a non-boolean condition.
+    If,
+    /// `op(v, …, v) → δ(op, v, …, v)`.
+    Prim,
+    /// `case v of {…}`.
+    Case,
+}
+
+impl Rule {
+    /// Every rule, in the order of DESIGN §1 (and of the JSON output).
+    pub const ALL: [Rule; 6] = [
+        Rule::Beta,
+        Rule::BetaRec,
+        Rule::Let,
+        Rule::If,
+        Rule::Prim,
+        Rule::Case,
+    ];
+
+    /// The rule's stable name, as in the JSON output.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// assert_eq!(orrery::Rule::If.name(), "if");
+    /// ```
+    pub fn name(self) -> &'static str {
+        match self {
+            Rule::Beta => "beta",
+            Rule::BetaRec => "beta_rec",
+            Rule::Let => "let",
+            Rule::If => "if",
+            Rule::Prim => "prim",
+            Rule::Case => "case",
+        }
+    }
+}
+
+impl fmt::Display for Rule {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(self.name())
+    }
+}
+
+/// Contractions made, per rule. The total is their sum.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{Counts, Rule};
+/// let mut counts = Counts::default();
+/// counts.add(Rule::Beta);
+/// counts.add(Rule::Beta);
+/// counts.add(Rule::Prim);
+/// assert_eq!(counts.get(Rule::Beta), 2);
+/// assert_eq!(counts.total(), 3);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Hash)]
+pub struct Counts {
+    by_rule: [u64; 6],
+}
+
+impl Counts {
+    /// Count one more contraction under `rule`.
+    #[inline]
+    pub fn add(&mut self, rule: Rule) {
+        self.by_rule[rule as usize] += 1;
+    }
+
+    /// Contractions made under `rule`.
+    #[inline]
+    pub fn get(&self, rule: Rule) -> u64 {
+        self.by_rule[rule as usize]
+    }
+
+    /// All contractions made.
+    pub fn total(&self) -> u64 {
+        self.by_rule.iter().sum()
+    }
+
+    /// Counts from per-rule numbers in the order of [`Rule::ALL`].
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// let c = orrery::Counts::from_array([1, 0, 0, 0, 2, 0]);
+    /// assert_eq!(c.total(), 3);
+    /// ```
+    pub fn from_array(by_rule: [u64; 6]) -> Self {
+        Counts { by_rule }
+    }
+
+    /// Per-rule numbers in the order of [`Rule::ALL`].
+    pub fn to_array(&self) -> [u64; 6] {
+        self.by_rule
+    }
+}
+
+impl fmt::Display for Counts {
+    /// `1234 contractions (beta 10, beta_rec 3, …)`.
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(f, "{} contractions (", self.total())?;
+        for (i, rule) in Rule::ALL.iter().enumerate() {
+            let sep = if i == 0 { "" } else { ", " };
+            write!(f, "{sep}{rule} {}", self.get(*rule))?;
+        }
+        f.write_str(")")
+    }
+}
+
+/// The stable kinds of evaluation error (a stuck term), DESIGN §1.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::ErrorKind;
+/// assert_eq!(ErrorKind::DivisionByZero.name(), "division_by_zero");
+/// assert_eq!(ErrorKind::DivisionByZero.to_string(), "division by zero");
+/// ```
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, thiserror::Error)]
+#[non_exhaustive]
+pub enum ErrorKind {
+    /// Applying something that is not a function.
+    #[error("not a function")]
+    NotAFunction,
+    /// An `if` condition that is not a boolean.
+    #[error("not a boolean")]
+    NotABoolean,
+    /// A primitive operand of the wrong type.
+    #[error("type mismatch")]
+    TypeMismatch,
+    /// `/` or `%` by zero.
+    #[error("division by zero")]
+    DivisionByZero,
+    /// Integer arithmetic whose exact result does not fit in 64 bits.
+    #[error("integer overflow")]
+    IntegerOverflow,
+    /// A `case` with no arm for the value and no default arm.
+    #[error("no matching case")]
+    NoMatchingCase,
+    /// A host function reported failure.
+    #[error("host function failed")]
+    HostError,
+}
+
+impl ErrorKind {
+    /// The stable snake_case name used in the JSON output.
+    pub fn name(self) -> &'static str {
+        match self {
+            ErrorKind::NotAFunction => "not_a_function",
+            ErrorKind::NotABoolean => "not_a_boolean",
+            ErrorKind::TypeMismatch => "type_mismatch",
+            ErrorKind::DivisionByZero => "division_by_zero",
+            ErrorKind::IntegerOverflow => "integer_overflow",
+            ErrorKind::NoMatchingCase => "no_matching_case",
+            ErrorKind::HostError => "host_error",
+        }
+    }
+}
+
+/// An evaluation error: its kind and a message for people. Compare kinds, not
+/// messages.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{ErrorKind, EvalError};
+/// let e = EvalError::new(ErrorKind::NotABoolean, "if on an integer");
+/// assert_eq!(e.kind(), ErrorKind::NotABoolean);
+/// assert_eq!(e.to_string(), "not a boolean: if on an integer");
+/// ```
+#[derive(Clone, Debug, PartialEq, Eq, thiserror::Error)]
+#[error("{kind}: {message}")]
+pub struct EvalError {
+    kind: ErrorKind,
+    message: String,
+}
+
+impl EvalError {
+    /// An error of `kind` with a message.
+    pub fn new(kind: ErrorKind, message: impl Into<String>) -> Self {
+        EvalError {
+            kind,
+            message: message.into(),
+        }
+    }
+
+    /// The error's kind.
+    pub fn kind(&self) -> ErrorKind {
+        self.kind
+    }
+
+    /// The message.
+    pub fn message(&self) -> &str {
+        &self.message
+    }
+}
+
+/// Resource limits: a family apart from evaluation errors. They may trip at
+/// different points on different machines, so they are reported, not compared.
+///
+/// # Examples
+///
+/// ```
+/// assert_eq!(orrery::LimitKind::Memory.name(), "memory");
+/// ```
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, thiserror::Error)]
+#[non_exhaustive]
+pub enum LimitKind {
+    /// The run needed more runtime memory than [`Limits::memory`].
+    #[error("memory limit")]
+    Memory,
+    /// The run was cancelled from outside.
+    #[error("cancelled")]
+    Cancelled,
+}
+
+impl LimitKind {
+    /// The stable snake_case name used in the JSON output.
+    pub fn name(self) -> &'static str {
+        match self {
+            LimitKind::Memory => "memory",
+            LimitKind::Cancelled => "cancelled",
+        }
+    }
+}
+
+/// A resource limit that stopped a run.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{LimitError, LimitKind};
+/// let e = LimitError::new(LimitKind::Memory, "needed 2 MiB, limit 1 MiB");
+/// assert_eq!(e.kind(), LimitKind::Memory);
+/// ```
+#[derive(Clone, Debug, PartialEq, Eq, thiserror::Error)]
+#[error("{kind}: {message}")]
+pub struct LimitError {
+    kind: LimitKind,
+    message: String,
+}
+
+impl LimitError {
+    /// A limit of `kind` with a message.
+    pub fn new(kind: LimitKind, message: impl Into<String>) -> Self {
+        LimitError {
+            kind,
+            message: message.into(),
+        }
+    }
+
+    /// The memory limit, with a message giving the bound.
+    pub fn memory(limit: usize) -> Self {
+        LimitError::new(
+            LimitKind::Memory,
+            format!("runtime data exceeded the memory limit of {limit} bytes"),
+        )
+    }
+
+    /// The limit's kind.
+    pub fn kind(&self) -> LimitKind {
+        self.kind
+    }
+
+    /// The message.
+    pub fn message(&self) -> &str {
+        &self.message
+    }
+}
+
+/// How a run ended.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{Arena, Outcome};
+/// let arena = Arena::new();
+/// let o = Outcome::Value(arena.int(3));
+/// assert_eq!(o.name(), "value");
+/// ```
+#[derive(Clone, Debug, PartialEq)]
+pub enum Outcome<'o> {
+    /// The program reduced to this value (a closed term).
+    Value(&'o Term<'o>),
+    /// The program got stuck.
+    Error(EvalError),
+    /// The fuel ran out: exactly `fuel` contractions were made.
+    OutOfFuel,
+    /// A resource limit stopped the run.
+    Limit(LimitError),
+}
+
+impl Outcome<'_> {
+    /// `value`, `error`, `out_of_fuel` or `limit`, as in the JSON output.
+    pub fn name(&self) -> &'static str {
+        match self {
+            Outcome::Value(_) => "value",
+            Outcome::Error(_) => "error",
+            Outcome::OutOfFuel => "out_of_fuel",
+            Outcome::Limit(_) => "limit",
+        }
+    }
+}
+
+/// A finished run: the outcome and the contractions made, per rule.
+///
+/// # Examples
+///
+/// ```
+/// # #[cfg(feature = "stepper")] {
+/// use orrery::{parse, Arena, Limits, MachineKind, Outcome, Rule};
+/// let arena = Arena::new();
+/// let program = parse(&arena, "(\\x. x + 1) 41").unwrap();
+/// let report = MachineKind::Stepper.run(&program, &Limits::default(), &arena);
+/// assert!(matches!(report.outcome, Outcome::Value(v) if v == arena.int(42)));
+/// assert_eq!(report.counts.get(Rule::Beta), 1);
+/// assert_eq!(report.counts.total(), 2);
+/// # }
+/// ```
+#[derive(Clone, Debug, PartialEq)]
+pub struct Report<'o> {
+    /// How the run ended.
+    pub outcome: Outcome<'o>,
+    /// Contractions made, per rule.
+    pub counts: Counts,
+}
+
+/// An evaluator: one of the machines of DESIGN §3. A machine value holds only
+/// reusable scratch state; the program and limits come with each run.
+pub trait Machine {
+    /// The machine's name (`stepper`, `env`, `cek`).
+    fn name(&self) -> &'static str;
+
+    /// Run a closed program to its outcome. Read-back values are allocated in
+    /// `out` (and may share the program's own nodes).
+    fn run<'a: 'o, 'o>(
+        &mut self,
+        program: &Program<'a>,
+        limits: &Limits,
+        out: &'o Arena,
+    ) -> Report<'o>;
+}
+
+/// The machines compiled into this build, for choosing one at run time.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::MachineKind;
+/// let names: Vec<&str> = MachineKind::enabled().iter().map(|m| m.name()).collect();
+/// assert!(!names.is_empty() || cfg!(not(any(feature = "stepper", feature = "env", feature = "cek"))));
+/// # #[cfg(feature = "stepper")]
+/// assert_eq!(MachineKind::from_name("stepper"), Some(MachineKind::Stepper));
+/// ```
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
+#[non_exhaustive]
+pub enum MachineKind {
+    /// The reference substitution stepper.
+    #[cfg(feature = "stepper")]
+    Stepper,
+    /// The environment-based evaluator.
+    #[cfg(feature = "env")]
+    Env,
+    /// The CEK machine.
+    #[cfg(feature = "cek")]
+    Cek,
+}
+
+impl MachineKind {
+    /// The enabled machines, fastest first.
+    pub fn enabled() -> &'static [MachineKind] {
+        &[
+            #[cfg(feature = "env")]
+            MachineKind::Env,
+            #[cfg(feature = "cek")]
+            MachineKind::Cek,
+            #[cfg(feature = "stepper")]
+            MachineKind::Stepper,
+        ]
+    }
+
+    /// The fastest enabled machine, or `None` in a build with no machine.
+    pub fn fastest() -> Option<MachineKind> {
+        Self::enabled().first().copied()
+    }
+
+    /// The machine's name.
+    pub fn name(self) -> &'static str {
+        match self {
+            #[cfg(feature = "stepper")]
+            MachineKind::Stepper => "stepper",
+            #[cfg(feature = "env")]
+            MachineKind::Env => "env",
+            #[cfg(feature = "cek")]
+            MachineKind::Cek => "cek",
+        }
+    }
+
+    /// The enabled machine with this name.
+    pub fn from_name(name: &str) -> Option<MachineKind> {
+        Self::enabled().iter().copied().find(|m| m.name() == name)
+    }
+
+    /// A fresh machine of this kind, behind the [`Machine`] trait.
+    pub fn machine(self) -> Box<dyn Machine> {
+        match self {
+            #[cfg(feature = "stepper")]
+            MachineKind::Stepper => Box::new(crate::machines::stepper::Stepper::new()),
+            #[cfg(feature = "env")]
+            MachineKind::Env => Box::new(crate::machines::env::Env::new()),
+            #[cfg(feature = "cek")]
+            MachineKind::Cek => Box::new(crate::machines::cek::Cek::new()),
+        }
+    }
+
+    /// Run `program` on a fresh machine of this kind.
+    pub fn run<'a: 'o, 'o>(
+        self,
+        program: &Program<'a>,
+        limits: &Limits,
+        out: &'o Arena,
+    ) -> Report<'o> {
+        self.machine().run(program, limits, out)
+    }
+}

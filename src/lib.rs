@@ -1,0 +1,26 @@
+//! orrery: an evaluation kernel to embed. A call-by-value lambda calculus with
+//! data, as arena-allocated de Bruijn terms, run by machines that agree exactly.
+#![deny(missing_docs)]
+#![forbid(unsafe_code)]
+
+mod api;
+mod equal;
+mod prim;
+mod subst;
+pub mod syntax;
+mod term;
+mod validate;
+
+#[path = "../machines/mod.rs"]
+pub mod machines;
+
+pub use api::{
+    Counts, ErrorKind, EvalError, LimitError, LimitKind, Limits, Machine, MachineKind, Outcome,
+    Report, Rule, DEFAULT_FUEL, DEFAULT_MEMORY,
+};
+pub use equal::terms_equal;
+pub use prim::{delta, Operand, Prim, PrimValue};
+pub use subst::{instantiate, shift, subst};
+pub use syntax::{parse, print, SyntaxError};
+pub use term::{Arena, Arm, Children, Node, Term};
+pub use validate::{validate, Program, ValidationError};

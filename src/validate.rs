@@ -1,0 +1,173 @@
+//! Validated programs: the invariants every machine relies on (closedness,
+//! primitive arities, one arity per constructor tag, distinct case arms),
+//! checked once by an iterative walk that visits each shared node once.
+
+use hashbrown::{HashMap, HashSet};
+
+use crate::term::{Node, Term};
+
+/// Why a term is not a runnable program.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{Arena, Program, ValidationError};
+/// let arena = Arena::new();
+/// let err = Program::new(arena.var(0)).unwrap_err();
+/// assert!(matches!(err, ValidationError::Open { .. }));
+/// ```
+#[derive(Clone, Debug, PartialEq, Eq, thiserror::Error)]
+#[non_exhaustive]
+pub enum ValidationError {
+    /// The term has a free variable.
+    #[error("the program is not closed: it refers to #{index} outside any binder")]
+    Open {
+        /// The smallest index, counted from the top, that escapes.
+        index: u32,
+    },
+    /// A primitive applied to the wrong number of operands.
+    #[error("{name} takes {expected} operand(s), given {given}")]
+    PrimArity {
+        /// The primitive's name.
+        name: String,
+        /// Its arity.
+        expected: usize,
+        /// The number given.
+        given: usize,
+    },
+    /// A constructor tag used with two different arities.
+    #[error("constructor {tag} is used with {first} and with {second} field(s)")]
+    ConArity {
+        /// The tag.
+        tag: String,
+        /// One arity seen.
+        first: u32,
+        /// Another.
+        second: u32,
+    },
+    /// Two arms of one case match the same constructor.
+    #[error("case has two arms for {tag}")]
+    DuplicateArm {
+        /// The tag.
+        tag: String,
+    },
+}
+
+/// A closed, validated term, ready for any machine.
+///
+/// A `Program` is a pair of references into the [`crate::Arena`] that holds the
+/// term, so it is `Copy`, `Send` and `Sync`: one parsed program can be run on
+/// many threads at once, each run with its own limits.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{Arena, Program};
+/// let arena = Arena::new();
+/// let program = Program::new(arena.lam(arena.var(0))).unwrap();
+/// assert!(program.term().is_value());
+/// ```
+#[derive(Clone, Copy, Debug)]
+pub struct Program<'a> {
+    root: &'a Term<'a>,
+}
+
+impl<'a> Program<'a> {
+    /// Validate `root` as a program.
+    ///
+    /// # Errors
+    ///
+    /// A [`ValidationError`] if the term is open, applies a primitive to the
+    /// wrong number of operands, uses one constructor tag with two arities, or
+    /// has a case with two arms for one tag.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Arena, Prim, Program};
+    /// let arena = Arena::new();
+    /// let bad = arena.prim(Prim::Add, &[arena.int(1)]);
+    /// assert!(Program::new(bad).is_err());
+    /// ```
+    pub fn new(root: &'a Term<'a>) -> Result<Self, ValidationError> {
+        validate(root)?;
+        Ok(Program { root })
+    }
+
+    /// The program's term.
+    pub fn term(&self) -> &'a Term<'a> {
+        self.root
+    }
+}
+
+/// Check the invariants of [`Program::new`] without building a program.
+///
+/// # Errors
+///
+/// See [`Program::new`].
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{validate, Arena};
+/// let arena = Arena::new();
+/// assert!(validate(arena.int(1)).is_ok());
+/// assert!(validate(arena.lam(arena.var(1))).is_err());
+/// ```
+pub fn validate(root: &Term<'_>) -> Result<(), ValidationError> {
+    if !root.is_closed() {
+        return Err(ValidationError::Open {
+            index: root.scope() - 1,
+        });
+    }
+    let mut arities: HashMap<&str, u32> = HashMap::new();
+    let mut seen: HashSet<*const Term<'_>> = HashSet::new();
+    let mut pending: Vec<&Term<'_>> = vec![root];
+    let mut note_arity = |tag, arity| -> Result<(), ValidationError> {
+        let first = *arities.entry(tag).or_insert(arity);
+        if first == arity {
+            Ok(())
+        } else {
+            Err(ValidationError::ConArity {
+                tag: tag.to_string(),
+                first,
+                second: arity,
+            })
+        }
+    };
+    while let Some(t) = pending.pop() {
+        let is_leaf = matches!(
+            t.node(),
+            Node::Var(_) | Node::Int(_) | Node::Bool(_) | Node::Str(_)
+        );
+        if is_leaf || !seen.insert(t as *const _) {
+            continue;
+        }
+        match *t.node() {
+            Node::Prim(op, args) if args.len() != op.arity() => {
+                return Err(ValidationError::PrimArity {
+                    name: op.name().to_string(),
+                    expected: op.arity(),
+                    given: args.len(),
+                });
+            }
+            Node::Con(tag, fields) => {
+                note_arity(tag, u32::try_from(fields.len()).unwrap_or(u32::MAX))?
+            }
+            Node::Case(_, arms, _) => {
+                let mut tags: HashSet<&str> = HashSet::with_capacity(arms.len());
+                for arm in arms {
+                    note_arity(arm.tag, arm.arity)?;
+                    if !tags.insert(arm.tag) {
+                        return Err(ValidationError::DuplicateArm {
+                            tag: arm.tag.to_string(),
+                        });
+                    }
+                }
+            }
+            _ => {}
+        }
+        pending.extend(t.children().map(|(child, _)| child));
+    }
+    Ok(())
+}
