@@ -4,6 +4,7 @@
 
 use std::fmt;
 
+use crate::prim::Operand;
 use crate::term::{Arena, Term};
 use crate::validate::Program;
 
@@ -277,6 +278,39 @@ impl EvalError {
             kind,
             message: message.into(),
         }
+    }
+
+    /// Applying `callee`, which is not a function. Every machine builds its
+    /// error through these constructors, so messages agree too.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{ErrorKind, EvalError, Operand};
+    /// let e = EvalError::not_a_function(Operand::Int(3));
+    /// assert_eq!(e.kind(), ErrorKind::NotAFunction);
+    /// ```
+    pub fn not_a_function(callee: Operand<'_>) -> Self {
+        EvalError::new(
+            ErrorKind::NotAFunction,
+            format!("cannot apply {}", callee.describe()),
+        )
+    }
+
+    /// An `if` whose condition is `condition`, not a boolean.
+    pub fn not_a_boolean(condition: Operand<'_>) -> Self {
+        EvalError::new(
+            ErrorKind::NotABoolean,
+            format!("the condition of an if is {}", condition.describe()),
+        )
+    }
+
+    /// A `case` with no arm for `scrutinee` and no default arm.
+    pub fn no_matching_case(scrutinee: Operand<'_>) -> Self {
+        EvalError::new(
+            ErrorKind::NoMatchingCase,
+            format!("no arm of the case matches {}", scrutinee.describe()),
+        )
     }
 
     /// The error's kind.

@@ -3,6 +3,8 @@
 //! explicit work stack, and skip any subterm whose scope shows it cannot contain
 //! the variables being changed, so substituting a closed value never copies it.
 
+use hashbrown::HashMap;
+
 use crate::term::{Arena, Arm, Node, Term};
 
 /// The d-place shift of Pierce §6.2.1, `↑ᵈ_c(t)`: add `d` to every free index
@@ -221,7 +223,6 @@ impl<'a> Rebuild<'a> {
     /// Pop `t`'s rebuilt children from `done` and make the new node, or reuse
     /// `t` itself when no child changed.
     fn build(&mut self, t: &'a Term<'a>) -> &'a Term<'a> {
-        let arena = self.arena;
         let n = t.children().count();
         let at = self.done.len() - n;
         let kids = &self.done[at..];
@@ -232,27 +233,72 @@ impl<'a> Rebuild<'a> {
         let rebuilt = if unchanged {
             t
         } else {
-            match *t.node() {
-                Node::Lam(_) => arena.lam(kids[0]),
-                Node::RecLam(_) => arena.rec_lam(kids[0]),
-                Node::App(..) => arena.app(kids[0], kids[1]),
-                Node::Let(..) => arena.let_in(kids[0], kids[1]),
-                Node::If(..) => arena.if_then_else(kids[0], kids[1], kids[2]),
-                Node::Prim(op, _) => arena.term(Node::Prim(op, arena.terms(kids))),
-                Node::Con(tag, _) => arena.term(Node::Con(tag, arena.terms(kids))),
-                Node::Case(_, arms, default) => {
-                    let new_arms: Vec<Arm<'a>> = arms
-                        .iter()
-                        .zip(&kids[1..])
-                        .map(|(arm, body)| Arm::new(arm.tag, arm.arity, body))
-                        .collect();
-                    let new_default = default.map(|_| kids[kids.len() - 1]);
-                    arena.term(Node::Case(kids[0], arena.arms(&new_arms), new_default))
-                }
-                Node::Var(_) | Node::Int(_) | Node::Bool(_) | Node::Str(_) => t,
-            }
+            node_with_children(self.arena, t, kids, |s| s)
         };
         self.done.truncate(at);
         rebuilt
     }
+}
+
+/// A node of `t`'s shape with the given children, allocated in `arena`;
+/// `text` maps `t`'s strings and tags into `arena`'s lifetime (the identity
+/// when `t` already lives there, a copy otherwise).
+fn node_with_children<'a, 'b>(
+    arena: &'a Arena,
+    t: &Term<'b>,
+    kids: &[&'a Term<'a>],
+    text: impl Fn(&'b str) -> &'a str,
+) -> &'a Term<'a> {
+    match *t.node() {
+        Node::Var(i) => arena.var(i),
+        Node::Int(n) => arena.int(n),
+        Node::Bool(b) => arena.boolean(b),
+        Node::Str(s) => arena.term(Node::Str(text(s))),
+        Node::Lam(_) => arena.lam(kids[0]),
+        Node::RecLam(_) => arena.rec_lam(kids[0]),
+        Node::App(..) => arena.app(kids[0], kids[1]),
+        Node::Let(..) => arena.let_in(kids[0], kids[1]),
+        Node::If(..) => arena.if_then_else(kids[0], kids[1], kids[2]),
+        Node::Prim(op, _) => arena.term(Node::Prim(op, arena.terms(kids))),
+        Node::Con(tag, _) => arena.term(Node::Con(text(tag), arena.terms(kids))),
+        Node::Case(_, arms, default) => {
+            let new_arms: Vec<Arm<'a>> = arms
+                .iter()
+                .zip(&kids[1..])
+                .map(|(arm, body)| Arm::new(text(arm.tag), arm.arity, body))
+                .collect();
+            let new_default = default.map(|_| kids[kids.len() - 1]);
+            arena.term(Node::Case(kids[0], arena.arms(&new_arms), new_default))
+        }
+    }
+}
+
+/// Copy `t` into `arena`, node for node, keeping its sharing: a node reached
+/// twice is copied once, so the copy has the size of `t`'s graph, not of its
+/// unfolding. Returns the copy and the number of nodes copied.
+pub(crate) fn copy_term<'a, 'b>(arena: &'a Arena, t: &'b Term<'b>) -> (&'a Term<'a>, usize) {
+    let mut memo: HashMap<*const Term<'b>, &'a Term<'a>> = HashMap::new();
+    let mut work: Vec<(&'b Term<'b>, bool)> = vec![(t, false)];
+    let mut done: Vec<&'a Term<'a>> = Vec::new();
+    while let Some((node, children_done)) = work.pop() {
+        let key = node as *const Term<'b>;
+        if children_done {
+            let n = node.children().count();
+            let at = done.len() - n;
+            let copy = node_with_children(arena, node, &done[at..], |s| arena.tag(s));
+            done.truncate(at);
+            memo.insert(key, copy);
+            done.push(copy);
+        } else if let Some(copy) = memo.get(&key) {
+            done.push(copy);
+        } else {
+            work.push((node, true));
+            let first_child = work.len();
+            work.extend(node.children().map(|(child, _)| (child, false)));
+            work[first_child..].reverse();
+        }
+    }
+    // The walk leaves exactly the root's copy on `done`.
+    let copy = done.pop().unwrap_or_else(|| arena.int(0));
+    (copy, memo.len())
 }

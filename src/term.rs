@@ -28,6 +28,7 @@ use crate::prim::Prim;
 pub struct Term<'a> {
     node: Node<'a>,
     scope: u32,
+    value: bool,
 }
 
 /// The shape of a term: one variant per construct of the calculus.
@@ -149,9 +150,8 @@ impl<'a> Term<'a> {
     }
 
     /// Whether the term is a value: a function, a recursive function, a literal,
-    /// or a constructor whose fields are all values.
-    ///
-    /// Iterative, so a constructor nested a million deep is fine.
+    /// or a constructor whose fields are all values. Recorded when the node is
+    /// built, so this is one load.
     ///
     /// # Examples
     ///
@@ -161,20 +161,9 @@ impl<'a> Term<'a> {
     /// assert!(arena.con("Pair", &[arena.int(1), arena.boolean(true)]).is_value());
     /// assert!(!arena.app(arena.lam(arena.var(0)), arena.int(1)).is_value());
     /// ```
+    #[inline]
     pub fn is_value(&self) -> bool {
-        let mut pending: Vec<&Term<'a>> = Vec::new();
-        let mut current: &Term<'a> = self;
-        loop {
-            match current.node {
-                Node::Lam(_) | Node::RecLam(_) | Node::Int(_) | Node::Bool(_) | Node::Str(_) => {}
-                Node::Con(_, fields) => pending.extend(fields.iter().copied()),
-                _ => return false,
-            }
-            match pending.pop() {
-                Some(next) => current = next,
-                None => return true,
-            }
-        }
+        self.value
     }
 
     /// The direct subterms, in evaluation order, each with the number of
@@ -277,6 +266,38 @@ impl Arena {
         Arena { bump: Bump::new() }
     }
 
+    /// Bytes of the arena's chunks already handed out (at most
+    /// [`allocated_bytes`](Arena::allocated_bytes)).
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// let arena = orrery::Arena::new();
+    /// arena.int(1);
+    /// assert!(arena.used_bytes() <= arena.allocated_bytes());
+    /// ```
+    pub fn used_bytes(&self) -> usize {
+        self.bump.allocated_bytes() - self.bump.chunk_capacity()
+    }
+
+    /// Copy a term from any arena into this one, keeping its sharing (a node
+    /// reached twice is copied once).
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::Arena;
+    /// let scratch = Arena::new();
+    /// let t = scratch.con("Pair", &[scratch.string("left"), scratch.int(2)]);
+    /// let keep = Arena::new();
+    /// let copy = keep.copy_term(t);
+    /// drop(scratch);
+    /// assert!(copy.is_value());
+    /// ```
+    pub fn copy_term<'a>(&'a self, term: &Term<'_>) -> &'a Term<'a> {
+        crate::subst::copy_term(self, term).0
+    }
+
     /// Bytes the arena has taken from the allocator so far.
     ///
     /// # Examples
@@ -305,7 +326,12 @@ impl Arena {
 
     #[inline]
     fn node<'a>(&'a self, node: Node<'a>, scope: u32) -> &'a Term<'a> {
-        self.bump.alloc(Term { node, scope })
+        let value = match node {
+            Node::Lam(_) | Node::RecLam(_) | Node::Int(_) | Node::Bool(_) | Node::Str(_) => true,
+            Node::Con(_, fields) => fields.iter().all(|f| f.value),
+            _ => false,
+        };
+        self.bump.alloc(Term { node, scope, value })
     }
 
     /// Allocate a term of the given shape, computing its scope.
