@@ -3,6 +3,7 @@
 #![deny(missing_docs)]
 #![forbid(unsafe_code)]
 
+mod agree;
 mod api;
 mod equal;
 mod prim;
@@ -14,6 +15,7 @@ mod validate;
 #[path = "../machines/mod.rs"]
 pub mod machines;
 
+pub use agree::disagreement;
 pub use api::{
     Counts, ErrorKind, EvalError, LimitError, LimitKind, Limits, Machine, MachineKind, Outcome,
     Report, Rule, DEFAULT_FUEL, DEFAULT_MEMORY,
@@ -21,6 +23,13 @@ pub use api::{
 pub use equal::terms_equal;
 pub use prim::{delta, Operand, Prim, PrimValue};
 pub use subst::{instantiate, shift, subst};
-pub use syntax::{parse, print, SyntaxError};
+pub use syntax::{
+    parse, parse_bytes, parse_term, print, print_limited, Printed, SyntaxError, PRINT_LIMIT,
+};
 pub use term::{Arena, Arm, Children, Node, Term};
 pub use validate::{validate, Program, ValidationError};
+
+/// The README's examples, compiled and run as doctests so they cannot rot.
+#[cfg(doctest)]
+#[doc = include_str!("../README.md")]
+pub struct ReadmeDoctests;

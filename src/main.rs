@@ -1,1 +1,304 @@
-fn main() {}
+//! The `orrery` command line (DESIGN §5): run a program file on one machine or
+//! on all of them, print the outcome as text or JSON lines, and exit with a
+//! status that says how the run ended.
+
+use std::io::Write;
+use std::process::ExitCode;
+
+use orrery::machines::stepper::Stepper;
+use orrery::{
+    disagreement, parse_bytes, print_limited, Arena, Limits, MachineKind, Outcome, Report, Rule,
+    DEFAULT_FUEL, DEFAULT_MEMORY,
+};
+
+/// Exit statuses of DESIGN §5.
+mod status {
+    pub const VALUE: u8 = 0;
+    pub const ERROR: u8 = 1;
+    pub const USAGE: u8 = 2;
+    pub const SYNTAX: u8 = 3;
+    pub const OUT_OF_FUEL: u8 = 4;
+    pub const LIMIT: u8 = 5;
+    pub const DISAGREE: u8 = 6;
+}
+
+/// Printed values longer than this are cut, with a marker.
+const VALUE_PRINT_LIMIT: usize = 1 << 20;
+
+/// A redex in a trace line is cut past this many bytes.
+const TRACE_PRINT_LIMIT: usize = 4096;
+
+fn usage() -> String {
+    let machines: Vec<&str> = MachineKind::enabled().iter().map(|m| m.name()).collect();
+    format!(
+        "orrery {version} — run a program of the orrery kernel calculus
+
+usage:
+  orrery run FILE [--machine NAME] [--fuel N] [--memory BYTES] [--json] [--trace]
+  orrery help
+
+options:
+  --machine NAME   one of: {names}, or all (every machine, checking that they
+                   agree); default: {default}
+  --fuel N         contractions allowed; default {fuel}
+  --memory BYTES   bytes of runtime data allowed; default {memory} ({mib} MiB)
+  --json           one JSON object per machine, one per line, on stdout
+  --trace          print each contraction (rule and redex) of the stepper on stderr
+
+exit status: 0 a value, 1 an evaluation error, 2 bad usage, 3 a syntax or name
+error, 4 out of fuel, 5 a resource limit, 6 the machines disagree.
+Values longer than {limit} bytes are printed cut short, ending in ` …[truncated]`.
+",
+        version = env!("CARGO_PKG_VERSION"),
+        names = machines.join(", "),
+        default = MachineKind::fastest().map_or("none", |m| m.name()),
+        fuel = DEFAULT_FUEL,
+        memory = DEFAULT_MEMORY,
+        mib = DEFAULT_MEMORY >> 20,
+        limit = VALUE_PRINT_LIMIT,
+    )
+}
+
+/// What the command line asked for.
+struct Request {
+    file: String,
+    machines: Vec<MachineKind>,
+    limits: Limits,
+    json: bool,
+    trace: bool,
+}
+
+/// Parse the arguments after the program name.
+fn parse_args(args: &[String]) -> Result<Option<Request>, String> {
+    let mut args = args.iter();
+    match args.next().map(String::as_str) {
+        Some("run") => {}
+        Some("help" | "--help" | "-h") => return Ok(None),
+        Some(other) => return Err(format!("unknown command `{other}`")),
+        None => return Err("missing command".to_string()),
+    }
+    let mut file = None;
+    let mut machine = None;
+    let mut limits = Limits::default();
+    let (mut json, mut trace) = (false, false);
+    while let Some(arg) = args.next() {
+        let mut value = |name: &str| {
+            args.next()
+                .cloned()
+                .ok_or_else(|| format!("{name} needs a value"))
+        };
+        match arg.as_str() {
+            "--machine" => machine = Some(value("--machine")?),
+            "--fuel" => {
+                let v = value("--fuel")?;
+                limits.fuel = v
+                    .parse()
+                    .map_err(|_| format!("--fuel takes a whole number, not `{v}`"))?;
+            }
+            "--memory" => {
+                let v = value("--memory")?;
+                limits.memory = v
+                    .parse()
+                    .map_err(|_| format!("--memory takes a number of bytes, not `{v}`"))?;
+            }
+            "--json" => json = true,
+            "--trace" => trace = true,
+            "--help" | "-h" => return Ok(None),
+            flag if flag.starts_with("--") => return Err(format!("unknown option `{flag}`")),
+            path if file.is_none() => file = Some(path.to_string()),
+            extra => return Err(format!("unexpected argument `{extra}`")),
+        }
+    }
+    let file = file.ok_or("run needs a FILE")?;
+    let machines = match machine.as_deref() {
+        None => vec![MachineKind::fastest().ok_or("this build has no machine")?],
+        Some("all") => MachineKind::enabled().to_vec(),
+        Some(name) => vec![MachineKind::from_name(name)
+            .ok_or_else(|| format!("unknown or disabled machine `{name}`"))?],
+    };
+    if trace && !machines.iter().any(|m| m.name() == "stepper") {
+        return Err(
+            "--trace shows the stepper's contractions: use --machine stepper or all".into(),
+        );
+    }
+    Ok(Some(Request {
+        file,
+        machines,
+        limits,
+        json,
+        trace,
+    }))
+}
+
+/// A JSON string literal.
+fn json_string(s: &str) -> String {
+    let mut out = String::with_capacity(s.len() + 2);
+    out.push('"');
+    for c in s.chars() {
+        match c {
+            '"' => out.push_str("\\\""),
+            '\\' => out.push_str("\\\\"),
+            '\n' => out.push_str("\\n"),
+            '\r' => out.push_str("\\r"),
+            '\t' => out.push_str("\\t"),
+            c if (c as u32) < 0x20 => out.push_str(&format!("\\u{:04x}", c as u32)),
+            c => out.push(c),
+        }
+    }
+    out.push('"');
+    out
+}
+
+/// One JSON line for a machine's report (DESIGN §5).
+fn json_line(machine: &str, report: &Report<'_>) -> String {
+    let mut line = format!(
+        "{{\"machine\":{},\"outcome\":\"{}\"",
+        json_string(machine),
+        report.outcome.name()
+    );
+    match &report.outcome {
+        Outcome::Value(v) => {
+            let printed = print_limited(v, VALUE_PRINT_LIMIT);
+            line.push_str(&format!(",\"value\":{}", json_string(&printed.text)));
+        }
+        Outcome::Error(e) => line.push_str(&format!(
+            ",\"error\":\"{}\",\"message\":{}",
+            e.kind().name(),
+            json_string(e.message())
+        )),
+        Outcome::OutOfFuel => {}
+        Outcome::Limit(l) => line.push_str(&format!(
+            ",\"limit\":\"{}\",\"message\":{}",
+            l.kind().name(),
+            json_string(l.message())
+        )),
+    }
+    let rules: Vec<String> = Rule::ALL
+        .iter()
+        .map(|r| format!("\"{}\":{}", r.name(), report.counts.get(*r)))
+        .collect();
+    line.push_str(&format!(
+        ",\"steps\":{},\"rules\":{{{}}}}}",
+        report.counts.total(),
+        rules.join(",")
+    ));
+    line
+}
+
+/// The human-readable report: the value on stdout, the rest on stderr.
+fn text_report(
+    machine: &str,
+    report: &Report<'_>,
+    stdout: &mut impl Write,
+    stderr: &mut impl Write,
+) -> std::io::Result<()> {
+    match &report.outcome {
+        Outcome::Value(v) => writeln!(stdout, "{}", print_limited(v, VALUE_PRINT_LIMIT).text)?,
+        Outcome::Error(e) => writeln!(
+            stderr,
+            "{machine}: error {}: {}",
+            e.kind().name(),
+            e.message()
+        )?,
+        Outcome::OutOfFuel => writeln!(
+            stderr,
+            "{machine}: out of fuel after {} contractions",
+            report.counts.total()
+        )?,
+        Outcome::Limit(l) => writeln!(
+            stderr,
+            "{machine}: limit {}: {}",
+            l.kind().name(),
+            l.message()
+        )?,
+    }
+    writeln!(stderr, "{machine}: {}", report.counts)
+}
+
+fn outcome_status(outcome: &Outcome<'_>) -> u8 {
+    match outcome {
+        Outcome::Value(_) => status::VALUE,
+        Outcome::Error(_) => status::ERROR,
+        Outcome::OutOfFuel => status::OUT_OF_FUEL,
+        Outcome::Limit(_) => status::LIMIT,
+    }
+}
+
+fn run(request: &Request) -> std::io::Result<u8> {
+    let stdout = std::io::stdout();
+    let stderr = std::io::stderr();
+    let (mut stdout, mut stderr) = (stdout.lock(), stderr.lock());
+    let source = match std::fs::read(&request.file) {
+        Ok(bytes) => bytes,
+        Err(e) => {
+            writeln!(stderr, "orrery: cannot read {}: {e}", request.file)?;
+            return Ok(status::USAGE);
+        }
+    };
+    let arena = Arena::new();
+    let program = match parse_bytes(&arena, &source) {
+        Ok(program) => program,
+        Err(e) => {
+            let text = String::from_utf8_lossy(&source);
+            write!(stderr, "{}", e.render(&request.file, &text))?;
+            return Ok(status::SYNTAX);
+        }
+    };
+    let mut reports: Vec<(&str, Report<'_>)> = Vec::new();
+    for machine in &request.machines {
+        let report = if request.trace && machine.name() == "stepper" {
+            let mut n = 0u64;
+            let mut trace_out = std::io::stderr();
+            Stepper::new().run_traced(&program, &request.limits, &arena, &mut |rule, redex| {
+                n += 1;
+                let printed = print_limited(redex, TRACE_PRINT_LIMIT);
+                // A closed stderr cannot stop the run; the outcome still counts.
+                let _ = writeln!(trace_out, "[{n}] {rule}: {}", printed.text);
+            })
+        } else {
+            machine.run(&program, &request.limits, &arena)
+        };
+        if request.json {
+            writeln!(stdout, "{}", json_line(machine.name(), &report))?;
+        } else {
+            text_report(machine.name(), &report, &mut stdout, &mut stderr)?;
+        }
+        reports.push((machine.name(), report));
+    }
+    let mut code = reports
+        .first()
+        .map_or(status::USAGE, |(_, r)| outcome_status(&r.outcome));
+    for (name, report) in reports.iter().skip(1) {
+        let (first, reference) = &reports[0];
+        if let Some(why) = disagreement(reference, report) {
+            writeln!(stderr, "orrery: {first} and {name} disagree: {why}")?;
+            code = status::DISAGREE;
+        }
+    }
+    if code != status::DISAGREE {
+        // When the machines agree but one stopped at a resource limit, say so.
+        if let Some((_, r)) = reports
+            .iter()
+            .find(|(_, r)| matches!(r.outcome, Outcome::Limit(_)))
+        {
+            code = outcome_status(&r.outcome);
+        }
+    }
+    Ok(code)
+}
+
+fn main() -> ExitCode {
+    let args: Vec<String> = std::env::args().skip(1).collect();
+    let code = match parse_args(&args) {
+        Ok(None) => {
+            print!("{}", usage());
+            status::VALUE
+        }
+        Ok(Some(request)) => run(&request).unwrap_or(status::USAGE),
+        Err(message) => {
+            eprintln!("orrery: {message}\n\n{}", usage());
+            status::USAGE
+        }
+    };
+    ExitCode::from(code)
+}
