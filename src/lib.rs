@@ -21,6 +21,8 @@ pub use api::{
 pub use equal::terms_equal;
 pub use prim::{delta, Operand, Prim, PrimValue};
 pub use subst::{instantiate, shift, subst};
-pub use syntax::{parse, print, SyntaxError};
+pub use syntax::{
+    parse, parse_bytes, parse_term, print, print_limited, Printed, SyntaxError, PRINT_LIMIT,
+};
 pub use term::{Arena, Arm, Children, Node, Term};
 pub use validate::{validate, Program, ValidationError};
