@@ -382,15 +382,15 @@ impl<'s, 'a> Parser<'s, 'a> {
             }
             Tok::Con(tag) => {
                 self.advance()?;
+                let base = self.fields.len();
                 if self.token.tok != Tok::LParen {
-                    return self.constructor(tag, token.start, 0);
+                    return self.constructor(tag, token.start, base);
                 }
                 self.advance()?;
                 if self.token.tok == Tok::RParen {
                     self.advance()?;
-                    return self.constructor(tag, token.start, 0);
+                    return self.constructor(tag, token.start, base);
                 }
-                let base = self.fields.len();
                 self.push_frame(Kind::Field {
                     tag,
                     at: token.start,

@@ -86,6 +86,24 @@ fn infix(prim: Prim) -> Option<(&'static str, u8, Assoc)> {
     })
 }
 
+/// Whether a term printed in a unary operand position starts with a digit:
+/// it is a non-negative literal at the head of a (possibly empty) spine of
+/// applications, the only unparenthesised forms there that begin with one.
+fn starts_with_digit(term: &Term<'_>) -> bool {
+    let mut term = term;
+    loop {
+        match *term.node() {
+            Node::App(function, _) => term = function,
+            Node::Int(n) => return n >= 0,
+            _ => return false,
+        }
+    }
+}
+
+fn is_negation(term: &Term<'_>) -> bool {
+    matches!(term.node(), Node::Prim(Prim::Neg, [_]))
+}
+
 /// A piece of work: print a term, or some text, or continue a list.
 #[derive(Clone, Copy, Debug)]
 enum Task<'t> {
@@ -366,11 +384,15 @@ impl<'f> Printer<'f> {
                         tasks.push(Task::Text(")"));
                         tasks.push(Task::Term(operand, depth, DELIMITED));
                     }
-                    Node::Prim(Prim::Neg, [_]) => {
-                        self.out.push(' ');
+                    _ => {
+                        // `-5 x` would read as the literal −5 applied to x, so a
+                        // space keeps the minus apart from a leading digit; `- -x`
+                        // reads better than `--x`.
+                        if starts_with_digit(operand) || is_negation(operand) {
+                            self.out.push(' ');
+                        }
                         tasks.push(Task::Term(operand, depth, at_least(UNARY)));
                     }
-                    _ => tasks.push(Task::Term(operand, depth, at_least(UNARY))),
                 }
             }
             _ => {
