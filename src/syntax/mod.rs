@@ -30,6 +30,26 @@
 //! built-in functions, and an unbound name is an error. A built-in function
 //! applied to fewer arguments than it takes (or passed as a value) is
 //! η-expanded into a lambda.
+//!
+//! # Fine points
+//!
+//! - Whitespace is space, tab, carriage return and line feed; any other
+//!   character outside a string or comment is an error. Names and constructor
+//!   names are ASCII.
+//! - `- 7` (with a space) and `-(7)` are negation; only `-7` is a literal.
+//!   Digits running straight into a name (`12abc`) are an error.
+//! - `_` alone binds a slot nothing can refer to (`\_ x. x`, `let _ = e in b`,
+//!   `Cons(_, t)`); using it as a value is an error. `_x` is an ordinary name.
+//! - `not` is a prefix operator, not an argument: write `f (not x)`.
+//! - Shadowing is allowed everywhere, including among the parameters of one
+//!   lambda or pattern (`\x x. x` returns its second argument).
+//! - `rec f x y. e` is this crate's own form for a standalone recursive
+//!   function, so that the printer can write every term.
+//! - The printer names binders by de Bruijn level: a name says how many
+//!   binders enclose its binder, so two binders on one path never share a name
+//!   and nothing can be captured. `let f x = e` is printed as
+//!   `let a = \a. e` (the function is not in scope in its own body, so its
+//!   name and its parameter's are both level-numbered from the same depth).
 
 mod lexer;
 mod parser;
@@ -210,7 +230,7 @@ impl Functions {
     }
 }
 
-/// The most bytes [`print`] writes before it cuts the text short (1 MiB).
+/// The most bytes [`print`](fn@print) writes before it cuts the text short (1 MiB).
 ///
 /// # Examples
 ///
@@ -346,7 +366,7 @@ pub fn print(term: &Term<'_>) -> String {
     print_limited(term, PRINT_LIMIT).text
 }
 
-/// Print a term like [`print`], writing at most `max_bytes` bytes of it.
+/// Print a term like [`print`](fn@print), writing at most `max_bytes` bytes of it.
 ///
 /// Printing stops as soon as the limit is passed, so it takes time linear in
 /// `max_bytes` however large the term's unfolding is.
