@@ -1219,6 +1219,46 @@ proptest! {
     }
 
     #[test]
+    fn edited_programs_never_panic_and_round_trip(
+        choices in proptest::collection::vec(any::<u32>(), 0..120),
+        edits in proptest::collection::vec((any::<usize>(), 0..4usize, 0..TOKENS.len()), 1..4),
+    ) {
+        // Start from a valid program and damage it a little: most results are
+        // near-misses that drive the parser deep before they fail (or parse).
+        let arena = Arena::new();
+        let term = Gen { arena: &arena, choices: &choices, at: 0 }.term(0, 6);
+        let mut text = print(term);
+        for (position, kind, token) in edits {
+            let boundaries: Vec<usize> = text
+                .char_indices()
+                .map(|(i, _)| i)
+                .chain([text.len()])
+                .collect();
+            let at = boundaries[position % boundaries.len()];
+            let next = boundaries.iter().copied().find(|&b| b > at).unwrap_or(at);
+            match kind {
+                0 => text.replace_range(at..next, ""),
+                1 => text.insert_str(at, TOKENS[token]),
+                2 => text.replace_range(at..next, TOKENS[token]),
+                _ => {
+                    let copy = text[at..next].to_string();
+                    text.insert_str(at, &copy);
+                }
+            }
+        }
+        let edited = Arena::new();
+        match parse_term(&edited, &text) {
+            Ok(parsed) => {
+                round_trip(parsed);
+            }
+            Err(e) => {
+                prop_assert!(e.line >= 1 && e.column >= 1);
+                let _ = e.render("edited", &text);
+            }
+        }
+    }
+
+    #[test]
     fn arbitrary_bytes_never_panic(bytes in proptest::collection::vec(any::<u8>(), 0..300)) {
         let arena = Arena::new();
         if let Err(e) = parse_bytes(&arena, &bytes) {
