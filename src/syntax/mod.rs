@@ -397,35 +397,3 @@ pub fn print_limited(term: &Term<'_>, max_bytes: usize) -> Printed {
     Printed { text, truncated }
 }
 
-/// Stub.
-pub const PRINT_LIMIT: usize = 1 << 20;
-/// Stub.
-pub struct Printed {
-    /// Stub.
-    pub text: String,
-    /// Stub.
-    pub truncated: bool,
-}
-/// Stub.
-pub fn print_limited(term: &Term<'_>, max: usize) -> Printed {
-    let _ = (term, max);
-    Printed {
-        text: String::new(),
-        truncated: false,
-    }
-}
-/// Stub.
-pub fn parse_term<'a>(arena: &'a Arena, source: &str) -> Result<&'a Term<'a>, SyntaxError> {
-    parse(arena, source).map(|p| p.term())
-}
-/// Stub.
-pub fn parse_bytes<'a>(arena: &'a Arena, source: &[u8]) -> Result<Program<'a>, SyntaxError> {
-    parse(arena, std::str::from_utf8(source).unwrap_or(""))
-}
-impl SyntaxError {
-    /// Stub.
-    pub fn render(&self, file: &str, source: &str) -> String {
-        let _ = source;
-        format!("{file}:{self}\n")
-    }
-}
