@@ -211,6 +211,9 @@ enum Segment<'r> {
     Limit(LimitError),
 }
 
+/// A callback given each contraction's rule and redex.
+type Trace<'t> = &'t mut dyn FnMut(Rule, &Term<'_>);
+
 /// Everything a stretch of reduction reads and updates besides the arena.
 struct Budget<'t> {
     fuel: u64,
@@ -221,7 +224,7 @@ struct Budget<'t> {
     /// Compact once the main arena has handed out this much.
     compact_at: usize,
     stop_after_one: bool,
-    trace: Option<&'t mut dyn FnMut(Rule, &Term<'_>)>,
+    trace: Option<Trace<'t>>,
 }
 
 /// Reduce from `start` with refocusing until a value, an error, the end of
@@ -428,7 +431,6 @@ pub fn step<'r>(arena: &'r Arena, term: &'r Term<'r>) -> Step<'r> {
         trace: Some(&mut record),
     };
     let end = reduce(arena, term, &mut budget);
-    drop(budget);
     match (end, seen) {
         (Segment::Stepped(next), Some((rule, redex))) => Step::Contracted { rule, redex, next },
         (Segment::Error(error), Some((rule, redex))) => Step::Stuck { rule, redex, error },
@@ -479,7 +481,7 @@ impl Stepper {
         program: &Program<'a>,
         limits: &Limits,
         out: &'o Arena,
-        trace: Option<&mut dyn FnMut(Rule, &Term<'_>)>,
+        trace: Option<Trace<'_>>,
     ) -> Report<'o> {
         let main = &mut self.main;
         let spare = &mut self.spare;
