@@ -2,3 +2,6 @@
 
 #[cfg(feature = "stepper")]
 pub mod stepper;
+
+#[cfg(feature = "cek")]
+pub mod cek;
