@@ -3,5 +3,8 @@
 #[cfg(feature = "stepper")]
 pub mod stepper;
 
+#[cfg(feature = "env")]
+pub mod env;
+
 #[cfg(feature = "cek")]
 pub mod cek;
