@@ -15,7 +15,10 @@
 
 use std::rc::Rc;
 
-use crate::value::{apply_prim, free_variable, read_back, Closure, ConCell, Meter, Value, Values};
+use crate::value::{
+    apply_prim, free_variable, int_prim, int_test, read_back, Closure, ConCell, Meter, Value,
+    Values,
+};
 use crate::{
     Arena, Arm, Counts, EvalError, LimitError, Limits, Machine, Node, Operand, Outcome, Prim,
     Program, Report, Rule, Term,
@@ -488,6 +491,96 @@ impl<'a> CekRun<'a> {
         self.check_memory(meter)
     }
 
+    /// Contract the application of `function` to `argument`, its fuel
+    /// already paid: enter the body with the callee's locals where the
+    /// continuation's end (so a tail call reuses the caller's).
+    #[inline]
+    fn call(&mut self, function: Val<'a>, argument: Val<'a>) -> Result<Control<'a>, Halt> {
+        let Value::Fun(closure) = function else {
+            return Err(Halt::Error(EvalError::not_a_function(function.operand())));
+        };
+        self.locals.truncate(self.floor);
+        let base = self.locals.len();
+        let (body, depth) = match *closure.code.node() {
+            Node::RecLam(body) => {
+                self.locals.push(Value::Fun(Rc::clone(&closure)));
+                (body, 2)
+            }
+            Node::Lam(body) => (body, 1),
+            _ => return Err(Halt::Error(EvalError::not_a_function(Operand::Function))),
+        };
+        self.locals.push(argument);
+        self.env = Env {
+            closure: Some(closure),
+            base,
+            depth,
+        };
+        Ok(Control::Eval(body))
+    }
+
+    /// Whether `term` is an atom: a variable or a literal, whose evaluation
+    /// is free and cannot fail.
+    #[inline]
+    fn is_atom(&self, term: &Term<'a>) -> bool {
+        matches!(
+            term.node(),
+            Node::Var(_) | Node::Int(_) | Node::Bool(_) | Node::Str(_) | Node::Con(_, [])
+        )
+    }
+
+    /// The value of an atom (`None` if `term` is not one).
+    #[inline]
+    fn atom(&self, term: &'a Term<'a>) -> Result<Option<Val<'a>>, Halt> {
+        Ok(match *term.node() {
+            Node::Var(index) => Some(self.lookup(index)?),
+            Node::Int(n) => Some(Value::Int(n)),
+            Node::Bool(b) => Some(Value::Bool(b)),
+            Node::Str(_) | Node::Con(_, []) => Some(Value::Lit(term)),
+            _ => None,
+        })
+    }
+
+    /// The integer an atom stands for, read without making a value.
+    #[inline]
+    fn int(&self, term: &Term<'a>) -> Option<i64> {
+        match *term.node() {
+            Node::Int(n) => Some(n),
+            Node::Var(index) => {
+                let env = &self.env;
+                let found = if index < env.depth {
+                    self.locals.get(env.extent() - 1 - index as usize)
+                } else {
+                    env.closure
+                        .as_ref()
+                        .and_then(|c| c.captured.get((index - env.depth) as usize))
+                };
+                match found {
+                    Some(&Value::Int(n)) => Some(n),
+                    _ => None,
+                }
+            }
+            _ => None,
+        }
+    }
+
+    /// Both operands as integers, if they are integer atoms.
+    #[inline]
+    fn int_operands(&self, a: &Term<'a>, b: &Term<'a>) -> Option<(i64, i64)> {
+        Some((self.int(a)?, self.int(b)?))
+    }
+
+    /// The outcome of a condition `op(a, b)` that compares integer atoms.
+    #[inline]
+    fn int_test(&self, condition: &Term<'a>) -> Option<bool> {
+        match *condition.node() {
+            Node::Prim(op, &[a, b]) => {
+                let (x, y) = self.int_operands(a, b)?;
+                int_test(op, x, y)
+            }
+            _ => None,
+        }
+    }
+
     /// Run the machine until a value, an error, a limit, or the end of the
     /// fuel. On running out of fuel the control is saved (a value about to
     /// meet the top frame), so that execution can continue from there.
@@ -503,6 +596,65 @@ impl<'a> CekRun<'a> {
                     Node::Bool(b) => Control::Return(Value::Bool(b)),
                     Node::Str(_) => Control::Return(Value::Lit(term)),
                     Node::Lam(_) | Node::RecLam(_) => Control::Return(self.close(term)?),
+                    // Shortcuts for operands that are atoms (variables and
+                    // literals), whose evaluation is free and cannot fail:
+                    // the same contractions in the same order, without the
+                    // frames. Each is taken only when the fuel covers all its
+                    // contractions, so a pause still falls between frames.
+                    Node::App(function, argument) if self.is_atom(function) => {
+                        let Some(f) = self.atom(function)? else {
+                            return Err(Halt::Error(free_variable(0)));
+                        };
+                        match self.atom(argument)? {
+                            Some(a) if self.fuel > 0 => {
+                                self.take_fuel(call_rule(&f), meter)?;
+                                self.call(f, a)?
+                            }
+                            _ => {
+                                self.kont.push(Frame::Call { function: f });
+                                Control::Eval(argument)
+                            }
+                        }
+                    }
+                    Node::If(condition, yes, no) if self.fuel >= 2 => {
+                        match self.int_test(condition) {
+                            Some(holds) => {
+                                self.take_fuel(Rule::Prim, meter)?;
+                                self.take_fuel(Rule::If, meter)?;
+                                Control::Eval(if holds { yes } else { no })
+                            }
+                            None => {
+                                self.push(|env, below| Frame::If {
+                                    yes,
+                                    no,
+                                    env,
+                                    below,
+                                });
+                                Control::Eval(condition)
+                            }
+                        }
+                    }
+                    Node::Prim(op, operands @ &[a, b]) if self.fuel > 0 => {
+                        match self
+                            .int_operands(a, b)
+                            .and_then(|(x, y)| int_prim(op, x, y))
+                        {
+                            Some(value) => {
+                                self.take_fuel(Rule::Prim, meter)?;
+                                Control::Return(value)
+                            }
+                            None => {
+                                self.push(|env, below| Frame::Operand {
+                                    op,
+                                    operands,
+                                    index: 0,
+                                    env,
+                                    below,
+                                });
+                                Control::Eval(a)
+                            }
+                        }
+                    }
                     Node::App(function, argument) => {
                         self.push(|env, below| Frame::Argument {
                             argument,
@@ -570,12 +722,7 @@ impl<'a> CekRun<'a> {
                     // Is handing the value to the top frame a contraction?
                     let rule = match self.kont.last() {
                         None => return Ok(value),
-                        Some(Frame::Call { function }) => Some(match function {
-                            Value::Fun(f) if matches!(f.code.node(), Node::RecLam(_)) => {
-                                Rule::BetaRec
-                            }
-                            _ => Rule::Beta,
-                        }),
+                        Some(Frame::Call { function }) => Some(call_rule(function)),
                         Some(Frame::Let { .. }) => Some(Rule::Let),
                         Some(Frame::If { .. }) => Some(Rule::If),
                         Some(Frame::Case { .. }) => Some(Rule::Case),
@@ -619,29 +766,7 @@ impl<'a> CekRun<'a> {
                 self.kont.push(Frame::Call { function: value });
                 Control::Eval(argument)
             }
-            Frame::Call { function } => {
-                let Value::Fun(closure) = function else {
-                    return Err(Halt::Error(EvalError::not_a_function(function.operand())));
-                };
-                // The callee's locals go where the continuation's end.
-                self.locals.truncate(self.floor);
-                let base = self.locals.len();
-                let (body, depth) = match *closure.code.node() {
-                    Node::RecLam(body) => {
-                        self.locals.push(Value::Fun(Rc::clone(&closure)));
-                        (body, 2)
-                    }
-                    Node::Lam(body) => (body, 1),
-                    _ => return Err(Halt::Error(EvalError::not_a_function(Operand::Function))),
-                };
-                self.locals.push(value);
-                self.env = Env {
-                    closure: Some(closure),
-                    base,
-                    depth,
-                };
-                Control::Eval(body)
-            }
+            Frame::Call { function } => self.call(function, value)?,
             Frame::Let { body, env, below } => {
                 self.floor = below;
                 self.enter(env);
@@ -743,6 +868,15 @@ impl<'a> CekRun<'a> {
                 }
             }
         })
+    }
+}
+
+/// The rule under which applying `function` is counted.
+#[inline]
+fn call_rule(function: &Val<'_>) -> Rule {
+    match function {
+        Value::Fun(f) if matches!(f.code.node(), Node::RecLam(_)) => Rule::BetaRec,
+        _ => Rule::Beta,
     }
 }
 

@@ -13,8 +13,11 @@
 
 use std::rc::Rc;
 
+use smallvec::SmallVec;
+
 use crate::value::{
-    apply_prim, free_variable, read_back, Closure, Code, ConCell, Meter, Value, Values,
+    apply_prim, free_variable, int_prim, int_test, read_back, Closure, Code, ConCell, Meter, Value,
+    Values,
 };
 use crate::{
     Arena, Counts, ErrorKind, EvalError, LimitError, Limits, Machine, Node, Outcome, Prim, Program,
@@ -102,6 +105,7 @@ impl Machine for Env {
             code: &compiled,
             stack: Vec::new(),
             tasks: Vec::new(),
+            callers: Vec::new(),
             base: 0,
             closure: None,
             fuel: limits.fuel,
@@ -141,10 +145,9 @@ impl Span {
     }
 }
 
-/// One node of compiled code. Variables are resolved to frame slots and
-/// captured values; everything else mirrors the term.
+/// An operand that costs nothing to evaluate: a variable or a literal.
 #[derive(Clone, Copy, Debug)]
-enum Instr<'a> {
+enum Atom<'a> {
     /// A local of the current frame.
     Local(u32),
     /// A value captured by the current closure.
@@ -153,11 +156,33 @@ enum Instr<'a> {
     Bool(bool),
     /// A string literal or a constructor with no fields.
     Lit(&'a Term<'a>),
+}
+
+/// One node of compiled code. Variables are resolved to frame slots and
+/// captured values; everything else mirrors the term, except that common
+/// shapes whose operands are atoms get instructions of their own (as in
+/// A-normal form, Flanagan et al., "The essence of compiling with
+/// continuations", 1993), which skip the work stack.
+#[derive(Clone, Copy, Debug)]
+enum Instr<'a> {
+    Atom(Atom<'a>),
     /// Make a closure of function `Compiled::funs[_]`.
     Closure(u32),
     App {
         function: CodeId,
         argument: CodeId,
+        tail: bool,
+    },
+    /// An application whose function is an atom.
+    AppAtomFunction {
+        function: Atom<'a>,
+        argument: CodeId,
+        tail: bool,
+    },
+    /// An application of an atom to an atom.
+    AppAtoms {
+        function: Atom<'a>,
+        argument: Atom<'a>,
         tail: bool,
     },
     Let {
@@ -170,9 +195,28 @@ enum Instr<'a> {
         yes: CodeId,
         no: CodeId,
     },
+    /// `if op(a, b) then … else …` with atom operands: two contractions.
+    IfPrim2 {
+        op: Prim,
+        a: Atom<'a>,
+        b: Atom<'a>,
+        yes: CodeId,
+        no: CodeId,
+    },
     Prim {
         op: Prim,
         operands: Span,
+    },
+    /// A unary primitive on an atom.
+    Prim1 {
+        op: Prim,
+        a: Atom<'a>,
+    },
+    /// A binary primitive on atoms.
+    Prim2 {
+        op: Prim,
+        a: Atom<'a>,
+        b: Atom<'a>,
     },
     Con {
         tag: &'a str,
@@ -242,7 +286,15 @@ struct Compiled<'a> {
     frame: u32,
 }
 
-impl Compiled<'_> {
+impl<'a> Compiled<'a> {
+    /// The atom that code `id` is, if it is one.
+    fn atom(&self, id: CodeId) -> Option<Atom<'a>> {
+        match self.code.get(id as usize) {
+            Some(&Instr::Atom(atom)) => Some(atom),
+            _ => None,
+        }
+    }
+
     /// Bytes of compiled code, as the memory limit counts them.
     fn bytes(&self) -> usize {
         self.code.capacity() * std::mem::size_of::<Instr<'_>>()
@@ -329,21 +381,21 @@ fn compile<'a>(root: &'a Term<'a>) -> Result<Compiled<'a>, u32> {
                 };
                 scope.frame = scope.frame.max(depth);
                 let leaf = match *t.node() {
-                    Node::Var(k) if k < depth => Some(Instr::Local(depth - 1 - k)),
+                    Node::Var(k) if k < depth => Some(Atom::Local(depth - 1 - k)),
                     Node::Var(k) => {
                         if top_level {
                             return Err(k - depth);
                         }
-                        Some(Instr::Free(scope.capture(k - depth)))
+                        Some(Atom::Free(scope.capture(k - depth)))
                     }
-                    Node::Int(n) => Some(Instr::Int(n)),
-                    Node::Bool(b) => Some(Instr::Bool(b)),
-                    Node::Str(_) => Some(Instr::Lit(t)),
-                    Node::Con(_, []) => Some(Instr::Lit(t)),
+                    Node::Int(n) => Some(Atom::Int(n)),
+                    Node::Bool(b) => Some(Atom::Bool(b)),
+                    Node::Str(_) => Some(Atom::Lit(t)),
+                    Node::Con(_, []) => Some(Atom::Lit(t)),
                     _ => None,
                 };
-                if let Some(instr) = leaf {
-                    let id = emit(&mut c, instr);
+                if let Some(atom) = leaf {
+                    let id = emit(&mut c, Instr::Atom(atom));
                     done.push(id);
                     continue;
                 }
@@ -424,10 +476,22 @@ fn compile<'a>(root: &'a Term<'a>) -> Result<Compiled<'a>, u32> {
                         Node::App(..) => {
                             let argument = done.pop().unwrap_or(0);
                             let function = done.pop().unwrap_or(0);
-                            Instr::App {
-                                function,
-                                argument,
-                                tail,
+                            match (c.atom(function), c.atom(argument)) {
+                                (Some(function), Some(argument)) => Instr::AppAtoms {
+                                    function,
+                                    argument,
+                                    tail,
+                                },
+                                (Some(function), None) => Instr::AppAtomFunction {
+                                    function,
+                                    argument,
+                                    tail,
+                                },
+                                _ => Instr::App {
+                                    function,
+                                    argument,
+                                    tail,
+                                },
                             }
                         }
                         Node::Let(..) => {
@@ -443,12 +507,32 @@ fn compile<'a>(root: &'a Term<'a>) -> Result<Compiled<'a>, u32> {
                             let no = done.pop().unwrap_or(0);
                             let yes = done.pop().unwrap_or(0);
                             let condition = done.pop().unwrap_or(0);
-                            Instr::If { condition, yes, no }
+                            match c.code.get(condition as usize) {
+                                Some(&Instr::Prim2 { op, a, b }) => {
+                                    Instr::IfPrim2 { op, a, b, yes, no }
+                                }
+                                _ => Instr::If { condition, yes, no },
+                            }
                         }
-                        Node::Prim(op, operands) => Instr::Prim {
-                            op,
-                            operands: span(&mut c.lists, &mut done, operands.len()),
-                        },
+                        Node::Prim(op, operands) => {
+                            let at = done.len().saturating_sub(operands.len());
+                            let atoms: SmallVec<[Option<Atom<'a>>; 2]> =
+                                done[at..].iter().map(|&id| c.atom(id)).collect();
+                            match atoms[..] {
+                                [Some(a)] => {
+                                    done.truncate(at);
+                                    Instr::Prim1 { op, a }
+                                }
+                                [Some(a), Some(b)] => {
+                                    done.truncate(at);
+                                    Instr::Prim2 { op, a, b }
+                                }
+                                _ => Instr::Prim {
+                                    op,
+                                    operands: span(&mut c.lists, &mut done, operands.len()),
+                                },
+                            }
+                        }
                         Node::Con(tag, fields) => Instr::Con {
                             tag,
                             fields: span(&mut c.lists, &mut done, fields.len()),
@@ -494,29 +578,52 @@ type Val<'a, 'c> = Value<'a, &'c Function<'a>>;
 /// A closure of this machine.
 type Fun<'a, 'c> = Closure<'a, &'c Function<'a>>;
 
-/// Pending work: evaluate some code, or do something with the values that
-/// earlier work left on the value stack.
-enum Task<'a, 'c> {
-    /// Evaluate code, leaving its value on the stack.
-    Eval(CodeId),
+/// Pending work, packed in one word (so that pushing it is one store): what
+/// to do, and the compiled node it concerns, whose operands say the rest.
+#[derive(Clone, Copy, Debug)]
+struct Task(u64);
+
+impl Task {
+    /// Evaluate the node, leaving its value on the stack.
+    const EVAL: u64 = 0;
     /// Apply the function under the argument on top of the stack.
-    Call { tail: bool },
-    /// Bind the value on top to a slot and evaluate the body.
-    Bind { slot: u32, body: CodeId },
-    /// Branch on the boolean on top.
-    Branch { yes: CodeId, no: CodeId },
-    /// Apply a primitive to the top `n` values.
-    Prim { op: Prim, n: u32 },
-    /// Make a constructor of the top `n` values.
-    Build { tag: &'a str, n: u32 },
-    /// Match the value on top against the arms of `Instr::Case` `case`.
-    Match { case: CodeId },
+    const CALL: u64 = 1;
+    /// The same, in tail position: the callee's frame replaces the caller's.
+    const TAIL_CALL: u64 = 2;
+    /// `Instr::Let`: bind the value on top and evaluate the body.
+    const BIND: u64 = 3;
+    /// `Instr::If`: branch on the boolean on top.
+    const BRANCH: u64 = 4;
+    /// `Instr::Prim`: apply the primitive to the values on top.
+    const PRIM: u64 = 5;
+    /// `Instr::Con`: make a constructor of the values on top.
+    const BUILD: u64 = 6;
+    /// `Instr::Case`: match the value on top against the arms.
+    const MATCH: u64 = 7;
     /// A call has returned: pop its frame from under the value on top and
-    /// make the caller's frame current again.
-    Return {
-        base: usize,
-        closure: Option<Rc<Fun<'a, 'c>>>,
-    },
+    /// make the caller's current again (the caller is on `Run::callers`).
+    const RETURN: u64 = 8;
+
+    #[inline]
+    fn new(kind: u64, code: CodeId) -> Task {
+        Task(kind | u64::from(code) << 8)
+    }
+
+    #[inline]
+    fn kind(self) -> u64 {
+        self.0 & 0xff
+    }
+
+    #[inline]
+    fn code(self) -> CodeId {
+        (self.0 >> 8) as CodeId
+    }
+}
+
+/// The frame and closure of a caller waiting for a call to return.
+struct Caller<'a, 'c> {
+    base: usize,
+    closure: Option<Rc<Fun<'a, 'c>>>,
 }
 
 /// Why [`Run::execute`] stopped without a value.
@@ -531,7 +638,8 @@ struct Run<'a, 'c> {
     code: &'c Compiled<'a>,
     /// Frames (each `frame` slots, from `base`) and intermediate values.
     stack: Vec<Val<'a, 'c>>,
-    tasks: Vec<Task<'a, 'c>>,
+    tasks: Vec<Task>,
+    callers: Vec<Caller<'a, 'c>>,
     /// Where the current frame starts.
     base: usize,
     /// The current function's closure (`None` at the top level).
@@ -559,7 +667,8 @@ impl<'a, 'c> Run<'a, 'c> {
         let held = self.meter.cells()
             + self.code_bytes
             + self.stack.capacity() * std::mem::size_of::<Val<'_, '_>>()
-            + self.tasks.capacity() * std::mem::size_of::<Task<'_, '_>>();
+            + self.tasks.capacity() * std::mem::size_of::<Task>()
+            + self.callers.capacity() * std::mem::size_of::<Caller<'_, '_>>();
         self.peak = self.peak.max(held);
         if held > self.memory {
             Err(Halt::Memory)
@@ -568,7 +677,8 @@ impl<'a, 'c> Run<'a, 'c> {
         }
     }
 
-    /// Take one unit of fuel for a contraction under `rule`.
+    /// Take one unit of fuel for a contraction under `rule`. (Memory is
+    /// sampled where it can grow: calls, closures, constructors, strings.)
     #[inline]
     fn take_fuel(&mut self, rule: Rule) -> Result<(), Halt> {
         if self.fuel == 0 {
@@ -576,7 +686,117 @@ impl<'a, 'c> Run<'a, 'c> {
         }
         self.fuel -= 1;
         self.counts.add(rule);
-        self.check_memory()
+        Ok(())
+    }
+
+    /// The value of an atom.
+    #[inline]
+    fn atom(&self, atom: Atom<'a>) -> Option<Val<'a, 'c>> {
+        match atom {
+            Atom::Local(slot) => self.local(slot),
+            Atom::Free(slot) => self.free(slot),
+            Atom::Int(n) => Some(Value::Int(n)),
+            Atom::Bool(b) => Some(Value::Bool(b)),
+            Atom::Lit(t) => Some(Value::Lit(t)),
+        }
+    }
+
+    /// Push the value of an atom.
+    #[inline]
+    fn push_atom(&mut self, atom: Atom<'a>) -> Result<(), Halt> {
+        match self.atom(atom) {
+            Some(value) => {
+                self.stack.push(value);
+                Ok(())
+            }
+            None => Err(inconsistent()),
+        }
+    }
+
+    /// The integer an atom stands for, if it is one, read without making a
+    /// value.
+    #[inline]
+    fn int(&self, atom: Atom<'a>) -> Option<i64> {
+        match atom {
+            Atom::Int(n) => Some(n),
+            Atom::Local(slot) => match self.stack.get(self.base + slot as usize) {
+                Some(&Value::Int(n)) => Some(n),
+                _ => None,
+            },
+            Atom::Free(slot) => match self.closure.as_ref()?.captured.get(slot as usize) {
+                Some(&Value::Int(n)) => Some(n),
+                _ => None,
+            },
+            _ => None,
+        }
+    }
+
+    /// Contract `op(a, b)` on atoms.
+    #[inline]
+    fn prim2(&mut self, op: Prim, a: Atom<'a>, b: Atom<'a>) -> Result<Val<'a, 'c>, Halt> {
+        self.take_fuel(Rule::Prim)?;
+        if let (Some(x), Some(y)) = (self.int(a), self.int(b)) {
+            if let Some(v) = int_prim(op, x, y) {
+                return Ok(v);
+            }
+        }
+        let (Some(a), Some(b)) = (self.atom(a), self.atom(b)) else {
+            return Err(inconsistent());
+        };
+        self.prim_result(apply_prim(op, &[a, b]))
+    }
+
+    /// A primitive's result; a new string is sampled against the limit.
+    #[inline]
+    fn prim_result(&mut self, result: Result<Val<'a, 'c>, EvalError>) -> Result<Val<'a, 'c>, Halt> {
+        let value = result.map_err(Halt::Error)?;
+        if matches!(value, Value::Str(_)) {
+            self.check_memory()?;
+        }
+        Ok(value)
+    }
+
+    /// Contract the application of `function` to `argument` (both already
+    /// values): enter the function's body in a new frame, which replaces the
+    /// caller's when the call is in tail position. Returns the body's code.
+    #[inline]
+    fn call(
+        &mut self,
+        function: Val<'a, 'c>,
+        argument: Val<'a, 'c>,
+        tail: bool,
+    ) -> Result<CodeId, Halt> {
+        let rule = match &function {
+            Value::Fun(f) if f.code.rec => Rule::BetaRec,
+            _ => Rule::Beta,
+        };
+        self.take_fuel(rule)?;
+        let closure = match function {
+            Value::Fun(closure) => closure,
+            // The argument was evaluated before the callee was found
+            // wanting, as in the stepper.
+            callee => return Err(Halt::Error(EvalError::not_a_function(callee.operand()))),
+        };
+        let code: &'c Function<'a> = closure.code;
+        if tail {
+            self.stack.truncate(self.base);
+        } else {
+            self.callers.push(Caller {
+                base: self.base,
+                closure: self.closure.take(),
+            });
+            self.tasks.push(Task::new(Task::RETURN, 0));
+        }
+        self.base = self.stack.len();
+        if code.rec {
+            self.stack.push(Value::Fun(Rc::clone(&closure)));
+        }
+        self.stack.push(argument);
+        self.stack
+            .resize(self.base + code.frame as usize, Value::Int(0));
+        self.closure = Some(closure);
+        self.check_memory()?;
+        Ok(code.body)
     }
 
     #[inline]
@@ -586,21 +806,17 @@ impl<'a, 'c> Run<'a, 'c> {
 
     /// The value of frame slot `slot`.
     #[inline]
-    fn local(&self, slot: u32) -> Result<Val<'a, 'c>, Halt> {
-        self.stack
-            .get(self.base + slot as usize)
-            .cloned()
-            .ok_or_else(inconsistent)
+    fn local(&self, slot: u32) -> Option<Val<'a, 'c>> {
+        self.stack.get(self.base + slot as usize).cloned()
     }
 
     /// The current closure's captured value `slot`.
     #[inline]
-    fn free(&self, slot: u32) -> Result<Val<'a, 'c>, Halt> {
+    fn free(&self, slot: u32) -> Option<Val<'a, 'c>> {
         self.closure
             .as_ref()
             .and_then(|c| c.captured.get(slot as usize))
             .cloned()
-            .ok_or_else(inconsistent)
     }
 
     /// Store `value` in frame slot `slot`.
@@ -612,6 +828,15 @@ impl<'a, 'c> Run<'a, 'c> {
             .ok_or_else(inconsistent)?;
         *place = value;
         Ok(())
+    }
+
+    /// The first value of the top `n` on the stack.
+    #[inline]
+    fn top(&self, n: u32) -> Result<usize, Halt> {
+        self.stack
+            .len()
+            .checked_sub(n as usize)
+            .ok_or_else(inconsistent)
     }
 
     /// Evaluate the program to a value.
@@ -626,26 +851,8 @@ impl<'a, 'c> Run<'a, 'c> {
                     return Err(inconsistent());
                 };
                 match instr {
-                    Instr::Local(slot) => {
-                        let v = self.local(slot)?;
-                        self.stack.push(v);
-                        break;
-                    }
-                    Instr::Free(slot) => {
-                        let v = self.free(slot)?;
-                        self.stack.push(v);
-                        break;
-                    }
-                    Instr::Int(n) => {
-                        self.stack.push(Value::Int(n));
-                        break;
-                    }
-                    Instr::Bool(b) => {
-                        self.stack.push(Value::Bool(b));
-                        break;
-                    }
-                    Instr::Lit(t) => {
-                        self.stack.push(Value::Lit(t));
+                    Instr::Atom(atom) => {
+                        self.push_atom(atom)?;
                         break;
                     }
                     Instr::Closure(index) => {
@@ -654,13 +861,15 @@ impl<'a, 'c> Run<'a, 'c> {
                         };
                         let mut captured = Values::with_capacity(function.fetch.len());
                         for fetch in &function.fetch {
-                            captured.push(match *fetch {
-                                Fetch::Local(slot) => self.local(slot)?,
-                                Fetch::Free(slot) => self.free(slot)?,
-                            });
+                            let value = match *fetch {
+                                Fetch::Local(slot) => self.local(slot),
+                                Fetch::Free(slot) => self.free(slot),
+                            };
+                            captured.push(value.ok_or_else(inconsistent)?);
                         }
                         self.stack
                             .push(Value::Fun(Closure::new(function, captured)));
+                        self.check_memory()?;
                         break;
                     }
                     Instr::App {
@@ -668,45 +877,95 @@ impl<'a, 'c> Run<'a, 'c> {
                         argument,
                         tail,
                     } => {
-                        self.tasks.push(Task::Call { tail });
-                        self.tasks.push(Task::Eval(argument));
+                        let call = if tail { Task::TAIL_CALL } else { Task::CALL };
+                        self.tasks.push(Task::new(call, 0));
+                        self.tasks.push(Task::new(Task::EVAL, argument));
                         pc = function;
                     }
-                    Instr::Let { bound, slot, body } => {
-                        self.tasks.push(Task::Bind { slot, body });
+                    Instr::AppAtomFunction {
+                        function,
+                        argument,
+                        tail,
+                    } => {
+                        self.push_atom(function)?;
+                        let call = if tail { Task::TAIL_CALL } else { Task::CALL };
+                        self.tasks.push(Task::new(call, 0));
+                        pc = argument;
+                    }
+                    Instr::AppAtoms {
+                        function,
+                        argument,
+                        tail,
+                    } => {
+                        let (Some(f), Some(a)) = (self.atom(function), self.atom(argument)) else {
+                            return Err(inconsistent());
+                        };
+                        pc = self.call(f, a, tail)?;
+                    }
+                    Instr::IfPrim2 { op, a, b, yes, no } => {
+                        if let (Some(x), Some(y)) = (self.int(a), self.int(b)) {
+                            if let Some(holds) = int_test(op, x, y) {
+                                self.take_fuel(Rule::Prim)?;
+                                self.take_fuel(Rule::If)?;
+                                pc = if holds { yes } else { no };
+                                continue;
+                            }
+                        }
+                        let condition = self.prim2(op, a, b)?;
+                        self.take_fuel(Rule::If)?;
+                        match condition {
+                            Value::Bool(b) => pc = if b { yes } else { no },
+                            other => {
+                                return Err(Halt::Error(EvalError::not_a_boolean(other.operand())))
+                            }
+                        }
+                    }
+                    Instr::Prim1 { op, a } => {
+                        self.take_fuel(Rule::Prim)?;
+                        let a = self.atom(a).ok_or_else(inconsistent)?;
+                        let v = self.prim_result(apply_prim(op, &[a]))?;
+                        self.stack.push(v);
+                        break;
+                    }
+                    Instr::Prim2 { op, a, b } => {
+                        let v = self.prim2(op, a, b)?;
+                        self.stack.push(v);
+                        break;
+                    }
+                    Instr::Let { bound, .. } => {
+                        self.tasks.push(Task::new(Task::BIND, pc));
                         pc = bound;
                     }
-                    Instr::If { condition, yes, no } => {
-                        self.tasks.push(Task::Branch { yes, no });
+                    Instr::If { condition, .. } => {
+                        self.tasks.push(Task::new(Task::BRANCH, pc));
                         pc = condition;
                     }
-                    Instr::Prim { op, operands } => {
-                        self.tasks.push(Task::Prim {
-                            op,
-                            n: operands.len,
-                        });
+                    Instr::Prim { operands, .. } => {
+                        self.tasks.push(Task::new(Task::PRIM, pc));
                         let Some(operands) = code.lists.get(operands.range()) else {
                             return Err(inconsistent());
                         };
                         let Some((&first, rest)) = operands.split_first() else {
                             break;
                         };
-                        self.tasks.extend(rest.iter().rev().map(|&o| Task::Eval(o)));
+                        self.tasks
+                            .extend(rest.iter().rev().map(|&o| Task::new(Task::EVAL, o)));
                         pc = first;
                     }
-                    Instr::Con { tag, fields } => {
-                        self.tasks.push(Task::Build { tag, n: fields.len });
+                    Instr::Con { fields, .. } => {
+                        self.tasks.push(Task::new(Task::BUILD, pc));
                         let Some(fields) = code.lists.get(fields.range()) else {
                             return Err(inconsistent());
                         };
                         let Some((&first, rest)) = fields.split_first() else {
                             break;
                         };
-                        self.tasks.extend(rest.iter().rev().map(|&f| Task::Eval(f)));
+                        self.tasks
+                            .extend(rest.iter().rev().map(|&f| Task::new(Task::EVAL, f)));
                         pc = first;
                     }
                     Instr::Case { scrutinee, .. } => {
-                        self.tasks.push(Task::Match { case: pc });
+                        self.tasks.push(Task::new(Task::MATCH, pc));
                         pc = scrutinee;
                     }
                 }
@@ -717,61 +976,41 @@ impl<'a, 'c> Run<'a, 'c> {
                 let Some(task) = self.tasks.pop() else {
                     return self.pop();
                 };
-                match task {
-                    Task::Eval(next) => {
-                        pc = next;
+                let at = task.code();
+                match task.kind() {
+                    Task::EVAL => {
+                        pc = at;
                         continue 'eval;
                     }
-                    Task::Call { tail } => {
-                        let callee = self
-                            .stack
-                            .len()
-                            .checked_sub(2)
-                            .and_then(|i| self.stack.get(i));
-                        let rule = match callee {
-                            Some(Value::Fun(f)) if f.code.rec => Rule::BetaRec,
-                            _ => Rule::Beta,
-                        };
-                        self.take_fuel(rule)?;
+                    kind @ (Task::CALL | Task::TAIL_CALL) => {
                         let argument = self.pop()?;
-                        let closure = match self.pop()? {
-                            Value::Fun(closure) => closure,
-                            // The argument was evaluated before the callee
-                            // was found wanting, as in the stepper.
-                            callee => {
-                                return Err(Halt::Error(EvalError::not_a_function(
-                                    callee.operand(),
-                                )))
-                            }
-                        };
-                        let function: &'c Function<'a> = closure.code;
-                        if tail {
-                            self.stack.truncate(self.base);
-                        } else {
-                            self.tasks.push(Task::Return {
-                                base: self.base,
-                                closure: self.closure.take(),
-                            });
-                        }
-                        self.base = self.stack.len();
-                        if function.rec {
-                            self.stack.push(Value::Fun(Rc::clone(&closure)));
-                        }
-                        self.stack.push(argument);
-                        self.stack
-                            .resize(self.base + function.frame as usize, Value::Int(0));
-                        self.closure = Some(closure);
-                        pc = function.body;
+                        let function = self.pop()?;
+                        pc = self.call(function, argument, kind == Task::TAIL_CALL)?;
                         continue 'eval;
                     }
-                    Task::Bind { slot, body } => {
+                    Task::RETURN => {
+                        let value = self.pop()?;
+                        self.stack.truncate(self.base);
+                        self.stack.push(value);
+                        let caller = self.callers.pop().ok_or_else(inconsistent)?;
+                        self.base = caller.base;
+                        self.closure = caller.closure;
+                        continue;
+                    }
+                    _ => {}
+                }
+                let Some(&instr) = code.code.get(at as usize) else {
+                    return Err(inconsistent());
+                };
+                match instr {
+                    Instr::Let { slot, body, .. } => {
                         self.take_fuel(Rule::Let)?;
                         let value = self.pop()?;
                         self.set_local(slot, value)?;
                         pc = body;
                         continue 'eval;
                     }
-                    Task::Branch { yes, no } => {
+                    Instr::If { yes, no, .. } => {
                         self.take_fuel(Rule::If)?;
                         match self.pop()? {
                             Value::Bool(b) => {
@@ -783,40 +1022,30 @@ impl<'a, 'c> Run<'a, 'c> {
                             }
                         }
                     }
-                    Task::Prim { op, n } => {
+                    Instr::Prim { op, operands } => {
                         self.take_fuel(Rule::Prim)?;
-                        let at = self
-                            .stack
-                            .len()
-                            .checked_sub(n as usize)
-                            .ok_or_else(inconsistent)?;
-                        let result = apply_prim(op, &self.stack[at..]);
-                        self.stack.truncate(at);
-                        self.stack.push(result.map_err(Halt::Error)?);
+                        let from = self.top(operands.len)?;
+                        let result = apply_prim(op, &self.stack[from..]);
+                        self.stack.truncate(from);
+                        let v = self.prim_result(result)?;
+                        self.stack.push(v);
                     }
-                    Task::Build { tag, n } => {
+                    Instr::Con { tag, fields } => {
                         // A constructor of values is a value: building it is free.
-                        let at = self
-                            .stack
-                            .len()
-                            .checked_sub(n as usize)
-                            .ok_or_else(inconsistent)?;
-                        let fields: Values<'a, &'c Function<'a>> = self.stack.drain(at..).collect();
+                        let from = self.top(fields.len)?;
+                        let fields: Values<'a, &'c Function<'a>> =
+                            self.stack.drain(from..).collect();
                         self.stack.push(Value::Con(ConCell::new(tag, fields)));
                         self.check_memory()?;
                     }
-                    Task::Match { case } => {
+                    Instr::Case {
+                        arms,
+                        default,
+                        slot,
+                        ..
+                    } => {
                         self.take_fuel(Rule::Case)?;
                         let value = self.pop()?;
-                        let Some(&Instr::Case {
-                            arms,
-                            default,
-                            slot,
-                            ..
-                        }) = code.code.get(case as usize)
-                        else {
-                            return Err(inconsistent());
-                        };
                         let arms = code.arms.get(arms.range()).ok_or_else(inconsistent)?;
                         if let Some((tag, fields)) = value.constructor() {
                             let arm = arms
@@ -842,13 +1071,7 @@ impl<'a, 'c> Run<'a, 'c> {
                             }
                         }
                     }
-                    Task::Return { base, closure } => {
-                        let value = self.pop()?;
-                        self.stack.truncate(self.base);
-                        self.stack.push(value);
-                        self.base = base;
-                        self.closure = closure;
-                    }
+                    _ => return Err(inconsistent()),
                 }
             }
         }
@@ -900,7 +1123,9 @@ mod tests {
             .code
             .iter()
             .filter_map(|i| match i {
-                Instr::App { tail, .. } => Some(*tail),
+                Instr::App { tail, .. }
+                | Instr::AppAtomFunction { tail, .. }
+                | Instr::AppAtoms { tail, .. } => Some(*tail),
                 _ => None,
             })
             .collect();

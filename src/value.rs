@@ -301,19 +301,7 @@ pub(crate) fn apply_prim<'a, C: Code<'a>>(
     args: &[Value<'a, C>],
 ) -> Result<Value<'a, C>, EvalError> {
     if let [Value::Int(a), Value::Int(b)] = *args {
-        let fast = match op {
-            Prim::Add => a.checked_add(b).map(Value::Int),
-            Prim::Sub => a.checked_sub(b).map(Value::Int),
-            Prim::Mul => a.checked_mul(b).map(Value::Int),
-            Prim::Lt => Some(Value::Bool(a < b)),
-            Prim::Le => Some(Value::Bool(a <= b)),
-            Prim::Gt => Some(Value::Bool(a > b)),
-            Prim::Ge => Some(Value::Bool(a >= b)),
-            Prim::Eq => Some(Value::Bool(a == b)),
-            Prim::Ne => Some(Value::Bool(a != b)),
-            _ => None,
-        };
-        if let Some(value) = fast {
+        if let Some(value) = int_prim(op, a, b) {
             return Ok(value);
         }
     }
@@ -323,6 +311,32 @@ pub(crate) fn apply_prim<'a, C: Code<'a>>(
         PrimValue::Bool(b) => Value::Bool(b),
         PrimValue::Str(s) => Value::Str(Text::new(s)),
     })
+}
+
+/// `op(x, y)` on integers when it is a comparison.
+#[inline]
+pub(crate) fn int_test(op: Prim, x: i64, y: i64) -> Option<bool> {
+    Some(match op {
+        Prim::Lt => x < y,
+        Prim::Le => x <= y,
+        Prim::Gt => x > y,
+        Prim::Ge => x >= y,
+        Prim::Eq => x == y,
+        Prim::Ne => x != y,
+        _ => return None,
+    })
+}
+
+/// `op(x, y)` on integers when it is a comparison or an arithmetic operation
+/// that does not fail; `None` sends everything else through `delta`.
+#[inline]
+pub(crate) fn int_prim<'a, C: Code<'a>>(op: Prim, x: i64, y: i64) -> Option<Value<'a, C>> {
+    match op {
+        Prim::Add => x.checked_add(y).map(Value::Int),
+        Prim::Sub => x.checked_sub(y).map(Value::Int),
+        Prim::Mul => x.checked_mul(y).map(Value::Int),
+        _ => int_test(op, x, y).map(Value::Bool),
+    }
 }
 
 /// The error for a variable that escapes every binder, which a validated
