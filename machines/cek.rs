@@ -12,6 +12,9 @@
 //! frames; a function body, a `let` body, an `if` branch and a case arm are
 //! entered without pushing one (proper tail calls), and a call reuses the
 //! locals no frame still needs, so a tail loop runs in constant space.
+//! Operands that are atoms (variables and literals) are evaluated in place,
+//! as in the atomic evaluation of Van Horn and Might ("Abstracting abstract
+//! machines", 2010), so `n - 1`, `if n < 2 …` and `f x` need no frames.
 
 use std::rc::Rc;
 
@@ -518,16 +521,6 @@ impl<'a> CekRun<'a> {
         Ok(Control::Eval(body))
     }
 
-    /// Whether `term` is an atom: a variable or a literal, whose evaluation
-    /// is free and cannot fail.
-    #[inline]
-    fn is_atom(&self, term: &Term<'a>) -> bool {
-        matches!(
-            term.node(),
-            Node::Var(_) | Node::Int(_) | Node::Bool(_) | Node::Str(_) | Node::Con(_, [])
-        )
-    }
-
     /// The value of an atom (`None` if `term` is not one).
     #[inline]
     fn atom(&self, term: &'a Term<'a>) -> Result<Option<Val<'a>>, Halt> {
@@ -601,11 +594,8 @@ impl<'a> CekRun<'a> {
                     // the same contractions in the same order, without the
                     // frames. Each is taken only when the fuel covers all its
                     // contractions, so a pause still falls between frames.
-                    Node::App(function, argument) if self.is_atom(function) => {
-                        let Some(f) = self.atom(function)? else {
-                            return Err(Halt::Error(free_variable(0)));
-                        };
-                        match self.atom(argument)? {
+                    Node::App(function, argument) => match self.atom(function)? {
+                        Some(f) => match self.atom(argument)? {
                             Some(a) if self.fuel > 0 => {
                                 self.take_fuel(call_rule(&f), meter)?;
                                 self.call(f, a)?
@@ -614,8 +604,16 @@ impl<'a> CekRun<'a> {
                                 self.kont.push(Frame::Call { function: f });
                                 Control::Eval(argument)
                             }
+                        },
+                        None => {
+                            self.push(|env, below| Frame::Argument {
+                                argument,
+                                env,
+                                below,
+                            });
+                            Control::Eval(function)
                         }
-                    }
+                    },
                     Node::If(condition, yes, no) if self.fuel >= 2 => {
                         match self.int_test(condition) {
                             Some(holds) => {
@@ -654,14 +652,6 @@ impl<'a> CekRun<'a> {
                                 Control::Eval(a)
                             }
                         }
-                    }
-                    Node::App(function, argument) => {
-                        self.push(|env, below| Frame::Argument {
-                            argument,
-                            env,
-                            below,
-                        });
-                        Control::Eval(function)
                     }
                     Node::Let(bound, body) => {
                         self.push(|env, below| Frame::Let { body, env, below });

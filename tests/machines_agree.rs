@@ -729,3 +729,43 @@ proptest::proptest! {
         }
     }
 }
+
+/// A CEK run paused whenever its fuel runs out and resumed with a little
+/// more ends exactly as an uninterrupted run: same value, same counts.
+#[cfg(feature = "cek")]
+#[test]
+fn paused_cek_runs_end_as_uninterrupted_ones() {
+    use orrery::machines::cek::Cek;
+    let arena = Arena::new();
+    let b = B(&arena);
+    let square = b.lam(b.op(Prim::Mul, b.v(0), b.v(0)));
+    let programs = [
+        b.app(tak_fn(&b), &[b.n(6), b.n(3), b.n(1)]),
+        b.app(fib_fn(&b), &[b.n(8)]),
+        b.app(ackermann_fn(&b), &[b.n(2), b.n(2)]),
+        b.app(
+            map_fn(&b),
+            &[square, b.app(upto_fn(&b), &[b.nil(), b.n(5)])],
+        ),
+        b.app(tak_fn(&b), &[b.n(5), b.n(3)]),
+        b.op(Prim::Add, b.app(fib_fn(&b), &[b.n(5)]), arena.boolean(true)),
+    ];
+    for t in programs {
+        let program = Program::new(t).unwrap();
+        let whole = Cek::new().run(&program, &Limits::default(), &arena);
+        for slice in [1, 2, 3, 10] {
+            let mut run = Cek::start(&program, &Limits::default().with_fuel(0));
+            let mut resumes = 0;
+            let report = loop {
+                let report = run.resume(slice, &arena);
+                if report.outcome != Outcome::OutOfFuel {
+                    break report;
+                }
+                assert_eq!(report.counts.total(), slice * (resumes + 1));
+                resumes += 1;
+            };
+            assert_eq!(report, whole, "slices of {slice}");
+            assert_eq!(resumes, whole.counts.total().div_ceil(slice) - 1);
+        }
+    }
+}
