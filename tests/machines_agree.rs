@@ -769,3 +769,42 @@ fn paused_cek_runs_end_as_uninterrupted_ones() {
         }
     }
 }
+
+/// Programs a million nodes deep (not deep recursion: deep text) compile,
+/// run, read back and drop without native recursion.
+#[test]
+fn million_node_deep_terms_run_on_a_small_stack() {
+    for machine in fast_machines() {
+        let results = on_small_stack(move || {
+            let arena = Arena::new();
+            let b = B(&arena);
+            let n = 1_000_000;
+            // 1 + (1 + (… + 0)): a million pending operands.
+            let mut sum = b.n(0);
+            for _ in 0..n {
+                sum = b.op(Prim::Add, b.n(1), sum);
+            }
+            // let x = 0 in let x = x + 1 in …: a million nested binders.
+            let mut lets = b.v(0);
+            for _ in 0..n {
+                lets = b.let_in(b.op(Prim::Add, b.v(0), b.n(1)), lets);
+            }
+            let lets = b.let_in(b.n(0), lets);
+            // λ. λ. … λ. #(n-1): a closure nested a million deep, read back.
+            let mut lams = b.v(n as u32 - 1);
+            for _ in 0..n {
+                lams = b.lam(lams);
+            }
+            let limits = Limits::default();
+            let mut outcomes = Vec::new();
+            let count = arena.int(n as i64);
+            for (t, expected) in [(sum, count), (lets, count), (lams, lams)] {
+                let program = Program::new(t).unwrap();
+                let report = machine.run(&program, &limits, &arena);
+                outcomes.push(report.outcome == Outcome::Value(expected));
+            }
+            outcomes
+        });
+        assert_eq!(results, vec![true, true, true], "{}", machine.name());
+    }
+}
