@@ -2,3 +2,9 @@
 
 #[cfg(feature = "stepper")]
 pub mod stepper;
+
+#[cfg(feature = "env")]
+pub mod env;
+
+#[cfg(feature = "cek")]
+pub mod cek;

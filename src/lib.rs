@@ -11,6 +11,8 @@ mod subst;
 pub mod syntax;
 mod term;
 mod validate;
+#[cfg(any(feature = "env", feature = "cek"))]
+mod value;
 
 #[path = "../machines/mod.rs"]
 pub mod machines;

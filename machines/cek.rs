@@ -1,0 +1,980 @@
+//! The CEK machine (Felleisen and Friedman, "Control operators, the
+//! SECD-machine, and the λ-calculus", 1986): control, environment and
+//! continuation as explicit data, advanced by one loop with no native
+//! recursion, so a run can stop when its fuel runs out and resume later.
+//!
+//! The control is a term of the program itself (or a value on its way back).
+//! The environment is split for constant-time lookup at any de Bruijn index:
+//! the variables bound since the current function was entered (its argument,
+//! `let`s and case fields) sit in a segment of a locals stack, and the
+//! function's free variables in its flat closure, which captured the indices
+//! `0..scope` of its `λ` when it was made. The continuation is a stack of
+//! frames; a function body, a `let` body, an `if` branch and a case arm are
+//! entered without pushing one (proper tail calls), and a call reuses the
+//! locals no frame still needs, so a tail loop runs in constant space.
+//! Operands that are atoms (variables and literals) are evaluated in place,
+//! as in the atomic evaluation of Van Horn and Might ("Abstracting abstract
+//! machines", 2010), so `n - 1`, `if n < 2 …` and `f x` need no frames.
+
+use std::rc::Rc;
+
+use crate::value::{
+    apply_prim, free_variable, int_prim, int_test, read_back, Closure, ConCell, Meter, Value,
+    Values,
+};
+use crate::{
+    Arena, Arm, Counts, EvalError, LimitError, Limits, Machine, Node, Operand, Outcome, Prim,
+    Program, Report, Rule, Term,
+};
+
+/// A runtime value of this machine: closures keep their source term as code.
+type Val<'a> = Value<'a, &'a Term<'a>>;
+
+/// A flat closure of this machine.
+type Fun<'a> = Closure<'a, &'a Term<'a>>;
+
+/// The CEK machine. It holds no program state of its own; [`Cek::start`]
+/// makes a [`CekRun`], the machine state of one run, which can pause when its
+/// fuel runs out and resume with more.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::machines::cek::Cek;
+/// use orrery::{Arena, Limits, Machine, Outcome, Prim, Program};
+/// let arena = Arena::new();
+/// // (λx. x * 2) 21
+/// let double = arena.lam(arena.prim(Prim::Mul, &[arena.var(0), arena.int(2)]));
+/// let program = Program::new(arena.app(double, arena.int(21))).unwrap();
+/// let report = Cek::new().run(&program, &Limits::default(), &arena);
+/// assert_eq!(report.outcome, Outcome::Value(arena.int(42)));
+/// assert_eq!(report.counts.total(), 2); // beta, prim
+/// ```
+#[derive(Debug, Default)]
+pub struct Cek {
+    peak: usize,
+}
+
+impl Cek {
+    /// A CEK machine.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// let _cek = orrery::machines::cek::Cek::new();
+    /// ```
+    pub fn new() -> Self {
+        Cek::default()
+    }
+
+    /// The initial machine state for running `program` under `limits`:
+    /// nothing is evaluated until [`CekRun::resume`].
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::machines::cek::Cek;
+    /// use orrery::{Arena, Limits, Outcome, Prim, Program};
+    /// let arena = Arena::new();
+    /// // (1 + 2) * (3 + 4): three prim contractions.
+    /// let sum = |a, b| arena.prim(Prim::Add, &[arena.int(a), arena.int(b)]);
+    /// let program = Program::new(arena.prim(Prim::Mul, &[sum(1, 2), sum(3, 4)])).unwrap();
+    /// let mut run = Cek::start(&program, &Limits::default().with_fuel(2));
+    /// assert_eq!(run.resume(0, &arena).outcome, Outcome::OutOfFuel);
+    /// let report = run.resume(1, &arena);
+    /// assert_eq!(report.outcome, Outcome::Value(arena.int(21)));
+    /// assert_eq!(report.counts.total(), 3);
+    /// ```
+    pub fn start<'a>(program: &Program<'a>, limits: &Limits) -> CekRun<'a> {
+        CekRun {
+            control: Some(Control::Eval(program.term())),
+            env: Env::top(),
+            locals: Vec::new(),
+            kont: Vec::new(),
+            operands: Vec::new(),
+            floor: 0,
+            fuel: limits.fuel,
+            counts: Counts::default(),
+            memory: limits.memory,
+            cells: 0,
+            peak: 0,
+            end: None,
+        }
+    }
+
+    /// The most runtime memory the last [`Machine::run`] held at once, in
+    /// bytes, as the memory limit counts it (see [`CekRun::peak_bytes`]).
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::machines::cek::Cek;
+    /// use orrery::{Arena, Limits, Machine, Program};
+    /// let arena = Arena::new();
+    /// let program = Program::new(arena.con("Box", &[arena.int(1)])).unwrap();
+    /// let mut cek = Cek::new();
+    /// cek.run(&program, &Limits::default(), &arena);
+    /// assert!(cek.peak_bytes() > 0);
+    /// ```
+    pub fn peak_bytes(&self) -> usize {
+        self.peak
+    }
+}
+
+impl Machine for Cek {
+    fn name(&self) -> &'static str {
+        "cek"
+    }
+
+    fn run<'a: 'o, 'o>(
+        &mut self,
+        program: &Program<'a>,
+        limits: &Limits,
+        out: &'o Arena,
+    ) -> Report<'o> {
+        let mut run = Cek::start(program, limits);
+        let report = run.resume(0, out);
+        self.peak = run.peak_bytes();
+        report
+    }
+}
+
+/// The environment of the control term: the current function's locals,
+/// `locals[base .. base + depth]` (the innermost binder last), and its closure,
+/// whose captured values are the free variables beyond them.
+#[derive(Clone)]
+struct Env<'a> {
+    closure: Option<Rc<Fun<'a>>>,
+    base: usize,
+    depth: u32,
+}
+
+impl<'a> Env<'a> {
+    /// The environment of the program's top level: empty.
+    fn top() -> Self {
+        Env {
+            closure: None,
+            base: 0,
+            depth: 0,
+        }
+    }
+
+    /// One past the last local this environment uses.
+    #[inline]
+    fn extent(&self) -> usize {
+        self.base + self.depth as usize
+    }
+}
+
+/// A continuation frame: what to do with the value of the current control.
+/// Frames that go on to evaluate a term keep the environment to evaluate it
+/// in, and `below`: how many locals the frames under them need.
+enum Frame<'a> {
+    /// `□ t`: evaluate the argument next.
+    Argument {
+        argument: &'a Term<'a>,
+        env: Env<'a>,
+        below: usize,
+    },
+    /// `v □`: apply `function` to the value.
+    Call { function: Val<'a> },
+    /// `let □ in t`.
+    Let {
+        body: &'a Term<'a>,
+        env: Env<'a>,
+        below: usize,
+    },
+    /// `if □ then t else u`.
+    If {
+        yes: &'a Term<'a>,
+        no: &'a Term<'a>,
+        env: Env<'a>,
+        below: usize,
+    },
+    /// `op(v…, □, t…)`, the hole at `index`; the values to its left are on
+    /// the machine's operand stack.
+    Operand {
+        op: Prim,
+        operands: &'a [&'a Term<'a>],
+        index: usize,
+        env: Env<'a>,
+        below: usize,
+    },
+    /// `K(v…, □, t…)`, likewise.
+    Field {
+        tag: &'a str,
+        fields: &'a [&'a Term<'a>],
+        index: usize,
+        env: Env<'a>,
+        below: usize,
+    },
+    /// `case □ of {…}`.
+    Case {
+        arms: &'a [Arm<'a>],
+        default: Option<&'a Term<'a>>,
+        env: Env<'a>,
+        below: usize,
+    },
+}
+
+/// The control: a term to evaluate, or a value to hand to the continuation.
+enum Control<'a> {
+    Eval(&'a Term<'a>),
+    Return(Val<'a>),
+}
+
+/// Why [`CekRun::execute`] stopped without a value.
+enum Halt {
+    Error(EvalError),
+    OutOfFuel,
+    Memory,
+}
+
+/// How a run ended, kept so that a finished run reports the same outcome
+/// however often it is asked.
+enum End<'a> {
+    Value(Val<'a>),
+    Error(EvalError),
+    Limit(LimitError),
+}
+
+/// The state of one CEK run: control, environment, continuation, and the
+/// fuel, counts and memory accounting. Plain data: when the fuel runs out the
+/// run pauses just before the contraction it could not pay for, and
+/// [`CekRun::resume`] continues it with more fuel. A paused run and an
+/// uninterrupted one end with the same value and the same counts.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::machines::cek::Cek;
+/// use orrery::{Arena, Limits, Outcome, Program};
+/// let arena = Arena::new();
+/// // (μf. λn. f n) 0 loops forever; give it fuel a little at a time.
+/// let spin = arena.rec_lam(arena.app(arena.var(1), arena.var(0)));
+/// let program = Program::new(arena.app(spin, arena.int(0))).unwrap();
+/// let mut run = Cek::start(&program, &Limits::default().with_fuel(0));
+/// for _ in 0..3 {
+///     assert_eq!(run.resume(1_000, &arena).outcome, Outcome::OutOfFuel);
+/// }
+/// assert_eq!(run.counts().total(), 3_000);
+/// assert!(!run.is_finished());
+/// ```
+pub struct CekRun<'a> {
+    control: Option<Control<'a>>,
+    env: Env<'a>,
+    /// Arguments, `let`-bound values and case fields of the active functions.
+    locals: Vec<Val<'a>>,
+    kont: Vec<Frame<'a>>,
+    /// Values of partly evaluated primitive applications and constructors.
+    operands: Vec<Val<'a>>,
+    /// How many locals the continuation still needs: a call puts the callee's
+    /// locals here, reusing any above.
+    floor: usize,
+    fuel: u64,
+    counts: Counts,
+    memory: usize,
+    /// Bytes of cells this run held when it last paused.
+    cells: usize,
+    peak: usize,
+    end: Option<End<'a>>,
+}
+
+impl std::fmt::Debug for CekRun<'_> {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("CekRun")
+            .field("fuel_left", &self.fuel)
+            .field("counts", &self.counts)
+            .field("frames", &self.kont.len())
+            .field("finished", &self.end.is_some())
+            .finish()
+    }
+}
+
+impl<'a> CekRun<'a> {
+    /// Add `more_fuel` and run until a value, an error, a resource limit, or
+    /// the end of the fuel. The report's counts are the run's totals so far.
+    /// Once the run has finished, further calls report the same outcome and
+    /// do nothing else.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::machines::cek::Cek;
+    /// use orrery::{Arena, Limits, Machine, Outcome, Prim, Program};
+    /// let arena = Arena::new();
+    /// // let x = 2 + 3 in x * x
+    /// let t = arena.let_in(
+    ///     arena.prim(Prim::Add, &[arena.int(2), arena.int(3)]),
+    ///     arena.prim(Prim::Mul, &[arena.var(0), arena.var(0)]),
+    /// );
+    /// let program = Program::new(t).unwrap();
+    /// let whole = Cek::new().run(&program, &Limits::default(), &arena);
+    /// // One unit of fuel at a time ends the same way.
+    /// let mut run = Cek::start(&program, &Limits::default().with_fuel(0));
+    /// let mut report = run.resume(0, &arena);
+    /// while report.outcome == Outcome::OutOfFuel {
+    ///     report = run.resume(1, &arena);
+    /// }
+    /// assert_eq!(report, whole);
+    /// ```
+    pub fn resume<'o>(&mut self, more_fuel: u64, out: &'o Arena) -> Report<'o>
+    where
+        'a: 'o,
+    {
+        self.fuel = self.fuel.saturating_add(more_fuel);
+        if self.end.is_none() {
+            let meter = Meter::holding(self.cells);
+            let end = match self.execute(&meter) {
+                Ok(value) => Some(End::Value(value)),
+                Err(Halt::Error(error)) => Some(End::Error(error)),
+                Err(Halt::Memory) => Some(End::Limit(LimitError::memory(self.memory))),
+                Err(Halt::OutOfFuel) => None,
+            };
+            if end.is_some() {
+                // The machine state is no longer needed; free it now.
+                self.control = None;
+                self.env = Env::top();
+                self.kont = Vec::new();
+                self.locals = Vec::new();
+                self.operands = Vec::new();
+                self.floor = 0;
+            }
+            self.end = end;
+            self.cells = meter.cells();
+        }
+        let outcome = match &self.end {
+            None => Outcome::OutOfFuel,
+            Some(End::Value(value)) => Outcome::Value(read_back(value, out)),
+            Some(End::Error(error)) => Outcome::Error(error.clone()),
+            Some(End::Limit(limit)) => Outcome::Limit(limit.clone()),
+        };
+        Report {
+            outcome,
+            counts: self.counts,
+        }
+    }
+
+    /// The contractions made so far, per rule.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::machines::cek::Cek;
+    /// use orrery::{Arena, Limits, Program};
+    /// let arena = Arena::new();
+    /// let run = Cek::start(&Program::new(arena.int(1)).unwrap(), &Limits::default());
+    /// assert_eq!(run.counts().total(), 0);
+    /// ```
+    pub fn counts(&self) -> Counts {
+        self.counts
+    }
+
+    /// The fuel left.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::machines::cek::Cek;
+    /// use orrery::{Arena, Limits, Program};
+    /// let arena = Arena::new();
+    /// let run = Cek::start(&Program::new(arena.int(1)).unwrap(), &Limits::default().with_fuel(9));
+    /// assert_eq!(run.fuel_left(), 9);
+    /// ```
+    pub fn fuel_left(&self) -> u64 {
+        self.fuel
+    }
+
+    /// Whether the run has ended (with a value, an error or a resource
+    /// limit); a paused run has not.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::machines::cek::Cek;
+    /// use orrery::{Arena, Limits, Program};
+    /// let arena = Arena::new();
+    /// let mut run = Cek::start(&Program::new(arena.int(1)).unwrap(), &Limits::default());
+    /// assert!(!run.is_finished());
+    /// run.resume(0, &arena);
+    /// assert!(run.is_finished());
+    /// ```
+    pub fn is_finished(&self) -> bool {
+        self.end.is_some()
+    }
+
+    /// The most runtime memory this run has held at once, in bytes, sampled
+    /// at every contraction and every constructor built: the cells it made
+    /// and still holds (closures, constructor cells, strings; see the memory
+    /// limit's accounting) plus the capacity of its locals, operand and
+    /// continuation stacks. This is the quantity [`Limits::memory`] bounds.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::machines::cek::Cek;
+    /// use orrery::{Arena, Limits, Program};
+    /// let arena = Arena::new();
+    /// let mut run = Cek::start(&Program::new(arena.int(1)).unwrap(), &Limits::default());
+    /// run.resume(0, &arena);
+    /// assert_eq!(run.peak_bytes(), 0); // no contraction, nothing built
+    /// ```
+    pub fn peak_bytes(&self) -> usize {
+        self.peak
+    }
+
+    /// Bytes held by the machine's stacks.
+    fn stack_bytes(&self) -> usize {
+        self.kont.capacity() * std::mem::size_of::<Frame<'_>>()
+            + (self.locals.capacity() + self.operands.capacity()) * std::mem::size_of::<Val<'_>>()
+    }
+
+    /// Sample the memory in use; `Err` if it is over the limit.
+    #[inline]
+    fn check_memory(&mut self, meter: &Meter) -> Result<(), Halt> {
+        let held = meter.cells() + self.stack_bytes();
+        self.peak = self.peak.max(held);
+        if held > self.memory {
+            Err(Halt::Memory)
+        } else {
+            Ok(())
+        }
+    }
+
+    /// The value of variable `#index` in the current environment.
+    #[inline]
+    fn lookup(&self, index: u32) -> Result<Val<'a>, Halt> {
+        let env = &self.env;
+        let found = if index < env.depth {
+            self.locals.get(env.extent() - 1 - index as usize)
+        } else {
+            env.closure
+                .as_ref()
+                .and_then(|c| c.captured.get((index - env.depth) as usize))
+        };
+        found
+            .cloned()
+            .ok_or_else(|| Halt::Error(free_variable(index)))
+    }
+
+    /// A flat closure for `term` (a `λ` or `μλ`): it captures the indices
+    /// below the term's scope.
+    fn close(&self, term: &'a Term<'a>) -> Result<Val<'a>, Halt> {
+        let mut captured = Values::new();
+        for index in 0..term.scope() {
+            captured.push(self.lookup(index)?);
+        }
+        Ok(Value::Fun(Closure::new(term, captured)))
+    }
+
+    /// Push a frame that will evaluate in the current environment.
+    #[inline]
+    fn push(&mut self, frame: impl FnOnce(Env<'a>, usize) -> Frame<'a>) {
+        let below = self.floor;
+        self.floor = self.env.extent();
+        let env = self.env.clone();
+        self.kont.push(frame(env, below));
+    }
+
+    /// Make `env` current again, dropping any locals above it.
+    #[inline]
+    fn enter(&mut self, env: Env<'a>) {
+        self.locals.truncate(env.extent());
+        self.env = env;
+    }
+
+    /// Take one unit of fuel for a contraction under `rule`.
+    #[inline]
+    fn take_fuel(&mut self, rule: Rule, meter: &Meter) -> Result<(), Halt> {
+        if self.fuel == 0 {
+            return Err(Halt::OutOfFuel);
+        }
+        self.fuel -= 1;
+        self.counts.add(rule);
+        self.check_memory(meter)
+    }
+
+    /// Contract the application of `function` to `argument`, its fuel
+    /// already paid: enter the body with the callee's locals where the
+    /// continuation's end (so a tail call reuses the caller's).
+    #[inline]
+    fn call(&mut self, function: Val<'a>, argument: Val<'a>) -> Result<Control<'a>, Halt> {
+        let Value::Fun(closure) = function else {
+            return Err(Halt::Error(EvalError::not_a_function(function.operand())));
+        };
+        self.locals.truncate(self.floor);
+        let base = self.locals.len();
+        let (body, depth) = match *closure.code.node() {
+            Node::RecLam(body) => {
+                self.locals.push(Value::Fun(Rc::clone(&closure)));
+                (body, 2)
+            }
+            Node::Lam(body) => (body, 1),
+            _ => return Err(Halt::Error(EvalError::not_a_function(Operand::Function))),
+        };
+        self.locals.push(argument);
+        self.env = Env {
+            closure: Some(closure),
+            base,
+            depth,
+        };
+        Ok(Control::Eval(body))
+    }
+
+    /// The value of an atom (`None` if `term` is not one).
+    #[inline]
+    fn atom(&self, term: &'a Term<'a>) -> Result<Option<Val<'a>>, Halt> {
+        Ok(match *term.node() {
+            Node::Var(index) => Some(self.lookup(index)?),
+            Node::Int(n) => Some(Value::Int(n)),
+            Node::Bool(b) => Some(Value::Bool(b)),
+            Node::Str(_) | Node::Con(_, []) => Some(Value::Lit(term)),
+            _ => None,
+        })
+    }
+
+    /// The integer an atom stands for, read without making a value.
+    #[inline]
+    fn int(&self, term: &Term<'a>) -> Option<i64> {
+        match *term.node() {
+            Node::Int(n) => Some(n),
+            Node::Var(index) => {
+                let env = &self.env;
+                let found = if index < env.depth {
+                    self.locals.get(env.extent() - 1 - index as usize)
+                } else {
+                    env.closure
+                        .as_ref()
+                        .and_then(|c| c.captured.get((index - env.depth) as usize))
+                };
+                match found {
+                    Some(&Value::Int(n)) => Some(n),
+                    _ => None,
+                }
+            }
+            _ => None,
+        }
+    }
+
+    /// Both operands as integers, if they are integer atoms.
+    #[inline]
+    fn int_operands(&self, a: &Term<'a>, b: &Term<'a>) -> Option<(i64, i64)> {
+        Some((self.int(a)?, self.int(b)?))
+    }
+
+    /// The outcome of a condition `op(a, b)` that compares integer atoms.
+    #[inline]
+    fn int_test(&self, condition: &Term<'a>) -> Option<bool> {
+        match *condition.node() {
+            Node::Prim(op, &[a, b]) => {
+                let (x, y) = self.int_operands(a, b)?;
+                int_test(op, x, y)
+            }
+            _ => None,
+        }
+    }
+
+    /// Run the machine until a value, an error, a limit, or the end of the
+    /// fuel. On running out of fuel the control is saved (a value about to
+    /// meet the top frame), so that execution can continue from there.
+    fn execute(&mut self, meter: &Meter) -> Result<Val<'a>, Halt> {
+        let Some(mut control) = self.control.take() else {
+            return Err(Halt::OutOfFuel);
+        };
+        loop {
+            control = match control {
+                Control::Eval(term) => match *term.node() {
+                    Node::Var(index) => Control::Return(self.lookup(index)?),
+                    Node::Int(n) => Control::Return(Value::Int(n)),
+                    Node::Bool(b) => Control::Return(Value::Bool(b)),
+                    Node::Str(_) => Control::Return(Value::Lit(term)),
+                    Node::Lam(_) | Node::RecLam(_) => Control::Return(self.close(term)?),
+                    // Shortcuts for operands that are atoms (variables and
+                    // literals), whose evaluation is free and cannot fail:
+                    // the same contractions in the same order, without the
+                    // frames. Each is taken only when the fuel covers all its
+                    // contractions, so a pause still falls between frames.
+                    Node::App(function, argument) => match self.atom(function)? {
+                        Some(f) => match self.atom(argument)? {
+                            Some(a) if self.fuel > 0 => {
+                                self.take_fuel(call_rule(&f), meter)?;
+                                self.call(f, a)?
+                            }
+                            _ => {
+                                self.kont.push(Frame::Call { function: f });
+                                Control::Eval(argument)
+                            }
+                        },
+                        None => {
+                            self.push(|env, below| Frame::Argument {
+                                argument,
+                                env,
+                                below,
+                            });
+                            Control::Eval(function)
+                        }
+                    },
+                    Node::If(condition, yes, no) if self.fuel >= 2 => {
+                        match self.int_test(condition) {
+                            Some(holds) => {
+                                self.take_fuel(Rule::Prim, meter)?;
+                                self.take_fuel(Rule::If, meter)?;
+                                Control::Eval(if holds { yes } else { no })
+                            }
+                            None => {
+                                self.push(|env, below| Frame::If {
+                                    yes,
+                                    no,
+                                    env,
+                                    below,
+                                });
+                                Control::Eval(condition)
+                            }
+                        }
+                    }
+                    Node::Prim(op, operands @ &[a, b]) if self.fuel > 0 => {
+                        match self
+                            .int_operands(a, b)
+                            .and_then(|(x, y)| int_prim(op, x, y))
+                        {
+                            Some(value) => {
+                                self.take_fuel(Rule::Prim, meter)?;
+                                Control::Return(value)
+                            }
+                            None => {
+                                self.push(|env, below| Frame::Operand {
+                                    op,
+                                    operands,
+                                    index: 0,
+                                    env,
+                                    below,
+                                });
+                                Control::Eval(a)
+                            }
+                        }
+                    }
+                    Node::Let(bound, body) => {
+                        self.push(|env, below| Frame::Let { body, env, below });
+                        Control::Eval(bound)
+                    }
+                    Node::If(condition, yes, no) => {
+                        self.push(|env, below| Frame::If {
+                            yes,
+                            no,
+                            env,
+                            below,
+                        });
+                        Control::Eval(condition)
+                    }
+                    Node::Prim(op, operands) => match operands.first() {
+                        Some(first) => {
+                            self.push(|env, below| Frame::Operand {
+                                op,
+                                operands,
+                                index: 0,
+                                env,
+                                below,
+                            });
+                            Control::Eval(first)
+                        }
+                        None => {
+                            if let Err(halt) = self.take_fuel(Rule::Prim, meter) {
+                                self.control = Some(Control::Eval(term));
+                                return Err(halt);
+                            }
+                            Control::Return(apply_prim(op, &[]).map_err(Halt::Error)?)
+                        }
+                    },
+                    Node::Con(tag, fields) => match fields.first() {
+                        Some(first) => {
+                            self.push(|env, below| Frame::Field {
+                                tag,
+                                fields,
+                                index: 0,
+                                env,
+                                below,
+                            });
+                            Control::Eval(first)
+                        }
+                        None => Control::Return(Value::Lit(term)),
+                    },
+                    Node::Case(scrutinee, arms, default) => {
+                        self.push(|env, below| Frame::Case {
+                            arms,
+                            default,
+                            env,
+                            below,
+                        });
+                        Control::Eval(scrutinee)
+                    }
+                },
+                Control::Return(value) => {
+                    // Is handing the value to the top frame a contraction?
+                    let rule = match self.kont.last() {
+                        None => return Ok(value),
+                        Some(Frame::Call { function }) => Some(call_rule(function)),
+                        Some(Frame::Let { .. }) => Some(Rule::Let),
+                        Some(Frame::If { .. }) => Some(Rule::If),
+                        Some(Frame::Case { .. }) => Some(Rule::Case),
+                        Some(Frame::Operand {
+                            operands, index, ..
+                        }) if index + 1 == operands.len() => Some(Rule::Prim),
+                        Some(_) => None,
+                    };
+                    if let Some(rule) = rule {
+                        if let Err(halt) = self.take_fuel(rule, meter) {
+                            self.control = Some(Control::Return(value));
+                            return Err(halt);
+                        }
+                    }
+                    let Some(frame) = self.kont.pop() else {
+                        return Ok(value);
+                    };
+                    self.apply(frame, value, meter)?
+                }
+            };
+        }
+    }
+
+    /// Hand `value` to `frame`, whose contraction (if it is one) has been
+    /// paid for.
+    #[inline]
+    fn apply(
+        &mut self,
+        frame: Frame<'a>,
+        value: Val<'a>,
+        meter: &Meter,
+    ) -> Result<Control<'a>, Halt> {
+        Ok(match frame {
+            Frame::Argument {
+                argument,
+                env,
+                below,
+            } => {
+                self.floor = below;
+                self.enter(env);
+                self.kont.push(Frame::Call { function: value });
+                Control::Eval(argument)
+            }
+            Frame::Call { function } => self.call(function, value)?,
+            Frame::Let { body, env, below } => {
+                self.floor = below;
+                self.enter(env);
+                self.locals.push(value);
+                self.env.depth += 1;
+                Control::Eval(body)
+            }
+            Frame::If {
+                yes,
+                no,
+                env,
+                below,
+            } => {
+                let Value::Bool(b) = value else {
+                    return Err(Halt::Error(EvalError::not_a_boolean(value.operand())));
+                };
+                self.floor = below;
+                self.enter(env);
+                Control::Eval(if b { yes } else { no })
+            }
+            Frame::Operand {
+                op,
+                operands,
+                index,
+                env,
+                below,
+            } => {
+                if let Some(next) = operands.get(index + 1) {
+                    self.operands.push(value);
+                    self.enter(env.clone());
+                    self.kont.push(Frame::Operand {
+                        op,
+                        operands,
+                        index: index + 1,
+                        env,
+                        below,
+                    });
+                    Control::Eval(next)
+                } else {
+                    self.floor = below;
+                    let at = self.operands.len().saturating_sub(index);
+                    self.operands.push(value);
+                    let result = apply_prim(op, &self.operands[at..]);
+                    self.operands.truncate(at);
+                    Control::Return(result.map_err(Halt::Error)?)
+                }
+            }
+            Frame::Field {
+                tag,
+                fields,
+                index,
+                env,
+                below,
+            } => {
+                if let Some(next) = fields.get(index + 1) {
+                    self.operands.push(value);
+                    self.enter(env.clone());
+                    self.kont.push(Frame::Field {
+                        tag,
+                        fields,
+                        index: index + 1,
+                        env,
+                        below,
+                    });
+                    Control::Eval(next)
+                } else {
+                    // A constructor of values is a value: building it is free.
+                    self.floor = below;
+                    let at = self.operands.len().saturating_sub(index);
+                    let mut values: Values<'a, &'a Term<'a>> = self.operands.drain(at..).collect();
+                    values.push(value);
+                    let cell = Value::Con(ConCell::new(tag, values));
+                    self.check_memory(meter)?;
+                    Control::Return(cell)
+                }
+            }
+            Frame::Case {
+                arms,
+                default,
+                env,
+                below,
+            } => {
+                self.floor = below;
+                self.enter(env);
+                if let Some((tag, fields)) = value.constructor() {
+                    let arm = arms
+                        .iter()
+                        .find(|arm| arm.tag == tag && arm.arity as usize == fields.len());
+                    if let Some(arm) = arm {
+                        // Field 1 outermost: the last field ends up as #0.
+                        self.locals.extend(fields.iter().cloned());
+                        self.env.depth += arm.arity;
+                        return Ok(Control::Eval(arm.body));
+                    }
+                }
+                match default {
+                    Some(default) => Control::Eval(default),
+                    None => return Err(Halt::Error(EvalError::no_matching_case(value.operand()))),
+                }
+            }
+        })
+    }
+}
+
+/// The rule under which applying `function` is counted.
+#[inline]
+fn call_rule(function: &Val<'_>) -> Rule {
+    match function {
+        Value::Fun(f) if matches!(f.code.node(), Node::RecLam(_)) => Rule::BetaRec,
+        _ => Rule::Beta,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Gabriel's tak, curried: in the body z is #0, y #1, x #2, tak #3.
+    fn tak<'a>(arena: &'a Arena, x: i64, y: i64, z: i64) -> &'a Term<'a> {
+        let v = |i| arena.var(i);
+        let call = |f: &'a Term<'a>, a, b, c| arena.app(arena.app(arena.app(f, a), b), c);
+        let dec = |t| arena.prim(Prim::Sub, &[t, arena.int(1)]);
+        let body = arena.if_then_else(
+            arena.prim(Prim::Lt, &[v(1), v(2)]),
+            call(
+                v(3),
+                call(v(3), dec(v(2)), v(1), v(0)),
+                call(v(3), dec(v(1)), v(0), v(2)),
+                call(v(3), dec(v(0)), v(2), v(1)),
+            ),
+            v(0),
+        );
+        let f = arena.rec_lam(arena.lam(arena.lam(body)));
+        call(f, arena.int(x), arena.int(y), arena.int(z))
+    }
+
+    /// `(μf. λn. if n == 0 then 0 else f (n - 1)) n`: a tail loop.
+    fn count_down(arena: &Arena, n: i64) -> &Term<'_> {
+        let body = arena.if_then_else(
+            arena.prim(Prim::Eq, &[arena.var(0), arena.int(0)]),
+            arena.int(0),
+            arena.app(
+                arena.var(1),
+                arena.prim(Prim::Sub, &[arena.var(0), arena.int(1)]),
+            ),
+        );
+        arena.app(arena.rec_lam(body), arena.int(n))
+    }
+
+    #[test]
+    fn tak_is_seven_with_gabriels_call_count() {
+        let arena = Arena::new();
+        let program = Program::new(tak(&arena, 18, 12, 6)).unwrap();
+        let report = Cek::new().run(&program, &Limits::default(), &arena);
+        assert_eq!(report.outcome, Outcome::Value(arena.int(7)));
+        assert_eq!(report.counts.get(Rule::BetaRec), 63_609);
+        assert_eq!(report.counts.get(Rule::Beta), 2 * 63_609);
+    }
+
+    #[test]
+    fn paused_runs_end_as_uninterrupted_ones() {
+        let arena = Arena::new();
+        let program = Program::new(tak(&arena, 12, 8, 4)).unwrap();
+        let whole = Cek::new().run(&program, &Limits::default(), &arena);
+        let total = whole.counts.total();
+        for slice in [1, 7, 1000, total - 1] {
+            let mut run = Cek::start(&program, &Limits::default().with_fuel(slice));
+            let mut report = run.resume(0, &arena);
+            let mut pauses = 0;
+            while report.outcome == Outcome::OutOfFuel {
+                assert_eq!(report.counts.total(), slice * (pauses + 1));
+                pauses += 1;
+                report = run.resume(slice, &arena);
+            }
+            assert_eq!(report, whole, "slices of {slice}");
+            assert_eq!(pauses, total.div_ceil(slice) - 1);
+            // A finished run keeps its outcome.
+            assert_eq!(run.resume(5, &arena), whole);
+        }
+    }
+
+    #[test]
+    fn tail_calls_push_no_frames() {
+        let arena = Arena::new();
+        let program = Program::new(count_down(&arena, 100_000)).unwrap();
+        let mut run = Cek::start(&program, &Limits::default().with_fuel(0));
+        let mut deepest = 0;
+        loop {
+            let report = run.resume(997, &arena);
+            deepest = deepest.max(run.kont.len()).max(run.locals.len());
+            if report.outcome != Outcome::OutOfFuel {
+                assert_eq!(report.outcome, Outcome::Value(arena.int(0)));
+                break;
+            }
+        }
+        // A frame for the condition's operands and the if, two locals.
+        assert!(deepest <= 2, "deepest {deepest}");
+    }
+
+    #[test]
+    fn memory_limit_stops_a_growing_run() {
+        let arena = Arena::new();
+        // μf. λn. Cons(n, f (n + 1)): builds continuation frames forever.
+        let body = arena.con(
+            "Cons",
+            &[
+                arena.var(0),
+                arena.app(
+                    arena.var(1),
+                    arena.prim(Prim::Add, &[arena.var(0), arena.int(1)]),
+                ),
+            ],
+        );
+        let program = Program::new(arena.app(arena.rec_lam(body), arena.int(0))).unwrap();
+        let limits = Limits::default().with_memory(1 << 20);
+        let mut cek = Cek::new();
+        let report = cek.run(&program, &limits, &arena);
+        assert_eq!(report.outcome, Outcome::Limit(LimitError::memory(1 << 20)));
+        assert!(cek.peak_bytes() > 1 << 20);
+    }
+}

@@ -1,0 +1,1162 @@
+//! The environment-based evaluator: big-step evaluation (natural semantics,
+//! Kahn, "Natural semantics", 1987) of closure-converted code with flat
+//! closures (Cardelli, "Compiling a functional language", 1984), with an
+//! explicit stack of pending work in place of native recursion.
+//!
+//! Each run first compiles the program once into a code tree in which every
+//! variable is resolved to a slot: a local of the current function's frame
+//! (argument, `let`-bound value or case field), or one of the values its
+//! closure captured (exactly its free variables). Frames and intermediate
+//! values share one value stack; a call in tail position (a function body, a
+//! `let` body, an `if` branch, a case arm, known at compile time) replaces the
+//! caller's frame instead of stacking a return.
+
+use std::rc::Rc;
+
+use smallvec::SmallVec;
+
+use crate::value::{
+    apply_prim, free_variable, int_prim, int_test, read_back, Closure, Code, ConCell, Meter, Value,
+    Values,
+};
+use crate::{
+    Arena, Counts, ErrorKind, EvalError, LimitError, Limits, Machine, Node, Outcome, Prim, Program,
+    Report, Rule, Term,
+};
+
+/// The environment-based evaluator. Holds no program state between runs;
+/// it records the peak memory of its last run.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::machines::env::Env;
+/// use orrery::{Arena, Limits, Machine, Outcome, Prim, Program};
+/// let arena = Arena::new();
+/// // let add = λx. λy. x + y in add 40 2
+/// let add = arena.lam(arena.lam(arena.prim(Prim::Add, &[arena.var(1), arena.var(0)])));
+/// let call = arena.app(arena.app(arena.var(0), arena.int(40)), arena.int(2));
+/// let program = Program::new(arena.let_in(add, call)).unwrap();
+/// let report = Env::new().run(&program, &Limits::default(), &arena);
+/// assert_eq!(report.outcome, Outcome::Value(arena.int(42)));
+/// assert_eq!(report.counts.total(), 4); // let, beta, beta, prim
+/// ```
+#[derive(Debug, Default)]
+pub struct Env {
+    peak: usize,
+}
+
+impl Env {
+    /// An environment-based evaluator.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// let _env = orrery::machines::env::Env::new();
+    /// ```
+    pub fn new() -> Self {
+        Env::default()
+    }
+
+    /// The most runtime memory the last run held at once, in bytes, sampled
+    /// at every contraction and every constructor built: the compiled code,
+    /// the value and task stacks (by capacity), and the cells the run made
+    /// and still held (closures, constructor cells, strings). This is the
+    /// quantity [`Limits::memory`] bounds.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::machines::env::Env;
+    /// use orrery::{Arena, Limits, Machine, Program};
+    /// let arena = Arena::new();
+    /// let program = Program::new(arena.con("Box", &[arena.int(1)])).unwrap();
+    /// let mut env = Env::new();
+    /// env.run(&program, &Limits::default(), &arena);
+    /// assert!(env.peak_bytes() > 0);
+    /// ```
+    pub fn peak_bytes(&self) -> usize {
+        self.peak
+    }
+}
+
+impl Machine for Env {
+    fn name(&self) -> &'static str {
+        "env"
+    }
+
+    fn run<'a: 'o, 'o>(
+        &mut self,
+        program: &Program<'a>,
+        limits: &Limits,
+        out: &'o Arena,
+    ) -> Report<'o> {
+        let compiled = match compile(program.term()) {
+            Ok(compiled) => compiled,
+            Err(index) => {
+                return Report {
+                    outcome: Outcome::Error(free_variable(index)),
+                    counts: Counts::default(),
+                }
+            }
+        };
+        let meter = Meter::holding(0);
+        let mut run = Run {
+            code: &compiled,
+            stack: Vec::new(),
+            tasks: Vec::new(),
+            callers: Vec::new(),
+            base: 0,
+            closure: None,
+            fuel: limits.fuel,
+            counts: Counts::default(),
+            memory: limits.memory,
+            code_bytes: compiled.bytes(),
+            peak: 0,
+            meter,
+        };
+        let outcome = match run.execute() {
+            Ok(value) => Outcome::Value(read_back(&value, out)),
+            Err(Halt::Error(error)) => Outcome::Error(error),
+            Err(Halt::OutOfFuel) => Outcome::OutOfFuel,
+            Err(Halt::Memory) => Outcome::Limit(LimitError::memory(limits.memory)),
+        };
+        self.peak = run.peak;
+        Report {
+            outcome,
+            counts: run.counts,
+        }
+    }
+}
+
+/// An index into [`Compiled::code`].
+type CodeId = u32;
+
+/// A run of entries in [`Compiled::lists`] or [`Compiled::arms`].
+#[derive(Clone, Copy, Debug)]
+struct Span {
+    start: u32,
+    len: u32,
+}
+
+impl Span {
+    fn range(self) -> std::ops::Range<usize> {
+        self.start as usize..self.start as usize + self.len as usize
+    }
+}
+
+/// An operand that costs nothing to evaluate: a variable or a literal.
+#[derive(Clone, Copy, Debug)]
+enum Atom<'a> {
+    /// A local of the current frame.
+    Local(u32),
+    /// A value captured by the current closure.
+    Free(u32),
+    Int(i64),
+    Bool(bool),
+    /// A string literal or a constructor with no fields.
+    Lit(&'a Term<'a>),
+}
+
+/// One node of compiled code. Variables are resolved to frame slots and
+/// captured values; everything else mirrors the term, except that common
+/// shapes whose operands are atoms get instructions of their own (as in
+/// A-normal form, Flanagan et al., "The essence of compiling with
+/// continuations", 1993), which skip the work stack.
+#[derive(Clone, Copy, Debug)]
+enum Instr<'a> {
+    Atom(Atom<'a>),
+    /// Make a closure of function `Compiled::funs[_]`.
+    Closure(u32),
+    App {
+        function: CodeId,
+        argument: CodeId,
+        tail: bool,
+    },
+    /// An application whose function is an atom.
+    AppAtomFunction {
+        function: Atom<'a>,
+        argument: CodeId,
+        tail: bool,
+    },
+    /// An application of an atom to an atom.
+    AppAtoms {
+        function: Atom<'a>,
+        argument: Atom<'a>,
+        tail: bool,
+    },
+    Let {
+        bound: CodeId,
+        slot: u32,
+        body: CodeId,
+    },
+    If {
+        condition: CodeId,
+        yes: CodeId,
+        no: CodeId,
+    },
+    /// `if op(a, b) then … else …` with atom operands: two contractions.
+    IfPrim2 {
+        op: Prim,
+        a: Atom<'a>,
+        b: Atom<'a>,
+        yes: CodeId,
+        no: CodeId,
+    },
+    Prim {
+        op: Prim,
+        operands: Span,
+    },
+    /// A unary primitive on an atom.
+    Prim1 {
+        op: Prim,
+        a: Atom<'a>,
+    },
+    /// A binary primitive on atoms.
+    Prim2 {
+        op: Prim,
+        a: Atom<'a>,
+        b: Atom<'a>,
+    },
+    Con {
+        tag: &'a str,
+        fields: Span,
+    },
+    /// `case`: the arms' fields go to slots `slot..slot + arity`.
+    Case {
+        scrutinee: CodeId,
+        arms: Span,
+        default: Option<CodeId>,
+        slot: u32,
+    },
+}
+
+/// A compiled case arm.
+#[derive(Clone, Copy, Debug)]
+struct CaseArm<'a> {
+    tag: &'a str,
+    arity: u32,
+    body: CodeId,
+}
+
+/// Where the enclosing function finds a value a new closure captures.
+#[derive(Clone, Copy, Debug)]
+enum Fetch {
+    Local(u32),
+    Free(u32),
+}
+
+/// A compiled `λ` or `μλ`.
+#[derive(Debug)]
+struct Function<'a> {
+    /// The source term, for read-back.
+    term: &'a Term<'a>,
+    body: CodeId,
+    rec: bool,
+    /// Slots in a frame of this function.
+    frame: u32,
+    /// The free indices (relative to `term`) of the captured values, in
+    /// capture order.
+    captures: Vec<u32>,
+    /// How to fetch each captured value when the closure is made.
+    fetch: Vec<Fetch>,
+}
+
+impl<'a> Code<'a> for &Function<'a> {
+    #[inline]
+    fn term(&self) -> &'a Term<'a> {
+        self.term
+    }
+
+    #[inline]
+    fn free_index(&self, slot: usize) -> usize {
+        self.captures.get(slot).map_or(usize::MAX, |&i| i as usize)
+    }
+}
+
+/// A program compiled for one run.
+#[derive(Debug)]
+struct Compiled<'a> {
+    code: Vec<Instr<'a>>,
+    lists: Vec<CodeId>,
+    arms: Vec<CaseArm<'a>>,
+    funs: Vec<Function<'a>>,
+    root: CodeId,
+    /// Slots in the top level's frame.
+    frame: u32,
+}
+
+impl<'a> Compiled<'a> {
+    /// The atom that code `id` is, if it is one.
+    fn atom(&self, id: CodeId) -> Option<Atom<'a>> {
+        match self.code.get(id as usize) {
+            Some(&Instr::Atom(atom)) => Some(atom),
+            _ => None,
+        }
+    }
+
+    /// Bytes of compiled code, as the memory limit counts them.
+    fn bytes(&self) -> usize {
+        self.code.capacity() * std::mem::size_of::<Instr<'_>>()
+            + self.lists.capacity() * std::mem::size_of::<CodeId>()
+            + self.arms.capacity() * std::mem::size_of::<CaseArm<'_>>()
+            + self
+                .funs
+                .iter()
+                .map(|f| {
+                    std::mem::size_of::<Function<'_>>()
+                        + f.captures.capacity() * std::mem::size_of::<u32>()
+                        + f.fetch.capacity() * std::mem::size_of::<Fetch>()
+                })
+                .sum::<usize>()
+    }
+}
+
+/// The function being compiled: its captured free indices and frame size.
+struct Scope {
+    captures: Vec<u32>,
+    frame: u32,
+}
+
+impl Scope {
+    /// The capture slot of free index `index`, adding it if new.
+    fn capture(&mut self, index: u32) -> u32 {
+        let slot = match self.captures.iter().position(|&c| c == index) {
+            Some(slot) => slot,
+            None => {
+                self.captures.push(index);
+                self.captures.len() - 1
+            }
+        };
+        u32::try_from(slot).unwrap_or(u32::MAX)
+    }
+}
+
+/// Compile a closed term. Iterative: a work stack of terms to visit and
+/// nodes to build once their children are compiled.
+///
+/// # Errors
+///
+/// The de Bruijn index of a variable that escapes every binder (a validated
+/// program has none).
+fn compile<'a>(root: &'a Term<'a>) -> Result<Compiled<'a>, u32> {
+    enum Job<'a> {
+        Visit(&'a Term<'a>, u32, bool),
+        Build(&'a Term<'a>, u32, bool),
+    }
+    let mut c = Compiled {
+        code: Vec::new(),
+        lists: Vec::new(),
+        arms: Vec::new(),
+        funs: Vec::new(),
+        root: 0,
+        frame: 0,
+    };
+    // The top level is compiled like a function body with no captures.
+    let mut scopes: Vec<Scope> = vec![Scope {
+        captures: Vec::new(),
+        frame: 0,
+    }];
+    let mut jobs = vec![Job::Visit(root, 0, true)];
+    let mut done: Vec<CodeId> = Vec::new();
+    let emit = |c: &mut Compiled<'a>, instr| {
+        c.code.push(instr);
+        u32::try_from(c.code.len() - 1).unwrap_or(u32::MAX)
+    };
+    let span = |list: &mut Vec<CodeId>, done: &mut Vec<CodeId>, n: usize| {
+        let at = done.len().saturating_sub(n);
+        let start = u32::try_from(list.len()).unwrap_or(u32::MAX);
+        list.extend(done.drain(at..));
+        Span {
+            start,
+            len: u32::try_from(n).unwrap_or(u32::MAX),
+        }
+    };
+    while let Some(job) = jobs.pop() {
+        match job {
+            Job::Visit(t, depth, tail) => {
+                let top_level = scopes.len() == 1;
+                let Some(scope) = scopes.last_mut() else {
+                    break;
+                };
+                scope.frame = scope.frame.max(depth);
+                let leaf = match *t.node() {
+                    Node::Var(k) if k < depth => Some(Atom::Local(depth - 1 - k)),
+                    Node::Var(k) => {
+                        if top_level {
+                            return Err(k - depth);
+                        }
+                        Some(Atom::Free(scope.capture(k - depth)))
+                    }
+                    Node::Int(n) => Some(Atom::Int(n)),
+                    Node::Bool(b) => Some(Atom::Bool(b)),
+                    Node::Str(_) => Some(Atom::Lit(t)),
+                    Node::Con(_, []) => Some(Atom::Lit(t)),
+                    _ => None,
+                };
+                if let Some(atom) = leaf {
+                    let id = emit(&mut c, Instr::Atom(atom));
+                    done.push(id);
+                    continue;
+                }
+                jobs.push(Job::Build(t, depth, tail));
+                match *t.node() {
+                    Node::Lam(body) | Node::RecLam(body) => {
+                        scopes.push(Scope {
+                            captures: Vec::new(),
+                            frame: 0,
+                        });
+                        let binders = if matches!(t.node(), Node::RecLam(_)) {
+                            2
+                        } else {
+                            1
+                        };
+                        jobs.push(Job::Visit(body, binders, true));
+                    }
+                    Node::App(f, a) => {
+                        jobs.push(Job::Visit(a, depth, false));
+                        jobs.push(Job::Visit(f, depth, false));
+                    }
+                    Node::Let(bound, body) => {
+                        jobs.push(Job::Visit(body, depth + 1, tail));
+                        jobs.push(Job::Visit(bound, depth, false));
+                    }
+                    Node::If(condition, yes, no) => {
+                        jobs.push(Job::Visit(no, depth, tail));
+                        jobs.push(Job::Visit(yes, depth, tail));
+                        jobs.push(Job::Visit(condition, depth, false));
+                    }
+                    Node::Prim(_, operands) | Node::Con(_, operands) => {
+                        jobs.extend(operands.iter().rev().map(|o| Job::Visit(o, depth, false)));
+                    }
+                    Node::Case(scrutinee, arms, default) => {
+                        if let Some(d) = default {
+                            jobs.push(Job::Visit(d, depth, tail));
+                        }
+                        jobs.extend(
+                            arms.iter()
+                                .rev()
+                                .map(|arm| Job::Visit(arm.body, depth + arm.arity, tail)),
+                        );
+                        jobs.push(Job::Visit(scrutinee, depth, false));
+                    }
+                    _ => {}
+                }
+            }
+            Job::Build(t, depth, tail) => {
+                let instr =
+                    match *t.node() {
+                        Node::Lam(_) | Node::RecLam(_) => {
+                            let body = done.pop().unwrap_or(0);
+                            let Some(inner) = scopes.pop() else { break };
+                            let outer_is_top_level = scopes.len() == 1;
+                            let Some(outer) = scopes.last_mut() else {
+                                break;
+                            };
+                            let mut fetch = Vec::with_capacity(inner.captures.len());
+                            for &j in &inner.captures {
+                                fetch.push(if j < depth {
+                                    Fetch::Local(depth - 1 - j)
+                                } else if outer_is_top_level {
+                                    return Err(j - depth);
+                                } else {
+                                    Fetch::Free(outer.capture(j - depth))
+                                });
+                            }
+                            c.funs.push(Function {
+                                term: t,
+                                body,
+                                rec: matches!(t.node(), Node::RecLam(_)),
+                                frame: inner.frame,
+                                captures: inner.captures,
+                                fetch,
+                            });
+                            Instr::Closure(u32::try_from(c.funs.len() - 1).unwrap_or(u32::MAX))
+                        }
+                        Node::App(..) => {
+                            let argument = done.pop().unwrap_or(0);
+                            let function = done.pop().unwrap_or(0);
+                            match (c.atom(function), c.atom(argument)) {
+                                (Some(function), Some(argument)) => Instr::AppAtoms {
+                                    function,
+                                    argument,
+                                    tail,
+                                },
+                                (Some(function), None) => Instr::AppAtomFunction {
+                                    function,
+                                    argument,
+                                    tail,
+                                },
+                                _ => Instr::App {
+                                    function,
+                                    argument,
+                                    tail,
+                                },
+                            }
+                        }
+                        Node::Let(..) => {
+                            let body = done.pop().unwrap_or(0);
+                            let bound = done.pop().unwrap_or(0);
+                            Instr::Let {
+                                bound,
+                                slot: depth,
+                                body,
+                            }
+                        }
+                        Node::If(..) => {
+                            let no = done.pop().unwrap_or(0);
+                            let yes = done.pop().unwrap_or(0);
+                            let condition = done.pop().unwrap_or(0);
+                            match c.code.get(condition as usize) {
+                                Some(&Instr::Prim2 { op, a, b }) => {
+                                    Instr::IfPrim2 { op, a, b, yes, no }
+                                }
+                                _ => Instr::If { condition, yes, no },
+                            }
+                        }
+                        Node::Prim(op, operands) => {
+                            let at = done.len().saturating_sub(operands.len());
+                            let atoms: SmallVec<[Option<Atom<'a>>; 2]> =
+                                done[at..].iter().map(|&id| c.atom(id)).collect();
+                            match atoms[..] {
+                                [Some(a)] => {
+                                    done.truncate(at);
+                                    Instr::Prim1 { op, a }
+                                }
+                                [Some(a), Some(b)] => {
+                                    done.truncate(at);
+                                    Instr::Prim2 { op, a, b }
+                                }
+                                _ => Instr::Prim {
+                                    op,
+                                    operands: span(&mut c.lists, &mut done, operands.len()),
+                                },
+                            }
+                        }
+                        Node::Con(tag, fields) => Instr::Con {
+                            tag,
+                            fields: span(&mut c.lists, &mut done, fields.len()),
+                        },
+                        Node::Case(_, arms, default) => {
+                            let default = default.and_then(|_| done.pop());
+                            let at = done.len().saturating_sub(arms.len());
+                            let start = u32::try_from(c.arms.len()).unwrap_or(u32::MAX);
+                            c.arms
+                                .extend(arms.iter().zip(done.drain(at..)).map(|(arm, body)| {
+                                    CaseArm {
+                                        tag: arm.tag,
+                                        arity: arm.arity,
+                                        body,
+                                    }
+                                }));
+                            let scrutinee = done.pop().unwrap_or(0);
+                            Instr::Case {
+                                scrutinee,
+                                arms: Span {
+                                    start,
+                                    len: u32::try_from(arms.len()).unwrap_or(u32::MAX),
+                                },
+                                default,
+                                slot: depth,
+                            }
+                        }
+                        _ => continue,
+                    };
+                let id = emit(&mut c, instr);
+                done.push(id);
+            }
+        }
+    }
+    c.root = done.pop().unwrap_or(0);
+    c.frame = scopes.first().map_or(0, |s| s.frame);
+    Ok(c)
+}
+
+/// A runtime value of this machine: closures point at compiled functions.
+type Val<'a, 'c> = Value<'a, &'c Function<'a>>;
+
+/// A closure of this machine.
+type Fun<'a, 'c> = Closure<'a, &'c Function<'a>>;
+
+/// Pending work, packed in one word (so that pushing it is one store): what
+/// to do, and the compiled node it concerns, whose operands say the rest.
+#[derive(Clone, Copy, Debug)]
+struct Task(u64);
+
+impl Task {
+    /// Evaluate the node, leaving its value on the stack.
+    const EVAL: u64 = 0;
+    /// Apply the function under the argument on top of the stack.
+    const CALL: u64 = 1;
+    /// The same, in tail position: the callee's frame replaces the caller's.
+    const TAIL_CALL: u64 = 2;
+    /// `Instr::Let`: bind the value on top and evaluate the body.
+    const BIND: u64 = 3;
+    /// `Instr::If`: branch on the boolean on top.
+    const BRANCH: u64 = 4;
+    /// `Instr::Prim`: apply the primitive to the values on top.
+    const PRIM: u64 = 5;
+    /// `Instr::Con`: make a constructor of the values on top.
+    const BUILD: u64 = 6;
+    /// `Instr::Case`: match the value on top against the arms.
+    const MATCH: u64 = 7;
+    /// A call has returned: pop its frame from under the value on top and
+    /// make the caller's current again (the caller is on `Run::callers`).
+    const RETURN: u64 = 8;
+
+    #[inline]
+    fn new(kind: u64, code: CodeId) -> Task {
+        Task(kind | u64::from(code) << 8)
+    }
+
+    #[inline]
+    fn kind(self) -> u64 {
+        self.0 & 0xff
+    }
+
+    #[inline]
+    fn code(self) -> CodeId {
+        (self.0 >> 8) as CodeId
+    }
+}
+
+/// The frame and closure of a caller waiting for a call to return.
+struct Caller<'a, 'c> {
+    base: usize,
+    closure: Option<Rc<Fun<'a, 'c>>>,
+}
+
+/// Why [`Run::execute`] stopped without a value.
+enum Halt {
+    Error(EvalError),
+    OutOfFuel,
+    Memory,
+}
+
+/// The state of one run.
+struct Run<'a, 'c> {
+    code: &'c Compiled<'a>,
+    /// Frames (each `frame` slots, from `base`) and intermediate values.
+    stack: Vec<Val<'a, 'c>>,
+    tasks: Vec<Task>,
+    callers: Vec<Caller<'a, 'c>>,
+    /// Where the current frame starts.
+    base: usize,
+    /// The current function's closure (`None` at the top level).
+    closure: Option<Rc<Fun<'a, 'c>>>,
+    fuel: u64,
+    counts: Counts,
+    memory: usize,
+    code_bytes: usize,
+    peak: usize,
+    meter: Meter,
+}
+
+/// The evaluator's own invariants were broken; never expected.
+fn inconsistent() -> Halt {
+    Halt::Error(EvalError::new(
+        ErrorKind::TypeMismatch,
+        "the evaluator's value stack is inconsistent",
+    ))
+}
+
+impl<'a, 'c> Run<'a, 'c> {
+    /// Sample the memory in use; `Err` if it is over the limit.
+    #[inline]
+    fn check_memory(&mut self) -> Result<(), Halt> {
+        let held = self.meter.cells()
+            + self.code_bytes
+            + self.stack.capacity() * std::mem::size_of::<Val<'_, '_>>()
+            + self.tasks.capacity() * std::mem::size_of::<Task>()
+            + self.callers.capacity() * std::mem::size_of::<Caller<'_, '_>>();
+        self.peak = self.peak.max(held);
+        if held > self.memory {
+            Err(Halt::Memory)
+        } else {
+            Ok(())
+        }
+    }
+
+    /// Take one unit of fuel for a contraction under `rule`. (Memory is
+    /// sampled where it can grow: calls, closures, constructors, strings.)
+    #[inline]
+    fn take_fuel(&mut self, rule: Rule) -> Result<(), Halt> {
+        if self.fuel == 0 {
+            return Err(Halt::OutOfFuel);
+        }
+        self.fuel -= 1;
+        self.counts.add(rule);
+        Ok(())
+    }
+
+    /// The value of an atom.
+    #[inline]
+    fn atom(&self, atom: Atom<'a>) -> Option<Val<'a, 'c>> {
+        match atom {
+            Atom::Local(slot) => self.local(slot),
+            Atom::Free(slot) => self.free(slot),
+            Atom::Int(n) => Some(Value::Int(n)),
+            Atom::Bool(b) => Some(Value::Bool(b)),
+            Atom::Lit(t) => Some(Value::Lit(t)),
+        }
+    }
+
+    /// Push the value of an atom.
+    #[inline]
+    fn push_atom(&mut self, atom: Atom<'a>) -> Result<(), Halt> {
+        match self.atom(atom) {
+            Some(value) => {
+                self.stack.push(value);
+                Ok(())
+            }
+            None => Err(inconsistent()),
+        }
+    }
+
+    /// The integer an atom stands for, if it is one, read without making a
+    /// value.
+    #[inline]
+    fn int(&self, atom: Atom<'a>) -> Option<i64> {
+        match atom {
+            Atom::Int(n) => Some(n),
+            Atom::Local(slot) => match self.stack.get(self.base + slot as usize) {
+                Some(&Value::Int(n)) => Some(n),
+                _ => None,
+            },
+            Atom::Free(slot) => match self.closure.as_ref()?.captured.get(slot as usize) {
+                Some(&Value::Int(n)) => Some(n),
+                _ => None,
+            },
+            _ => None,
+        }
+    }
+
+    /// Contract `op(a, b)` on atoms.
+    #[inline]
+    fn prim2(&mut self, op: Prim, a: Atom<'a>, b: Atom<'a>) -> Result<Val<'a, 'c>, Halt> {
+        self.take_fuel(Rule::Prim)?;
+        if let (Some(x), Some(y)) = (self.int(a), self.int(b)) {
+            if let Some(v) = int_prim(op, x, y) {
+                return Ok(v);
+            }
+        }
+        let (Some(a), Some(b)) = (self.atom(a), self.atom(b)) else {
+            return Err(inconsistent());
+        };
+        self.prim_result(apply_prim(op, &[a, b]))
+    }
+
+    /// A primitive's result; a new string is sampled against the limit.
+    #[inline]
+    fn prim_result(&mut self, result: Result<Val<'a, 'c>, EvalError>) -> Result<Val<'a, 'c>, Halt> {
+        let value = result.map_err(Halt::Error)?;
+        if matches!(value, Value::Str(_)) {
+            self.check_memory()?;
+        }
+        Ok(value)
+    }
+
+    /// Contract the application of `function` to `argument` (both already
+    /// values): enter the function's body in a new frame, which replaces the
+    /// caller's when the call is in tail position. Returns the body's code.
+    #[inline]
+    fn call(
+        &mut self,
+        function: Val<'a, 'c>,
+        argument: Val<'a, 'c>,
+        tail: bool,
+    ) -> Result<CodeId, Halt> {
+        let rule = match &function {
+            Value::Fun(f) if f.code.rec => Rule::BetaRec,
+            _ => Rule::Beta,
+        };
+        self.take_fuel(rule)?;
+        let closure = match function {
+            Value::Fun(closure) => closure,
+            // The argument was evaluated before the callee was found
+            // wanting, as in the stepper.
+            callee => return Err(Halt::Error(EvalError::not_a_function(callee.operand()))),
+        };
+        let code: &'c Function<'a> = closure.code;
+        if tail {
+            self.stack.truncate(self.base);
+        } else {
+            self.callers.push(Caller {
+                base: self.base,
+                closure: self.closure.take(),
+            });
+            self.tasks.push(Task::new(Task::RETURN, 0));
+        }
+        self.base = self.stack.len();
+        if code.rec {
+            self.stack.push(Value::Fun(Rc::clone(&closure)));
+        }
+        self.stack.push(argument);
+        self.stack
+            .resize(self.base + code.frame as usize, Value::Int(0));
+        self.closure = Some(closure);
+        self.check_memory()?;
+        Ok(code.body)
+    }
+
+    #[inline]
+    fn pop(&mut self) -> Result<Val<'a, 'c>, Halt> {
+        self.stack.pop().ok_or_else(inconsistent)
+    }
+
+    /// The value of frame slot `slot`.
+    #[inline]
+    fn local(&self, slot: u32) -> Option<Val<'a, 'c>> {
+        self.stack.get(self.base + slot as usize).cloned()
+    }
+
+    /// The current closure's captured value `slot`.
+    #[inline]
+    fn free(&self, slot: u32) -> Option<Val<'a, 'c>> {
+        self.closure
+            .as_ref()
+            .and_then(|c| c.captured.get(slot as usize))
+            .cloned()
+    }
+
+    /// Store `value` in frame slot `slot`.
+    #[inline]
+    fn set_local(&mut self, slot: u32, value: Val<'a, 'c>) -> Result<(), Halt> {
+        let place = self
+            .stack
+            .get_mut(self.base + slot as usize)
+            .ok_or_else(inconsistent)?;
+        *place = value;
+        Ok(())
+    }
+
+    /// The first value of the top `n` on the stack.
+    #[inline]
+    fn top(&self, n: u32) -> Result<usize, Halt> {
+        self.stack
+            .len()
+            .checked_sub(n as usize)
+            .ok_or_else(inconsistent)
+    }
+
+    /// Evaluate the program to a value.
+    fn execute(&mut self) -> Result<Val<'a, 'c>, Halt> {
+        let code = self.code;
+        self.stack.resize(code.frame as usize, Value::Int(0));
+        let mut pc = code.root;
+        'eval: loop {
+            // Evaluate `pc` down its leftmost spine, leaving work for later.
+            loop {
+                let Some(&instr) = code.code.get(pc as usize) else {
+                    return Err(inconsistent());
+                };
+                match instr {
+                    Instr::Atom(atom) => {
+                        self.push_atom(atom)?;
+                        break;
+                    }
+                    Instr::Closure(index) => {
+                        let Some(function) = code.funs.get(index as usize) else {
+                            return Err(inconsistent());
+                        };
+                        let mut captured = Values::with_capacity(function.fetch.len());
+                        for fetch in &function.fetch {
+                            let value = match *fetch {
+                                Fetch::Local(slot) => self.local(slot),
+                                Fetch::Free(slot) => self.free(slot),
+                            };
+                            captured.push(value.ok_or_else(inconsistent)?);
+                        }
+                        self.stack
+                            .push(Value::Fun(Closure::new(function, captured)));
+                        self.check_memory()?;
+                        break;
+                    }
+                    Instr::App {
+                        function,
+                        argument,
+                        tail,
+                    } => {
+                        let call = if tail { Task::TAIL_CALL } else { Task::CALL };
+                        self.tasks.push(Task::new(call, 0));
+                        self.tasks.push(Task::new(Task::EVAL, argument));
+                        pc = function;
+                    }
+                    Instr::AppAtomFunction {
+                        function,
+                        argument,
+                        tail,
+                    } => {
+                        self.push_atom(function)?;
+                        let call = if tail { Task::TAIL_CALL } else { Task::CALL };
+                        self.tasks.push(Task::new(call, 0));
+                        pc = argument;
+                    }
+                    Instr::AppAtoms {
+                        function,
+                        argument,
+                        tail,
+                    } => {
+                        let (Some(f), Some(a)) = (self.atom(function), self.atom(argument)) else {
+                            return Err(inconsistent());
+                        };
+                        pc = self.call(f, a, tail)?;
+                    }
+                    Instr::IfPrim2 { op, a, b, yes, no } => {
+                        if let (Some(x), Some(y)) = (self.int(a), self.int(b)) {
+                            if let Some(holds) = int_test(op, x, y) {
+                                self.take_fuel(Rule::Prim)?;
+                                self.take_fuel(Rule::If)?;
+                                pc = if holds { yes } else { no };
+                                continue;
+                            }
+                        }
+                        let condition = self.prim2(op, a, b)?;
+                        self.take_fuel(Rule::If)?;
+                        match condition {
+                            Value::Bool(b) => pc = if b { yes } else { no },
+                            other => {
+                                return Err(Halt::Error(EvalError::not_a_boolean(other.operand())))
+                            }
+                        }
+                    }
+                    Instr::Prim1 { op, a } => {
+                        self.take_fuel(Rule::Prim)?;
+                        let a = self.atom(a).ok_or_else(inconsistent)?;
+                        let v = self.prim_result(apply_prim(op, &[a]))?;
+                        self.stack.push(v);
+                        break;
+                    }
+                    Instr::Prim2 { op, a, b } => {
+                        let v = self.prim2(op, a, b)?;
+                        self.stack.push(v);
+                        break;
+                    }
+                    Instr::Let { bound, .. } => {
+                        self.tasks.push(Task::new(Task::BIND, pc));
+                        pc = bound;
+                    }
+                    Instr::If { condition, .. } => {
+                        self.tasks.push(Task::new(Task::BRANCH, pc));
+                        pc = condition;
+                    }
+                    Instr::Prim { operands, .. } => {
+                        self.tasks.push(Task::new(Task::PRIM, pc));
+                        let Some(operands) = code.lists.get(operands.range()) else {
+                            return Err(inconsistent());
+                        };
+                        let Some((&first, rest)) = operands.split_first() else {
+                            break;
+                        };
+                        self.tasks
+                            .extend(rest.iter().rev().map(|&o| Task::new(Task::EVAL, o)));
+                        pc = first;
+                    }
+                    Instr::Con { fields, .. } => {
+                        self.tasks.push(Task::new(Task::BUILD, pc));
+                        let Some(fields) = code.lists.get(fields.range()) else {
+                            return Err(inconsistent());
+                        };
+                        let Some((&first, rest)) = fields.split_first() else {
+                            break;
+                        };
+                        self.tasks
+                            .extend(rest.iter().rev().map(|&f| Task::new(Task::EVAL, f)));
+                        pc = first;
+                    }
+                    Instr::Case { scrutinee, .. } => {
+                        self.tasks.push(Task::new(Task::MATCH, pc));
+                        pc = scrutinee;
+                    }
+                }
+            }
+            // A value is on top of the stack: do the pending work until some
+            // of it needs code evaluated.
+            loop {
+                let Some(task) = self.tasks.pop() else {
+                    return self.pop();
+                };
+                let at = task.code();
+                match task.kind() {
+                    Task::EVAL => {
+                        pc = at;
+                        continue 'eval;
+                    }
+                    kind @ (Task::CALL | Task::TAIL_CALL) => {
+                        let argument = self.pop()?;
+                        let function = self.pop()?;
+                        pc = self.call(function, argument, kind == Task::TAIL_CALL)?;
+                        continue 'eval;
+                    }
+                    Task::RETURN => {
+                        let value = self.pop()?;
+                        self.stack.truncate(self.base);
+                        self.stack.push(value);
+                        let caller = self.callers.pop().ok_or_else(inconsistent)?;
+                        self.base = caller.base;
+                        self.closure = caller.closure;
+                        continue;
+                    }
+                    _ => {}
+                }
+                let Some(&instr) = code.code.get(at as usize) else {
+                    return Err(inconsistent());
+                };
+                match instr {
+                    Instr::Let { slot, body, .. } => {
+                        self.take_fuel(Rule::Let)?;
+                        let value = self.pop()?;
+                        self.set_local(slot, value)?;
+                        pc = body;
+                        continue 'eval;
+                    }
+                    Instr::If { yes, no, .. } => {
+                        self.take_fuel(Rule::If)?;
+                        match self.pop()? {
+                            Value::Bool(b) => {
+                                pc = if b { yes } else { no };
+                                continue 'eval;
+                            }
+                            other => {
+                                return Err(Halt::Error(EvalError::not_a_boolean(other.operand())))
+                            }
+                        }
+                    }
+                    Instr::Prim { op, operands } => {
+                        self.take_fuel(Rule::Prim)?;
+                        let from = self.top(operands.len)?;
+                        let result = apply_prim(op, &self.stack[from..]);
+                        self.stack.truncate(from);
+                        let v = self.prim_result(result)?;
+                        self.stack.push(v);
+                    }
+                    Instr::Con { tag, fields } => {
+                        // A constructor of values is a value: building it is free.
+                        let from = self.top(fields.len)?;
+                        let fields: Values<'a, &'c Function<'a>> =
+                            self.stack.drain(from..).collect();
+                        self.stack.push(Value::Con(ConCell::new(tag, fields)));
+                        self.check_memory()?;
+                    }
+                    Instr::Case {
+                        arms,
+                        default,
+                        slot,
+                        ..
+                    } => {
+                        self.take_fuel(Rule::Case)?;
+                        let value = self.pop()?;
+                        let arms = code.arms.get(arms.range()).ok_or_else(inconsistent)?;
+                        if let Some((tag, fields)) = value.constructor() {
+                            let arm = arms
+                                .iter()
+                                .find(|arm| arm.tag == tag && arm.arity as usize == fields.len());
+                            if let Some(arm) = arm {
+                                for (i, field) in fields.iter().enumerate() {
+                                    self.set_local(slot + i as u32, field.clone())?;
+                                }
+                                pc = arm.body;
+                                continue 'eval;
+                            }
+                        }
+                        match default {
+                            Some(default) => {
+                                pc = default;
+                                continue 'eval;
+                            }
+                            None => {
+                                return Err(Halt::Error(EvalError::no_matching_case(
+                                    value.operand(),
+                                )))
+                            }
+                        }
+                    }
+                    _ => return Err(inconsistent()),
+                }
+            }
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// `let x₀ = 0 in … let x₆₃ = 63 in λy. y + x₀`: the function refers to
+    /// de Bruijn index 64 under its binder.
+    fn deep_closure(arena: &Arena) -> &Term<'_> {
+        let mut body = arena.lam(arena.prim(Prim::Add, &[arena.var(0), arena.var(64)]));
+        for i in (0..64).rev() {
+            body = arena.let_in(arena.int(i), body);
+        }
+        body
+    }
+
+    #[test]
+    fn closures_capture_exactly_their_free_variables() {
+        let arena = Arena::new();
+        let compiled = compile(deep_closure(&arena)).unwrap();
+        assert_eq!(compiled.funs.len(), 1);
+        assert_eq!(compiled.funs[0].captures, vec![63]);
+        assert!(matches!(compiled.funs[0].fetch[..], [Fetch::Local(0)]));
+        assert_eq!(compiled.frame, 64);
+        // Read back, the closure has x₀ substituted.
+        let program = Program::new(deep_closure(&arena)).unwrap();
+        let report = Env::new().run(&program, &Limits::default(), &arena);
+        let expected = arena.lam(arena.prim(Prim::Add, &[arena.var(0), arena.int(0)]));
+        assert_eq!(report.outcome, Outcome::Value(expected));
+        assert_eq!(report.counts.get(Rule::Let), 64);
+    }
+
+    #[test]
+    fn calls_in_tail_position_are_marked_at_compile_time() {
+        let arena = Arena::new();
+        // μf. λn. if n == 0 then g n else (f n) + 1, with g = λx. x
+        let call = |f, a| arena.app(f, a);
+        let body = arena.if_then_else(
+            arena.prim(Prim::Eq, &[arena.var(0), arena.int(0)]),
+            call(arena.lam(arena.var(0)), arena.var(0)),
+            arena.prim(Prim::Add, &[call(arena.var(1), arena.var(0)), arena.int(1)]),
+        );
+        let compiled = compile(arena.app(arena.rec_lam(body), arena.int(3))).unwrap();
+        let tails: Vec<bool> = compiled
+            .code
+            .iter()
+            .filter_map(|i| match i {
+                Instr::App { tail, .. }
+                | Instr::AppAtomFunction { tail, .. }
+                | Instr::AppAtoms { tail, .. } => Some(*tail),
+                _ => None,
+            })
+            .collect();
+        // In build order: g n (tail), f n (not), the top-level call (tail).
+        assert_eq!(tails, vec![true, false, true]);
+    }
+
+    #[test]
+    fn an_open_term_is_an_error_not_a_panic() {
+        let arena = Arena::new();
+        assert_eq!(compile(arena.lam(arena.var(3))).err(), Some(2));
+        assert_eq!(compile(arena.var(0)).err(), Some(0));
+    }
+
+    #[test]
+    fn the_memory_limit_counts_the_value_stack() {
+        let arena = Arena::new();
+        // μf. λn. 1 + f n: pending additions forever.
+        let body = arena.prim(
+            Prim::Add,
+            &[arena.int(1), arena.app(arena.var(1), arena.var(0))],
+        );
+        let program = Program::new(arena.app(arena.rec_lam(body), arena.int(0))).unwrap();
+        let mut env = Env::new();
+        let limits = Limits::default().with_memory(256 << 10);
+        let report = env.run(&program, &limits, &arena);
+        assert_eq!(
+            report.outcome,
+            Outcome::Limit(LimitError::memory(256 << 10))
+        );
+        assert!(env.peak_bytes() > 256 << 10);
+        assert!(report.counts.get(Rule::BetaRec) > 1_000);
+    }
+}
