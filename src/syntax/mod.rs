@@ -396,4 +396,3 @@ pub fn print_limited(term: &Term<'_>, max_bytes: usize) -> Printed {
     }
     Printed { text, truncated }
 }
-
