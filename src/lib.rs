@@ -7,6 +7,7 @@ mod agree;
 mod api;
 mod equal;
 mod prim;
+mod scope;
 mod subst;
 pub mod syntax;
 mod term;
@@ -24,6 +25,7 @@ pub use api::{
 };
 pub use equal::terms_equal;
 pub use prim::{delta, Operand, Prim, PrimValue};
+pub use scope::{Built, Scope, UnboundName};
 pub use subst::{instantiate, shift, subst};
 pub use syntax::{
     parse, parse_bytes, parse_term, print, print_limited, Printed, SyntaxError, PRINT_LIMIT,

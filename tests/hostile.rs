@@ -137,3 +137,23 @@ fn invalid_utf8_and_empty_input_are_syntax_errors() {
     let err = parse_bytes(&arena, b"# only a comment\n").unwrap_err();
     assert!(err.line >= 1);
 }
+
+#[test]
+fn a_long_tail_loop_runs_in_small_memory_on_every_machine() {
+    // Each round builds new terms (the stepper substitutes into the body), so
+    // without reclaiming, a million rounds would need hundreds of MiB.
+    let source = "let rec spin n = if n == 0 then \"done\" else spin (n - 1) in spin 1000000";
+    let arena = Arena::new();
+    let program = parse(&arena, source).unwrap();
+    let limits = Limits::default().with_memory(8 << 20);
+    for machine in MachineKind::enabled() {
+        let report = machine.run(&program, &limits, &arena);
+        assert_eq!(
+            report.outcome,
+            Outcome::Value(arena.string("done")),
+            "{}",
+            machine.name()
+        );
+        assert_eq!(report.counts.get(orrery::Rule::BetaRec), 1_000_001);
+    }
+}
