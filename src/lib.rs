@@ -1,5 +1,66 @@
-//! orrery: an evaluation kernel to embed. A call-by-value lambda calculus with
-//! data, as arena-allocated de Bruijn terms, run by machines that agree exactly.
+//! orrery is an evaluation kernel to embed: a call-by-value lambda calculus
+//! with integers, booleans, strings, constructors and `case`, held as de Bruijn
+//! terms in a bump [`Arena`], and run by machines that agree exactly on every
+//! outcome and every contraction count.
+//!
+//! # When to use it
+//!
+//! When your application offers its users a small language — configuration
+//! with functions, pricing or policy rules, light scripting — lower that
+//! language to this calculus (through the builder API or the text syntax) and
+//! let orrery evaluate it under hard limits. It has a precise small-step
+//! semantics, so what a program means does not depend on which machine ran it.
+//!
+//! # A first example
+//!
+//! ```
+//! use orrery::{parse, Arena, Limits, MachineKind, Outcome};
+//!
+//! let arena = Arena::new();
+//! let program = parse(&arena, r#"
+//!     let shipping weight = if weight <= 500 then 390 else 390 + (weight - 500) / 100 * 85 in
+//!     shipping 1240
+//! "#).expect("valid program");
+//! let machine = MachineKind::fastest().expect("a machine is enabled");
+//! let report = machine.run(&program, &Limits::default().with_fuel(1_000), &arena);
+//! assert_eq!(report.outcome, Outcome::Value(arena.int(390 + 7 * 85)));
+//! ```
+//!
+//! Terms can be built without text: by index with [`Arena`]'s constructors,
+//! or with names through a [`Scope`]. [`Program::new`] checks them.
+//!
+//! # The machines
+//!
+//! | machine | feature | what it is | use it for |
+//! |---|---|---|---|
+//! | [`machines::stepper`] | `stepper` | the reference: substitution, one contraction per step, refocusing | traces ([`machines::stepper::Stepper::run_traced`]), single steps, checking the others |
+//! | `machines::env` | `env` | compiles the program to flat closures and evaluates big-step with explicit stacks | the fastest runs |
+//! | `machines::cek` | `cek` | the CEK machine: control, environment, continuation as data | runs that pause when fuel runs out and resume later |
+//!
+//! [`MachineKind`] picks one at run time; [`MachineKind::fastest`] is the
+//! default. [`disagreement`] compares two reports the way the test suite does.
+//!
+//! # Fuel and limits
+//!
+//! Every contraction (beta, beta_rec, let, if, prim, case) costs one unit of
+//! fuel, attempted ones that fail included; nothing else does. [`Limits`] sets
+//! the fuel (default [`DEFAULT_FUEL`]) and the bytes of runtime data a machine
+//! may hold (default [`DEFAULT_MEMORY`]). A run ends as an [`Outcome`]: a value,
+//! an evaluation error, out of fuel, or a resource limit — never a panic or a
+//! stack overflow, at any nesting depth.
+//!
+//! # Untrusted code
+//!
+//! The limits bound contractions and runtime memory. They do not bound
+//! wall-clock time exactly (contractions differ in cost), nor what host
+//! functions you register do; and orrery runs in your process. How to isolate
+//! untrusted programs (threads, processes, operating-system limits) is your
+//! sandboxing policy.
+//!
+//! # Features
+//!
+//! `stepper`, `env`, `cek` (one per machine) and `cli` (the `orrery` binary);
+//! all on by default.
 #![deny(missing_docs)]
 #![forbid(unsafe_code)]
 
