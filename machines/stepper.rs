@@ -289,6 +289,7 @@ fn reduce<'r>(arena: &'r Arena, start: &'r Term<'r>, budget: &mut Budget<'_>) ->
             }
         }
         // ... then, with a value in the hole, out through the context.
+        let mut consumed = None;
         let redex = match ctx.pop() {
             None => return Segment::Value(focus),
             Some(Frame::AppFunction(argument)) => {
@@ -307,10 +308,11 @@ fn reduce<'r>(arena: &'r Arena, start: &'r Term<'r>, budget: &mut Budget<'_>) ->
                     focus = next;
                     continue;
                 }
+                // The operands stay on the value stack until the contraction
+                // has read them.
                 let base = values.len() - operands.len();
-                let redex_values = arena.terms(&values[base..]);
-                values.truncate(base);
-                Redex::Prim(op, redex_values)
+                consumed = Some(base);
+                Redex::Prim(op, &values[base..])
             }
             Some(Frame::Field(node, tag, fields, index)) => {
                 values.push(focus);
@@ -334,7 +336,11 @@ fn reduce<'r>(arena: &'r Arena, start: &'r Term<'r>, budget: &mut Budget<'_>) ->
                 continue;
             }
         };
-        match contract_one(arena, &mut rebuild, redex, budget) {
+        let contracted = contract_one(arena, &mut rebuild, redex, budget);
+        if let Some(base) = consumed {
+            values.truncate(base);
+        }
+        match contracted {
             Ok(contractum) => {
                 focus = contractum;
                 if budget.stop_after_one {

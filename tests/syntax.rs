@@ -1060,20 +1060,7 @@ impl<'a> Gen<'a, '_> {
                 a.if_then_else(c, t, self.term(depth, f))
             }
             9 | 10 => {
-                let binary = [
-                    Prim::Add,
-                    Prim::Sub,
-                    Prim::Mul,
-                    Prim::Div,
-                    Prim::Rem,
-                    Prim::Eq,
-                    Prim::Ne,
-                    Prim::Lt,
-                    Prim::Le,
-                    Prim::Gt,
-                    Prim::Ge,
-                    Prim::Concat,
-                ];
+                let binary: Vec<Prim> = Prim::ALL.into_iter().filter(|p| p.arity() == 2).collect();
                 let op = binary[self.pick(binary.len() as u32) as usize];
                 let x = self.term(depth, f);
                 a.prim(op, &[x, self.term(depth, f)])
