@@ -22,6 +22,9 @@ pub const DEFAULT_MEMORY: usize = 256 << 20;
 /// * `memory` — bytes of runtime data the machine may hold at once (terms built
 ///   by substitution, environments, closures, continuation frames, strings).
 ///   The program's own arena and the caller's output arena are not counted.
+/// * `cancel` — an optional [`Cancel`] handle; once another thread cancels it,
+///   the run stops with [`LimitKind::Cancelled`] within
+///   [`CANCEL_POLL_INTERVAL`] further contractions.
 ///
 /// # Examples
 ///
@@ -31,13 +34,15 @@ pub const DEFAULT_MEMORY: usize = 256 << 20;
 /// assert_eq!(limits.fuel, 1_000);
 /// assert_eq!(Limits::default().fuel, orrery::DEFAULT_FUEL);
 /// ```
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[derive(Clone, Debug, PartialEq, Eq)]
 #[non_exhaustive]
 pub struct Limits {
     /// Contractions allowed.
     pub fuel: u64,
     /// Bytes of runtime data allowed.
     pub memory: usize,
+    /// A handle another thread may cancel the run through.
+    pub cancel: Option<Cancel>,
 }
 
 impl Default for Limits {
@@ -45,6 +50,7 @@ impl Default for Limits {
         Limits {
             fuel: DEFAULT_FUEL,
             memory: DEFAULT_MEMORY,
+            cancel: None,
         }
     }
 }
@@ -73,7 +79,83 @@ impl Limits {
         self.memory = bytes;
         self
     }
+
+    /// These limits with a cancellation handle.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Cancel, Limits};
+    /// let cancel = Cancel::new();
+    /// let limits = Limits::default().with_cancel(cancel.clone());
+    /// assert!(limits.cancel.is_some());
+    /// ```
+    pub fn with_cancel(mut self, cancel: Cancel) -> Self {
+        self.cancel = Some(cancel);
+        self
+    }
+
+    /// Whether the run these limits govern has been cancelled.
+    #[inline]
+    pub fn is_cancelled(&self) -> bool {
+        self.cancel.as_ref().is_some_and(Cancel::is_cancelled)
+    }
 }
+
+/// Machines look at the cancellation flag at least once every this many
+/// contractions (and before the first), so a cancelled run stops within this
+/// many further contractions.
+pub const CANCEL_POLL_INTERVAL: u64 = 1024;
+
+/// A cancellation handle: cheap to clone, shared between threads. Cancelling
+/// it stops every run whose [`Limits`] hold a clone of it, with the
+/// [`LimitKind::Cancelled`] limit, within [`CANCEL_POLL_INTERVAL`]
+/// contractions. Cancelling is permanent for the handle.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{parse, Arena, Cancel, Limits, MachineKind, Outcome, LimitKind};
+/// let arena = Arena::new();
+/// let program = parse(&arena, "let rec spin n = spin (n + 1) in spin 0").unwrap();
+/// let cancel = Cancel::new();
+/// let limits = Limits::default().with_fuel(u64::MAX).with_cancel(cancel.clone());
+/// let stopper = std::thread::spawn(move || cancel.cancel());
+/// stopper.join().unwrap();
+/// let report = MachineKind::fastest().run(&program, &limits, &arena);
+/// assert!(matches!(report.outcome, Outcome::Limit(ref e) if e.kind() == LimitKind::Cancelled));
+/// ```
+#[derive(Clone, Debug, Default)]
+pub struct Cancel {
+    flag: std::sync::Arc<std::sync::atomic::AtomicBool>,
+}
+
+impl Cancel {
+    /// A fresh handle, not cancelled.
+    pub fn new() -> Self {
+        Cancel::default()
+    }
+
+    /// Cancel every run that holds this handle (or a clone of it).
+    pub fn cancel(&self) {
+        self.flag.store(true, std::sync::atomic::Ordering::Relaxed);
+    }
+
+    /// Whether [`Cancel::cancel`] has been called on this handle or a clone.
+    #[inline]
+    pub fn is_cancelled(&self) -> bool {
+        self.flag.load(std::sync::atomic::Ordering::Relaxed)
+    }
+}
+
+/// Two handles are equal when they are clones of one another.
+impl PartialEq for Cancel {
+    fn eq(&self, other: &Self) -> bool {
+        std::sync::Arc::ptr_eq(&self.flag, &other.flag)
+    }
+}
+
+impl Eq for Cancel {}
 
 /// The contraction rules of DESIGN §1. Every contraction, and every attempted
 /// contraction that fails, is counted under exactly one of them.
@@ -384,6 +466,11 @@ impl LimitError {
             LimitKind::Memory,
             format!("runtime data exceeded the memory limit of {limit} bytes"),
         )
+    }
+
+    /// The cancellation limit.
+    pub fn cancelled() -> Self {
+        LimitError::new(LimitKind::Cancelled, "the run was cancelled by its host")
     }
 
     /// The limit's kind.

@@ -81,8 +81,8 @@ pub mod machines;
 
 pub use agree::disagreement;
 pub use api::{
-    Counts, ErrorKind, EvalError, LimitError, LimitKind, Limits, Machine, MachineKind, Outcome,
-    Report, Rule, DEFAULT_FUEL, DEFAULT_MEMORY,
+    Cancel, Counts, ErrorKind, EvalError, LimitError, LimitKind, Limits, Machine, MachineKind,
+    Outcome, Report, Rule, CANCEL_POLL_INTERVAL, DEFAULT_FUEL, DEFAULT_MEMORY,
 };
 pub use equal::terms_equal;
 pub use prim::{delta, Operand, Prim, PrimValue};
