@@ -11,10 +11,12 @@
 
 use smallvec::SmallVec;
 
+use crate::host::{host_step, max_datum_nodes, HostStep, NO_HOST};
 use crate::subst::{copy_term, OverBudget, Rebuild};
 use crate::{
-    delta, Arena, Arm, Counts, EvalError, LimitError, Limits, Machine, Node, Operand, Outcome,
-    Prim, PrimValue, Program, Report, Rule, Term,
+    delta, Arena, Arm, Cancel, Counts, Datum, EvalError, HostFunctions, HostId, LimitError, Limits,
+    Machine, Node, Operand, Outcome, Prim, PrimValue, Program, Report, Rule, Term,
+    CANCEL_POLL_INTERVAL,
 };
 
 /// The arena is compacted once it holds at least this much beyond the live
@@ -202,7 +204,8 @@ fn refill<'r>(
 enum Segment<'r> {
     Value(&'r Term<'r>),
     Error(EvalError),
-    OutOfFuel,
+    /// Out of fuel before contracting a redex: the whole term at that point.
+    OutOfFuel(&'r Term<'r>),
     /// The arena needs compacting; reduction continues from this whole term.
     /// Also says how many bytes the context stacks held.
     Compact(&'r Term<'r>, usize),
@@ -218,6 +221,11 @@ pub type Tracer<'t> = dyn FnMut(Rule, &Term<'_>) + 't;
 struct Budget<'t> {
     fuel: u64,
     counts: Counts,
+    /// The program's host functions.
+    host: &'t HostFunctions,
+    /// The cancellation handle, if any, and contractions until the next look.
+    cancel: Option<&'t Cancel>,
+    until_poll: u64,
     memory: usize,
     /// Bytes held outside the main arena (the spare arena).
     elsewhere: usize,
@@ -225,6 +233,36 @@ struct Budget<'t> {
     compact_at: usize,
     stop_after_one: bool,
     trace: Option<&'t mut Tracer<'t>>,
+}
+
+impl<'t> Budget<'t> {
+    /// A budget of `fuel` for a run calling `host` under `limits`.
+    fn new(host: &'t HostFunctions, limits: &'t Limits, fuel: u64, counts: Counts) -> Self {
+        Budget {
+            fuel,
+            counts,
+            host,
+            cancel: limits.cancel.as_ref(),
+            until_poll: 0,
+            memory: limits.memory,
+            elsewhere: 0,
+            compact_at: MIN_COMPACT,
+            stop_after_one: false,
+            trace: None,
+        }
+    }
+
+    /// Whether the run has been cancelled; looks at the handle once every
+    /// [`CANCEL_POLL_INTERVAL`] calls (the first included).
+    #[inline]
+    fn cancelled(&mut self) -> bool {
+        if self.until_poll > 0 {
+            self.until_poll -= 1;
+            return false;
+        }
+        self.until_poll = CANCEL_POLL_INTERVAL - 1;
+        self.cancel.is_some_and(Cancel::is_cancelled)
+    }
 }
 
 /// Reduce from `start` with refocusing until a value, an error, the end of
@@ -262,7 +300,10 @@ fn reduce<'r>(arena: &'r Arena, start: &'r Term<'r>, budget: &mut Budget<'_>) ->
                     }
                     match contract_one(arena, &mut rebuild, Redex::Prim(op, &[]), budget) {
                         Ok(next) => focus = next,
-                        Err(end) => return end,
+                        Err(Halt::OutOfFuel) => {
+                            return Segment::OutOfFuel(plug(arena, &mut ctx, &mut values, focus))
+                        }
+                        Err(Halt::End(end)) => return end,
                     }
                     continue;
                 }
@@ -337,6 +378,14 @@ fn reduce<'r>(arena: &'r Arena, start: &'r Term<'r>, budget: &mut Budget<'_>) ->
             }
         };
         let contracted = contract_one(arena, &mut rebuild, redex, budget);
+        if let Err(Halt::OutOfFuel) = contracted {
+            // Put the redex back where it was found, for a later resume.
+            let redex = redex.term(arena);
+            if let Some(base) = consumed {
+                values.truncate(base);
+            }
+            return Segment::OutOfFuel(plug(arena, &mut ctx, &mut values, redex));
+        }
         if let Some(base) = consumed {
             values.truncate(base);
         }
@@ -354,9 +403,18 @@ fn reduce<'r>(arena: &'r Arena, start: &'r Term<'r>, budget: &mut Budget<'_>) ->
                     return Segment::Compact(whole, stacks);
                 }
             }
-            Err(end) => return end,
+            Err(Halt::OutOfFuel) => return Segment::OutOfFuel(focus),
+            Err(Halt::End(end)) => return end,
         }
     }
+}
+
+/// Why [`contract_one`] made no contraction, or ended the segment.
+enum Halt<'r> {
+    /// Not enough fuel for the contraction; nothing was used.
+    OutOfFuel,
+    /// The contraction was attempted and ended the run.
+    End(Segment<'r>),
 }
 
 /// Make one contraction: take its unit of fuel, count it, trace it, contract.
@@ -365,9 +423,15 @@ fn contract_one<'r>(
     rebuild: &mut Rebuild<'r>,
     redex: Redex<'r, '_>,
     budget: &mut Budget<'_>,
-) -> Result<&'r Term<'r>, Segment<'r>> {
+) -> Result<&'r Term<'r>, Halt<'r>> {
+    if budget.cancelled() {
+        return Err(Halt::End(Segment::Limit(LimitError::cancelled())));
+    }
+    if let Redex::Prim(Prim::Host(id), values) = redex {
+        return host_contraction(arena, id, values, budget);
+    }
     if budget.fuel == 0 {
-        return Err(Segment::OutOfFuel);
+        return Err(Halt::OutOfFuel);
     }
     budget.fuel -= 1;
     let rule = redex.rule();
@@ -377,8 +441,42 @@ fn contract_one<'r>(
     }
     match contract(arena, rebuild, redex) {
         Ok(Ok(contractum)) => Ok(contractum),
-        Ok(Err(error)) => Err(Segment::Error(error)),
-        Err(OverBudget) => Err(Segment::Limit(LimitError::memory(budget.memory))),
+        Ok(Err(error)) => Err(Halt::End(Segment::Error(error))),
+        Err(OverBudget) => Err(Halt::End(Segment::Limit(LimitError::memory(budget.memory)))),
+    }
+}
+
+/// A host function's contraction, in the order [`HostStep`] fixes.
+fn host_contraction<'r>(
+    arena: &'r Arena,
+    id: HostId,
+    values: &[&'r Term<'r>],
+    budget: &mut Budget<'_>,
+) -> Result<&'r Term<'r>, Halt<'r>> {
+    let max_nodes = max_datum_nodes(budget.memory);
+    let args = if budget.fuel == 0 {
+        Ok(Vec::new())
+    } else {
+        values
+            .iter()
+            .map(|v| Datum::read_term(v, max_nodes))
+            .collect()
+    };
+    match host_step(budget.host, id, args, budget.fuel) {
+        HostStep::OutOfFuel => Err(Halt::OutOfFuel),
+        HostStep::TooLarge => Err(Halt::End(Segment::Limit(LimitError::memory(budget.memory)))),
+        HostStep::Made { fuel, result } => {
+            budget.fuel -= fuel;
+            budget.counts.add(Rule::Prim);
+            budget.counts.add_host_fuel(fuel - 1);
+            if let Some(trace) = budget.trace.as_mut() {
+                trace(Rule::Prim, arena.prim(Prim::Host(id), values));
+            }
+            match result {
+                Ok(datum) => Ok(datum.to_term(arena)),
+                Err(error) => Err(Halt::End(Segment::Error(error))),
+            }
+        }
     }
 }
 
@@ -427,15 +525,11 @@ pub fn step<'r>(arena: &'r Arena, term: &'r Term<'r>) -> Step<'r> {
     let mut record = |rule: Rule, redex: &Term<'_>| {
         seen = Some((rule, arena.copy_term(redex)));
     };
-    let mut budget = Budget {
-        fuel: 1,
-        counts: Counts::default(),
-        memory: usize::MAX,
-        elsewhere: 0,
-        compact_at: usize::MAX,
-        stop_after_one: true,
-        trace: Some(&mut record),
-    };
+    let limits = Limits::default().with_memory(usize::MAX);
+    let mut budget = Budget::new(&NO_HOST, &limits, 1, Counts::default());
+    budget.compact_at = usize::MAX;
+    budget.stop_after_one = true;
+    budget.trace = Some(&mut record);
     let end = reduce(arena, term, &mut budget);
     match (end, seen) {
         (Segment::Stepped(next), Some((rule, redex))) => Step::Contracted { rule, redex, next },
@@ -482,41 +576,54 @@ impl Stepper {
         self.run_with(program, limits, out, Some(trace))
     }
 
-    fn run_with<'a: 'o, 'o, 't>(
+    fn run_with<'a: 'o + 't, 'o, 't>(
         &mut self,
         program: &Program<'a>,
-        limits: &Limits,
+        limits: &'t Limits,
         out: &'o Arena,
         trace: Option<&'t mut Tracer<'t>>,
     ) -> Report<'o> {
+        let mut budget = Budget::new(program.host(), limits, limits.fuel, Counts::default());
+        budget.trace = trace;
+        let outcome = match self.drive(program.term(), &mut budget, out) {
+            Drive::Done(outcome) => outcome,
+            Drive::Paused(_) => Outcome::OutOfFuel,
+        };
+        Report {
+            outcome,
+            counts: budget.counts,
+        }
+    }
+
+    /// Reduce `start` under `budget`, compacting as needed, until it ends or
+    /// runs out of fuel; a paused term is copied into `out`.
+    fn drive<'o, 's>(
+        &mut self,
+        start: &'s Term<'s>,
+        budget: &mut Budget<'_>,
+        out: &'o Arena,
+    ) -> Drive<'o> {
         let main = &mut self.main;
         let spare = &mut self.spare;
         main.reset();
         spare.reset();
-        let mut budget = Budget {
-            fuel: limits.fuel,
-            counts: Counts::default(),
-            memory: limits.memory,
-            elsewhere: 0,
-            compact_at: MIN_COMPACT,
-            stop_after_one: false,
-            trace,
-        };
-        let mut live: &Term<'_> = program.term();
+        let memory = budget.memory;
+        let mut live: &Term<'_> = start;
         let outcome = loop {
             budget.elsewhere = spare.allocated_bytes();
-            match reduce(main, live, &mut budget) {
+            match reduce(main, live, budget) {
                 Segment::Value(v) => break Outcome::Value(out.copy_term(v)),
                 Segment::Error(e) => break Outcome::Error(e),
-                Segment::OutOfFuel | Segment::Stepped(_) => break Outcome::OutOfFuel,
+                Segment::OutOfFuel(whole) => return Drive::Paused(out.copy_term(whole)),
+                Segment::Stepped(_) => break Outcome::OutOfFuel,
                 Segment::Limit(l) => break Outcome::Limit(l),
                 Segment::Compact(whole, stacks) => {
                     // Both copies and the context exist at this moment: the
                     // peak of the accounting.
                     spare.reset();
                     let (moved, nodes) = copy_term(spare, whole);
-                    if main.allocated_bytes() + spare.allocated_bytes() + stacks > limits.memory {
-                        break Outcome::Limit(LimitError::memory(limits.memory));
+                    if main.allocated_bytes() + spare.allocated_bytes() + stacks > memory {
+                        break Outcome::Limit(LimitError::memory(memory));
                     }
                     main.reset();
                     live = copy_term(main, moved).0;
@@ -525,10 +632,124 @@ impl Stepper {
                 }
             }
         };
+        Drive::Done(outcome)
+    }
+
+    /// Start a run of `program` that stops when its fuel runs out and can be
+    /// resumed with more, ending exactly as an uninterrupted run would (the
+    /// same outcome and counts). Nothing runs until
+    /// [`StepperRun::resume`].
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::machines::stepper::Stepper;
+    /// use orrery::{parse, Arena, Limits, Machine, Outcome};
+    /// let arena = Arena::new();
+    /// let program = parse(&arena, "let rec count n = if n == 0 then 7 else count (n - 1) in count 50").unwrap();
+    /// let whole = Stepper::new().run(&program, &Limits::default(), &arena);
+    /// let mut run = Stepper::start(&program, &Limits::default().with_fuel(0));
+    /// let mut pauses = 0;
+    /// let outcome = loop {
+    ///     match run.resume(10, &arena).outcome {
+    ///         Outcome::OutOfFuel => pauses += 1,
+    ///         other => break other,
+    ///     }
+    /// };
+    /// assert_eq!(outcome, whole.outcome);
+    /// assert_eq!(run.counts(), whole.counts);
+    /// assert_eq!(pauses as u64, whole.counts.total() / 10);
+    /// ```
+    pub fn start<'r>(program: &Program<'r>, limits: &Limits) -> StepperRun<'r> {
+        StepperRun {
+            scratch: Stepper::new(),
+            host: program.host(),
+            limits: limits.clone(),
+            live: program.term(),
+            fuel_left: limits.fuel,
+            counts: Counts::default(),
+            end: None,
+        }
+    }
+}
+
+/// How [`Stepper::drive`] stopped.
+enum Drive<'o> {
+    Done(Outcome<'o>),
+    /// Out of fuel, with the whole term at that point.
+    Paused(&'o Term<'o>),
+}
+
+/// A stepper run that pauses when its fuel runs out (see [`Stepper::start`]).
+/// Between resumes it holds the whole current term in the arena the last
+/// resume was given, so each pause costs a copy of the live term there.
+#[derive(Debug)]
+pub struct StepperRun<'r> {
+    scratch: Stepper,
+    host: &'r HostFunctions,
+    limits: Limits,
+    live: &'r Term<'r>,
+    fuel_left: u64,
+    counts: Counts,
+    end: Option<Outcome<'r>>,
+}
+
+impl<'r> StepperRun<'r> {
+    /// Add `more_fuel` and run on until the program ends or the fuel runs out
+    /// again. Once the run has ended, every resume reports the same end.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::machines::stepper::Stepper;
+    /// use orrery::{parse, Arena, Limits, Outcome};
+    /// let arena = Arena::new();
+    /// let program = parse(&arena, "(1 + 2) * (3 + 4)").unwrap();
+    /// let mut run = Stepper::start(&program, &Limits::default().with_fuel(2));
+    /// assert_eq!(run.resume(0, &arena).outcome, Outcome::OutOfFuel);
+    /// assert_eq!(run.resume(1, &arena).outcome, Outcome::Value(arena.int(21)));
+    /// assert_eq!(run.counts().total(), 3);
+    /// ```
+    pub fn resume(&mut self, more_fuel: u64, out: &'r Arena) -> Report<'r> {
+        if let Some(outcome) = &self.end {
+            return Report {
+                outcome: outcome.clone(),
+                counts: self.counts,
+            };
+        }
+        self.fuel_left = self.fuel_left.saturating_add(more_fuel);
+        let mut budget = Budget::new(self.host, &self.limits, self.fuel_left, self.counts);
+        let outcome = match self.scratch.drive(self.live, &mut budget, out) {
+            Drive::Paused(whole) => {
+                self.live = whole;
+                Outcome::OutOfFuel
+            }
+            Drive::Done(outcome) => {
+                self.end = Some(outcome.clone());
+                outcome
+            }
+        };
+        self.fuel_left = budget.fuel;
+        self.counts = budget.counts;
         Report {
             outcome,
-            counts: budget.counts,
+            counts: self.counts,
         }
+    }
+
+    /// Contractions made so far.
+    pub fn counts(&self) -> Counts {
+        self.counts
+    }
+
+    /// Fuel not yet used.
+    pub fn fuel_left(&self) -> u64 {
+        self.fuel_left
+    }
+
+    /// Whether the run has ended (with a value, an error or a limit).
+    pub fn is_finished(&self) -> bool {
+        self.end.is_some()
     }
 }
 

@@ -122,7 +122,7 @@ pub const CANCEL_POLL_INTERVAL: u64 = 1024;
 /// let limits = Limits::default().with_fuel(u64::MAX).with_cancel(cancel.clone());
 /// let stopper = std::thread::spawn(move || cancel.cancel());
 /// stopper.join().unwrap();
-/// let report = MachineKind::fastest().run(&program, &limits, &arena);
+/// let report = MachineKind::fastest().unwrap().run(&program, &limits, &arena);
 /// assert!(matches!(report.outcome, Outcome::Limit(ref e) if e.kind() == LimitKind::Cancelled));
 /// ```
 #[derive(Clone, Debug, Default)]
@@ -235,6 +235,7 @@ impl fmt::Display for Rule {
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Hash)]
 pub struct Counts {
     by_rule: [u64; 6],
+    host_fuel: u64,
 }
 
 impl Counts {
@@ -242,6 +243,32 @@ impl Counts {
     #[inline]
     pub fn add(&mut self, rule: Rule) {
         self.by_rule[rule as usize] += 1;
+    }
+
+    /// Count `units` of fuel used by host functions beyond their one unit per
+    /// call (their declared costs; see [`crate::HostFunctions::set_cost`]).
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// let mut counts = orrery::Counts::default();
+    /// counts.add(orrery::Rule::Prim);
+    /// counts.add_host_fuel(9);
+    /// assert_eq!((counts.total(), counts.fuel()), (1, 10));
+    /// ```
+    #[inline]
+    pub fn add_host_fuel(&mut self, units: u64) {
+        self.host_fuel = self.host_fuel.saturating_add(units);
+    }
+
+    /// Fuel used by host functions beyond one unit per call.
+    pub fn host_fuel(&self) -> u64 {
+        self.host_fuel
+    }
+
+    /// All fuel used: one unit per contraction, plus host functions' costs.
+    pub fn fuel(&self) -> u64 {
+        self.total().saturating_add(self.host_fuel)
     }
 
     /// Contractions made under `rule`.
@@ -264,7 +291,10 @@ impl Counts {
     /// assert_eq!(c.total(), 3);
     /// ```
     pub fn from_array(by_rule: [u64; 6]) -> Self {
-        Counts { by_rule }
+        Counts {
+            by_rule,
+            host_fuel: 0,
+        }
     }
 
     /// Per-rule numbers in the order of [`Rule::ALL`].
@@ -280,6 +310,9 @@ impl fmt::Display for Counts {
         for (i, rule) in Rule::ALL.iter().enumerate() {
             let sep = if i == 0 { "" } else { ", " };
             write!(f, "{sep}{rule} {}", self.get(*rule))?;
+        }
+        if self.host_fuel > 0 {
+            write!(f, "; host fuel {}", self.host_fuel)?;
         }
         f.write_str(")")
     }
@@ -500,7 +533,9 @@ pub enum Outcome<'o> {
     Value(&'o Term<'o>),
     /// The program got stuck.
     Error(EvalError),
-    /// The fuel ran out: exactly `fuel` contractions were made.
+    /// The fuel ran out: exactly `fuel` contractions were made (or, with host
+    /// functions that declare a cost, the next contraction needed more fuel
+    /// than was left; see [`Counts::fuel`]).
     OutOfFuel,
     /// A resource limit stopped the run.
     Limit(LimitError),

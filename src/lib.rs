@@ -66,7 +66,9 @@
 
 mod agree;
 mod api;
+mod datum;
 mod equal;
+mod host;
 mod prim;
 mod scope;
 mod subst;
@@ -84,15 +86,18 @@ pub use api::{
     Cancel, Counts, ErrorKind, EvalError, LimitError, LimitKind, Limits, Machine, MachineKind,
     Outcome, Report, Rule, CANCEL_POLL_INTERVAL, DEFAULT_FUEL, DEFAULT_MEMORY,
 };
+pub use datum::{extract, Con, ConvertError, Datum, FromDatum, IntoDatum, MAX_DATUM_NODES};
 pub use equal::terms_equal;
+pub use host::{HostDefinitionError, HostFn, HostFunctions, HostId, MAX_HOST_ARITY};
 pub use prim::{delta, Operand, Prim, PrimValue};
 pub use scope::{Built, Scope, UnboundName};
 pub use subst::{instantiate, shift, subst};
 pub use syntax::{
-    parse, parse_bytes, parse_term, print, print_limited, Printed, SyntaxError, PRINT_LIMIT,
+    parse, parse_bytes, parse_term, parse_with, print, print_limited, print_with, Printed,
+    SyntaxError, PRINT_LIMIT,
 };
 pub use term::{Arena, Arm, Children, Node, Term};
-pub use validate::{validate, Program, ValidationError};
+pub use validate::{validate, validate_with, Program, ValidationError};
 
 /// The README's examples, compiled and run as doctests so they cannot rot.
 #[cfg(doctest)]

@@ -50,6 +50,9 @@ pub enum Prim {
     Length,
     /// An integer written in decimal, `decimal`.
     Decimal,
+    /// A host function the embedder registered (see [`crate::HostFunctions`]).
+    /// Only [`crate::Program::with_host`] accepts it, with its table.
+    Host(crate::host::HostId),
 }
 
 impl Prim {
@@ -82,12 +85,14 @@ impl Prim {
     pub fn arity(self) -> usize {
         match self {
             Prim::Neg | Prim::Length | Prim::Decimal => 1,
+            Prim::Host(id) => id.arity(),
             _ => 2,
         }
     }
 
     /// The primitive's name: its operator symbol, or its function name for the
-    /// built-in functions `length` and `decimal`. Unary minus is `neg`.
+    /// built-in functions `length` and `decimal`. Unary minus is `neg`. A host
+    /// function's name is in its table ([`crate::HostFunctions::name`]).
     ///
     /// # Examples
     ///
@@ -111,6 +116,7 @@ impl Prim {
             Prim::Concat => "++",
             Prim::Length => "length",
             Prim::Decimal => "decimal",
+            Prim::Host(_) => "host function",
         }
     }
 
@@ -264,6 +270,10 @@ pub fn delta(op: Prim, operands: &[Operand<'_>]) -> Result<PrimValue, EvalError>
         }
         (Prim::Length, &[Str(s)]) => Ok(PrimValue::Int(s.chars().count() as i64)),
         (Prim::Decimal, &[Int(n)]) => Ok(PrimValue::Str(n.to_string())),
+        (Prim::Host(_), _) => Err(EvalError::new(
+            ErrorKind::HostError,
+            "a host function was called without its table",
+        )),
         _ => Err(mismatch(op, operands)),
     }
 }

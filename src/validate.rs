@@ -4,7 +4,10 @@
 
 use hashbrown::{HashMap, HashSet};
 
-use crate::term::{Node, Term};
+use crate::datum::Datum;
+use crate::host::{HostFunctions, NO_HOST};
+use crate::prim::Prim;
+use crate::term::{Arena, Node, Term};
 
 /// Why a term is not a runnable program.
 ///
@@ -51,13 +54,21 @@ pub enum ValidationError {
         /// The tag.
         tag: String,
     },
+    /// A call of a host function that is not in the program's table.
+    #[error("host function #{index} is not in the program's table of host functions")]
+    UnknownHost {
+        /// The function's index in the table it came from.
+        index: usize,
+    },
 }
 
-/// A closed, validated term, ready for any machine.
+/// A closed, validated term, ready for any machine, with the table of host
+/// functions it may call.
 ///
-/// A `Program` is a pair of references into the [`crate::Arena`] that holds the
-/// term, so it is `Copy`, `Send` and `Sync`: one parsed program can be run on
-/// many threads at once, each run with its own limits.
+/// A `Program` is a pair of references (to the term in its [`crate::Arena`]
+/// and to its [`HostFunctions`]), so it is `Copy`, `Send` and `Sync`: one
+/// parsed program can be run on many threads at once, each run with its own
+/// limits.
 ///
 /// # Examples
 ///
@@ -70,6 +81,7 @@ pub enum ValidationError {
 #[derive(Clone, Copy, Debug)]
 pub struct Program<'a> {
     root: &'a Term<'a>,
+    host: &'a HostFunctions,
 }
 
 impl<'a> Program<'a> {
@@ -90,13 +102,81 @@ impl<'a> Program<'a> {
     /// assert!(Program::new(bad).is_err());
     /// ```
     pub fn new(root: &'a Term<'a>) -> Result<Self, ValidationError> {
-        validate(root)?;
-        Ok(Program { root })
+        Program::with_host(root, &NO_HOST)
+    }
+
+    /// Validate `root` as a program that may call the host functions of
+    /// `host` (and no others).
+    ///
+    /// # Errors
+    ///
+    /// As [`Program::new`], and [`ValidationError::UnknownHost`] for a call
+    /// of a host function that is not in `host`.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Arena, HostFunctions, Program};
+    /// let mut host = HostFunctions::new();
+    /// host.register("wind_speed", |gust: i64| Ok::<_, String>(gust * 3 / 4)).unwrap();
+    /// let arena = Arena::new();
+    /// let call = host.call_term(&arena, "wind_speed", &[arena.int(40)]).unwrap();
+    /// assert!(Program::with_host(call, &host).is_ok());
+    /// assert!(Program::new(call).is_err());
+    /// ```
+    pub fn with_host(root: &'a Term<'a>, host: &'a HostFunctions) -> Result<Self, ValidationError> {
+        validate_with(root, host)?;
+        Ok(Program { root, host })
+    }
+
+    /// The program `function a₁ … aₙ`: a function value (say, what a
+    /// configuration evaluated to) applied to argument data, built in `arena`
+    /// and validated with `host`. Run it under fresh limits per call; the
+    /// function's term is shared, not copied, when it lives in a longer-lived
+    /// arena.
+    ///
+    /// # Errors
+    ///
+    /// As [`Program::with_host`] (say, `function` calls a host function that
+    /// `host` does not have).
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{extract, parse, Arena, IntoDatum, HostFunctions, Limits, MachineKind, Outcome, Program};
+    /// let config = Arena::new();
+    /// let program = parse(&config, "let rate = 7 in \\hours. hours * rate").unwrap();
+    /// let machine = MachineKind::fastest().unwrap();
+    /// let Outcome::Value(wage) = machine.run(&program, &Limits::default(), &config).outcome else { panic!() };
+    /// let host = HostFunctions::new();
+    /// for hours in [1i64, 8] {
+    ///     let request = Arena::new();
+    ///     let call = Program::application(&request, wage, &[hours.into_datum()], &host).unwrap();
+    ///     let report = machine.run(&call, &Limits::default().with_fuel(100), &request);
+    ///     let Outcome::Value(v) = report.outcome else { panic!() };
+    ///     assert_eq!(extract::<i64>(v).unwrap(), 7 * hours);
+    /// }
+    /// ```
+    pub fn application(
+        arena: &'a Arena,
+        function: &'a Term<'a>,
+        args: &[Datum<'_>],
+        host: &'a HostFunctions,
+    ) -> Result<Program<'a>, ValidationError> {
+        let term = args
+            .iter()
+            .fold(function, |f, arg| arena.app(f, arg.to_term(arena)));
+        Program::with_host(term, host)
     }
 
     /// The program's term.
     pub fn term(&self) -> &'a Term<'a> {
         self.root
+    }
+
+    /// The host functions the program may call.
+    pub fn host(&self) -> &'a HostFunctions {
+        self.host
     }
 }
 
@@ -115,6 +195,23 @@ impl<'a> Program<'a> {
 /// assert!(validate(arena.lam(arena.var(1))).is_err());
 /// ```
 pub fn validate(root: &Term<'_>) -> Result<(), ValidationError> {
+    validate_with(root, &NO_HOST)
+}
+
+/// [`validate`] for a program that may call the functions of `host`.
+///
+/// # Errors
+///
+/// See [`Program::with_host`].
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{validate_with, Arena, HostFunctions};
+/// let host = HostFunctions::new();
+/// assert!(validate_with(Arena::new().int(1), &host).is_ok());
+/// ```
+pub fn validate_with(root: &Term<'_>, host: &HostFunctions) -> Result<(), ValidationError> {
     if !root.is_closed() {
         return Err(ValidationError::Open {
             index: root.scope() - 1,
@@ -150,6 +247,9 @@ pub fn validate(root: &Term<'_>) -> Result<(), ValidationError> {
                     expected: op.arity(),
                     given: args.len(),
                 });
+            }
+            Node::Prim(Prim::Host(id), _) if !host.contains(id) => {
+                return Err(ValidationError::UnknownHost { index: id.index() });
             }
             Node::Con(tag, fields) => {
                 note_arity(tag, u32::try_from(fields.len()).unwrap_or(u32::MAX))?

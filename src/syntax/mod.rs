@@ -57,6 +57,7 @@ mod printer;
 
 use std::fmt::Write as _;
 
+use crate::host::{HostFunctions, NO_HOST};
 use crate::prim::Prim;
 use crate::term::{Arena, Term};
 use crate::validate::Program;
@@ -178,55 +179,82 @@ pub(crate) fn place(source: &str, offset: usize) -> String {
     format!("{line}:{column}")
 }
 
-/// One function that source text may call by name: a primitive with its arity.
+/// What a call by name becomes: a primitive with its arity.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub(crate) struct Function {
-    /// The name in source text: a lower-case identifier, not a keyword.
-    pub(crate) name: &'static str,
     /// The primitive a saturated call becomes.
     pub(crate) prim: Prim,
     /// The number of arguments a call takes.
     pub(crate) arity: usize,
 }
 
-/// The built-in functions that are called by name (the operators have their
-/// own syntax).
-const BUILTIN_FUNCTIONS: &[Function] = &[
-    Function {
-        name: "length",
-        prim: Prim::Length,
-        arity: 1,
-    },
-    Function {
-        name: "decimal",
-        prim: Prim::Decimal,
-        arity: 1,
-    },
-];
-
-/// The table of functions known by name, consulted after local bindings. It is
-/// data, so that functions registered by an embedder can join it.
-#[derive(Clone, Debug)]
-pub(crate) struct Functions {
-    entries: Vec<Function>,
+/// A function with the name source text calls it by.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub(crate) struct Named<'h> {
+    /// The name: a lower-case identifier, not a keyword.
+    pub(crate) name: &'h str,
+    /// The number of arguments a call takes.
+    pub(crate) arity: usize,
 }
 
-impl Functions {
+/// The built-in functions that are called by name (the operators have their
+/// own syntax).
+const BUILTIN_FUNCTIONS: [(&str, Prim); 2] = [("length", Prim::Length), ("decimal", Prim::Decimal)];
+
+/// The table of functions known by name, consulted after local bindings: the
+/// built-ins and any host functions.
+#[derive(Clone, Debug)]
+pub(crate) struct Functions<'h> {
+    entries: Vec<(&'h str, Function)>,
+}
+
+impl<'h> Functions<'h> {
     /// The built-in functions: `length` and `decimal`.
     pub(crate) fn builtin() -> Self {
         Functions {
-            entries: BUILTIN_FUNCTIONS.to_vec(),
+            entries: BUILTIN_FUNCTIONS
+                .iter()
+                .map(|&(name, prim)| {
+                    let arity = prim.arity();
+                    (name, Function { prim, arity })
+                })
+                .collect(),
         }
+    }
+
+    /// The built-ins and the functions of `host`.
+    pub(crate) fn with_host(host: &'h HostFunctions) -> Self {
+        let mut functions = Functions::builtin();
+        functions.entries.extend(host.iter().map(|(name, id)| {
+            let prim = Prim::Host(id);
+            (
+                name,
+                Function {
+                    prim,
+                    arity: id.arity(),
+                },
+            )
+        }));
+        functions
     }
 
     /// The function with this name.
     pub(crate) fn lookup(&self, name: &str) -> Option<Function> {
-        self.entries.iter().find(|f| f.name == name).copied()
+        self.entries
+            .iter()
+            .find(|(n, _)| *n == name)
+            .map(|(_, f)| *f)
     }
 
-    /// The function a primitive is called by, if it has a name.
-    pub(crate) fn by_prim(&self, prim: Prim) -> Option<Function> {
-        self.entries.iter().find(|f| f.prim == prim).copied()
+    /// The name a primitive is called by, if it has one.
+    pub(crate) fn by_prim(&self, prim: Prim) -> Option<Named<'h>> {
+        self.entries
+            .iter()
+            .find(|(_, f)| f.prim == prim)
+            .map(|&(name, f)| Named {
+                name,
+                arity: f.arity,
+            })
     }
 }
 
@@ -286,12 +314,38 @@ pub struct Printed {
 /// assert!(parse(&arena, "double 21").is_err());
 /// ```
 pub fn parse<'a>(arena: &'a Arena, source: &str) -> Result<Program<'a>, SyntaxError> {
-    let term = parser::Parser::new(arena, source, Functions::builtin())
+    parse_with(arena, source, &NO_HOST)
+}
+
+/// Parse and validate a whole program that may call the host functions of
+/// `host` by name, like the built-ins: `f a b` calls `f` with two arguments,
+/// and a partial call `f a` is a function waiting for the rest.
+///
+/// # Errors
+///
+/// As for [`parse`].
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{parse_with, Arena, HostFunctions};
+/// let mut host = HostFunctions::new();
+/// host.register("frost_risk", |low: i64, wind: i64| Ok::<_, String>(low < 2 && wind < 10)).unwrap();
+/// let arena = Arena::new();
+/// assert!(parse_with(&arena, "if frost_risk 1 4 then \"cover\" else \"open\"", &host).is_ok());
+/// assert!(parse_with(&arena, "frost_risk", &HostFunctions::new()).is_err());
+/// ```
+pub fn parse_with<'a>(
+    arena: &'a Arena,
+    source: &str,
+    host: &'a HostFunctions,
+) -> Result<Program<'a>, SyntaxError> {
+    let term = parser::Parser::new(arena, source, Functions::with_host(host))
         .parse()
         .map_err(|failure| failure.locate(source.as_bytes()))?;
-    // The parser establishes every invariant `Program::new` checks; a failure
-    // here would be a parser bug, reported rather than panicked on.
-    Program::new(term).map_err(|error| SyntaxError {
+    // The parser establishes every invariant `Program::with_host` checks; a
+    // failure here would be a parser bug, reported rather than panicked on.
+    Program::with_host(term, host).map_err(|error| SyntaxError {
         line: 1,
         column: 1,
         message: format!("internal error: the parsed term is invalid: {error}"),
@@ -383,7 +437,29 @@ pub fn print(term: &Term<'_>) -> String {
 /// assert_eq!(print_limited(pair, 5).text, "Pair( …[truncated]");
 /// ```
 pub fn print_limited(term: &Term<'_>, max_bytes: usize) -> Printed {
-    let functions = Functions::builtin();
+    print_limited_with(term, max_bytes, &NO_HOST)
+}
+
+/// [`print`](fn@print) for a term that calls the host functions of `host`:
+/// their calls are written by name. ([`print`](fn@print) writes a host call
+/// as `host_function#N(…)`, which does not parse.)
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{parse_with, print_with, Arena, HostFunctions};
+/// let mut host = HostFunctions::new();
+/// host.register("shade", |hour: i64| Ok::<_, String>(hour > 11)).unwrap();
+/// let arena = Arena::new();
+/// let program = parse_with(&arena, "\\h. shade (h + 1)", &host).unwrap();
+/// assert_eq!(print_with(program.term(), &host), "\\a. shade (a + 1)");
+/// ```
+pub fn print_with(term: &Term<'_>, host: &HostFunctions) -> String {
+    print_limited_with(term, PRINT_LIMIT, host).text
+}
+
+fn print_limited_with(term: &Term<'_>, max_bytes: usize, host: &HostFunctions) -> Printed {
+    let functions = Functions::with_host(host);
     let mut text = printer::Printer::new(&functions, max_bytes).run(term);
     let truncated = text.len() > max_bytes;
     if truncated {

@@ -224,7 +224,7 @@ pub(super) struct Parser<'s, 'a> {
     text: &'s str,
     lexer: Lexer<'s>,
     token: Token<'s>,
-    functions: Functions,
+    functions: Functions<'s>,
     frames: Vec<Frame<'s, 'a>>,
     operands: Vec<Operand<'a>>,
     operators: Vec<Operator>,
@@ -274,7 +274,7 @@ fn integer(digits: &str, negative: bool) -> Option<i64> {
 }
 
 impl<'s, 'a> Parser<'s, 'a> {
-    pub(super) fn new(arena: &'a Arena, text: &'s str, functions: Functions) -> Self {
+    pub(super) fn new(arena: &'a Arena, text: &'s str, functions: Functions<'s>) -> Self {
         Parser {
             arena,
             text,

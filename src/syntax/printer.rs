@@ -127,13 +127,13 @@ enum Task<'t> {
 
 /// An iterative printer writing at most a little past `max` bytes.
 pub(super) struct Printer<'f> {
-    functions: &'f Functions,
+    functions: &'f Functions<'f>,
     max: usize,
     out: String,
 }
 
 impl<'f> Printer<'f> {
-    pub(super) fn new(functions: &'f Functions, max: usize) -> Self {
+    pub(super) fn new(functions: &'f Functions<'f>, max: usize) -> Self {
         Printer {
             functions,
             max,
@@ -396,8 +396,12 @@ impl<'f> Printer<'f> {
                 }
             }
             _ => {
-                // Only an unvalidated term gets here: show it, though it will not parse.
-                let _ = write!(self.out, "#{}(", op.name());
+                // A host call printed without its table, or an unvalidated
+                // term: show it, though it will not parse.
+                let _ = match op {
+                    Prim::Host(id) => write!(self.out, "host_function#{}(", id.index()),
+                    _ => write!(self.out, "#{}(", op.name()),
+                };
                 tasks.push(Task::Text(")"));
                 tasks.push(Task::List {
                     items: args,

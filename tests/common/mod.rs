@@ -12,6 +12,19 @@ pub fn run_everywhere<'a>(arena: &'a Arena, source: &str, limits: &Limits) -> Re
         Ok(p) => p,
         Err(e) => panic!("{}", e.render("<test>", source)),
     };
+    run_program_everywhere(arena, &program, limits, source)
+}
+
+/// Run `program` on every enabled machine under `limits`, panicking if the
+/// machines disagree; `what` names the program in the message. Returns the
+/// first machine's report.
+pub fn run_program_everywhere<'a>(
+    arena: &'a Arena,
+    program: &orrery::Program<'a>,
+    limits: &Limits,
+    what: &str,
+) -> Report<'a> {
+    let source = what;
     let mut reports: Vec<(&str, Report<'a>)> = MachineKind::enabled()
         .iter()
         .map(|m| (m.name(), m.run(&program, limits, arena)))

@@ -1,0 +1,543 @@
+//! Host functions (DESIGN §1): primitives the embedding application
+//! registers by name, with a fixed arity, a Rust function from argument data
+//! to a datum or a `host_error`, and an optional fuel cost computed from the
+//! arguments. A panic inside a host function is caught and becomes
+//! `host_error`.
+
+use std::fmt;
+use std::panic::{catch_unwind, AssertUnwindSafe};
+use std::sync::Arc;
+
+use crate::api::{ErrorKind, EvalError};
+use crate::datum::{Datum, FromDatum, IntoDatum};
+use crate::prim::Prim;
+use crate::term::{Arena, Term};
+
+/// A host function's identity inside terms: its place in its
+/// [`HostFunctions`] table and its arity. Terms carry it as
+/// [`Prim::Host`]; [`crate::Program::with_host`] checks it against the table.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::HostFunctions;
+/// let mut host = HostFunctions::new();
+/// let id = host.register("halve", |n: i64| Ok::<_, String>(n / 2)).unwrap();
+/// assert_eq!(id.arity(), 1);
+/// assert_eq!(host.id("halve"), Some(id));
+/// ```
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
+pub struct HostId {
+    index: u32,
+    arity: u32,
+}
+
+impl HostId {
+    /// The number of arguments the function takes.
+    pub fn arity(self) -> usize {
+        self.arity as usize
+    }
+
+    /// Its position in its table (registration order, from 0).
+    pub fn index(self) -> usize {
+        self.index as usize
+    }
+}
+
+/// The signature every host function has once its arguments are data.
+type DataFn = dyn for<'t> Fn(&[Datum<'t>]) -> Result<Datum<'t>, String> + Send + Sync;
+
+/// The signature of a fuel cost.
+type CostFn = dyn for<'t> Fn(&[Datum<'t>]) -> u64 + Send + Sync;
+
+struct Entry {
+    name: Box<str>,
+    id: HostId,
+    function: Arc<DataFn>,
+    cost: Option<Arc<CostFn>>,
+}
+
+/// A table of host functions. Build it once, then lend it to programs
+/// ([`crate::Program::with_host`], [`crate::parse_with`]); it is `Send + Sync`,
+/// so the programs can run on many threads.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{parse_with, Arena, Datum, HostFunctions, Limits, MachineKind, Outcome, extract};
+/// let mut host = HostFunctions::new();
+/// host.register("shout", |s: String| Ok::<_, String>(s.to_uppercase())).unwrap();
+/// let arena = Arena::new();
+/// let program = parse_with(&arena, r#"shout "quiet please""#, &host).unwrap();
+/// let report = MachineKind::fastest().unwrap().run(&program, &Limits::default(), &arena);
+/// let Outcome::Value(v) = report.outcome else { panic!("{:?}", report.outcome) };
+/// assert_eq!(extract::<String>(v).unwrap(), "QUIET PLEASE");
+/// ```
+#[derive(Default)]
+pub struct HostFunctions {
+    entries: Vec<Entry>,
+}
+
+/// The most arguments a host function may take.
+pub const MAX_HOST_ARITY: usize = 16;
+
+/// Why a host function could not be registered.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::HostFunctions;
+/// let mut host = HostFunctions::new();
+/// assert!(host.register("Bad", |n: i64| Ok::<_, String>(n)).is_err());
+/// ```
+#[derive(Clone, Debug, PartialEq, Eq, thiserror::Error)]
+#[non_exhaustive]
+pub enum HostDefinitionError {
+    /// The name is not a lower-case identifier, or is a keyword or built-in.
+    #[error("`{0}` cannot name a host function: use a lower-case identifier that is not a keyword or built-in")]
+    BadName(String),
+    /// A function of this name is already registered.
+    #[error("a host function named `{0}` is already registered")]
+    Duplicate(String),
+    /// Too many arguments.
+    #[error("a host function takes at most {MAX_HOST_ARITY} arguments, `{0}` takes {1}")]
+    Arity(String, usize),
+}
+
+/// Words the text syntax reserves, and the built-in function names.
+const RESERVED: &[&str] = &[
+    "let", "rec", "in", "if", "then", "else", "case", "of", "true", "false", "not", "length",
+    "decimal",
+];
+
+impl HostFunctions {
+    /// An empty table.
+    pub fn new() -> Self {
+        HostFunctions::default()
+    }
+
+    /// Register a typed Rust function: its arguments are converted from data
+    /// with [`FromDatum`] (a conversion failure is a `type_mismatch`), and its
+    /// `Ok` result with [`IntoDatum`]; an `Err(message)` is a `host_error`.
+    ///
+    /// # Errors
+    ///
+    /// [`HostDefinitionError`] for a bad or duplicate name.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::HostFunctions;
+    /// let mut host = HostFunctions::new();
+    /// let id = host
+    ///     .register("clamp_dose", |ml: i64, max: i64| Ok::<_, String>(ml.min(max)))
+    ///     .unwrap();
+    /// assert_eq!(id.arity(), 2);
+    /// ```
+    pub fn register<Args, F: HostFn<Args>>(
+        &mut self,
+        name: &str,
+        function: F,
+    ) -> Result<HostId, HostDefinitionError> {
+        let arity = F::ARITY;
+        self.register_data(name, arity, move |args| function.call(args))
+    }
+
+    /// Register a function over [`Datum`] arguments, of any arity up to
+    /// [`MAX_HOST_ARITY`]. It may return constructors built from its
+    /// arguments' tags or from `'static` ones.
+    ///
+    /// # Errors
+    ///
+    /// [`HostDefinitionError`] for a bad or duplicate name, or too many
+    /// arguments.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Datum, HostFunctions};
+    /// let mut host = HostFunctions::new();
+    /// host.register_data("first_field", 1, |args| match &args[0] {
+    ///     Datum::Con(c) if !c.fields().is_empty() => Ok(c.fields()[0].clone()),
+    ///     other => Err(format!("no fields in {}", other.describe())),
+    /// })
+    /// .unwrap();
+    /// ```
+    pub fn register_data<F>(
+        &mut self,
+        name: &str,
+        arity: usize,
+        function: F,
+    ) -> Result<HostId, HostDefinitionError>
+    where
+        F: for<'t> Fn(&[Datum<'t>]) -> Result<Datum<'t>, String> + Send + Sync + 'static,
+    {
+        let well_formed = name
+            .bytes()
+            .next()
+            .is_some_and(|b| b.is_ascii_lowercase() || b == b'_')
+            && name
+                .bytes()
+                .all(|b| b.is_ascii_alphanumeric() || b == b'_' || b == b'\'');
+        if !well_formed || RESERVED.contains(&name) || name == "_" {
+            return Err(HostDefinitionError::BadName(name.to_string()));
+        }
+        if self.id(name).is_some() {
+            return Err(HostDefinitionError::Duplicate(name.to_string()));
+        }
+        if arity > MAX_HOST_ARITY {
+            return Err(HostDefinitionError::Arity(name.to_string(), arity));
+        }
+        let id = HostId {
+            index: u32::try_from(self.entries.len()).unwrap_or(u32::MAX),
+            arity: arity as u32,
+        };
+        self.entries.push(Entry {
+            name: name.into(),
+            id,
+            function: Arc::new(function),
+            cost: None,
+        });
+        Ok(id)
+    }
+
+    /// Give a host function a fuel cost beyond the one unit every contraction
+    /// takes, computed from its arguments (say, proportional to the length of
+    /// a string it builds). The cost is a function of the values alone, so it
+    /// is the same on every machine. A call is made only if `1 + cost` units
+    /// of fuel remain; otherwise the run ends out of fuel before the call.
+    ///
+    /// Does nothing if `id` is not from this table.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Datum, HostFunctions};
+    /// let mut host = HostFunctions::new();
+    /// let id = host.register("repeat", |s: String, n: u32| Ok::<_, String>(s.repeat(n as usize))).unwrap();
+    /// host.set_cost(id, |args| match (&args[0], &args[1]) {
+    ///     (Datum::Str(s), Datum::Int(n)) => (s.len() as u64).saturating_mul(*n as u64),
+    ///     _ => 0,
+    /// });
+    /// ```
+    pub fn set_cost<F>(&mut self, id: HostId, cost: F)
+    where
+        F: for<'t> Fn(&[Datum<'t>]) -> u64 + Send + Sync + 'static,
+    {
+        if let Some(entry) = self.entry_mut(id) {
+            entry.cost = Some(Arc::new(cost));
+        }
+    }
+
+    /// The function registered under `name`.
+    pub fn id(&self, name: &str) -> Option<HostId> {
+        self.entries.iter().find(|e| &*e.name == name).map(|e| e.id)
+    }
+
+    /// The name of a function of this table.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// let mut host = orrery::HostFunctions::new();
+    /// let id = host.register("tide", |n: i64| Ok::<_, String>(n)).unwrap();
+    /// assert_eq!(host.name(id), Some("tide"));
+    /// ```
+    pub fn name(&self, id: HostId) -> Option<&str> {
+        self.entry(id).map(|e| &*e.name)
+    }
+
+    /// Every function's name and id, in registration order.
+    pub fn iter(&self) -> impl Iterator<Item = (&str, HostId)> {
+        self.entries.iter().map(|e| (&*e.name, e.id))
+    }
+
+    /// Whether `id` names a function of this table (with the same arity).
+    pub fn contains(&self, id: HostId) -> bool {
+        self.entry(id).is_some()
+    }
+
+    /// A saturated call `name(args…)`, built in `arena` (the builder API's
+    /// way to call a host function); `None` if there is no such function or
+    /// the number of arguments is wrong.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Arena, HostFunctions, Program};
+    /// let mut host = HostFunctions::new();
+    /// host.register("twice", |n: i64| Ok::<_, String>(2 * n)).unwrap();
+    /// let arena = Arena::new();
+    /// let call = host.call_term(&arena, "twice", &[arena.int(21)]).unwrap();
+    /// assert!(Program::with_host(call, &host).is_ok());
+    /// ```
+    pub fn call_term<'a>(
+        &self,
+        arena: &'a Arena,
+        name: &str,
+        args: &[&'a Term<'a>],
+    ) -> Option<&'a Term<'a>> {
+        let id = self.id(name)?;
+        (id.arity() == args.len()).then(|| arena.prim(Prim::Host(id), args))
+    }
+
+    fn entry(&self, id: HostId) -> Option<&Entry> {
+        self.entries.get(id.index()).filter(|e| e.id == id)
+    }
+
+    fn entry_mut(&mut self, id: HostId) -> Option<&mut Entry> {
+        self.entries.get_mut(id.index()).filter(|e| e.id == id)
+    }
+
+    /// Fuel a call of `id` on `args` takes: one unit, plus its declared cost.
+    pub(crate) fn fuel(&self, id: HostId, args: &[Datum<'_>]) -> u64 {
+        let extra = self
+            .entry(id)
+            .and_then(|e| e.cost.as_ref())
+            .map_or(Ok(0), |cost| catch_unwind(AssertUnwindSafe(|| cost(args))));
+        // A panicking cost function makes the call cost nothing extra; the
+        // call itself then reports the failure if it panics too.
+        1u64.saturating_add(extra.unwrap_or(0))
+    }
+
+    /// Call `id` on `args`. Failures and panics are `host_error`s.
+    pub(crate) fn call<'t>(&self, id: HostId, args: &[Datum<'t>]) -> Result<Datum<'t>, EvalError> {
+        let Some(entry) = self.entry(id) else {
+            return Err(host_error(format!(
+                "host function #{} is not in this program's table",
+                id.index()
+            )));
+        };
+        let function = &entry.function;
+        match catch_unwind(AssertUnwindSafe(|| function(args))) {
+            Ok(Ok(datum)) => Ok(datum),
+            Ok(Err(message)) => Err(host_error(format!("{}: {message}", entry.name))),
+            Err(payload) => {
+                let what = payload
+                    .downcast_ref::<&str>()
+                    .map(|s| s.to_string())
+                    .or_else(|| payload.downcast_ref::<String>().cloned())
+                    .unwrap_or_else(|| "a panic".to_string());
+                Err(host_error(format!("{} panicked: {what}", entry.name)))
+            }
+        }
+    }
+
+    /// The error for host function `id` given an argument that is not data.
+    pub(crate) fn not_data(&self, id: HostId, found: &str) -> EvalError {
+        let name = self.name(id).unwrap_or("a host function");
+        EvalError::new(
+            ErrorKind::TypeMismatch,
+            format!("{name} expects data, got {found}"),
+        )
+    }
+}
+
+/// What a machine does at a host call, in the same order on every machine, so
+/// every machine reaches the same outcome, counts and fuel:
+///
+/// 1. with no fuel left, the run is out of fuel (as for any contraction);
+/// 2. an argument that is not data (a function) is a `type_mismatch`, made
+///    with one unit of fuel;
+/// 3. the call needs `1 + cost(args)` units: if fewer remain, the run is out
+///    of fuel *before* the contraction, which is not counted (so a paused run
+///    can resume with more fuel and make it);
+/// 4. otherwise the units are used, one `prim` contraction is counted (and
+///    the rest as host fuel), and the function is called.
+pub(crate) enum HostStep<'t> {
+    /// Out of fuel before the contraction: nothing was used or counted.
+    OutOfFuel,
+    /// The arguments are too large to convert: the memory limit.
+    TooLarge,
+    /// The contraction was made with `fuel` units; its result.
+    Made {
+        /// Units used: 1, plus the declared cost.
+        fuel: u64,
+        /// The datum returned, or the error.
+        result: Result<Datum<'t>, EvalError>,
+    },
+}
+
+/// Make the host-call contraction of `id` on `args` (already read by the
+/// machine, or why not) with `fuel_left` units of fuel. See [`HostStep`].
+pub(crate) fn host_step<'t>(
+    host: &HostFunctions,
+    id: HostId,
+    args: Result<Vec<Datum<'t>>, crate::datum::NotData>,
+    fuel_left: u64,
+) -> HostStep<'t> {
+    use crate::datum::NotData;
+    if fuel_left == 0 {
+        return HostStep::OutOfFuel;
+    }
+    let args = match args {
+        Ok(args) => args,
+        Err(NotData::TooLarge) => return HostStep::TooLarge,
+        Err(NotData::Function) => {
+            return HostStep::Made {
+                fuel: 1,
+                result: Err(host.not_data(id, "a function")),
+            }
+        }
+        Err(NotData::NotAValue) => {
+            return HostStep::Made {
+                fuel: 1,
+                result: Err(host.not_data(id, "a term that is not a value")),
+            }
+        }
+    };
+    let fuel = host.fuel(id, &args);
+    if fuel > fuel_left {
+        return HostStep::OutOfFuel;
+    }
+    HostStep::Made {
+        fuel,
+        result: host.call(id, &args),
+    }
+}
+
+/// The most datum nodes a run may hand a host function, given its memory
+/// limit: each node is charged its own size.
+pub(crate) fn max_datum_nodes(memory: usize) -> usize {
+    memory / std::mem::size_of::<Datum<'_>>()
+}
+
+/// The table shared by programs built without host functions.
+pub(crate) static NO_HOST: HostFunctions = HostFunctions {
+    entries: Vec::new(),
+};
+
+fn host_error(message: String) -> EvalError {
+    EvalError::new(ErrorKind::HostError, message)
+}
+
+impl fmt::Debug for HostFunctions {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.debug_list()
+            .entries(
+                self.entries
+                    .iter()
+                    .map(|e| format!("{}/{}", e.name, e.id.arity)),
+            )
+            .finish()
+    }
+}
+
+/// A Rust closure usable as a typed host function: `Fn(A, B, …) -> Result<R,
+/// E>` with each argument [`FromDatum`], `R: IntoDatum` and `E: Display`,
+/// for up to six arguments. Implemented automatically.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::HostFunctions;
+/// let mut host = HostFunctions::new();
+/// host.register("label", |name: String, shelf: i64, lit: bool| {
+///     if shelf < 0 { Err("no such shelf") } else { Ok(format!("{name}@{shelf}{}", if lit { "*" } else { "" })) }
+/// }).unwrap();
+/// ```
+pub trait HostFn<Args>: Send + Sync + 'static {
+    /// The number of arguments.
+    const ARITY: usize;
+    /// Convert the arguments, call, convert the result.
+    ///
+    /// # Errors
+    ///
+    /// The message for a `host_error`: a conversion failure or the function's
+    /// own error.
+    fn call<'t>(&self, args: &[Datum<'t>]) -> Result<Datum<'t>, String>;
+}
+
+macro_rules! host_fn {
+    ($n:literal $(, $t:ident $v:ident $i:tt)*) => {
+        impl<F, R, E $(, $t)*> HostFn<($($t,)*)> for F
+        where
+            F: Fn($($t),*) -> Result<R, E> + Send + Sync + 'static,
+            R: IntoDatum,
+            E: fmt::Display,
+            $($t: FromDatum,)*
+        {
+            const ARITY: usize = $n;
+            #[allow(unused_variables)]
+            fn call<'t>(&self, args: &[Datum<'t>]) -> Result<Datum<'t>, String> {
+                if args.len() != $n {
+                    return Err(format!("expects {} argument(s), got {}", $n, args.len()));
+                }
+                $(let $v = $t::from_datum(&args[$i])
+                    .map_err(|e| format!("argument {}: {e}", $i + 1))?;)*
+                match self($($v),*) {
+                    Ok(result) => Ok(result.into_datum()),
+                    Err(message) => Err(message.to_string()),
+                }
+            }
+        }
+    };
+}
+
+host_fn!(0);
+host_fn!(1, A a 0);
+host_fn!(2, A a 0, B b 1);
+host_fn!(3, A a 0, B b 1, C c 2);
+host_fn!(4, A a 0, B b 1, C c 2, D d 3);
+host_fn!(5, A a 0, B b 1, C c 2, D d 3, G g 4);
+host_fn!(6, A a 0, B b 1, C c 2, D d 3, G g 4, H h 5);
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn panics_and_errors_become_host_errors() {
+        let mut host = HostFunctions::new();
+        let boom = host
+            .register("boom", |n: i64| -> Result<i64, String> {
+                if n > 0 {
+                    panic!("fuse {n} lit")
+                }
+                Err("damp fuse".into())
+            })
+            .unwrap();
+        let e = host.call(boom, &[Datum::Int(3)]).unwrap_err();
+        assert_eq!(e.kind(), ErrorKind::HostError);
+        assert_eq!(e.message(), "boom panicked: fuse 3 lit");
+        let e = host.call(boom, &[Datum::Int(0)]).unwrap_err();
+        assert_eq!(e.message(), "boom: damp fuse");
+        let e = host.call(boom, &[Datum::Bool(true)]).unwrap_err();
+        assert_eq!(
+            e.message(),
+            "boom: argument 1: expected an integer, found a boolean"
+        );
+    }
+
+    #[test]
+    fn names_are_checked() {
+        let mut host = HostFunctions::new();
+        let ok = |n: i64| Ok::<_, String>(n);
+        assert!(host.register("let", ok).is_err());
+        assert!(host.register("length", ok).is_err());
+        assert!(host.register("9lives", ok).is_err());
+        assert!(host.register("tide_height", ok).is_ok());
+        assert_eq!(
+            host.register("tide_height", ok),
+            Err(HostDefinitionError::Duplicate("tide_height".into()))
+        );
+        let wide = host.register_data("wide", MAX_HOST_ARITY + 1, |_| Ok(Datum::Int(0)));
+        assert!(matches!(wide, Err(HostDefinitionError::Arity(..))));
+    }
+
+    #[test]
+    fn costs_are_one_plus_the_declared_cost() {
+        let mut host = HostFunctions::new();
+        let id = host
+            .register("pad", |s: String| Ok::<_, String>(s))
+            .unwrap();
+        assert_eq!(host.fuel(id, &[Datum::Str("abc".into())]), 1);
+        host.set_cost(id, |args| match &args[0] {
+            Datum::Str(s) => s.len() as u64,
+            _ => 0,
+        });
+        assert_eq!(host.fuel(id, &[Datum::Str("abc".into())]), 4);
+        host.set_cost(id, |_| u64::MAX);
+        assert_eq!(host.fuel(id, &[Datum::Str("abc".into())]), u64::MAX);
+    }
+}
