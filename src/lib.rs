@@ -49,13 +49,56 @@
 //! an evaluation error, out of fuel, or a resource limit — never a panic or a
 //! stack overflow, at any nesting depth.
 //!
+//! A [`Cancel`] handle in the limits stops a run from another thread, with
+//! the `cancelled` limit, within [`CANCEL_POLL_INTERVAL`] contractions. Limits
+//! are outcomes the host sees; a program cannot catch or hide them.
+//!
+//! # Host functions and data
+//!
+//! [`HostFunctions`] holds Rust functions registered by name; programs call
+//! them like built-ins ([`parse_with`], or [`HostFunctions::call_term`] in
+//! the builder API) once [`Program::with_host`] has checked them. Their
+//! arguments and results cross as [`Datum`]s, converted to and from Rust types
+//! by [`FromDatum`] and [`IntoDatum`]; [`extract`] converts a program's
+//! result.
+//!
+//! ```
+//! use orrery::{extract, parse_with, Arena, HostFunctions, Limits, MachineKind, Outcome};
+//!
+//! let mut host = HostFunctions::new();
+//! host.register("kiln_minutes", |kg: i64, glaze: bool| {
+//!     if kg <= 0 { Err("an empty kiln") } else { Ok(30 + kg * if glaze { 9 } else { 6 }) }
+//! }).unwrap();
+//! let arena = Arena::new();
+//! let program = parse_with(&arena, "Pair(kiln_minutes 4 true, kiln_minutes 4 false)", &host).unwrap();
+//! let machine = MachineKind::fastest().unwrap();
+//! let Outcome::Value(v) = machine.run(&program, &Limits::default(), &arena).outcome else { panic!() };
+//! assert_eq!(extract::<(i64, i64)>(v).unwrap(), (66, 54));
+//! ```
+//!
+//! A host function's `Err` or panic is the `host_error` evaluation error. A
+//! host function may declare a fuel cost ([`HostFunctions::set_cost`]),
+//! computed from its arguments so that every machine charges the same; the
+//! extra units are reported by [`Counts::host_fuel`].
+//!
+//! # Compile once, run many; pause and resume
+//!
+//! A [`Program`] is `Copy + Send + Sync`: parse it once and run it on many
+//! threads, each run with its own [`Limits`]; each machine value keeps its
+//! scratch space for the next run. A program that evaluates to a function (a
+//! configuration, a rule set) is called per request with
+//! [`Program::application`]. The stepper ([`machines::stepper::Stepper::start`])
+//! and the CEK machine (`machines::cek::Cek::start`) return runs that pause
+//! when their fuel runs out and resume with more, ending exactly as an
+//! uninterrupted run; the env machine cannot pause.
+//!
 //! # Untrusted code
 //!
 //! The limits bound contractions and runtime memory. They do not bound
 //! wall-clock time exactly (contractions differ in cost), nor what host
-//! functions you register do; and orrery runs in your process. How to isolate
-//! untrusted programs (threads, processes, operating-system limits) is your
-//! sandboxing policy.
+//! functions you register do (their effects, their time, their memory); and
+//! orrery runs in your process. How to isolate untrusted programs (threads,
+//! processes, operating-system limits) is your sandboxing policy.
 //!
 //! # Features
 //!
