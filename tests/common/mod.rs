@@ -54,4 +54,5 @@ pub fn int_of(source: &str) -> i64 {
         other => panic!("{source:?} gave {other:?}, not an integer"),
     }
 }
+pub mod fuzz_checks;
 pub mod gen;

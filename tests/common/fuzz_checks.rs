@@ -1,0 +1,337 @@
+//! The properties the fuzz targets check, kept in one place so that the cargo
+//! fuzz targets (`fuzz/fuzz_targets/`) and the replay test
+//! (`tests/fuzz_replay.rs`) run exactly the same code. It depends on orrery
+//! alone, so the fuzz crate can include it by path.
+
+use orrery::{
+    disagreement, parse, parse_bytes, print_limited, Arena, Arm, Limits, MachineKind, Outcome,
+    Prim, Program, Report, Term,
+};
+
+/// Fuel for each differential run: enough for short loops, small enough that
+/// a run takes microseconds.
+pub const FUEL: u64 = 2_000;
+
+/// Memory for each differential run.
+pub const MEMORY: usize = 4 << 20;
+
+/// Programs printed longer than this are not round-tripped (a term with heavy
+/// sharing can print exponentially long).
+const ROUND_TRIP_BYTES: usize = 1 << 16;
+
+/// An `agree` input that starts with this byte is a program in the text
+/// syntax (its first line is then a comment); any other input is decoded by
+/// [`decode`].
+pub const TEXT_MARKER: u8 = b'#';
+
+/// Arbitrary bytes given to `parse_bytes`: a program that parses prints to
+/// text that parses back to the same de Bruijn term (and prints the same
+/// again); an input that does not parse gets an error whose line and column
+/// lie within the input. Panics (the fuzzer's crash) when either fails.
+pub fn check_parse(bytes: &[u8]) {
+    let arena = Arena::new();
+    match parse_bytes(&arena, bytes) {
+        Ok(program) => round_trip(&arena, program.term(), usize::MAX),
+        Err(err) => {
+            assert!(
+                !err.message.is_empty() && !err.message.starts_with("internal error"),
+                "bad message {err}"
+            );
+            let (lines, last) = line_lengths(bytes, err.line);
+            assert!(
+                err.line >= 1 && err.line <= lines,
+                "line {} outside the input's {lines} lines",
+                err.line
+            );
+            assert!(
+                err.column >= 1 && err.column <= last + 1,
+                "column {} outside line {} of {last} characters",
+                err.column,
+                err.line
+            );
+            // Rendering the error for a person never panics either.
+            let text = String::from_utf8_lossy(bytes);
+            let shown = err.render("<fuzz>", &text);
+            assert!(shown.starts_with(&format!("<fuzz>:{}:{}:", err.line, err.column)));
+        }
+    }
+}
+
+/// The number of lines of `bytes` (1 more than its line feeds) and the
+/// number of characters of line `line` (1-based), counting characters by
+/// their first bytes as the parser's positions do.
+fn line_lengths(bytes: &[u8], line: u32) -> (u32, u32) {
+    let lines = bytes.split(|&b| b == b'\n').count();
+    let chars = bytes
+        .split(|&b| b == b'\n')
+        .nth(line.saturating_sub(1) as usize)
+        .map_or(0, |l| l.iter().filter(|&&b| b & 0xC0 != 0x80).count());
+    let clamp = |n: usize| u32::try_from(n).unwrap_or(u32::MAX);
+    (clamp(lines), clamp(chars))
+}
+
+/// Print `term`, parse the text back, and insist on the same term and the
+/// same text; skipped when the text is longer than `max_bytes`.
+fn round_trip(arena: &Arena, term: &Term<'_>, max_bytes: usize) {
+    let printed = print_limited(term, max_bytes);
+    if printed.truncated {
+        return;
+    }
+    let again = match parse(arena, &printed.text) {
+        Ok(p) => p.term(),
+        Err(e) => panic!("the printed program does not parse: {e}\n{}", printed.text),
+    };
+    assert!(
+        again == term,
+        "the printed program parses to another term:\n{}",
+        printed.text
+    );
+    assert_eq!(print_limited(again, max_bytes).text, printed.text);
+}
+
+/// Arbitrary bytes made into a closed program (text after [`TEXT_MARKER`],
+/// otherwise [`decode`]d), run on every enabled machine with [`FUEL`] and
+/// [`MEMORY`]: the machines must agree (DESIGN §2), each report must be
+/// consistent with the fuel it was given, and a run that ended after `n`
+/// contractions must run out of fuel, on every machine, given `n - 1`.
+pub fn check_agree(bytes: &[u8]) {
+    let arena = Arena::new();
+    let term = match bytes.split_first() {
+        Some((&TEXT_MARKER, _)) => match std::str::from_utf8(bytes)
+            .ok()
+            .and_then(|text| parse(&arena, text).ok())
+        {
+            Some(program) => program.term(),
+            // Inputs that do not parse are the parse target's business.
+            None => return,
+        },
+        _ => decode(&arena, bytes),
+    };
+    let program = match Program::new(term) {
+        Ok(p) => p,
+        Err(e) => panic!("the decoder built an invalid program: {e}"),
+    };
+    round_trip(&arena, term, ROUND_TRIP_BYTES);
+    let limits = Limits::default().with_fuel(FUEL).with_memory(MEMORY);
+    let reports = run_all(&program, &limits, &arena);
+    let Some(steps) = reports
+        .iter()
+        .find(|(_, r)| matches!(r.outcome, Outcome::Value(_) | Outcome::Error(_)))
+        .map(|(_, r)| r.counts.total())
+    else {
+        return;
+    };
+    if steps > 0 {
+        let shorter = limits.with_fuel(steps - 1);
+        for (name, report) in run_all(&program, &shorter, &arena) {
+            assert!(
+                matches!(report.outcome, Outcome::OutOfFuel | Outcome::Limit(_)),
+                "{name} with fuel {} (one less than needed): {:?}",
+                steps - 1,
+                report.outcome
+            );
+        }
+    }
+}
+
+/// Run `program` on every enabled machine, check each report against the
+/// limits and every pair of reports against each other, and return them.
+fn run_all<'a>(
+    program: &Program<'a>,
+    limits: &Limits,
+    arena: &'a Arena,
+) -> Vec<(&'static str, Report<'a>)> {
+    let reports: Vec<(&'static str, Report<'a>)> = MachineKind::enabled()
+        .iter()
+        .map(|m| (m.name(), m.run(program, limits, arena)))
+        .collect();
+    for (name, report) in &reports {
+        let total = report.counts.total();
+        match report.outcome {
+            Outcome::Value(v) => {
+                assert!(v.is_value() && v.is_closed(), "{name}: not a closed value");
+                assert!(total <= limits.fuel, "{name}: {total} contractions");
+            }
+            Outcome::Error(_) => {
+                assert!(total >= 1 && total <= limits.fuel, "{name}: {total}");
+            }
+            Outcome::OutOfFuel => assert_eq!(total, limits.fuel, "{name}: out of fuel early"),
+            Outcome::Limit(_) => assert!(total <= limits.fuel, "{name}: {total}"),
+        }
+    }
+    for (i, (first, a)) in reports.iter().enumerate() {
+        for (second, b) in &reports[i + 1..] {
+            if let Some(why) = disagreement(a, b) {
+                panic!("{first} and {second} disagree: {why}\n{a:?}\n{b:?}");
+            }
+        }
+    }
+    reports
+}
+
+/// Constructor tags the decoder uses, each with its one arity.
+const TAGS: [(&str, u32); 5] = [
+    ("Nil", 0),
+    ("Leaf", 0),
+    ("Some", 1),
+    ("Pair", 2),
+    ("Node", 3),
+];
+
+const INTS: [i64; 10] = [0, 1, -1, 2, 3, 10, 64, i64::MAX, i64::MIN, -7];
+
+const STRINGS: [&str; 6] = ["", "a", "ab", "é\u{1F600}", "line\n\"q\"", "\u{0}"];
+
+/// How deep the decoder nests terms: it recurses natively, so its depth is
+/// capped (the term's depth, not the input's length, bounds the recursion).
+const MAX_DEPTH: u32 = 40;
+
+/// How many nodes the decoder builds before it builds only leaves.
+const MAX_NODES: u32 = 4_000;
+
+/// How many shared subterms one input may build. The env machine turns a
+/// shared program into a tree when it compiles it (reported as a bug; see
+/// `tests/hostile.rs`), so deeper sharing would only find that bug again.
+const MAX_SHARES: u32 = 8;
+
+/// Decode bytes into a closed, valid term through the builder API, so almost
+/// every input is a runnable program: each byte picks a construct, variables
+/// are folded into the binders in scope, arities are always right and case
+/// arms are distinct. When the bytes run out, the rest is leaves.
+pub fn decode<'a>(arena: &'a Arena, bytes: &[u8]) -> &'a Term<'a> {
+    let mut decoder = Decoder {
+        arena,
+        bytes,
+        at: 0,
+        nodes: 0,
+        shares: 0,
+    };
+    decoder.term(0, 0)
+}
+
+struct Decoder<'a, 'b> {
+    arena: &'a Arena,
+    bytes: &'b [u8],
+    at: usize,
+    nodes: u32,
+    shares: u32,
+}
+
+impl<'a> Decoder<'a, '_> {
+    fn byte(&mut self) -> u8 {
+        let b = self.bytes.get(self.at).copied().unwrap_or(0);
+        self.at += 1;
+        b
+    }
+
+    fn pick<T: Copy>(&mut self, table: &[T]) -> T {
+        table[usize::from(self.byte()) % table.len()]
+    }
+
+    /// A term under `binders` binders, `depth` levels down.
+    fn term(&mut self, binders: u32, depth: u32) -> &'a Term<'a> {
+        let a = self.arena;
+        self.nodes += 1;
+        let op = if depth >= MAX_DEPTH || self.nodes >= MAX_NODES || self.at >= self.bytes.len() {
+            self.byte() % 4
+        } else {
+            self.byte() % 24
+        };
+        let sub = |d: &mut Self, extra: u32| d.term(binders + extra, depth + 1);
+        match op {
+            0 | 4 | 5 if binders > 0 => {
+                let i = u32::from(self.byte()) % binders;
+                a.var(i)
+            }
+            0 | 1 | 4 | 5 => {
+                let n = self.pick(&INTS);
+                a.int(n)
+            }
+            2 => {
+                let b = self.byte() % 2 == 0;
+                a.boolean(b)
+            }
+            3 => {
+                let s = self.pick(&STRINGS);
+                a.string(s)
+            }
+            6 | 7 => a.lam(sub(self, 1)),
+            8 => a.rec_lam(sub(self, 2)),
+            9..=11 => {
+                let f = sub(self, 0);
+                a.app(f, sub(self, 0))
+            }
+            12 => {
+                let bound = sub(self, 0);
+                a.let_in(bound, sub(self, 1))
+            }
+            13 => {
+                let c = sub(self, 0);
+                let t = sub(self, 0);
+                a.if_then_else(c, t, sub(self, 0))
+            }
+            14 | 15 => {
+                let op = self.pick(&Prim::ALL);
+                let args: Vec<_> = (0..op.arity()).map(|_| sub(self, 0)).collect();
+                a.prim(op, &args)
+            }
+            16 | 17 => {
+                let (tag, arity) = self.pick(&TAGS);
+                let fields: Vec<_> = (0..arity).map(|_| sub(self, 0)).collect();
+                a.con(tag, &fields)
+            }
+            18 | 19 => self.case(binders, depth),
+            20 if self.shares < MAX_SHARES => {
+                self.shares += 1;
+                // Sharing: one subterm reached twice, so nesting this gives
+                // terms whose tree is exponentially larger than their graph.
+                let t = sub(self, 0);
+                match self.byte() % 3 {
+                    0 => a.app(t, t),
+                    1 => a.con("Pair", &[t, t]),
+                    _ => a.prim(Prim::Concat, &[t, t]),
+                }
+            }
+            21 => {
+                // (rec f x. if x < 1 then body else f (x - 1)) n: a loop.
+                let n = i64::from(self.byte() % 16);
+                let x = a.var(0);
+                let again = a.app(a.var(1), a.prim(Prim::Sub, &[x, a.int(1)]));
+                let test = a.prim(Prim::Lt, &[x, a.int(1)]);
+                let body = sub(self, 2);
+                a.app(a.rec_lam(a.if_then_else(test, body, again)), a.int(n))
+            }
+            22 => {
+                // A function applied to a value: a beta redex.
+                let body = sub(self, 1);
+                a.app(a.lam(body), sub(self, 0))
+            }
+            _ => {
+                let (tag, arity) = self.pick(&TAGS);
+                let fields: Vec<_> = (0..arity).map(|_| self.term(binders, MAX_DEPTH)).collect();
+                a.con(tag, &fields)
+            }
+        }
+    }
+
+    /// `case s of { arms; _ => d }` with distinct arms and an optional default.
+    fn case(&mut self, binders: u32, depth: u32) -> &'a Term<'a> {
+        let a = self.arena;
+        let scrutinee = self.term(binders, depth + 1);
+        let wanted = self.byte() % 4;
+        let mut arms: Vec<Arm<'a>> = Vec::new();
+        for _ in 0..wanted {
+            let (tag, arity) = self.pick(&TAGS);
+            if arms.iter().any(|arm| arm.tag == tag) {
+                continue;
+            }
+            let body = self.term(binders + arity, depth + 1);
+            arms.push(Arm::new(a.tag(tag), arity, body));
+        }
+        let default = match self.byte() % 2 {
+            0 => Some(self.term(binders, depth + 1)),
+            _ => None,
+        };
+        a.case(scrutinee, &arms, default)
+    }
+}
