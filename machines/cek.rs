@@ -19,12 +19,12 @@
 use std::rc::Rc;
 
 use crate::value::{
-    apply_prim, free_variable, int_prim, int_test, read_back, Closure, ConCell, Meter, Value,
-    Values,
+    apply_prim, free_variable, int_prim, int_test, read_back, recycle, Closure, ConCell, Meter,
+    Tank, Value, Values,
 };
 use crate::{
-    Arena, Arm, Counts, EvalError, LimitError, Limits, Machine, Node, Operand, Outcome, Prim,
-    Program, Report, Rule, Term,
+    Arena, Arm, Cancel, Counts, EvalError, LimitError, Limits, Machine, Node, Operand, Outcome,
+    Prim, Program, Report, Rule, Term,
 };
 
 /// A runtime value of this machine: closures keep their source term as code.
@@ -50,9 +50,39 @@ type Fun<'a> = Closure<'a, &'a Term<'a>>;
 /// assert_eq!(report.outcome, Outcome::Value(arena.int(42)));
 /// assert_eq!(report.counts.total(), 2); // beta, prim
 /// ```
-#[derive(Debug, Default)]
+#[derive(Debug)]
 pub struct Cek {
     peak: usize,
+    /// Whether fuel, memory and cancellation are checked (always, except in
+    /// the benchmark-only [`Cek::without_accounting`]).
+    metered: bool,
+    /// The emptied stacks of the last [`Machine::run`], kept for the next.
+    scratch: Scratch,
+}
+
+impl Default for Cek {
+    fn default() -> Self {
+        Cek {
+            peak: 0,
+            metered: true,
+            scratch: Scratch::default(),
+        }
+    }
+}
+
+/// A run's stacks, emptied; their element types borrow a program, so they
+/// are kept with `'static` in its place and [`recycle`]d.
+#[derive(Default)]
+struct Scratch {
+    locals: Vec<Val<'static>>,
+    kont: Vec<Frame<'static>>,
+    operands: Vec<Val<'static>>,
+}
+
+impl std::fmt::Debug for Scratch {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("Scratch").finish_non_exhaustive()
+    }
 }
 
 impl Cek {
@@ -65,6 +95,30 @@ impl Cek {
     /// ```
     pub fn new() -> Self {
         Cek::default()
+    }
+
+    /// **For benchmarks only.** A machine whose [`Machine::run`] skips every
+    /// fuel, memory and cancellation check, so a benchmark can measure what
+    /// the accounting costs. It computes the same values and counts, but it
+    /// ignores [`Limits`] entirely: a divergent program runs forever and a
+    /// growing one until allocation fails. Never use it on untrusted input.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::machines::cek::Cek;
+    /// use orrery::{Arena, Limits, Machine, Outcome, Program};
+    /// let arena = Arena::new();
+    /// let program = Program::new(arena.app(arena.lam(arena.var(0)), arena.int(5))).unwrap();
+    /// let report = Cek::without_accounting().run(&program, &Limits::default(), &arena);
+    /// assert_eq!(report.outcome, Outcome::Value(arena.int(5)));
+    /// ```
+    #[doc(hidden)]
+    pub fn without_accounting() -> Self {
+        Cek {
+            metered: false,
+            ..Cek::default()
+        }
     }
 
     /// The initial machine state for running `program` under `limits`:
@@ -86,20 +140,7 @@ impl Cek {
     /// assert_eq!(report.counts.total(), 3);
     /// ```
     pub fn start<'a>(program: &Program<'a>, limits: &Limits) -> CekRun<'a> {
-        CekRun {
-            control: Some(Control::Eval(program.term())),
-            env: Env::top(),
-            locals: Vec::new(),
-            kont: Vec::new(),
-            operands: Vec::new(),
-            floor: 0,
-            fuel: limits.fuel,
-            counts: Counts::default(),
-            memory: limits.memory,
-            cells: 0,
-            peak: 0,
-            end: None,
-        }
+        CekRun::with_stacks(program, limits, Scratch::default(), true)
     }
 
     /// The most runtime memory the last [`Machine::run`] held at once, in
@@ -132,9 +173,11 @@ impl Machine for Cek {
         limits: &Limits,
         out: &'o Arena,
     ) -> Report<'o> {
-        let mut run = Cek::start(program, limits);
+        let scratch = std::mem::take(&mut self.scratch);
+        let mut run = CekRun::with_stacks(program, limits, scratch, self.metered);
         let report = run.resume(0, out);
         self.peak = run.peak_bytes();
+        self.scratch = run.into_stacks();
         report
     }
 }
@@ -191,19 +234,11 @@ enum Frame<'a> {
         env: Env<'a>,
         below: usize,
     },
-    /// `op(v…, □, t…)`, the hole at `index`; the values to its left are on
-    /// the machine's operand stack.
+    /// `op(v…, □, t…)` or `K(v…, □, t…)`, the hole at `index`; the values
+    /// to its left are on the machine's operand stack.
     Operand {
-        op: Prim,
+        head: Head<'a>,
         operands: &'a [&'a Term<'a>],
-        index: usize,
-        env: Env<'a>,
-        below: usize,
-    },
-    /// `K(v…, □, t…)`, likewise.
-    Field {
-        tag: &'a str,
-        fields: &'a [&'a Term<'a>],
         index: usize,
         env: Env<'a>,
         below: usize,
@@ -217,17 +252,35 @@ enum Frame<'a> {
     },
 }
 
+/// What an [`Frame::Operand`] frame does once its operands are values.
+#[derive(Clone, Copy)]
+enum Head<'a> {
+    /// Apply a primitive: a contraction.
+    Prim(Prim),
+    /// Build a constructor cell: free.
+    Con(&'a str),
+}
+
 /// The control: a term to evaluate, or a value to hand to the continuation.
 enum Control<'a> {
     Eval(&'a Term<'a>),
     Return(Val<'a>),
 }
 
-/// Why [`CekRun::execute`] stopped without a value.
+/// Why [`CekRun::execute`] stopped without a value. Boxed errors keep
+/// `Result<_, Halt>` small on the hot path.
 enum Halt {
-    Error(EvalError),
+    Error(Box<EvalError>),
     OutOfFuel,
     Memory,
+    Cancelled,
+}
+
+impl Halt {
+    #[cold]
+    fn error(error: EvalError) -> Halt {
+        Halt::Error(Box::new(error))
+    }
 }
 
 /// How a run ended, kept so that a finished run reports the same outcome
@@ -271,9 +324,12 @@ pub struct CekRun<'a> {
     /// How many locals the continuation still needs: a call puts the callee's
     /// locals here, reusing any above.
     floor: usize,
-    fuel: u64,
+    tank: Tank,
     counts: Counts,
     memory: usize,
+    cancel: Option<Cancel>,
+    /// Whether fuel, memory and cancellation are checked.
+    metered: bool,
     /// Bytes of cells this run held when it last paused.
     cells: usize,
     peak: usize,
@@ -283,7 +339,7 @@ pub struct CekRun<'a> {
 impl std::fmt::Debug for CekRun<'_> {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         f.debug_struct("CekRun")
-            .field("fuel_left", &self.fuel)
+            .field("fuel_left", &self.tank.left())
             .field("counts", &self.counts)
             .field("frames", &self.kont.len())
             .field("finished", &self.end.is_some())
@@ -292,6 +348,43 @@ impl std::fmt::Debug for CekRun<'_> {
 }
 
 impl<'a> CekRun<'a> {
+    /// The initial state for `program`, with the (empty) stacks of `scratch`.
+    fn with_stacks(
+        program: &Program<'a>,
+        limits: &Limits,
+        scratch: Scratch,
+        metered: bool,
+    ) -> Self {
+        CekRun {
+            control: Some(Control::Eval(program.term())),
+            env: Env::top(),
+            locals: recycle(scratch.locals),
+            kont: recycle(scratch.kont),
+            operands: recycle(scratch.operands),
+            floor: 0,
+            tank: Tank::new(limits.fuel),
+            counts: Counts::default(),
+            memory: limits.memory,
+            cancel: limits.cancel.clone(),
+            metered,
+            cells: 0,
+            peak: 0,
+            end: None,
+        }
+    }
+
+    /// This run's stacks, emptied, to keep for another run.
+    fn into_stacks(mut self) -> Scratch {
+        self.control = None;
+        self.env = Env::top();
+        self.end = None;
+        Scratch {
+            locals: recycle(std::mem::take(&mut self.locals)),
+            kont: recycle(std::mem::take(&mut self.kont)),
+            operands: recycle(std::mem::take(&mut self.operands)),
+        }
+    }
+
     /// Add `more_fuel` and run until a value, an error, a resource limit, or
     /// the end of the fuel. The report's counts are the run's totals so far.
     /// Once the run has finished, further calls report the same outcome and
@@ -322,22 +415,29 @@ impl<'a> CekRun<'a> {
     where
         'a: 'o,
     {
-        self.fuel = self.fuel.saturating_add(more_fuel);
+        self.tank.add(more_fuel);
         if self.end.is_none() {
             let meter = Meter::holding(self.cells);
-            let end = match self.execute(&meter) {
+            let result = if self.metered {
+                self.execute::<true>(&meter)
+            } else {
+                self.execute::<false>(&meter)
+            };
+            let end = match result {
                 Ok(value) => Some(End::Value(value)),
-                Err(Halt::Error(error)) => Some(End::Error(error)),
+                Err(Halt::Error(error)) => Some(End::Error(*error)),
                 Err(Halt::Memory) => Some(End::Limit(LimitError::memory(self.memory))),
+                Err(Halt::Cancelled) => Some(End::Limit(LimitError::cancelled())),
                 Err(Halt::OutOfFuel) => None,
             };
             if end.is_some() {
-                // The machine state is no longer needed; free it now.
+                // The machine state is no longer needed; drop what it holds
+                // (the stacks stay allocated, for `Cek::run` to keep).
                 self.control = None;
                 self.env = Env::top();
-                self.kont = Vec::new();
-                self.locals = Vec::new();
-                self.operands = Vec::new();
+                self.kont.clear();
+                self.locals.clear();
+                self.operands.clear();
                 self.floor = 0;
             }
             self.end = end;
@@ -382,7 +482,7 @@ impl<'a> CekRun<'a> {
     /// assert_eq!(run.fuel_left(), 9);
     /// ```
     pub fn fuel_left(&self) -> u64 {
-        self.fuel
+        self.tank.left()
     }
 
     /// Whether the run has ended (with a value, an error or a resource
@@ -431,7 +531,10 @@ impl<'a> CekRun<'a> {
 
     /// Sample the memory in use; `Err` if it is over the limit.
     #[inline]
-    fn check_memory(&mut self, meter: &Meter) -> Result<(), Halt> {
+    fn check_memory<const METERED: bool>(&mut self, meter: &Meter) -> Result<(), Halt> {
+        if !METERED {
+            return Ok(());
+        }
         let held = meter.cells() + self.stack_bytes();
         self.peak = self.peak.max(held);
         if held > self.memory {
@@ -454,7 +557,7 @@ impl<'a> CekRun<'a> {
         };
         found
             .cloned()
-            .ok_or_else(|| Halt::Error(free_variable(index)))
+            .ok_or_else(|| Halt::error(free_variable(index)))
     }
 
     /// A flat closure for `term` (a `λ` or `μλ`): it captures the indices
@@ -483,15 +586,40 @@ impl<'a> CekRun<'a> {
         self.env = env;
     }
 
-    /// Take one unit of fuel for a contraction under `rule`.
-    #[inline]
-    fn take_fuel(&mut self, rule: Rule, meter: &Meter) -> Result<(), Halt> {
-        if self.fuel == 0 {
+    /// Take one unit of fuel for a contraction under `rule`. Memory is
+    /// sampled where cells are made (closures, constructors, strings) and
+    /// before the first contraction of every fuel slice, so the stacks can
+    /// outgrow the limit by at most a slice's worth of frames before the run
+    /// stops.
+    #[inline(always)]
+    fn take_fuel<const METERED: bool>(&mut self, rule: Rule, meter: &Meter) -> Result<(), Halt> {
+        if METERED && !self.tank.take() {
+            self.next_slice(meter)?;
+        }
+        self.counts.add(rule);
+        Ok(())
+    }
+
+    /// Whether `n` units of fuel are left (always, unmetered).
+    #[inline(always)]
+    fn has_fuel<const METERED: bool>(&self, n: u64) -> bool {
+        !METERED || self.tank.has(n)
+    }
+
+    /// The slow checks between fuel slices: cancellation, memory, and the
+    /// next slice of fuel (whose first unit pays for the pending contraction).
+    #[cold]
+    #[inline(never)]
+    fn next_slice(&mut self, meter: &Meter) -> Result<(), Halt> {
+        if self.cancel.as_ref().is_some_and(Cancel::is_cancelled) {
+            return Err(Halt::Cancelled);
+        }
+        self.check_memory::<true>(meter)?;
+        if !self.tank.refill() {
             return Err(Halt::OutOfFuel);
         }
-        self.fuel -= 1;
-        self.counts.add(rule);
-        self.check_memory(meter)
+        self.tank.take();
+        Ok(())
     }
 
     /// Contract the application of `function` to `argument`, its fuel
@@ -500,7 +628,7 @@ impl<'a> CekRun<'a> {
     #[inline]
     fn call(&mut self, function: Val<'a>, argument: Val<'a>) -> Result<Control<'a>, Halt> {
         let Value::Fun(closure) = function else {
-            return Err(Halt::Error(EvalError::not_a_function(function.operand())));
+            return Err(Halt::error(EvalError::not_a_function(function.operand())));
         };
         self.locals.truncate(self.floor);
         let base = self.locals.len();
@@ -510,7 +638,7 @@ impl<'a> CekRun<'a> {
                 (body, 2)
             }
             Node::Lam(body) => (body, 1),
-            _ => return Err(Halt::Error(EvalError::not_a_function(Operand::Function))),
+            _ => return Err(Halt::error(EvalError::not_a_function(Operand::Function))),
         };
         self.locals.push(argument);
         self.env = Env {
@@ -519,6 +647,20 @@ impl<'a> CekRun<'a> {
             depth,
         };
         Ok(Control::Eval(body))
+    }
+
+    /// Contract `op` applied to the operands from `at` on the operand stack
+    /// (their fuel paid), popping them. Every primitive not on an integer
+    /// shortcut comes here.
+    #[inline]
+    fn prim<const M: bool>(&mut self, op: Prim, at: usize, meter: &Meter) -> Result<Val<'a>, Halt> {
+        let result = apply_prim(op, self.operands.get(at..).unwrap_or(&[]));
+        self.operands.truncate(at);
+        let value = result.map_err(Halt::error)?;
+        if matches!(value, Value::Str(_)) {
+            self.check_memory::<M>(meter)?;
+        }
+        Ok(value)
     }
 
     /// The value of an atom (`None` if `term` is not one).
@@ -577,7 +719,7 @@ impl<'a> CekRun<'a> {
     /// Run the machine until a value, an error, a limit, or the end of the
     /// fuel. On running out of fuel the control is saved (a value about to
     /// meet the top frame), so that execution can continue from there.
-    fn execute(&mut self, meter: &Meter) -> Result<Val<'a>, Halt> {
+    fn execute<const M: bool>(&mut self, meter: &Meter) -> Result<Val<'a>, Halt> {
         let Some(mut control) = self.control.take() else {
             return Err(Halt::OutOfFuel);
         };
@@ -588,7 +730,11 @@ impl<'a> CekRun<'a> {
                     Node::Int(n) => Control::Return(Value::Int(n)),
                     Node::Bool(b) => Control::Return(Value::Bool(b)),
                     Node::Str(_) => Control::Return(Value::Lit(term)),
-                    Node::Lam(_) | Node::RecLam(_) => Control::Return(self.close(term)?),
+                    Node::Lam(_) | Node::RecLam(_) => {
+                        let closure = self.close(term)?;
+                        self.check_memory::<M>(meter)?;
+                        Control::Return(closure)
+                    }
                     // Shortcuts for operands that are atoms (variables and
                     // literals), whose evaluation is free and cannot fail:
                     // the same contractions in the same order, without the
@@ -596,8 +742,8 @@ impl<'a> CekRun<'a> {
                     // contractions, so a pause still falls between frames.
                     Node::App(function, argument) => match self.atom(function)? {
                         Some(f) => match self.atom(argument)? {
-                            Some(a) if self.fuel > 0 => {
-                                self.take_fuel(call_rule(&f), meter)?;
+                            Some(a) if self.has_fuel::<M>(1) => {
+                                self.take_fuel::<M>(call_rule(&f), meter)?;
                                 self.call(f, a)?
                             }
                             _ => {
@@ -614,11 +760,11 @@ impl<'a> CekRun<'a> {
                             Control::Eval(function)
                         }
                     },
-                    Node::If(condition, yes, no) if self.fuel >= 2 => {
+                    Node::If(condition, yes, no) if self.has_fuel::<M>(2) => {
                         match self.int_test(condition) {
                             Some(holds) => {
-                                self.take_fuel(Rule::Prim, meter)?;
-                                self.take_fuel(Rule::If, meter)?;
+                                self.take_fuel::<M>(Rule::Prim, meter)?;
+                                self.take_fuel::<M>(Rule::If, meter)?;
                                 Control::Eval(if holds { yes } else { no })
                             }
                             None => {
@@ -632,18 +778,18 @@ impl<'a> CekRun<'a> {
                             }
                         }
                     }
-                    Node::Prim(op, operands @ &[a, b]) if self.fuel > 0 => {
+                    Node::Prim(op, operands @ &[a, b]) if self.has_fuel::<M>(1) => {
                         match self
                             .int_operands(a, b)
                             .and_then(|(x, y)| int_prim(op, x, y))
                         {
                             Some(value) => {
-                                self.take_fuel(Rule::Prim, meter)?;
+                                self.take_fuel::<M>(Rule::Prim, meter)?;
                                 Control::Return(value)
                             }
                             None => {
                                 self.push(|env, below| Frame::Operand {
-                                    op,
+                                    head: Head::Prim(op),
                                     operands,
                                     index: 0,
                                     env,
@@ -669,7 +815,7 @@ impl<'a> CekRun<'a> {
                     Node::Prim(op, operands) => match operands.first() {
                         Some(first) => {
                             self.push(|env, below| Frame::Operand {
-                                op,
+                                head: Head::Prim(op),
                                 operands,
                                 index: 0,
                                 env,
@@ -678,18 +824,18 @@ impl<'a> CekRun<'a> {
                             Control::Eval(first)
                         }
                         None => {
-                            if let Err(halt) = self.take_fuel(Rule::Prim, meter) {
+                            if let Err(halt) = self.take_fuel::<M>(Rule::Prim, meter) {
                                 self.control = Some(Control::Eval(term));
                                 return Err(halt);
                             }
-                            Control::Return(apply_prim(op, &[]).map_err(Halt::Error)?)
+                            Control::Return(self.prim::<M>(op, self.operands.len(), meter)?)
                         }
                     },
                     Node::Con(tag, fields) => match fields.first() {
                         Some(first) => {
-                            self.push(|env, below| Frame::Field {
-                                tag,
-                                fields,
+                            self.push(|env, below| Frame::Operand {
+                                head: Head::Con(tag),
+                                operands: fields,
                                 index: 0,
                                 env,
                                 below,
@@ -717,12 +863,33 @@ impl<'a> CekRun<'a> {
                         Some(Frame::If { .. }) => Some(Rule::If),
                         Some(Frame::Case { .. }) => Some(Rule::Case),
                         Some(Frame::Operand {
-                            operands, index, ..
-                        }) if index + 1 == operands.len() => Some(Rule::Prim),
-                        Some(_) => None,
+                            head,
+                            operands,
+                            index,
+                            env,
+                            ..
+                        }) => match operands.get(index + 1) {
+                            // Not the last operand: move the hole along,
+                            // keeping the frame.
+                            Some(&next) => {
+                                let env = env.clone();
+                                if let Some(Frame::Operand { index, .. }) = self.kont.last_mut() {
+                                    *index += 1;
+                                }
+                                self.operands.push(value);
+                                self.enter(env);
+                                control = Control::Eval(next);
+                                continue;
+                            }
+                            None => match head {
+                                Head::Prim(_) => Some(Rule::Prim),
+                                Head::Con(_) => None,
+                            },
+                        },
+                        Some(Frame::Argument { .. }) => None,
                     };
                     if let Some(rule) = rule {
-                        if let Err(halt) = self.take_fuel(rule, meter) {
+                        if let Err(halt) = self.take_fuel::<M>(rule, meter) {
                             self.control = Some(Control::Return(value));
                             return Err(halt);
                         }
@@ -730,7 +897,7 @@ impl<'a> CekRun<'a> {
                     let Some(frame) = self.kont.pop() else {
                         return Ok(value);
                     };
-                    self.apply(frame, value, meter)?
+                    self.apply::<M>(frame, value, meter)?
                 }
             };
         }
@@ -739,7 +906,7 @@ impl<'a> CekRun<'a> {
     /// Hand `value` to `frame`, whose contraction (if it is one) has been
     /// paid for.
     #[inline]
-    fn apply(
+    fn apply<const M: bool>(
         &mut self,
         frame: Frame<'a>,
         value: Val<'a>,
@@ -771,66 +938,28 @@ impl<'a> CekRun<'a> {
                 below,
             } => {
                 let Value::Bool(b) = value else {
-                    return Err(Halt::Error(EvalError::not_a_boolean(value.operand())));
+                    return Err(Halt::error(EvalError::not_a_boolean(value.operand())));
                 };
                 self.floor = below;
                 self.enter(env);
                 Control::Eval(if b { yes } else { no })
             }
             Frame::Operand {
-                op,
-                operands,
-                index,
-                env,
-                below,
+                head, index, below, ..
             } => {
-                if let Some(next) = operands.get(index + 1) {
-                    self.operands.push(value);
-                    self.enter(env.clone());
-                    self.kont.push(Frame::Operand {
-                        op,
-                        operands,
-                        index: index + 1,
-                        env,
-                        below,
-                    });
-                    Control::Eval(next)
-                } else {
-                    self.floor = below;
-                    let at = self.operands.len().saturating_sub(index);
-                    self.operands.push(value);
-                    let result = apply_prim(op, &self.operands[at..]);
-                    self.operands.truncate(at);
-                    Control::Return(result.map_err(Halt::Error)?)
-                }
-            }
-            Frame::Field {
-                tag,
-                fields,
-                index,
-                env,
-                below,
-            } => {
-                if let Some(next) = fields.get(index + 1) {
-                    self.operands.push(value);
-                    self.enter(env.clone());
-                    self.kont.push(Frame::Field {
-                        tag,
-                        fields,
-                        index: index + 1,
-                        env,
-                        below,
-                    });
-                    Control::Eval(next)
-                } else {
-                    // A constructor of values is a value: building it is free.
-                    self.floor = below;
-                    let at = self.operands.len().saturating_sub(index);
-                    let mut values: Values<'a, &'a Term<'a>> = self.operands.drain(at..).collect();
-                    values.push(value);
-                    let cell = Value::Con(ConCell::new(tag, values));
-                    self.check_memory(meter)?;
-                    Control::Return(cell)
+                // The last operand: the others are on the operand stack.
+                self.floor = below;
+                let at = self.operands.len().saturating_sub(index);
+                self.operands.push(value);
+                match head {
+                    Head::Prim(op) => Control::Return(self.prim::<M>(op, at, meter)?),
+                    Head::Con(tag) => {
+                        // A constructor of values is a value: building it is free.
+                        let values: Values<'a, &'a Term<'a>> = self.operands.drain(at..).collect();
+                        let cell = Value::Con(ConCell::new(tag, values));
+                        self.check_memory::<M>(meter)?;
+                        Control::Return(cell)
+                    }
                 }
             }
             Frame::Case {
@@ -854,7 +983,7 @@ impl<'a> CekRun<'a> {
                 }
                 match default {
                     Some(default) => Control::Eval(default),
-                    None => return Err(Halt::Error(EvalError::no_matching_case(value.operand()))),
+                    None => return Err(Halt::error(EvalError::no_matching_case(value.operand()))),
                 }
             }
         })
@@ -954,6 +1083,74 @@ mod tests {
         }
         // A frame for the condition's operands and the if, two locals.
         assert!(deepest <= 2, "deepest {deepest}");
+    }
+
+    #[test]
+    fn a_cancelled_handle_stops_a_divergent_loop() {
+        let arena = Arena::new();
+        // (μf. λn. f n) 0 never ends.
+        let spin = arena.rec_lam(arena.app(arena.var(1), arena.var(0)));
+        let program = Program::new(arena.app(spin, arena.int(0))).unwrap();
+        let cancel = Cancel::new();
+        let limits = Limits::default()
+            .with_fuel(u64::MAX)
+            .with_cancel(cancel.clone());
+        let runner = std::thread::spawn(move || {
+            let arena = Arena::new();
+            let spin = arena.rec_lam(arena.app(arena.var(1), arena.var(0)));
+            let program = Program::new(arena.app(spin, arena.int(0))).unwrap();
+            let report = Cek::new().run(&program, &limits, &arena);
+            (report.outcome.name(), report.counts.total())
+        });
+        std::thread::sleep(std::time::Duration::from_millis(20));
+        cancel.cancel();
+        let (outcome, contractions) = runner.join().unwrap();
+        assert_eq!(outcome, "limit");
+        assert!(contractions > 0);
+        // Cancelled before it starts: polled before the first contraction.
+        let limits = Limits::default().with_cancel(cancel);
+        let report = Cek::new().run(&program, &limits, &arena);
+        assert_eq!(report.outcome, Outcome::Limit(LimitError::cancelled()));
+        assert_eq!(report.counts.total(), 0);
+    }
+
+    #[test]
+    fn a_paused_run_reports_cancelled_on_resume() {
+        let arena = Arena::new();
+        let program = Program::new(count_down(&arena, 1_000_000)).unwrap();
+        let cancel = Cancel::new();
+        let limits = Limits::default().with_fuel(0).with_cancel(cancel.clone());
+        let mut run = Cek::start(&program, &limits);
+        assert_eq!(run.resume(5_000, &arena).outcome, Outcome::OutOfFuel);
+        assert_eq!(run.counts().total(), 5_000);
+        cancel.cancel();
+        let report = run.resume(5_000, &arena);
+        assert_eq!(report.outcome, Outcome::Limit(LimitError::cancelled()));
+        assert_eq!(report.counts.total(), 5_000);
+        assert!(run.is_finished());
+    }
+
+    #[test]
+    fn stacks_are_kept_across_runs_and_runs_agree() {
+        let arena = Arena::new();
+        let program = Program::new(tak(&arena, 12, 8, 4)).unwrap();
+        let mut cek = Cek::new();
+        let first = cek.run(&program, &Limits::default(), &arena);
+        let kept = cek.scratch.kont.as_ptr();
+        assert!(cek.scratch.kont.capacity() > 0);
+        let second = cek.run(&program, &Limits::default(), &arena);
+        assert_eq!(first, second);
+        assert_eq!(cek.scratch.kont.as_ptr(), kept);
+    }
+
+    #[test]
+    fn without_accounting_gives_the_same_report() {
+        let arena = Arena::new();
+        let program = Program::new(tak(&arena, 12, 8, 4)).unwrap();
+        let metered = Cek::new().run(&program, &Limits::default(), &arena);
+        let unmetered = Cek::without_accounting().run(&program, &Limits::default(), &arena);
+        assert_eq!(metered.outcome, Outcome::Value(arena.int(5)));
+        assert_eq!(metered, unmetered);
     }
 
     #[test]

@@ -16,16 +16,17 @@ use std::rc::Rc;
 use smallvec::SmallVec;
 
 use crate::value::{
-    apply_prim, free_variable, int_prim, int_test, read_back, Closure, Code, ConCell, Meter, Value,
-    Values,
+    apply_prim, free_variable, int_prim, int_test, read_back, recycle, Closure, Code, ConCell,
+    Meter, Tank, Value, Values, KEEP_STACK_BYTES,
 };
 use crate::{
     Arena, Counts, ErrorKind, EvalError, LimitError, Limits, Machine, Node, Outcome, Prim, Program,
     Report, Rule, Term,
 };
 
-/// The environment-based evaluator. Holds no program state between runs;
-/// it records the peak memory of its last run.
+/// The environment-based evaluator. Holds no program state between runs:
+/// it keeps its emptied stacks for the next run (so a small program run many
+/// times allocates little) and records the peak memory of its last run.
 ///
 /// # Examples
 ///
@@ -41,9 +42,33 @@ use crate::{
 /// assert_eq!(report.outcome, Outcome::Value(arena.int(42)));
 /// assert_eq!(report.counts.total(), 4); // let, beta, beta, prim
 /// ```
-#[derive(Debug, Default)]
+#[derive(Debug)]
 pub struct Env {
     peak: usize,
+    /// Whether fuel, memory and cancellation are checked (always, except in
+    /// the benchmark-only [`Env::without_accounting`]).
+    metered: bool,
+    scratch: Scratch,
+}
+
+impl Default for Env {
+    fn default() -> Self {
+        Env {
+            peak: 0,
+            metered: true,
+            scratch: Scratch::default(),
+        }
+    }
+}
+
+/// The emptied stacks of the last run, kept for the next. Their element types
+/// borrow a program, so they are kept as vectors of a same-sized stand-in and
+/// [`recycle`]d.
+#[derive(Debug, Default)]
+struct Scratch {
+    stack: Vec<[usize; 2]>,
+    tasks: Vec<Task>,
+    callers: Vec<[usize; 2]>,
 }
 
 impl Env {
@@ -56,6 +81,30 @@ impl Env {
     /// ```
     pub fn new() -> Self {
         Env::default()
+    }
+
+    /// **For benchmarks only.** An evaluator whose runs skip every fuel,
+    /// memory and cancellation check, so a benchmark can measure what the
+    /// accounting costs. It computes the same values and counts, but it
+    /// ignores [`Limits`] entirely: a divergent program runs forever and a
+    /// growing one until allocation fails. Never use it on untrusted input.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::machines::env::Env;
+    /// use orrery::{Arena, Limits, Machine, Outcome, Program};
+    /// let arena = Arena::new();
+    /// let program = Program::new(arena.app(arena.lam(arena.var(0)), arena.int(5))).unwrap();
+    /// let report = Env::without_accounting().run(&program, &Limits::default(), &arena);
+    /// assert_eq!(report.outcome, Outcome::Value(arena.int(5)));
+    /// ```
+    #[doc(hidden)]
+    pub fn without_accounting() -> Self {
+        Env {
+            metered: false,
+            ..Env::default()
+        }
     }
 
     /// The most runtime memory the last run held at once, in bytes, sampled
@@ -100,32 +149,22 @@ impl Machine for Env {
                 }
             }
         };
-        let meter = Meter::holding(0);
-        let mut run = Run {
-            code: &compiled,
-            stack: Vec::new(),
-            tasks: Vec::new(),
-            callers: Vec::new(),
-            base: 0,
-            closure: None,
-            fuel: limits.fuel,
-            counts: Counts::default(),
-            memory: limits.memory,
-            code_bytes: compiled.bytes(),
-            peak: 0,
-            meter,
+        let scratch = std::mem::take(&mut self.scratch);
+        let (result, counts, peak, scratch) = if self.metered {
+            Run::<true>::evaluate(&compiled, limits, scratch)
+        } else {
+            Run::<false>::evaluate(&compiled, limits, scratch)
         };
-        let outcome = match run.execute() {
+        self.peak = peak;
+        self.scratch = scratch;
+        let outcome = match result {
             Ok(value) => Outcome::Value(read_back(&value, out)),
-            Err(Halt::Error(error)) => Outcome::Error(error),
+            Err(Halt::Error(error)) => Outcome::Error(*error),
             Err(Halt::OutOfFuel) => Outcome::OutOfFuel,
             Err(Halt::Memory) => Outcome::Limit(LimitError::memory(limits.memory)),
+            Err(Halt::Cancelled) => Outcome::Limit(LimitError::cancelled()),
         };
-        self.peak = run.peak;
-        Report {
-            outcome,
-            counts: run.counts,
-        }
+        Report { outcome, counts }
     }
 }
 
@@ -627,14 +666,23 @@ struct Caller<'a, 'c> {
 }
 
 /// Why [`Run::execute`] stopped without a value.
+/// Boxed errors keep `Result<_, Halt>` small on the hot path.
 enum Halt {
-    Error(EvalError),
+    Error(Box<EvalError>),
     OutOfFuel,
     Memory,
+    Cancelled,
+}
+
+impl Halt {
+    #[cold]
+    fn error(error: EvalError) -> Halt {
+        Halt::Error(Box::new(error))
+    }
 }
 
 /// The state of one run.
-struct Run<'a, 'c> {
+struct Run<'a, 'c, 'l, const METERED: bool> {
     code: &'c Compiled<'a>,
     /// Frames (each `frame` slots, from `base`) and intermediate values.
     stack: Vec<Val<'a, 'c>>,
@@ -644,9 +692,10 @@ struct Run<'a, 'c> {
     base: usize,
     /// The current function's closure (`None` at the top level).
     closure: Option<Rc<Fun<'a, 'c>>>,
-    fuel: u64,
+    tank: Tank,
     counts: Counts,
     memory: usize,
+    limits: &'l Limits,
     code_bytes: usize,
     peak: usize,
     meter: Meter,
@@ -654,16 +703,61 @@ struct Run<'a, 'c> {
 
 /// The evaluator's own invariants were broken; never expected.
 fn inconsistent() -> Halt {
-    Halt::Error(EvalError::new(
+    Halt::error(EvalError::new(
         ErrorKind::TypeMismatch,
         "the evaluator's value stack is inconsistent",
     ))
 }
 
-impl<'a, 'c> Run<'a, 'c> {
+impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
+    /// Run `code` to the end with the stacks of `scratch`: the result, the
+    /// counts, the peak memory, and the emptied stacks to keep.
+    fn evaluate(
+        code: &'c Compiled<'a>,
+        limits: &'l Limits,
+        scratch: Scratch,
+    ) -> (Result<Val<'a, 'c>, Halt>, Counts, usize, Scratch) {
+        let mut run = Run::<METERED> {
+            code,
+            stack: recycle(scratch.stack),
+            tasks: scratch.tasks,
+            callers: recycle(scratch.callers),
+            base: 0,
+            closure: None,
+            tank: Tank::new(limits.fuel),
+            counts: Counts::default(),
+            memory: limits.memory,
+            limits,
+            code_bytes: code.bytes(),
+            peak: 0,
+            meter: Meter::holding(0),
+        };
+        run.tasks.clear();
+        let result = run.execute();
+        // Drop what the run still holds before its stacks are kept.
+        run.closure = None;
+        run.stack.clear();
+        run.callers.clear();
+        run.tasks.clear();
+        let tasks = if run.tasks.capacity() * std::mem::size_of::<Task>() > KEEP_STACK_BYTES {
+            Vec::new()
+        } else {
+            run.tasks
+        };
+        let scratch = Scratch {
+            stack: recycle(run.stack),
+            tasks,
+            callers: recycle(run.callers),
+        };
+        (result, run.counts, run.peak, scratch)
+    }
+
     /// Sample the memory in use; `Err` if it is over the limit.
     #[inline]
     fn check_memory(&mut self) -> Result<(), Halt> {
+        if !METERED {
+            return Ok(());
+        }
         let held = self.meter.cells()
             + self.code_bytes
             + self.stack.capacity() * std::mem::size_of::<Val<'_, '_>>()
@@ -677,15 +771,33 @@ impl<'a, 'c> Run<'a, 'c> {
         }
     }
 
-    /// Take one unit of fuel for a contraction under `rule`. (Memory is
-    /// sampled where it can grow: calls, closures, constructors, strings.)
-    #[inline]
+    /// Take one unit of fuel for a contraction under `rule`. Memory is
+    /// sampled where cells are made (closures, constructors, strings) and,
+    /// with cancellation, before the first contraction of every fuel slice,
+    /// so the stacks can outgrow the limit by at most a slice's worth of
+    /// frames before the run stops.
+    #[inline(always)]
     fn take_fuel(&mut self, rule: Rule) -> Result<(), Halt> {
-        if self.fuel == 0 {
+        if METERED && !self.tank.take() {
+            self.next_slice()?;
+        }
+        self.counts.add(rule);
+        Ok(())
+    }
+
+    /// The slow checks between fuel slices: cancellation, memory, and the
+    /// next slice of fuel (whose first unit pays for the pending contraction).
+    #[cold]
+    #[inline(never)]
+    fn next_slice(&mut self) -> Result<(), Halt> {
+        if self.limits.is_cancelled() {
+            return Err(Halt::Cancelled);
+        }
+        self.check_memory()?;
+        if !self.tank.refill() {
             return Err(Halt::OutOfFuel);
         }
-        self.fuel -= 1;
-        self.counts.add(rule);
+        self.tank.take();
         Ok(())
     }
 
@@ -749,7 +861,7 @@ impl<'a, 'c> Run<'a, 'c> {
     /// A primitive's result; a new string is sampled against the limit.
     #[inline]
     fn prim_result(&mut self, result: Result<Val<'a, 'c>, EvalError>) -> Result<Val<'a, 'c>, Halt> {
-        let value = result.map_err(Halt::Error)?;
+        let value = result.map_err(Halt::error)?;
         if matches!(value, Value::Str(_)) {
             self.check_memory()?;
         }
@@ -758,14 +870,18 @@ impl<'a, 'c> Run<'a, 'c> {
 
     /// Contract the application of `function` to `argument` (both already
     /// values): enter the function's body in a new frame, which replaces the
-    /// caller's when the call is in tail position. Returns the body's code.
+    /// caller's when the call is in tail position, and return the body's
+    /// code. A body that is itself a `λ` (a curried function given its first
+    /// arguments) is not entered: its closure is made at once from the
+    /// callee's captured values and the argument, and pushed as the call's
+    /// value (`None`).
     #[inline]
     fn call(
         &mut self,
         function: Val<'a, 'c>,
         argument: Val<'a, 'c>,
         tail: bool,
-    ) -> Result<CodeId, Halt> {
+    ) -> Result<Option<CodeId>, Halt> {
         let rule = match &function {
             Value::Fun(f) if f.code.rec => Rule::BetaRec,
             _ => Rule::Beta,
@@ -775,9 +891,35 @@ impl<'a, 'c> Run<'a, 'c> {
             Value::Fun(closure) => closure,
             // The argument was evaluated before the callee was found
             // wanting, as in the stepper.
-            callee => return Err(Halt::Error(EvalError::not_a_function(callee.operand()))),
+            callee => return Err(Halt::error(EvalError::not_a_function(callee.operand()))),
         };
         let code: &'c Function<'a> = closure.code;
+        if let Some(&Instr::Closure(index)) = self.code.code.get(code.body as usize) {
+            let inner = self
+                .code
+                .funs
+                .get(index as usize)
+                .ok_or_else(inconsistent)?;
+            // The callee's frame would hold itself (if recursive), then the
+            // argument; nothing else is bound before its body.
+            let mut captured = Values::with_capacity(inner.fetch.len());
+            for fetch in &inner.fetch {
+                let value = match (*fetch, code.rec) {
+                    (Fetch::Local(0), true) => Value::Fun(Rc::clone(&closure)),
+                    (Fetch::Local(s), rec) if s == u32::from(rec) => argument.clone(),
+                    (Fetch::Free(slot), _) => closure
+                        .captured
+                        .get(slot as usize)
+                        .cloned()
+                        .ok_or_else(inconsistent)?,
+                    _ => return Err(inconsistent()),
+                };
+                captured.push(value);
+            }
+            self.stack.push(Value::Fun(Closure::new(inner, captured)));
+            self.check_memory()?;
+            return Ok(None);
+        }
         if tail {
             self.stack.truncate(self.base);
         } else {
@@ -792,11 +934,11 @@ impl<'a, 'c> Run<'a, 'c> {
             self.stack.push(Value::Fun(Rc::clone(&closure)));
         }
         self.stack.push(argument);
-        self.stack
-            .resize(self.base + code.frame as usize, Value::Int(0));
+        for _ in self.stack.len()..self.base + code.frame as usize {
+            self.stack.push(Value::Int(0));
+        }
         self.closure = Some(closure);
-        self.check_memory()?;
-        Ok(code.body)
+        Ok(Some(code.body))
     }
 
     #[inline]
@@ -900,7 +1042,10 @@ impl<'a, 'c> Run<'a, 'c> {
                         let (Some(f), Some(a)) = (self.atom(function), self.atom(argument)) else {
                             return Err(inconsistent());
                         };
-                        pc = self.call(f, a, tail)?;
+                        match self.call(f, a, tail)? {
+                            Some(body) => pc = body,
+                            None => break,
+                        }
                     }
                     Instr::IfPrim2 { op, a, b, yes, no } => {
                         if let (Some(x), Some(y)) = (self.int(a), self.int(b)) {
@@ -916,7 +1061,7 @@ impl<'a, 'c> Run<'a, 'c> {
                         match condition {
                             Value::Bool(b) => pc = if b { yes } else { no },
                             other => {
-                                return Err(Halt::Error(EvalError::not_a_boolean(other.operand())))
+                                return Err(Halt::error(EvalError::not_a_boolean(other.operand())))
                             }
                         }
                     }
@@ -985,8 +1130,13 @@ impl<'a, 'c> Run<'a, 'c> {
                     kind @ (Task::CALL | Task::TAIL_CALL) => {
                         let argument = self.pop()?;
                         let function = self.pop()?;
-                        pc = self.call(function, argument, kind == Task::TAIL_CALL)?;
-                        continue 'eval;
+                        if let Some(body) =
+                            self.call(function, argument, kind == Task::TAIL_CALL)?
+                        {
+                            pc = body;
+                            continue 'eval;
+                        }
+                        continue;
                     }
                     Task::RETURN => {
                         let value = self.pop()?;
@@ -1018,7 +1168,7 @@ impl<'a, 'c> Run<'a, 'c> {
                                 continue 'eval;
                             }
                             other => {
-                                return Err(Halt::Error(EvalError::not_a_boolean(other.operand())))
+                                return Err(Halt::error(EvalError::not_a_boolean(other.operand())))
                             }
                         }
                     }
@@ -1065,7 +1215,7 @@ impl<'a, 'c> Run<'a, 'c> {
                                 continue 'eval;
                             }
                             None => {
-                                return Err(Halt::Error(EvalError::no_matching_case(
+                                return Err(Halt::error(EvalError::no_matching_case(
                                     value.operand(),
                                 )))
                             }
@@ -1138,6 +1288,93 @@ mod tests {
         let arena = Arena::new();
         assert_eq!(compile(arena.lam(arena.var(3))).err(), Some(2));
         assert_eq!(compile(arena.var(0)).err(), Some(0));
+    }
+
+    /// `(μf. λn. f (n + 1)) 0`: runs until something stops it.
+    fn spin(arena: &Arena) -> &Term<'_> {
+        let body = arena.app(
+            arena.var(1),
+            arena.prim(Prim::Add, &[arena.var(0), arena.int(1)]),
+        );
+        arena.app(arena.rec_lam(body), arena.int(0))
+    }
+
+    #[test]
+    fn a_cancelled_handle_stops_a_divergent_loop() {
+        let arena = Arena::new();
+        let program = Program::new(spin(&arena)).unwrap();
+        let cancel = crate::Cancel::new();
+        let limits = Limits::default()
+            .with_fuel(u64::MAX)
+            .with_cancel(cancel.clone());
+        let mut env = Env::new();
+        // Not cancelled: the fuel ends it, on the exact contraction.
+        let report = env.run(&program, &limits.clone().with_fuel(5_000), &arena);
+        assert_eq!(report.outcome, Outcome::OutOfFuel);
+        assert_eq!(report.counts.total(), 5_000);
+        cancel.cancel();
+        // Polled before the first contraction.
+        let report = env.run(&program, &limits, &arena);
+        assert_eq!(report.outcome, Outcome::Limit(LimitError::cancelled()));
+        assert_eq!(report.counts.total(), 0);
+    }
+
+    #[test]
+    fn cancelling_from_another_thread_stops_a_running_loop() {
+        let cancel = crate::Cancel::new();
+        let limits = Limits::default()
+            .with_fuel(u64::MAX)
+            .with_cancel(cancel.clone());
+        let runner = std::thread::spawn(move || {
+            let arena = Arena::new();
+            let program = Program::new(spin(&arena)).unwrap();
+            let report = Env::new().run(&program, &limits, &arena);
+            (report.outcome.name(), report.counts.total())
+        });
+        std::thread::sleep(std::time::Duration::from_millis(20));
+        cancel.cancel();
+        let (outcome, contractions) = runner.join().unwrap();
+        assert_eq!(outcome, "limit");
+        assert!(contractions > 0);
+    }
+
+    #[test]
+    fn stacks_are_kept_across_runs_and_runs_agree() {
+        let arena = Arena::new();
+        let program = Program::new(spin(&arena)).unwrap();
+        let limits = Limits::default().with_fuel(1_000);
+        let mut env = Env::new();
+        let first = env.run(&program, &limits, &arena);
+        assert!(env.scratch.stack.capacity() > 0);
+        let kept = env.scratch.stack.as_ptr();
+        let second = env.run(&program, &limits, &arena);
+        assert_eq!(first, second);
+        assert_eq!(env.scratch.stack.as_ptr(), kept);
+    }
+
+    #[test]
+    fn without_accounting_gives_the_same_report() {
+        let arena = Arena::new();
+        // The doc example's sum, then a 300-deep non-tail recursion.
+        let body = arena.if_then_else(
+            arena.prim(Prim::Eq, &[arena.var(0), arena.int(0)]),
+            arena.int(0),
+            arena.prim(
+                Prim::Add,
+                &[
+                    arena.var(0),
+                    arena.app(
+                        arena.var(1),
+                        arena.prim(Prim::Sub, &[arena.var(0), arena.int(1)]),
+                    ),
+                ],
+            ),
+        );
+        let program = Program::new(arena.app(arena.rec_lam(body), arena.int(300))).unwrap();
+        let metered = Env::new().run(&program, &Limits::default(), &arena);
+        let unmetered = Env::without_accounting().run(&program, &Limits::default(), &arena);
+        assert_eq!(metered.outcome, Outcome::Value(arena.int(45_150)));
+        assert_eq!(metered, unmetered);
     }
 
     #[test]

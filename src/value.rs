@@ -77,6 +77,84 @@ impl Meter {
     }
 }
 
+/// Fuel handed to the hot loop in slices of at most
+/// [`CANCEL_POLL_INTERVAL`](crate::CANCEL_POLL_INTERVAL) units, so that paying
+/// for a contraction tests one counter, and the slow checks (cancellation,
+/// memory, the rest of the fuel) run once per slice, before its first
+/// contraction. Out of fuel lands on the same contraction as a single counter
+/// would: the slices add up to the fuel given.
+#[derive(Clone, Copy, Debug)]
+pub(crate) struct Tank {
+    /// Units the hot loop may spend before the next slow check.
+    slice: u64,
+    /// Units not yet handed out.
+    reserve: u64,
+}
+
+impl Tank {
+    /// A tank holding `fuel`, with an empty slice (so the first contraction
+    /// makes the slow checks).
+    pub(crate) fn new(fuel: u64) -> Self {
+        Tank {
+            slice: 0,
+            reserve: fuel,
+        }
+    }
+
+    /// Pay one unit from the slice; `false` when the slice is empty and the
+    /// caller must make its slow checks and [`Tank::refill`].
+    #[inline(always)]
+    pub(crate) fn take(&mut self) -> bool {
+        if self.slice == 0 {
+            return false;
+        }
+        self.slice -= 1;
+        true
+    }
+
+    /// Whether `n` units are left in all.
+    #[inline(always)]
+    pub(crate) fn has(&self, n: u64) -> bool {
+        self.slice >= n || self.slice.saturating_add(self.reserve) >= n
+    }
+
+    /// Move the next slice out of the reserve; `false` if no fuel is left.
+    pub(crate) fn refill(&mut self) -> bool {
+        let next = self.reserve.min(crate::CANCEL_POLL_INTERVAL);
+        self.reserve -= next;
+        self.slice += next;
+        self.slice > 0
+    }
+
+    /// Units left in all.
+    pub(crate) fn left(&self) -> u64 {
+        self.slice.saturating_add(self.reserve)
+    }
+
+    /// Add `more` units to the reserve.
+    pub(crate) fn add(&mut self, more: u64) {
+        self.reserve = self.reserve.saturating_add(more);
+    }
+}
+
+/// Stacks larger than this many bytes are freed after a run rather than kept
+/// for the next one, so one big run does not pin memory (which the next run's
+/// limit would count).
+pub(crate) const KEEP_STACK_BYTES: usize = 64 << 10;
+
+/// An empty vector of `U` that reuses `v`'s allocation when `T` and `U` have
+/// the same layout (the standard library collects a `filter_map` of a
+/// vector's own `into_iter` in place) and `v` is not larger than
+/// [`KEEP_STACK_BYTES`]; otherwise a new empty vector. This is how a machine
+/// keeps its stacks across runs whose values borrow different programs.
+pub(crate) fn recycle<T, U>(mut v: Vec<T>) -> Vec<U> {
+    if v.capacity() * std::mem::size_of::<T>() > KEEP_STACK_BYTES {
+        return Vec::new();
+    }
+    v.clear();
+    v.into_iter().filter_map(|_| None::<U>).collect()
+}
+
 /// What the machines' closures keep of their code, for read-back: the source
 /// `λ` or `μλ` term, and which of its free de Bruijn indices each captured
 /// value stands for.
