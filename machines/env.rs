@@ -13,8 +13,6 @@
 
 use std::rc::Rc;
 
-use smallvec::SmallVec;
-
 use crate::value::{
     apply_prim, free_variable, int_prim, int_test, read_back, recycle, Closure, Code, ConCell,
     Meter, Tank, Value, Values, KEEP_STACK_BYTES,
@@ -49,6 +47,7 @@ pub struct Env {
     /// the benchmark-only [`Env::without_accounting`]).
     metered: bool,
     scratch: Scratch,
+    code_scratch: CodeScratch,
 }
 
 impl Default for Env {
@@ -57,6 +56,7 @@ impl Default for Env {
             peak: 0,
             metered: true,
             scratch: Scratch::default(),
+            code_scratch: CodeScratch::default(),
         }
     }
 }
@@ -140,7 +140,7 @@ impl Machine for Env {
         limits: &Limits,
         out: &'o Arena,
     ) -> Report<'o> {
-        let compiled = match compile(program.term()) {
+        let compiled = match compile_with(program.term(), &mut self.code_scratch) {
             Ok(compiled) => compiled,
             Err(index) => {
                 return Report {
@@ -157,13 +157,18 @@ impl Machine for Env {
         };
         self.peak = peak;
         self.scratch = scratch;
-        let outcome = match result {
-            Ok(value) => Outcome::Value(read_back(&value, out)),
-            Err(Halt::Error(error)) => Outcome::Error(*error),
-            Err(Halt::OutOfFuel) => Outcome::OutOfFuel,
-            Err(Halt::Memory) => Outcome::Limit(LimitError::memory(limits.memory)),
-            Err(Halt::Cancelled) => Outcome::Limit(LimitError::cancelled()),
+        // A block, so the run's value is dropped before its code is kept.
+        let outcome = {
+            let result = result;
+            match result {
+                Ok(value) => Outcome::Value(read_back(&value, out)),
+                Err(Halt::Error(error)) => Outcome::Error(*error),
+                Err(Halt::OutOfFuel) => Outcome::OutOfFuel,
+                Err(Halt::Memory) => Outcome::Limit(LimitError::memory(limits.memory)),
+                Err(Halt::Cancelled) => Outcome::Limit(LimitError::cancelled()),
+            }
         };
+        self.code_scratch.keep(compiled);
         Report { outcome, counts }
     }
 }
@@ -378,16 +383,52 @@ impl Scope {
 ///
 /// The de Bruijn index of a variable that escapes every binder (a validated
 /// program has none).
+#[cfg(test)]
 fn compile<'a>(root: &'a Term<'a>) -> Result<Compiled<'a>, u32> {
-    enum Job<'a> {
-        Visit(&'a Term<'a>, u32, bool),
-        Build(&'a Term<'a>, u32, bool),
+    compile_with(root, &mut CodeScratch::default())
+}
+
+/// The compiler's work: a term to visit (at a depth, in tail position or
+/// not), or a node to build from its compiled children.
+enum Job<'a> {
+    Visit(&'a Term<'a>, u32, bool),
+    Build(&'a Term<'a>, u32, bool),
+}
+
+/// The compiler's vectors, emptied, kept between runs (see [`Scratch`]).
+#[derive(Debug, Default)]
+struct CodeScratch {
+    code: Vec<Instr<'static>>,
+    lists: Vec<CodeId>,
+    arms: Vec<CaseArm<'static>>,
+    funs: Vec<Function<'static>>,
+    jobs: Vec<Job<'static>>,
+    done: Vec<CodeId>,
+}
+
+impl std::fmt::Debug for Job<'_> {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str("Job")
     }
+}
+
+impl CodeScratch {
+    /// Keep `compiled`'s vectors for the next compile.
+    fn keep(&mut self, compiled: Compiled<'_>) {
+        self.code = recycle(compiled.code);
+        self.lists = recycle(compiled.lists);
+        self.arms = recycle(compiled.arms);
+        self.funs = recycle(compiled.funs);
+    }
+}
+
+/// [`compile`], reusing the vectors of `scratch`.
+fn compile_with<'a>(root: &'a Term<'a>, scratch: &mut CodeScratch) -> Result<Compiled<'a>, u32> {
     let mut c = Compiled {
-        code: Vec::new(),
-        lists: Vec::new(),
-        arms: Vec::new(),
-        funs: Vec::new(),
+        code: recycle(std::mem::take(&mut scratch.code)),
+        lists: recycle(std::mem::take(&mut scratch.lists)),
+        arms: recycle(std::mem::take(&mut scratch.arms)),
+        funs: recycle(std::mem::take(&mut scratch.funs)),
         root: 0,
         frame: 0,
     };
@@ -396,8 +437,9 @@ fn compile<'a>(root: &'a Term<'a>) -> Result<Compiled<'a>, u32> {
         captures: Vec::new(),
         frame: 0,
     }];
-    let mut jobs = vec![Job::Visit(root, 0, true)];
-    let mut done: Vec<CodeId> = Vec::new();
+    let mut jobs: Vec<Job<'a>> = recycle(std::mem::take(&mut scratch.jobs));
+    jobs.push(Job::Visit(root, 0, true));
+    let mut done: Vec<CodeId> = recycle(std::mem::take(&mut scratch.done));
     let emit = |c: &mut Compiled<'a>, instr| {
         c.code.push(instr);
         u32::try_from(c.code.len() - 1).unwrap_or(u32::MAX)
@@ -555,14 +597,13 @@ fn compile<'a>(root: &'a Term<'a>) -> Result<Compiled<'a>, u32> {
                         }
                         Node::Prim(op, operands) => {
                             let at = done.len().saturating_sub(operands.len());
-                            let atoms: SmallVec<[Option<Atom<'a>>; 2]> =
-                                done[at..].iter().map(|&id| c.atom(id)).collect();
-                            match atoms[..] {
-                                [Some(a)] => {
+                            let atom = |i: usize| done.get(at + i).and_then(|&id| c.atom(id));
+                            match (operands.len(), atom(0), atom(1)) {
+                                (1, Some(a), _) => {
                                     done.truncate(at);
                                     Instr::Prim1 { op, a }
                                 }
-                                [Some(a), Some(b)] => {
+                                (2, Some(a), Some(b)) => {
                                     done.truncate(at);
                                     Instr::Prim2 { op, a, b }
                                 }
@@ -608,6 +649,8 @@ fn compile<'a>(root: &'a Term<'a>) -> Result<Compiled<'a>, u32> {
     }
     c.root = done.pop().unwrap_or(0);
     c.frame = scopes.first().map_or(0, |s| s.frame);
+    scratch.jobs = recycle(jobs);
+    scratch.done = recycle(done);
     Ok(c)
 }
 

@@ -429,8 +429,9 @@ pub(crate) fn free_variable(index: u32) -> EvalError {
 /// Read a value back into a closed de Bruijn term in `out`: a constructor
 /// field by field, a closure as its source `λ`/`μλ` with the captured values
 /// (read back) substituted for its free variables, exactly the term the
-/// substitution stepper would hold. Iterative, and memoised on cell identity,
-/// so a cell reachable many times is read back once and its term shared.
+/// substitution stepper would hold. Iterative, and memoised on the identity
+/// of cells held more than once, so a shared cell is read back once and its
+/// term shared (a cell with one holder is reached at most once).
 pub(crate) fn read_back<'a: 'o, 'o, C: Code<'a>>(
     root: &Value<'a, C>,
     out: &'o Arena,
@@ -439,15 +440,23 @@ pub(crate) fn read_back<'a: 'o, 'o, C: Code<'a>>(
         Visit(&'v Value<'a, C>),
         Build(&'v Value<'a, C>),
     }
+    match root {
+        Value::Int(n) => return out.int(*n),
+        Value::Bool(b) => return out.boolean(*b),
+        Value::Lit(t) => return t,
+        Value::Str(s) => return out.string(&s.text),
+        _ => {}
+    }
     let mut memo: HashMap<*const (), &'o Term<'o>> = HashMap::new();
     let mut rebuild = Rebuild::new(out, usize::MAX);
-    let mut jobs: Vec<Job<'_, 'a, C>> = vec![Job::Visit(root)];
-    let mut done: Vec<&'o Term<'o>> = Vec::new();
+    let mut jobs: SmallVec<[Job<'_, 'a, C>; 16]> = SmallVec::new();
+    jobs.push(Job::Visit(root));
+    let mut done: SmallVec<[&'o Term<'o>; 16]> = SmallVec::new();
     let placeholder = out.int(0);
     while let Some(job) = jobs.pop() {
         match job {
             Job::Visit(value) => {
-                let (key, children): (*const (), &[Value<'a, C>]) = match value {
+                let (key, children, shared): (*const (), &[Value<'a, C>], bool) = match value {
                     Value::Int(n) => {
                         done.push(out.int(*n));
                         continue;
@@ -460,13 +469,15 @@ pub(crate) fn read_back<'a: 'o, 'o, C: Code<'a>>(
                         done.push(t);
                         continue;
                     }
-                    Value::Str(s) => (Rc::as_ptr(s).cast(), &[]),
-                    Value::Con(c) => (Rc::as_ptr(c).cast(), &c.fields),
-                    Value::Fun(f) => (Rc::as_ptr(f).cast(), &f.captured),
+                    Value::Str(s) => (Rc::as_ptr(s).cast(), &[], Rc::strong_count(s) > 1),
+                    Value::Con(c) => (Rc::as_ptr(c).cast(), &c.fields, Rc::strong_count(c) > 1),
+                    Value::Fun(f) => (Rc::as_ptr(f).cast(), &f.captured, Rc::strong_count(f) > 1),
                 };
-                if let Some(term) = memo.get(&key) {
-                    done.push(term);
-                    continue;
+                if shared {
+                    if let Some(term) = memo.get(&key) {
+                        done.push(term);
+                        continue;
+                    }
                 }
                 jobs.push(Job::Build(value));
                 jobs.extend(children.iter().rev().map(Job::Visit));
@@ -511,7 +522,15 @@ pub(crate) fn read_back<'a: 'o, 'o, C: Code<'a>>(
                     // Immediate values never get a build job.
                     _ => continue,
                 };
-                memo.insert(key, term);
+                let shared = match value {
+                    Value::Str(s) => Rc::strong_count(s) > 1,
+                    Value::Con(c) => Rc::strong_count(c) > 1,
+                    Value::Fun(f) => Rc::strong_count(f) > 1,
+                    _ => false,
+                };
+                if shared {
+                    memo.insert(key, term);
+                }
                 done.push(term);
             }
         }
