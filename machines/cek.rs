@@ -23,8 +23,8 @@ use crate::value::{
     Tank, Value, Values,
 };
 use crate::{
-    Arena, Arm, Cancel, Counts, EvalError, LimitError, Limits, Machine, Node, Operand, Outcome,
-    Prim, Program, Report, Rule, Term,
+    Arena, Arm, Cancel, Counts, ErrorKind, EvalError, LimitError, Limits, Machine, Node, Operand,
+    Outcome, Prim, Program, Report, Rule, Term,
 };
 
 /// A runtime value of this machine: closures keep their source term as code.
@@ -221,6 +221,17 @@ enum Frame<'a> {
     },
     /// `v □`: apply `function` to the value.
     Call { function: Val<'a> },
+    /// `(λ. t) □` inside a curried call whose earlier arguments are taken:
+    /// `closure` (a `λ` or `μλ`) has been applied to the `count - 1`
+    /// arguments (and, for a `μλ`, itself) on top of the operand stack, each
+    /// application contracted, and its body `lam` is a `λ` about to be
+    /// applied to the value. No closure is made for the partial application
+    /// (see [`CekRun::call`]).
+    Partial {
+        closure: Rc<Fun<'a>>,
+        lam: &'a Term<'a>,
+        count: u32,
+    },
     /// `let □ in t`.
     Let {
         body: &'a Term<'a>,
@@ -626,10 +637,29 @@ impl<'a> CekRun<'a> {
     /// already paid: enter the body with the callee's locals where the
     /// continuation's end (so a tail call reuses the caller's).
     #[inline]
+    ///
+    /// A curried call given its next argument at once (`f a b`, with `f`'s
+    /// body a `λ` and the continuation's top frame `□ b`) makes no closure
+    /// for `f a`: the bound values go to the operand stack under a
+    /// [`Frame::Partial`], and the function is entered when the last argument
+    /// arrives, its locals all the values bound along the way. The
+    /// contractions and their order are those of the plain calls.
     fn call(&mut self, function: Val<'a>, argument: Val<'a>) -> Result<Control<'a>, Halt> {
         let Value::Fun(closure) = function else {
             return Err(Halt::error(EvalError::not_a_function(function.operand())));
         };
+        if let Node::Lam(body) | Node::RecLam(body) = *closure.code.node() {
+            if matches!(body.node(), Node::Lam(_))
+                && matches!(self.kont.last(), Some(Frame::Argument { .. }))
+            {
+                let rec = matches!(closure.code.node(), Node::RecLam(_));
+                if rec {
+                    self.operands.push(Value::Fun(Rc::clone(&closure)));
+                }
+                self.operands.push(argument);
+                return self.next_argument(closure, body, 1 + u32::from(rec));
+            }
+        }
         self.locals.truncate(self.floor);
         let base = self.locals.len();
         let (body, depth) = match *closure.code.node() {
@@ -647,6 +677,36 @@ impl<'a> CekRun<'a> {
             depth,
         };
         Ok(Control::Eval(body))
+    }
+
+    /// Go on with a curried call (see [`CekRun::call`]): evaluate the
+    /// argument of the `□ b` frame on top, to be given to `lam`.
+    fn next_argument(
+        &mut self,
+        closure: Rc<Fun<'a>>,
+        lam: &'a Term<'a>,
+        count: u32,
+    ) -> Result<Control<'a>, Halt> {
+        let Some(Frame::Argument {
+            argument,
+            env,
+            below,
+        }) = self.kont.pop()
+        else {
+            // `call` and `apply` look before they come here; never expected.
+            return Err(Halt::error(EvalError::new(
+                ErrorKind::TypeMismatch,
+                "the machine's continuation is inconsistent",
+            )));
+        };
+        self.floor = below;
+        self.enter(env);
+        self.kont.push(Frame::Partial {
+            closure,
+            lam,
+            count,
+        });
+        Ok(Control::Eval(argument))
     }
 
     /// Contract `op` applied to the operands from `at` on the operand stack
@@ -859,6 +919,7 @@ impl<'a> CekRun<'a> {
                     let rule = match self.kont.last() {
                         None => return Ok(value),
                         Some(Frame::Call { function }) => Some(call_rule(function)),
+                        Some(Frame::Partial { .. }) => Some(Rule::Beta),
                         Some(Frame::Let { .. }) => Some(Rule::Let),
                         Some(Frame::If { .. }) => Some(Rule::If),
                         Some(Frame::Case { .. }) => Some(Rule::Case),
@@ -924,6 +985,34 @@ impl<'a> CekRun<'a> {
                 Control::Eval(argument)
             }
             Frame::Call { function } => self.call(function, value)?,
+            Frame::Partial {
+                closure,
+                lam,
+                count,
+            } => {
+                let Node::Lam(body) = *lam.node() else {
+                    return Err(Halt::error(EvalError::not_a_function(Operand::Function)));
+                };
+                if matches!(body.node(), Node::Lam(_))
+                    && matches!(self.kont.last(), Some(Frame::Argument { .. }))
+                {
+                    self.operands.push(value);
+                    return self.next_argument(closure, body, count + 1);
+                }
+                // The last argument: enter the body with every bound value
+                // as a local, the first outermost.
+                self.locals.truncate(self.floor);
+                let base = self.locals.len();
+                let at = self.operands.len().saturating_sub(count as usize);
+                self.locals.extend(self.operands.drain(at..));
+                self.locals.push(value);
+                self.env = Env {
+                    closure: Some(closure),
+                    base,
+                    depth: count + 1,
+                };
+                Control::Eval(body)
+            }
             Frame::Let { body, env, below } => {
                 self.floor = below;
                 self.enter(env);
@@ -1151,6 +1240,34 @@ mod tests {
         let unmetered = Cek::without_accounting().run(&program, &Limits::default(), &arena);
         assert_eq!(metered.outcome, Outcome::Value(arena.int(5)));
         assert_eq!(metered, unmetered);
+    }
+
+    #[test]
+    fn curried_calls_count_each_argument_and_partial_applications_escape() {
+        let arena = Arena::new();
+        let sub = |a, b| arena.prim(Prim::Sub, &[a, b]);
+        // λa. λb. λc. a - b - c
+        let f = arena.lam(arena.lam(arena.lam(sub(sub(arena.var(2), arena.var(1)), arena.var(0)))));
+        let app = |f, a| arena.app(f, a);
+        let whole = app(app(app(f, arena.int(10)), arena.int(3)), arena.int(2));
+        let report = Cek::new().run(&Program::new(whole).unwrap(), &Limits::default(), &arena);
+        assert_eq!(report.outcome, Outcome::Value(arena.int(5)));
+        assert_eq!(report.counts.get(Rule::Beta), 3);
+        assert_eq!(report.counts.get(Rule::Prim), 2);
+        // Given two of its three arguments, it is a closure over both.
+        let partial = app(app(f, arena.int(10)), arena.int(3));
+        let report = Cek::new().run(&Program::new(partial).unwrap(), &Limits::default(), &arena);
+        let expected = arena.lam(sub(sub(arena.int(10), arena.int(3)), arena.var(0)));
+        assert_eq!(report.outcome, Outcome::Value(expected));
+        assert_eq!(report.counts.get(Rule::Beta), 2);
+        // Paused between the arguments, it ends the same way.
+        let program = Program::new(whole).unwrap();
+        let mut run = Cek::start(&program, &Limits::default().with_fuel(1));
+        assert_eq!(run.resume(0, &arena).outcome, Outcome::OutOfFuel);
+        assert_eq!(run.resume(1, &arena).outcome, Outcome::OutOfFuel);
+        let report = run.resume(3, &arena);
+        assert_eq!(report.outcome, Outcome::Value(arena.int(5)));
+        assert_eq!(report.counts.total(), 5);
     }
 
     #[test]
