@@ -764,6 +764,19 @@ impl<'a> CekRun<'a> {
         Some((self.int(a)?, self.int(b)?))
     }
 
+    /// The value of `op(a, b)` on integer atoms, when it is an integer
+    /// operation that does not fail.
+    #[inline]
+    fn int_prim(&self, term: &Term<'a>) -> Option<Val<'a>> {
+        match *term.node() {
+            Node::Prim(op, &[a, b]) => {
+                let (x, y) = self.int_operands(a, b)?;
+                int_prim(op, x, y)
+            }
+            _ => None,
+        }
+    }
+
     /// The outcome of a condition `op(a, b)` that compares integer atoms.
     #[inline]
     fn int_test(&self, condition: &Term<'a>) -> Option<bool> {
@@ -806,6 +819,19 @@ impl<'a> CekRun<'a> {
                                 self.take_fuel::<M>(call_rule(&f), meter)?;
                                 self.call(f, a)?
                             }
+                            // `f (x - 1)`: an integer operation on atoms as
+                            // the argument, then the call.
+                            None if self.has_fuel::<M>(2) => match self.int_prim(argument) {
+                                Some(a) => {
+                                    self.take_fuel::<M>(Rule::Prim, meter)?;
+                                    self.take_fuel::<M>(call_rule(&f), meter)?;
+                                    self.call(f, a)?
+                                }
+                                None => {
+                                    self.kont.push(Frame::Call { function: f });
+                                    Control::Eval(argument)
+                                }
+                            },
                             _ => {
                                 self.kont.push(Frame::Call { function: f });
                                 Control::Eval(argument)
@@ -1039,11 +1065,24 @@ impl<'a> CekRun<'a> {
                 // The last operand: the others are on the operand stack.
                 self.floor = below;
                 let at = self.operands.len().saturating_sub(index);
-                self.operands.push(value);
                 match head {
-                    Head::Prim(op) => Control::Return(self.prim::<M>(op, at, meter)?),
+                    Head::Prim(op) => {
+                        // A binary operation on integers: no trip through
+                        // the operand stack.
+                        if let (1, Some(&Value::Int(x)), Value::Int(y)) =
+                            (index, self.operands.last(), &value)
+                        {
+                            if let Some(result) = int_prim(op, x, *y) {
+                                self.operands.truncate(at);
+                                return Ok(Control::Return(result));
+                            }
+                        }
+                        self.operands.push(value);
+                        Control::Return(self.prim::<M>(op, at, meter)?)
+                    }
                     Head::Con(tag) => {
                         // A constructor of values is a value: building it is free.
+                        self.operands.push(value);
                         let values: Values<'a, &'a Term<'a>> = self.operands.drain(at..).collect();
                         let cell = Value::Con(ConCell::new(tag, values));
                         self.check_memory::<M>(meter)?;

@@ -886,6 +886,13 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
         }
     }
 
+    /// `op(a, b)` on integer atoms, when it is an integer operation that
+    /// does not fail (its fuel not taken).
+    #[inline]
+    fn int_prim(&self, op: Prim, a: Atom<'a>, b: Atom<'a>) -> Option<Val<'a, 'c>> {
+        int_prim(op, self.int(a)?, self.int(b)?)
+    }
+
     /// Contract `op(a, b)` on atoms.
     #[inline]
     fn prim2(&mut self, op: Prim, a: Atom<'a>, b: Atom<'a>) -> Result<Val<'a, 'c>, Halt> {
@@ -1072,6 +1079,21 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
                         argument,
                         tail,
                     } => {
+                        // `f (x - 1)`: an integer operation on atoms as the
+                        // argument, then the call, with no task between.
+                        if let Some(&Instr::Prim2 { op, a, b }) = code.code.get(argument as usize) {
+                            if let Some(v) = self.int_prim(op, a, b) {
+                                self.take_fuel(Rule::Prim)?;
+                                let f = self.atom(function).ok_or_else(inconsistent)?;
+                                match self.call(f, v, tail)? {
+                                    Some(body) => {
+                                        pc = body;
+                                        continue;
+                                    }
+                                    None => break,
+                                }
+                            }
+                        }
                         self.push_atom(function)?;
                         let call = if tail { Task::TAIL_CALL } else { Task::CALL };
                         self.tasks.push(Task::new(call, 0));
