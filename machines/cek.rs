@@ -611,6 +611,23 @@ impl<'a> CekRun<'a> {
         Ok(())
     }
 
+    /// Take fuel for two contractions in a row, under `first` then `second`.
+    #[inline(always)]
+    fn take_fuel2<const METERED: bool>(
+        &mut self,
+        first: Rule,
+        second: Rule,
+        meter: &Meter,
+    ) -> Result<(), Halt> {
+        if METERED && !self.tank.take2() {
+            self.take_fuel::<METERED>(first, meter)?;
+            return self.take_fuel::<METERED>(second, meter);
+        }
+        self.counts.add(first);
+        self.counts.add(second);
+        Ok(())
+    }
+
     /// Whether `n` units of fuel are left (always, unmetered).
     #[inline(always)]
     fn has_fuel<const METERED: bool>(&self, n: u64) -> bool {
@@ -823,8 +840,7 @@ impl<'a> CekRun<'a> {
                             // the argument, then the call.
                             None if self.has_fuel::<M>(2) => match self.int_prim(argument) {
                                 Some(a) => {
-                                    self.take_fuel::<M>(Rule::Prim, meter)?;
-                                    self.take_fuel::<M>(call_rule(&f), meter)?;
+                                    self.take_fuel2::<M>(Rule::Prim, call_rule(&f), meter)?;
                                     self.call(f, a)?
                                 }
                                 None => {
@@ -849,8 +865,7 @@ impl<'a> CekRun<'a> {
                     Node::If(condition, yes, no) if self.has_fuel::<M>(2) => {
                         match self.int_test(condition) {
                             Some(holds) => {
-                                self.take_fuel::<M>(Rule::Prim, meter)?;
-                                self.take_fuel::<M>(Rule::If, meter)?;
+                                self.take_fuel2::<M>(Rule::Prim, Rule::If, meter)?;
                                 Control::Eval(if holds { yes } else { no })
                             }
                             None => {

@@ -828,6 +828,18 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
         Ok(())
     }
 
+    /// Take fuel for two contractions in a row, under `first` then `second`.
+    #[inline(always)]
+    fn take_fuel2(&mut self, first: Rule, second: Rule) -> Result<(), Halt> {
+        if METERED && !self.tank.take2() {
+            self.take_fuel(first)?;
+            return self.take_fuel(second);
+        }
+        self.counts.add(first);
+        self.counts.add(second);
+        Ok(())
+    }
+
     /// The slow checks between fuel slices: cancellation, memory, and the
     /// next slice of fuel (whose first unit pays for the pending contraction).
     #[cold]
@@ -1115,8 +1127,7 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
                     Instr::IfPrim2 { op, a, b, yes, no } => {
                         if let (Some(x), Some(y)) = (self.int(a), self.int(b)) {
                             if let Some(holds) = int_test(op, x, y) {
-                                self.take_fuel(Rule::Prim)?;
-                                self.take_fuel(Rule::If)?;
+                                self.take_fuel2(Rule::Prim, Rule::If)?;
                                 pc = if holds { yes } else { no };
                                 continue;
                             }

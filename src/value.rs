@@ -112,6 +112,17 @@ impl Tank {
         true
     }
 
+    /// Pay two units from the slice if it holds them; `false` (paying
+    /// nothing) otherwise, and the caller pays one at a time.
+    #[inline(always)]
+    pub(crate) fn take2(&mut self) -> bool {
+        if self.slice < 2 {
+            return false;
+        }
+        self.slice -= 2;
+        true
+    }
+
     /// Whether `n` units are left in all.
     #[inline(always)]
     pub(crate) fn has(&self, n: u64) -> bool {
