@@ -357,6 +357,7 @@ impl<'a> Compiled<'a> {
 }
 
 /// The function being compiled: its captured free indices and frame size.
+#[derive(Debug)]
 struct Scope {
     captures: Vec<u32>,
     frame: u32,
@@ -404,6 +405,7 @@ struct CodeScratch {
     funs: Vec<Function<'static>>,
     jobs: Vec<Job<'static>>,
     done: Vec<CodeId>,
+    scopes: Vec<Scope>,
 }
 
 impl std::fmt::Debug for Job<'_> {
@@ -416,7 +418,8 @@ impl CodeScratch {
     /// Keep `compiled`'s vectors for the next compile.
     fn keep(&mut self, compiled: Compiled<'_>) {
         self.code = recycle(compiled.code);
-        self.lists = recycle(compiled.lists);
+        self.lists = compiled.lists;
+        self.lists.clear();
         self.arms = recycle(compiled.arms);
         self.funs = recycle(compiled.funs);
     }
@@ -426,20 +429,23 @@ impl CodeScratch {
 fn compile_with<'a>(root: &'a Term<'a>, scratch: &mut CodeScratch) -> Result<Compiled<'a>, u32> {
     let mut c = Compiled {
         code: recycle(std::mem::take(&mut scratch.code)),
-        lists: recycle(std::mem::take(&mut scratch.lists)),
+        lists: std::mem::take(&mut scratch.lists),
         arms: recycle(std::mem::take(&mut scratch.arms)),
         funs: recycle(std::mem::take(&mut scratch.funs)),
         root: 0,
         frame: 0,
     };
     // The top level is compiled like a function body with no captures.
-    let mut scopes: Vec<Scope> = vec![Scope {
+    let mut scopes = std::mem::take(&mut scratch.scopes);
+    scopes.clear();
+    scopes.push(Scope {
         captures: Vec::new(),
         frame: 0,
-    }];
+    });
     let mut jobs: Vec<Job<'a>> = recycle(std::mem::take(&mut scratch.jobs));
     jobs.push(Job::Visit(root, 0, true));
-    let mut done: Vec<CodeId> = recycle(std::mem::take(&mut scratch.done));
+    let mut done = std::mem::take(&mut scratch.done);
+    done.clear();
     let emit = |c: &mut Compiled<'a>, instr| {
         c.code.push(instr);
         u32::try_from(c.code.len() - 1).unwrap_or(u32::MAX)
@@ -650,7 +656,8 @@ fn compile_with<'a>(root: &'a Term<'a>, scratch: &mut CodeScratch) -> Result<Com
     c.root = done.pop().unwrap_or(0);
     c.frame = scopes.first().map_or(0, |s| s.frame);
     scratch.jobs = recycle(jobs);
-    scratch.done = recycle(done);
+    scratch.done = done;
+    scratch.scopes = scopes;
     Ok(c)
 }
 

@@ -159,7 +159,7 @@ pub(crate) const KEEP_STACK_BYTES: usize = 64 << 10;
 /// [`KEEP_STACK_BYTES`]; otherwise a new empty vector. This is how a machine
 /// keeps its stacks across runs whose values borrow different programs.
 pub(crate) fn recycle<T, U>(mut v: Vec<T>) -> Vec<U> {
-    if v.capacity() * std::mem::size_of::<T>() > KEEP_STACK_BYTES {
+    if v.capacity() == 0 || v.capacity() * std::mem::size_of::<T>() > KEEP_STACK_BYTES {
         return Vec::new();
     }
     v.clear();
