@@ -985,7 +985,17 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
                 };
                 captured.push(value);
             }
-            self.stack.push(Value::Fun(Closure::new(inner, captured)));
+            // A call that holds the callee's only reference (the usual
+            // case for the middle of a curried call) reuses its cell.
+            let mut closure = closure;
+            let made = match Rc::get_mut(&mut closure) {
+                Some(cell) => {
+                    cell.reuse(inner, captured);
+                    closure
+                }
+                None => Closure::new(inner, captured),
+            };
+            self.stack.push(Value::Fun(made));
             self.check_memory()?;
             return Ok(None);
         }

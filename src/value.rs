@@ -343,6 +343,18 @@ impl<'a, C: Code<'a>> Closure<'a, C> {
     }
 }
 
+impl<'a, C: Code<'a>> Closure<'a, C> {
+    /// Make this closure, held by one reference, into a closure of `code`
+    /// over `captured`, reusing its cell; the accounting follows.
+    pub(crate) fn reuse(&mut self, code: C, captured: Values<'a, C>) {
+        refund(values_bytes(&self.captured));
+        charge(values_bytes(&captured));
+        let mut old = std::mem::replace(&mut self.captured, captured);
+        self.code = code;
+        release(&mut old);
+    }
+}
+
 impl<'a, C: Code<'a>> Drop for Closure<'a, C> {
     fn drop(&mut self) {
         refund(RC_HEADER + std::mem::size_of::<Self>() + values_bytes(&self.captured));
@@ -571,6 +583,23 @@ mod tests {
         ));
         assert!(meter.cells() > 0);
         drop(cell);
+        assert_eq!(meter.cells(), 0);
+    }
+
+    #[test]
+    fn a_reused_closure_is_accounted_as_a_new_one() {
+        let arena = Arena::new();
+        let lam = arena.lam(arena.var(0));
+        let meter = Meter::holding(0);
+        let mut f = Closure::new(lam, SmallVec::from_iter([V::Int(1)]));
+        // Five captured values spill out of the cell.
+        let five: Values<'_, &Term<'_>> = (0..5).map(Value::Int).collect();
+        Rc::get_mut(&mut f).unwrap().reuse(lam, five.clone());
+        let held = meter.cells();
+        let fresh = Closure::new(lam, five);
+        assert_eq!(meter.cells(), 2 * held);
+        drop(f);
+        drop(fresh);
         assert_eq!(meter.cells(), 0);
     }
 
