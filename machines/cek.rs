@@ -14,13 +14,15 @@
 //! locals no frame still needs, so a tail loop runs in constant space.
 //! Operands that are atoms (variables and literals) are evaluated in place,
 //! as in the atomic evaluation of Van Horn and Might ("Abstracting abstract
-//! machines", 2010), so `n - 1`, `if n < 2 …` and `f x` need no frames.
+//! machines", 2010), so `n - 1`, `if n < 2 …`, `f x` and `f (n - 1)` need no
+//! frames; a curried call given all its arguments in a row (`f a b c`) makes
+//! no closures for `f a` and `f a b`.
 
 use std::rc::Rc;
 
 use crate::value::{
-    apply_prim, free_variable, int_prim, int_test, read_back, recycle, Closure, ConCell, Meter,
-    Tank, Value, Values,
+    apply_prim, cut, free_variable, int_prim, int_test, read_back, recycle, Closure, ConCell,
+    Meter, Tank, Value, Values,
 };
 use crate::{
     Arena, Arm, Cancel, Counts, ErrorKind, EvalError, LimitError, Limits, Machine, Node, Operand,
@@ -515,7 +517,9 @@ impl<'a> CekRun<'a> {
     }
 
     /// The most runtime memory this run has held at once, in bytes, sampled
-    /// at every contraction and every constructor built: the cells it made
+    /// whenever it makes a cell (a closure, a constructor cell, a string) and
+    /// before the first contraction of every fuel slice (at least every
+    /// [`CANCEL_POLL_INTERVAL`](crate::CANCEL_POLL_INTERVAL) contractions): the cells it made
     /// and still holds (closures, constructor cells, strings; see the memory
     /// limit's accounting) plus the capacity of its locals, operand and
     /// continuation stacks. This is the quantity [`Limits::memory`] bounds.
@@ -593,7 +597,7 @@ impl<'a> CekRun<'a> {
     /// Make `env` current again, dropping any locals above it.
     #[inline]
     fn enter(&mut self, env: Env<'a>) {
-        self.locals.truncate(env.extent());
+        cut(&mut self.locals, env.extent());
         self.env = env;
     }
 
@@ -677,7 +681,7 @@ impl<'a> CekRun<'a> {
                 return self.next_argument(closure, body, 1 + u32::from(rec));
             }
         }
-        self.locals.truncate(self.floor);
+        cut(&mut self.locals, self.floor);
         let base = self.locals.len();
         let (body, depth) = match *closure.code.node() {
             Node::RecLam(body) => {
@@ -1042,7 +1046,7 @@ impl<'a> CekRun<'a> {
                 }
                 // The last argument: enter the body with every bound value
                 // as a local, the first outermost.
-                self.locals.truncate(self.floor);
+                cut(&mut self.locals, self.floor);
                 let base = self.locals.len();
                 let at = self.operands.len().saturating_sub(count as usize);
                 self.locals.extend(self.operands.drain(at..));

@@ -14,7 +14,7 @@
 use std::rc::Rc;
 
 use crate::value::{
-    apply_prim, free_variable, int_prim, int_test, read_back, recycle, Closure, Code, ConCell,
+    apply_prim, cut, free_variable, int_prim, int_test, read_back, recycle, Closure, Code, ConCell,
     Meter, Tank, Value, Values, KEEP_STACK_BYTES,
 };
 use crate::{
@@ -108,7 +108,9 @@ impl Env {
     }
 
     /// The most runtime memory the last run held at once, in bytes, sampled
-    /// at every contraction and every constructor built: the compiled code,
+    /// whenever it makes a cell (a closure, a constructor cell, a string) and
+    /// before the first contraction of every fuel slice (at least every
+    /// [`CANCEL_POLL_INTERVAL`](crate::CANCEL_POLL_INTERVAL) contractions): the compiled code,
     /// the value and task stacks (by capacity), and the cells the run made
     /// and still held (closures, constructor cells, strings). This is the
     /// quantity [`Limits::memory`] bounds.
@@ -1000,7 +1002,7 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
             return Ok(None);
         }
         if tail {
-            self.stack.truncate(self.base);
+            cut(&mut self.stack, self.base);
         } else {
             self.callers.push(Caller {
                 base: self.base,
@@ -1233,7 +1235,7 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
                     }
                     Task::RETURN => {
                         let value = self.pop()?;
-                        self.stack.truncate(self.base);
+                        cut(&mut self.stack, self.base);
                         self.stack.push(value);
                         let caller = self.callers.pop().ok_or_else(inconsistent)?;
                         self.base = caller.base;

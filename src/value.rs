@@ -148,6 +148,16 @@ impl Tank {
     }
 }
 
+/// Shorten `values` to `len`, dropping the values above one at a time
+/// (inlined: the stacks of the machines lose one or two values at a time, for
+/// which this is cheaper than the general slice drop).
+#[inline(always)]
+pub(crate) fn cut<'a, C: Code<'a>>(values: &mut Vec<Value<'a, C>>, len: usize) {
+    while values.len() > len {
+        values.pop();
+    }
+}
+
 /// Stacks larger than this many bytes are freed after a run rather than kept
 /// for the next one, so one big run does not pin memory (which the next run's
 /// limit would count).
