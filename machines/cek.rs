@@ -25,8 +25,8 @@ use crate::value::{
     Meter, Tank, Value, Values,
 };
 use crate::{
-    Arena, Arm, Cancel, Counts, ErrorKind, EvalError, LimitError, Limits, Machine, Node, Operand,
-    Outcome, Prim, Program, Report, Rule, Term,
+    Arena, Arm, Cancel, Counts, EvalError, LimitError, Limits, Machine, Node, Operand, Outcome,
+    Prim, Program, Report, Rule, Term,
 };
 
 /// A runtime value of this machine: closures keep their source term as code.
@@ -665,7 +665,12 @@ impl<'a> CekRun<'a> {
     /// [`Frame::Partial`], and the function is entered when the last argument
     /// arrives, its locals all the values bound along the way. The
     /// contractions and their order are those of the plain calls.
-    fn call(&mut self, function: Val<'a>, argument: Val<'a>) -> Result<Control<'a>, Halt> {
+    fn call<const M: bool>(
+        &mut self,
+        function: Val<'a>,
+        argument: Val<'a>,
+        meter: &Meter,
+    ) -> Result<Control<'a>, Halt> {
         let Value::Fun(closure) = function else {
             return Err(Halt::error(EvalError::not_a_function(function.operand())));
         };
@@ -677,8 +682,8 @@ impl<'a> CekRun<'a> {
                 if rec {
                     self.operands.push(Value::Fun(Rc::clone(&closure)));
                 }
-                self.operands.push(argument);
-                return self.next_argument(closure, body, 1 + u32::from(rec));
+                let lam: &'a Term<'a> = closure.code;
+                return self.step::<M>(closure, lam, u32::from(rec), argument, meter);
             }
         }
         cut(&mut self.locals, self.floor);
@@ -700,34 +705,68 @@ impl<'a> CekRun<'a> {
         Ok(Control::Eval(body))
     }
 
-    /// Go on with a curried call (see [`CekRun::call`]): evaluate the
-    /// argument of the `□ b` frame on top, to be given to `lam`.
-    fn next_argument(
+    /// Go on with a curried call (see [`CekRun::call`]): `lam` (a `λ` or
+    /// `μλ` of `closure`'s chain) has just been applied to `value`, its fuel
+    /// paid, with the `count` values bound before on top of the operand
+    /// stack. While its body is a `λ` and the top frame is `□ b`, keep the
+    /// value and go on to `b` (taking an atom `b` at once); otherwise enter
+    /// the body with every bound value as a local, the first outermost. A
+    /// loop, however long the chain.
+    fn step<const M: bool>(
         &mut self,
         closure: Rc<Fun<'a>>,
-        lam: &'a Term<'a>,
-        count: u32,
+        mut lam: &'a Term<'a>,
+        mut count: u32,
+        mut value: Val<'a>,
+        meter: &Meter,
     ) -> Result<Control<'a>, Halt> {
-        let Some(Frame::Argument {
-            argument,
-            env,
-            below,
-        }) = self.kont.pop()
-        else {
-            // `call` and `apply` look before they come here; never expected.
-            return Err(Halt::error(EvalError::new(
-                ErrorKind::TypeMismatch,
-                "the machine's continuation is inconsistent",
-            )));
-        };
-        self.floor = below;
-        self.enter(env);
-        self.kont.push(Frame::Partial {
-            closure,
-            lam,
-            count,
-        });
-        Ok(Control::Eval(argument))
+        loop {
+            let (Node::Lam(body) | Node::RecLam(body)) = *lam.node() else {
+                return Err(Halt::error(EvalError::not_a_function(Operand::Function)));
+            };
+            if matches!(body.node(), Node::Lam(_))
+                && matches!(self.kont.last(), Some(Frame::Argument { .. }))
+            {
+                if let Some(Frame::Argument {
+                    argument,
+                    env,
+                    below,
+                }) = self.kont.pop()
+                {
+                    self.operands.push(value);
+                    count += 1;
+                    lam = body;
+                    self.floor = below;
+                    self.enter(env);
+                    match self.atom(argument)? {
+                        Some(next) if self.has_fuel::<M>(1) => {
+                            self.take_fuel::<M>(Rule::Beta, meter)?;
+                            value = next;
+                            continue;
+                        }
+                        _ => {
+                            self.kont.push(Frame::Partial {
+                                closure,
+                                lam,
+                                count,
+                            });
+                            return Ok(Control::Eval(argument));
+                        }
+                    }
+                }
+            }
+            cut(&mut self.locals, self.floor);
+            let base = self.locals.len();
+            let at = self.operands.len().saturating_sub(count as usize);
+            self.locals.extend(self.operands.drain(at..));
+            self.locals.push(value);
+            self.env = Env {
+                closure: Some(closure),
+                base,
+                depth: count + 1,
+            };
+            return Ok(Control::Eval(body));
+        }
     }
 
     /// Contract `op` applied to the operands from `at` on the operand stack
@@ -838,14 +877,14 @@ impl<'a> CekRun<'a> {
                         Some(f) => match self.atom(argument)? {
                             Some(a) if self.has_fuel::<M>(1) => {
                                 self.take_fuel::<M>(call_rule(&f), meter)?;
-                                self.call(f, a)?
+                                self.call::<M>(f, a, meter)?
                             }
                             // `f (x - 1)`: an integer operation on atoms as
                             // the argument, then the call.
                             None if self.has_fuel::<M>(2) => match self.int_prim(argument) {
                                 Some(a) => {
                                     self.take_fuel2::<M>(Rule::Prim, call_rule(&f), meter)?;
-                                    self.call(f, a)?
+                                    self.call::<M>(f, a, meter)?
                                 }
                                 None => {
                                     self.kont.push(Frame::Call { function: f });
@@ -1026,38 +1065,24 @@ impl<'a> CekRun<'a> {
             } => {
                 self.floor = below;
                 self.enter(env);
-                self.kont.push(Frame::Call { function: value });
-                Control::Eval(argument)
+                match self.atom(argument)? {
+                    // An atom argument is taken at once.
+                    Some(a) if self.has_fuel::<M>(1) => {
+                        self.take_fuel::<M>(call_rule(&value), meter)?;
+                        self.call::<M>(value, a, meter)?
+                    }
+                    _ => {
+                        self.kont.push(Frame::Call { function: value });
+                        Control::Eval(argument)
+                    }
+                }
             }
-            Frame::Call { function } => self.call(function, value)?,
+            Frame::Call { function } => self.call::<M>(function, value, meter)?,
             Frame::Partial {
                 closure,
                 lam,
                 count,
-            } => {
-                let Node::Lam(body) = *lam.node() else {
-                    return Err(Halt::error(EvalError::not_a_function(Operand::Function)));
-                };
-                if matches!(body.node(), Node::Lam(_))
-                    && matches!(self.kont.last(), Some(Frame::Argument { .. }))
-                {
-                    self.operands.push(value);
-                    return self.next_argument(closure, body, count + 1);
-                }
-                // The last argument: enter the body with every bound value
-                // as a local, the first outermost.
-                cut(&mut self.locals, self.floor);
-                let base = self.locals.len();
-                let at = self.operands.len().saturating_sub(count as usize);
-                self.locals.extend(self.operands.drain(at..));
-                self.locals.push(value);
-                self.env = Env {
-                    closure: Some(closure),
-                    base,
-                    depth: count + 1,
-                };
-                Control::Eval(body)
-            }
+            } => self.step::<M>(closure, lam, count, value, meter)?,
             Frame::Let { body, env, below } => {
                 self.floor = below;
                 self.enter(env);

@@ -225,6 +225,14 @@ enum Instr<'a> {
         argument: CodeId,
         tail: bool,
     },
+    /// An application to an atom: the argument is read when the function's
+    /// value is ready (reading an atom is free and cannot fail, and nothing
+    /// the function does changes it).
+    AppAtomArgument {
+        function: CodeId,
+        argument: Atom<'a>,
+        tail: bool,
+    },
     /// An application of an atom to an atom.
     AppAtoms {
         function: Atom<'a>,
@@ -576,6 +584,11 @@ fn compile_with<'a>(root: &'a Term<'a>, scratch: &mut CodeScratch) -> Result<Com
                                     argument,
                                     tail,
                                 },
+                                (None, Some(argument)) => Instr::AppAtomArgument {
+                                    function,
+                                    argument,
+                                    tail,
+                                },
                                 _ => Instr::App {
                                     function,
                                     argument,
@@ -694,6 +707,9 @@ impl Task {
     /// A call has returned: pop its frame from under the value on top and
     /// make the caller's current again (the caller is on `Run::callers`).
     const RETURN: u64 = 8;
+    /// `Instr::AppAtomArgument`: apply the function on top of the stack to
+    /// the instruction's atom.
+    const CALL_ATOM: u64 = 9;
 
     #[inline]
     fn new(kind: u64, code: CodeId) -> Task {
@@ -1105,6 +1121,10 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
                         self.tasks.push(Task::new(Task::EVAL, argument));
                         pc = function;
                     }
+                    Instr::AppAtomArgument { function, .. } => {
+                        self.tasks.push(Task::new(Task::CALL_ATOM, pc));
+                        pc = function;
+                    }
                     Instr::AppAtomFunction {
                         function,
                         argument,
@@ -1228,6 +1248,20 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
                         if let Some(body) =
                             self.call(function, argument, kind == Task::TAIL_CALL)?
                         {
+                            pc = body;
+                            continue 'eval;
+                        }
+                        continue;
+                    }
+                    Task::CALL_ATOM => {
+                        let Some(&Instr::AppAtomArgument { argument, tail, .. }) =
+                            code.code.get(at as usize)
+                        else {
+                            return Err(inconsistent());
+                        };
+                        let function = self.pop()?;
+                        let argument = self.atom(argument).ok_or_else(inconsistent)?;
+                        if let Some(body) = self.call(function, argument, tail)? {
                             pc = body;
                             continue 'eval;
                         }
@@ -1369,6 +1403,7 @@ mod tests {
             .iter()
             .filter_map(|i| match i {
                 Instr::App { tail, .. }
+                | Instr::AppAtomArgument { tail, .. }
                 | Instr::AppAtomFunction { tail, .. }
                 | Instr::AppAtoms { tail, .. } => Some(*tail),
                 _ => None,
