@@ -14,17 +14,19 @@
 //! locals no frame still needs, so a tail loop runs in constant space.
 //! Operands that are atoms (variables and literals) are evaluated in place,
 //! as in the atomic evaluation of Van Horn and Might ("Abstracting abstract
-//! machines", 2010), so `n - 1`, `if n < 2 …` and `f x` need no frames.
+//! machines", 2010), so `n - 1`, `if n < 2 …`, `f x` and `f (n - 1)` need no
+//! frames; a curried call given all its arguments in a row (`f a b c`) makes
+//! no closures for `f a` and `f a b`.
 
 use std::rc::Rc;
 
 use crate::value::{
-    apply_prim, free_variable, int_prim, int_test, read_back, Closure, ConCell, Meter, Value,
-    Values,
+    apply_prim, cut, free_variable, int_prim, int_test, read_back, recycle, Closure, ConCell,
+    Meter, Tank, Value, Values,
 };
 use crate::{
-    Arena, Arm, Counts, EvalError, LimitError, Limits, Machine, Node, Operand, Outcome, Prim,
-    Program, Report, Rule, Term,
+    Arena, Arm, Cancel, Counts, EvalError, LimitError, Limits, Machine, Node, Operand, Outcome,
+    Prim, Program, Report, Rule, Term,
 };
 
 /// A runtime value of this machine: closures keep their source term as code.
@@ -50,9 +52,39 @@ type Fun<'a> = Closure<'a, &'a Term<'a>>;
 /// assert_eq!(report.outcome, Outcome::Value(arena.int(42)));
 /// assert_eq!(report.counts.total(), 2); // beta, prim
 /// ```
-#[derive(Debug, Default)]
+#[derive(Debug)]
 pub struct Cek {
     peak: usize,
+    /// Whether fuel, memory and cancellation are checked (always, except in
+    /// the benchmark-only [`Cek::without_accounting`]).
+    metered: bool,
+    /// The emptied stacks of the last [`Machine::run`], kept for the next.
+    scratch: Scratch,
+}
+
+impl Default for Cek {
+    fn default() -> Self {
+        Cek {
+            peak: 0,
+            metered: true,
+            scratch: Scratch::default(),
+        }
+    }
+}
+
+/// A run's stacks, emptied; their element types borrow a program, so they
+/// are kept with `'static` in its place and [`recycle`]d.
+#[derive(Default)]
+struct Scratch {
+    locals: Vec<Val<'static>>,
+    kont: Vec<Frame<'static>>,
+    operands: Vec<Val<'static>>,
+}
+
+impl std::fmt::Debug for Scratch {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("Scratch").finish_non_exhaustive()
+    }
 }
 
 impl Cek {
@@ -65,6 +97,30 @@ impl Cek {
     /// ```
     pub fn new() -> Self {
         Cek::default()
+    }
+
+    /// **For benchmarks only.** A machine whose [`Machine::run`] skips every
+    /// fuel, memory and cancellation check, so a benchmark can measure what
+    /// the accounting costs. It computes the same values and counts, but it
+    /// ignores [`Limits`] entirely: a divergent program runs forever and a
+    /// growing one until allocation fails. Never use it on untrusted input.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::machines::cek::Cek;
+    /// use orrery::{Arena, Limits, Machine, Outcome, Program};
+    /// let arena = Arena::new();
+    /// let program = Program::new(arena.app(arena.lam(arena.var(0)), arena.int(5))).unwrap();
+    /// let report = Cek::without_accounting().run(&program, &Limits::default(), &arena);
+    /// assert_eq!(report.outcome, Outcome::Value(arena.int(5)));
+    /// ```
+    #[doc(hidden)]
+    pub fn without_accounting() -> Self {
+        Cek {
+            metered: false,
+            ..Cek::default()
+        }
     }
 
     /// The initial machine state for running `program` under `limits`:
@@ -86,20 +142,7 @@ impl Cek {
     /// assert_eq!(report.counts.total(), 3);
     /// ```
     pub fn start<'a>(program: &Program<'a>, limits: &Limits) -> CekRun<'a> {
-        CekRun {
-            control: Some(Control::Eval(program.term())),
-            env: Env::top(),
-            locals: Vec::new(),
-            kont: Vec::new(),
-            operands: Vec::new(),
-            floor: 0,
-            fuel: limits.fuel,
-            counts: Counts::default(),
-            memory: limits.memory,
-            cells: 0,
-            peak: 0,
-            end: None,
-        }
+        CekRun::with_stacks(program, limits, Scratch::default(), true)
     }
 
     /// The most runtime memory the last [`Machine::run`] held at once, in
@@ -132,9 +175,11 @@ impl Machine for Cek {
         limits: &Limits,
         out: &'o Arena,
     ) -> Report<'o> {
-        let mut run = Cek::start(program, limits);
+        let scratch = std::mem::take(&mut self.scratch);
+        let mut run = CekRun::with_stacks(program, limits, scratch, self.metered);
         let report = run.resume(0, out);
         self.peak = run.peak_bytes();
+        self.scratch = run.into_stacks();
         report
     }
 }
@@ -178,6 +223,17 @@ enum Frame<'a> {
     },
     /// `v □`: apply `function` to the value.
     Call { function: Val<'a> },
+    /// `(λ. t) □` inside a curried call whose earlier arguments are taken:
+    /// `closure` (a `λ` or `μλ`) has been applied to the `count - 1`
+    /// arguments (and, for a `μλ`, itself) on top of the operand stack, each
+    /// application contracted, and its body `lam` is a `λ` about to be
+    /// applied to the value. No closure is made for the partial application
+    /// (see [`CekRun::call`]).
+    Partial {
+        closure: Rc<Fun<'a>>,
+        lam: &'a Term<'a>,
+        count: u32,
+    },
     /// `let □ in t`.
     Let {
         body: &'a Term<'a>,
@@ -191,19 +247,11 @@ enum Frame<'a> {
         env: Env<'a>,
         below: usize,
     },
-    /// `op(v…, □, t…)`, the hole at `index`; the values to its left are on
-    /// the machine's operand stack.
+    /// `op(v…, □, t…)` or `K(v…, □, t…)`, the hole at `index`; the values
+    /// to its left are on the machine's operand stack.
     Operand {
-        op: Prim,
+        head: Head<'a>,
         operands: &'a [&'a Term<'a>],
-        index: usize,
-        env: Env<'a>,
-        below: usize,
-    },
-    /// `K(v…, □, t…)`, likewise.
-    Field {
-        tag: &'a str,
-        fields: &'a [&'a Term<'a>],
         index: usize,
         env: Env<'a>,
         below: usize,
@@ -217,17 +265,35 @@ enum Frame<'a> {
     },
 }
 
+/// What an [`Frame::Operand`] frame does once its operands are values.
+#[derive(Clone, Copy)]
+enum Head<'a> {
+    /// Apply a primitive: a contraction.
+    Prim(Prim),
+    /// Build a constructor cell: free.
+    Con(&'a str),
+}
+
 /// The control: a term to evaluate, or a value to hand to the continuation.
 enum Control<'a> {
     Eval(&'a Term<'a>),
     Return(Val<'a>),
 }
 
-/// Why [`CekRun::execute`] stopped without a value.
+/// Why [`CekRun::execute`] stopped without a value. Boxed errors keep
+/// `Result<_, Halt>` small on the hot path.
 enum Halt {
-    Error(EvalError),
+    Error(Box<EvalError>),
     OutOfFuel,
     Memory,
+    Cancelled,
+}
+
+impl Halt {
+    #[cold]
+    fn error(error: EvalError) -> Halt {
+        Halt::Error(Box::new(error))
+    }
 }
 
 /// How a run ended, kept so that a finished run reports the same outcome
@@ -271,9 +337,12 @@ pub struct CekRun<'a> {
     /// How many locals the continuation still needs: a call puts the callee's
     /// locals here, reusing any above.
     floor: usize,
-    fuel: u64,
+    tank: Tank,
     counts: Counts,
     memory: usize,
+    cancel: Option<Cancel>,
+    /// Whether fuel, memory and cancellation are checked.
+    metered: bool,
     /// Bytes of cells this run held when it last paused.
     cells: usize,
     peak: usize,
@@ -283,7 +352,7 @@ pub struct CekRun<'a> {
 impl std::fmt::Debug for CekRun<'_> {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         f.debug_struct("CekRun")
-            .field("fuel_left", &self.fuel)
+            .field("fuel_left", &self.tank.left())
             .field("counts", &self.counts)
             .field("frames", &self.kont.len())
             .field("finished", &self.end.is_some())
@@ -292,6 +361,43 @@ impl std::fmt::Debug for CekRun<'_> {
 }
 
 impl<'a> CekRun<'a> {
+    /// The initial state for `program`, with the (empty) stacks of `scratch`.
+    fn with_stacks(
+        program: &Program<'a>,
+        limits: &Limits,
+        scratch: Scratch,
+        metered: bool,
+    ) -> Self {
+        CekRun {
+            control: Some(Control::Eval(program.term())),
+            env: Env::top(),
+            locals: recycle(scratch.locals),
+            kont: recycle(scratch.kont),
+            operands: recycle(scratch.operands),
+            floor: 0,
+            tank: Tank::new(limits.fuel),
+            counts: Counts::default(),
+            memory: limits.memory,
+            cancel: limits.cancel.clone(),
+            metered,
+            cells: 0,
+            peak: 0,
+            end: None,
+        }
+    }
+
+    /// This run's stacks, emptied, to keep for another run.
+    fn into_stacks(mut self) -> Scratch {
+        self.control = None;
+        self.env = Env::top();
+        self.end = None;
+        Scratch {
+            locals: recycle(std::mem::take(&mut self.locals)),
+            kont: recycle(std::mem::take(&mut self.kont)),
+            operands: recycle(std::mem::take(&mut self.operands)),
+        }
+    }
+
     /// Add `more_fuel` and run until a value, an error, a resource limit, or
     /// the end of the fuel. The report's counts are the run's totals so far.
     /// Once the run has finished, further calls report the same outcome and
@@ -322,22 +428,29 @@ impl<'a> CekRun<'a> {
     where
         'a: 'o,
     {
-        self.fuel = self.fuel.saturating_add(more_fuel);
+        self.tank.add(more_fuel);
         if self.end.is_none() {
             let meter = Meter::holding(self.cells);
-            let end = match self.execute(&meter) {
+            let result = if self.metered {
+                self.execute::<true>(&meter)
+            } else {
+                self.execute::<false>(&meter)
+            };
+            let end = match result {
                 Ok(value) => Some(End::Value(value)),
-                Err(Halt::Error(error)) => Some(End::Error(error)),
+                Err(Halt::Error(error)) => Some(End::Error(*error)),
                 Err(Halt::Memory) => Some(End::Limit(LimitError::memory(self.memory))),
+                Err(Halt::Cancelled) => Some(End::Limit(LimitError::cancelled())),
                 Err(Halt::OutOfFuel) => None,
             };
             if end.is_some() {
-                // The machine state is no longer needed; free it now.
+                // The machine state is no longer needed; drop what it holds
+                // (the stacks stay allocated, for `Cek::run` to keep).
                 self.control = None;
                 self.env = Env::top();
-                self.kont = Vec::new();
-                self.locals = Vec::new();
-                self.operands = Vec::new();
+                self.kont.clear();
+                self.locals.clear();
+                self.operands.clear();
                 self.floor = 0;
             }
             self.end = end;
@@ -382,7 +495,7 @@ impl<'a> CekRun<'a> {
     /// assert_eq!(run.fuel_left(), 9);
     /// ```
     pub fn fuel_left(&self) -> u64 {
-        self.fuel
+        self.tank.left()
     }
 
     /// Whether the run has ended (with a value, an error or a resource
@@ -404,7 +517,9 @@ impl<'a> CekRun<'a> {
     }
 
     /// The most runtime memory this run has held at once, in bytes, sampled
-    /// at every contraction and every constructor built: the cells it made
+    /// whenever it makes a cell (a closure, a constructor cell, a string) and
+    /// before the first contraction of every fuel slice (at least every
+    /// [`CANCEL_POLL_INTERVAL`](crate::CANCEL_POLL_INTERVAL) contractions): the cells it made
     /// and still holds (closures, constructor cells, strings; see the memory
     /// limit's accounting) plus the capacity of its locals, operand and
     /// continuation stacks. This is the quantity [`Limits::memory`] bounds.
@@ -431,7 +546,10 @@ impl<'a> CekRun<'a> {
 
     /// Sample the memory in use; `Err` if it is over the limit.
     #[inline]
-    fn check_memory(&mut self, meter: &Meter) -> Result<(), Halt> {
+    fn check_memory<const METERED: bool>(&mut self, meter: &Meter) -> Result<(), Halt> {
+        if !METERED {
+            return Ok(());
+        }
         let held = meter.cells() + self.stack_bytes();
         self.peak = self.peak.max(held);
         if held > self.memory {
@@ -454,7 +572,7 @@ impl<'a> CekRun<'a> {
         };
         found
             .cloned()
-            .ok_or_else(|| Halt::Error(free_variable(index)))
+            .ok_or_else(|| Halt::error(free_variable(index)))
     }
 
     /// A flat closure for `term` (a `λ` or `μλ`): it captures the indices
@@ -479,30 +597,96 @@ impl<'a> CekRun<'a> {
     /// Make `env` current again, dropping any locals above it.
     #[inline]
     fn enter(&mut self, env: Env<'a>) {
-        self.locals.truncate(env.extent());
+        cut(&mut self.locals, env.extent());
         self.env = env;
     }
 
-    /// Take one unit of fuel for a contraction under `rule`.
-    #[inline]
-    fn take_fuel(&mut self, rule: Rule, meter: &Meter) -> Result<(), Halt> {
-        if self.fuel == 0 {
+    /// Take one unit of fuel for a contraction under `rule`. Memory is
+    /// sampled where cells are made (closures, constructors, strings) and
+    /// before the first contraction of every fuel slice, so the stacks can
+    /// outgrow the limit by at most a slice's worth of frames before the run
+    /// stops.
+    #[inline(always)]
+    fn take_fuel<const METERED: bool>(&mut self, rule: Rule, meter: &Meter) -> Result<(), Halt> {
+        if METERED && !self.tank.take() {
+            self.next_slice(meter)?;
+        }
+        self.counts.add(rule);
+        Ok(())
+    }
+
+    /// Take fuel for two contractions in a row, under `first` then `second`.
+    #[inline(always)]
+    fn take_fuel2<const METERED: bool>(
+        &mut self,
+        first: Rule,
+        second: Rule,
+        meter: &Meter,
+    ) -> Result<(), Halt> {
+        if METERED && !self.tank.take2() {
+            self.take_fuel::<METERED>(first, meter)?;
+            return self.take_fuel::<METERED>(second, meter);
+        }
+        self.counts.add(first);
+        self.counts.add(second);
+        Ok(())
+    }
+
+    /// Whether `n` units of fuel are left (always, unmetered).
+    #[inline(always)]
+    fn has_fuel<const METERED: bool>(&self, n: u64) -> bool {
+        !METERED || self.tank.has(n)
+    }
+
+    /// The slow checks between fuel slices: cancellation, memory, and the
+    /// next slice of fuel (whose first unit pays for the pending contraction).
+    #[cold]
+    #[inline(never)]
+    fn next_slice(&mut self, meter: &Meter) -> Result<(), Halt> {
+        if self.cancel.as_ref().is_some_and(Cancel::is_cancelled) {
+            return Err(Halt::Cancelled);
+        }
+        self.check_memory::<true>(meter)?;
+        if !self.tank.refill() {
             return Err(Halt::OutOfFuel);
         }
-        self.fuel -= 1;
-        self.counts.add(rule);
-        self.check_memory(meter)
+        self.tank.take();
+        Ok(())
     }
 
     /// Contract the application of `function` to `argument`, its fuel
     /// already paid: enter the body with the callee's locals where the
     /// continuation's end (so a tail call reuses the caller's).
     #[inline]
-    fn call(&mut self, function: Val<'a>, argument: Val<'a>) -> Result<Control<'a>, Halt> {
+    ///
+    /// A curried call given its next argument at once (`f a b`, with `f`'s
+    /// body a `λ` and the continuation's top frame `□ b`) makes no closure
+    /// for `f a`: the bound values go to the operand stack under a
+    /// [`Frame::Partial`], and the function is entered when the last argument
+    /// arrives, its locals all the values bound along the way. The
+    /// contractions and their order are those of the plain calls.
+    fn call<const M: bool>(
+        &mut self,
+        function: Val<'a>,
+        argument: Val<'a>,
+        meter: &Meter,
+    ) -> Result<Control<'a>, Halt> {
         let Value::Fun(closure) = function else {
-            return Err(Halt::Error(EvalError::not_a_function(function.operand())));
+            return Err(Halt::error(EvalError::not_a_function(function.operand())));
         };
-        self.locals.truncate(self.floor);
+        if let Node::Lam(body) | Node::RecLam(body) = *closure.code.node() {
+            if matches!(body.node(), Node::Lam(_))
+                && matches!(self.kont.last(), Some(Frame::Argument { .. }))
+            {
+                let rec = matches!(closure.code.node(), Node::RecLam(_));
+                if rec {
+                    self.operands.push(Value::Fun(Rc::clone(&closure)));
+                }
+                let lam: &'a Term<'a> = closure.code;
+                return self.step::<M>(closure, lam, u32::from(rec), argument, meter);
+            }
+        }
+        cut(&mut self.locals, self.floor);
         let base = self.locals.len();
         let (body, depth) = match *closure.code.node() {
             Node::RecLam(body) => {
@@ -510,7 +694,7 @@ impl<'a> CekRun<'a> {
                 (body, 2)
             }
             Node::Lam(body) => (body, 1),
-            _ => return Err(Halt::Error(EvalError::not_a_function(Operand::Function))),
+            _ => return Err(Halt::error(EvalError::not_a_function(Operand::Function))),
         };
         self.locals.push(argument);
         self.env = Env {
@@ -519,6 +703,84 @@ impl<'a> CekRun<'a> {
             depth,
         };
         Ok(Control::Eval(body))
+    }
+
+    /// Go on with a curried call (see [`CekRun::call`]): `lam` (a `λ` or
+    /// `μλ` of `closure`'s chain) has just been applied to `value`, its fuel
+    /// paid, with the `count` values bound before on top of the operand
+    /// stack. While its body is a `λ` and the top frame is `□ b`, keep the
+    /// value and go on to `b` (taking an atom `b` at once); otherwise enter
+    /// the body with every bound value as a local, the first outermost. A
+    /// loop, however long the chain.
+    fn step<const M: bool>(
+        &mut self,
+        closure: Rc<Fun<'a>>,
+        mut lam: &'a Term<'a>,
+        mut count: u32,
+        mut value: Val<'a>,
+        meter: &Meter,
+    ) -> Result<Control<'a>, Halt> {
+        loop {
+            let (Node::Lam(body) | Node::RecLam(body)) = *lam.node() else {
+                return Err(Halt::error(EvalError::not_a_function(Operand::Function)));
+            };
+            if matches!(body.node(), Node::Lam(_))
+                && matches!(self.kont.last(), Some(Frame::Argument { .. }))
+            {
+                if let Some(Frame::Argument {
+                    argument,
+                    env,
+                    below,
+                }) = self.kont.pop()
+                {
+                    self.operands.push(value);
+                    count += 1;
+                    lam = body;
+                    self.floor = below;
+                    self.enter(env);
+                    match self.atom(argument)? {
+                        Some(next) if self.has_fuel::<M>(1) => {
+                            self.take_fuel::<M>(Rule::Beta, meter)?;
+                            value = next;
+                            continue;
+                        }
+                        _ => {
+                            self.kont.push(Frame::Partial {
+                                closure,
+                                lam,
+                                count,
+                            });
+                            return Ok(Control::Eval(argument));
+                        }
+                    }
+                }
+            }
+            cut(&mut self.locals, self.floor);
+            let base = self.locals.len();
+            let at = self.operands.len().saturating_sub(count as usize);
+            self.locals.extend(self.operands.drain(at..));
+            self.locals.push(value);
+            self.env = Env {
+                closure: Some(closure),
+                base,
+                depth: count + 1,
+            };
+            return Ok(Control::Eval(body));
+        }
+    }
+
+    /// Contract `op` applied to the operands from `at` on the operand stack
+    /// (their fuel paid), popping them. Every primitive not on an integer
+    /// shortcut comes here.
+    #[inline]
+    fn prim<const M: bool>(&mut self, op: Prim, at: usize, meter: &Meter) -> Result<Val<'a>, Halt> {
+        let result = apply_prim(op, self.operands.get(at..).unwrap_or(&[]));
+        self.operands.truncate(at);
+        let value = result.map_err(Halt::error)?;
+        if matches!(value, Value::Str(_)) {
+            self.check_memory::<M>(meter)?;
+        }
+        Ok(value)
     }
 
     /// The value of an atom (`None` if `term` is not one).
@@ -562,6 +824,19 @@ impl<'a> CekRun<'a> {
         Some((self.int(a)?, self.int(b)?))
     }
 
+    /// The value of `op(a, b)` on integer atoms, when it is an integer
+    /// operation that does not fail.
+    #[inline]
+    fn int_prim(&self, term: &Term<'a>) -> Option<Val<'a>> {
+        match *term.node() {
+            Node::Prim(op, &[a, b]) => {
+                let (x, y) = self.int_operands(a, b)?;
+                int_prim(op, x, y)
+            }
+            _ => None,
+        }
+    }
+
     /// The outcome of a condition `op(a, b)` that compares integer atoms.
     #[inline]
     fn int_test(&self, condition: &Term<'a>) -> Option<bool> {
@@ -577,7 +852,7 @@ impl<'a> CekRun<'a> {
     /// Run the machine until a value, an error, a limit, or the end of the
     /// fuel. On running out of fuel the control is saved (a value about to
     /// meet the top frame), so that execution can continue from there.
-    fn execute(&mut self, meter: &Meter) -> Result<Val<'a>, Halt> {
+    fn execute<const M: bool>(&mut self, meter: &Meter) -> Result<Val<'a>, Halt> {
         let Some(mut control) = self.control.take() else {
             return Err(Halt::OutOfFuel);
         };
@@ -588,7 +863,11 @@ impl<'a> CekRun<'a> {
                     Node::Int(n) => Control::Return(Value::Int(n)),
                     Node::Bool(b) => Control::Return(Value::Bool(b)),
                     Node::Str(_) => Control::Return(Value::Lit(term)),
-                    Node::Lam(_) | Node::RecLam(_) => Control::Return(self.close(term)?),
+                    Node::Lam(_) | Node::RecLam(_) => {
+                        let closure = self.close(term)?;
+                        self.check_memory::<M>(meter)?;
+                        Control::Return(closure)
+                    }
                     // Shortcuts for operands that are atoms (variables and
                     // literals), whose evaluation is free and cannot fail:
                     // the same contractions in the same order, without the
@@ -596,10 +875,22 @@ impl<'a> CekRun<'a> {
                     // contractions, so a pause still falls between frames.
                     Node::App(function, argument) => match self.atom(function)? {
                         Some(f) => match self.atom(argument)? {
-                            Some(a) if self.fuel > 0 => {
-                                self.take_fuel(call_rule(&f), meter)?;
-                                self.call(f, a)?
+                            Some(a) if self.has_fuel::<M>(1) => {
+                                self.take_fuel::<M>(call_rule(&f), meter)?;
+                                self.call::<M>(f, a, meter)?
                             }
+                            // `f (x - 1)`: an integer operation on atoms as
+                            // the argument, then the call.
+                            None if self.has_fuel::<M>(2) => match self.int_prim(argument) {
+                                Some(a) => {
+                                    self.take_fuel2::<M>(Rule::Prim, call_rule(&f), meter)?;
+                                    self.call::<M>(f, a, meter)?
+                                }
+                                None => {
+                                    self.kont.push(Frame::Call { function: f });
+                                    Control::Eval(argument)
+                                }
+                            },
                             _ => {
                                 self.kont.push(Frame::Call { function: f });
                                 Control::Eval(argument)
@@ -614,11 +905,10 @@ impl<'a> CekRun<'a> {
                             Control::Eval(function)
                         }
                     },
-                    Node::If(condition, yes, no) if self.fuel >= 2 => {
+                    Node::If(condition, yes, no) if self.has_fuel::<M>(2) => {
                         match self.int_test(condition) {
                             Some(holds) => {
-                                self.take_fuel(Rule::Prim, meter)?;
-                                self.take_fuel(Rule::If, meter)?;
+                                self.take_fuel2::<M>(Rule::Prim, Rule::If, meter)?;
                                 Control::Eval(if holds { yes } else { no })
                             }
                             None => {
@@ -632,18 +922,18 @@ impl<'a> CekRun<'a> {
                             }
                         }
                     }
-                    Node::Prim(op, operands @ &[a, b]) if self.fuel > 0 => {
+                    Node::Prim(op, operands @ &[a, b]) if self.has_fuel::<M>(1) => {
                         match self
                             .int_operands(a, b)
                             .and_then(|(x, y)| int_prim(op, x, y))
                         {
                             Some(value) => {
-                                self.take_fuel(Rule::Prim, meter)?;
+                                self.take_fuel::<M>(Rule::Prim, meter)?;
                                 Control::Return(value)
                             }
                             None => {
                                 self.push(|env, below| Frame::Operand {
-                                    op,
+                                    head: Head::Prim(op),
                                     operands,
                                     index: 0,
                                     env,
@@ -669,7 +959,7 @@ impl<'a> CekRun<'a> {
                     Node::Prim(op, operands) => match operands.first() {
                         Some(first) => {
                             self.push(|env, below| Frame::Operand {
-                                op,
+                                head: Head::Prim(op),
                                 operands,
                                 index: 0,
                                 env,
@@ -678,18 +968,18 @@ impl<'a> CekRun<'a> {
                             Control::Eval(first)
                         }
                         None => {
-                            if let Err(halt) = self.take_fuel(Rule::Prim, meter) {
+                            if let Err(halt) = self.take_fuel::<M>(Rule::Prim, meter) {
                                 self.control = Some(Control::Eval(term));
                                 return Err(halt);
                             }
-                            Control::Return(apply_prim(op, &[]).map_err(Halt::Error)?)
+                            Control::Return(self.prim::<M>(op, self.operands.len(), meter)?)
                         }
                     },
                     Node::Con(tag, fields) => match fields.first() {
                         Some(first) => {
-                            self.push(|env, below| Frame::Field {
-                                tag,
-                                fields,
+                            self.push(|env, below| Frame::Operand {
+                                head: Head::Con(tag),
+                                operands: fields,
                                 index: 0,
                                 env,
                                 below,
@@ -713,16 +1003,38 @@ impl<'a> CekRun<'a> {
                     let rule = match self.kont.last() {
                         None => return Ok(value),
                         Some(Frame::Call { function }) => Some(call_rule(function)),
+                        Some(Frame::Partial { .. }) => Some(Rule::Beta),
                         Some(Frame::Let { .. }) => Some(Rule::Let),
                         Some(Frame::If { .. }) => Some(Rule::If),
                         Some(Frame::Case { .. }) => Some(Rule::Case),
                         Some(Frame::Operand {
-                            operands, index, ..
-                        }) if index + 1 == operands.len() => Some(Rule::Prim),
-                        Some(_) => None,
+                            head,
+                            operands,
+                            index,
+                            env,
+                            ..
+                        }) => match operands.get(index + 1) {
+                            // Not the last operand: move the hole along,
+                            // keeping the frame.
+                            Some(&next) => {
+                                let env = env.clone();
+                                if let Some(Frame::Operand { index, .. }) = self.kont.last_mut() {
+                                    *index += 1;
+                                }
+                                self.operands.push(value);
+                                self.enter(env);
+                                control = Control::Eval(next);
+                                continue;
+                            }
+                            None => match head {
+                                Head::Prim(_) => Some(Rule::Prim),
+                                Head::Con(_) => None,
+                            },
+                        },
+                        Some(Frame::Argument { .. }) => None,
                     };
                     if let Some(rule) = rule {
-                        if let Err(halt) = self.take_fuel(rule, meter) {
+                        if let Err(halt) = self.take_fuel::<M>(rule, meter) {
                             self.control = Some(Control::Return(value));
                             return Err(halt);
                         }
@@ -730,7 +1042,7 @@ impl<'a> CekRun<'a> {
                     let Some(frame) = self.kont.pop() else {
                         return Ok(value);
                     };
-                    self.apply(frame, value, meter)?
+                    self.apply::<M>(frame, value, meter)?
                 }
             };
         }
@@ -739,7 +1051,7 @@ impl<'a> CekRun<'a> {
     /// Hand `value` to `frame`, whose contraction (if it is one) has been
     /// paid for.
     #[inline]
-    fn apply(
+    fn apply<const M: bool>(
         &mut self,
         frame: Frame<'a>,
         value: Val<'a>,
@@ -753,10 +1065,24 @@ impl<'a> CekRun<'a> {
             } => {
                 self.floor = below;
                 self.enter(env);
-                self.kont.push(Frame::Call { function: value });
-                Control::Eval(argument)
+                match self.atom(argument)? {
+                    // An atom argument is taken at once.
+                    Some(a) if self.has_fuel::<M>(1) => {
+                        self.take_fuel::<M>(call_rule(&value), meter)?;
+                        self.call::<M>(value, a, meter)?
+                    }
+                    _ => {
+                        self.kont.push(Frame::Call { function: value });
+                        Control::Eval(argument)
+                    }
+                }
             }
-            Frame::Call { function } => self.call(function, value)?,
+            Frame::Call { function } => self.call::<M>(function, value, meter)?,
+            Frame::Partial {
+                closure,
+                lam,
+                count,
+            } => self.step::<M>(closure, lam, count, value, meter)?,
             Frame::Let { body, env, below } => {
                 self.floor = below;
                 self.enter(env);
@@ -771,66 +1097,41 @@ impl<'a> CekRun<'a> {
                 below,
             } => {
                 let Value::Bool(b) = value else {
-                    return Err(Halt::Error(EvalError::not_a_boolean(value.operand())));
+                    return Err(Halt::error(EvalError::not_a_boolean(value.operand())));
                 };
                 self.floor = below;
                 self.enter(env);
                 Control::Eval(if b { yes } else { no })
             }
             Frame::Operand {
-                op,
-                operands,
-                index,
-                env,
-                below,
+                head, index, below, ..
             } => {
-                if let Some(next) = operands.get(index + 1) {
-                    self.operands.push(value);
-                    self.enter(env.clone());
-                    self.kont.push(Frame::Operand {
-                        op,
-                        operands,
-                        index: index + 1,
-                        env,
-                        below,
-                    });
-                    Control::Eval(next)
-                } else {
-                    self.floor = below;
-                    let at = self.operands.len().saturating_sub(index);
-                    self.operands.push(value);
-                    let result = apply_prim(op, &self.operands[at..]);
-                    self.operands.truncate(at);
-                    Control::Return(result.map_err(Halt::Error)?)
-                }
-            }
-            Frame::Field {
-                tag,
-                fields,
-                index,
-                env,
-                below,
-            } => {
-                if let Some(next) = fields.get(index + 1) {
-                    self.operands.push(value);
-                    self.enter(env.clone());
-                    self.kont.push(Frame::Field {
-                        tag,
-                        fields,
-                        index: index + 1,
-                        env,
-                        below,
-                    });
-                    Control::Eval(next)
-                } else {
-                    // A constructor of values is a value: building it is free.
-                    self.floor = below;
-                    let at = self.operands.len().saturating_sub(index);
-                    let mut values: Values<'a, &'a Term<'a>> = self.operands.drain(at..).collect();
-                    values.push(value);
-                    let cell = Value::Con(ConCell::new(tag, values));
-                    self.check_memory(meter)?;
-                    Control::Return(cell)
+                // The last operand: the others are on the operand stack.
+                self.floor = below;
+                let at = self.operands.len().saturating_sub(index);
+                match head {
+                    Head::Prim(op) => {
+                        // A binary operation on integers: no trip through
+                        // the operand stack.
+                        if let (1, Some(&Value::Int(x)), Value::Int(y)) =
+                            (index, self.operands.last(), &value)
+                        {
+                            if let Some(result) = int_prim(op, x, *y) {
+                                self.operands.truncate(at);
+                                return Ok(Control::Return(result));
+                            }
+                        }
+                        self.operands.push(value);
+                        Control::Return(self.prim::<M>(op, at, meter)?)
+                    }
+                    Head::Con(tag) => {
+                        // A constructor of values is a value: building it is free.
+                        self.operands.push(value);
+                        let values: Values<'a, &'a Term<'a>> = self.operands.drain(at..).collect();
+                        let cell = Value::Con(ConCell::new(tag, values));
+                        self.check_memory::<M>(meter)?;
+                        Control::Return(cell)
+                    }
                 }
             }
             Frame::Case {
@@ -854,7 +1155,7 @@ impl<'a> CekRun<'a> {
                 }
                 match default {
                     Some(default) => Control::Eval(default),
-                    None => return Err(Halt::Error(EvalError::no_matching_case(value.operand()))),
+                    None => return Err(Halt::error(EvalError::no_matching_case(value.operand()))),
                 }
             }
         })
@@ -954,6 +1255,102 @@ mod tests {
         }
         // A frame for the condition's operands and the if, two locals.
         assert!(deepest <= 2, "deepest {deepest}");
+    }
+
+    #[test]
+    fn a_cancelled_handle_stops_a_divergent_loop() {
+        let arena = Arena::new();
+        // (μf. λn. f n) 0 never ends.
+        let spin = arena.rec_lam(arena.app(arena.var(1), arena.var(0)));
+        let program = Program::new(arena.app(spin, arena.int(0))).unwrap();
+        let cancel = Cancel::new();
+        let limits = Limits::default()
+            .with_fuel(u64::MAX)
+            .with_cancel(cancel.clone());
+        let runner = std::thread::spawn(move || {
+            let arena = Arena::new();
+            let spin = arena.rec_lam(arena.app(arena.var(1), arena.var(0)));
+            let program = Program::new(arena.app(spin, arena.int(0))).unwrap();
+            let report = Cek::new().run(&program, &limits, &arena);
+            (report.outcome.name(), report.counts.total())
+        });
+        std::thread::sleep(std::time::Duration::from_millis(20));
+        cancel.cancel();
+        let (outcome, contractions) = runner.join().unwrap();
+        assert_eq!(outcome, "limit");
+        assert!(contractions > 0);
+        // Cancelled before it starts: polled before the first contraction.
+        let limits = Limits::default().with_cancel(cancel);
+        let report = Cek::new().run(&program, &limits, &arena);
+        assert_eq!(report.outcome, Outcome::Limit(LimitError::cancelled()));
+        assert_eq!(report.counts.total(), 0);
+    }
+
+    #[test]
+    fn a_paused_run_reports_cancelled_on_resume() {
+        let arena = Arena::new();
+        let program = Program::new(count_down(&arena, 1_000_000)).unwrap();
+        let cancel = Cancel::new();
+        let limits = Limits::default().with_fuel(0).with_cancel(cancel.clone());
+        let mut run = Cek::start(&program, &limits);
+        assert_eq!(run.resume(5_000, &arena).outcome, Outcome::OutOfFuel);
+        assert_eq!(run.counts().total(), 5_000);
+        cancel.cancel();
+        let report = run.resume(5_000, &arena);
+        assert_eq!(report.outcome, Outcome::Limit(LimitError::cancelled()));
+        assert_eq!(report.counts.total(), 5_000);
+        assert!(run.is_finished());
+    }
+
+    #[test]
+    fn stacks_are_kept_across_runs_and_runs_agree() {
+        let arena = Arena::new();
+        let program = Program::new(tak(&arena, 12, 8, 4)).unwrap();
+        let mut cek = Cek::new();
+        let first = cek.run(&program, &Limits::default(), &arena);
+        let kept = cek.scratch.kont.as_ptr();
+        assert!(cek.scratch.kont.capacity() > 0);
+        let second = cek.run(&program, &Limits::default(), &arena);
+        assert_eq!(first, second);
+        assert_eq!(cek.scratch.kont.as_ptr(), kept);
+    }
+
+    #[test]
+    fn without_accounting_gives_the_same_report() {
+        let arena = Arena::new();
+        let program = Program::new(tak(&arena, 12, 8, 4)).unwrap();
+        let metered = Cek::new().run(&program, &Limits::default(), &arena);
+        let unmetered = Cek::without_accounting().run(&program, &Limits::default(), &arena);
+        assert_eq!(metered.outcome, Outcome::Value(arena.int(5)));
+        assert_eq!(metered, unmetered);
+    }
+
+    #[test]
+    fn curried_calls_count_each_argument_and_partial_applications_escape() {
+        let arena = Arena::new();
+        let sub = |a, b| arena.prim(Prim::Sub, &[a, b]);
+        // λa. λb. λc. a - b - c
+        let f = arena.lam(arena.lam(arena.lam(sub(sub(arena.var(2), arena.var(1)), arena.var(0)))));
+        let app = |f, a| arena.app(f, a);
+        let whole = app(app(app(f, arena.int(10)), arena.int(3)), arena.int(2));
+        let report = Cek::new().run(&Program::new(whole).unwrap(), &Limits::default(), &arena);
+        assert_eq!(report.outcome, Outcome::Value(arena.int(5)));
+        assert_eq!(report.counts.get(Rule::Beta), 3);
+        assert_eq!(report.counts.get(Rule::Prim), 2);
+        // Given two of its three arguments, it is a closure over both.
+        let partial = app(app(f, arena.int(10)), arena.int(3));
+        let report = Cek::new().run(&Program::new(partial).unwrap(), &Limits::default(), &arena);
+        let expected = arena.lam(sub(sub(arena.int(10), arena.int(3)), arena.var(0)));
+        assert_eq!(report.outcome, Outcome::Value(expected));
+        assert_eq!(report.counts.get(Rule::Beta), 2);
+        // Paused between the arguments, it ends the same way.
+        let program = Program::new(whole).unwrap();
+        let mut run = Cek::start(&program, &Limits::default().with_fuel(1));
+        assert_eq!(run.resume(0, &arena).outcome, Outcome::OutOfFuel);
+        assert_eq!(run.resume(1, &arena).outcome, Outcome::OutOfFuel);
+        let report = run.resume(3, &arena);
+        assert_eq!(report.outcome, Outcome::Value(arena.int(5)));
+        assert_eq!(report.counts.total(), 5);
     }
 
     #[test]

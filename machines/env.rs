@@ -13,19 +13,18 @@
 
 use std::rc::Rc;
 
-use smallvec::SmallVec;
-
 use crate::value::{
-    apply_prim, free_variable, int_prim, int_test, read_back, Closure, Code, ConCell, Meter, Value,
-    Values,
+    apply_prim, cut, free_variable, int_prim, int_test, read_back, recycle, Closure, Code, ConCell,
+    Meter, Tank, Value, Values, KEEP_STACK_BYTES,
 };
 use crate::{
     Arena, Counts, ErrorKind, EvalError, LimitError, Limits, Machine, Node, Outcome, Prim, Program,
     Report, Rule, Term,
 };
 
-/// The environment-based evaluator. Holds no program state between runs;
-/// it records the peak memory of its last run.
+/// The environment-based evaluator. Holds no program state between runs:
+/// it keeps its emptied stacks for the next run (so a small program run many
+/// times allocates little) and records the peak memory of its last run.
 ///
 /// # Examples
 ///
@@ -41,9 +40,35 @@ use crate::{
 /// assert_eq!(report.outcome, Outcome::Value(arena.int(42)));
 /// assert_eq!(report.counts.total(), 4); // let, beta, beta, prim
 /// ```
-#[derive(Debug, Default)]
+#[derive(Debug)]
 pub struct Env {
     peak: usize,
+    /// Whether fuel, memory and cancellation are checked (always, except in
+    /// the benchmark-only [`Env::without_accounting`]).
+    metered: bool,
+    scratch: Scratch,
+    code_scratch: CodeScratch,
+}
+
+impl Default for Env {
+    fn default() -> Self {
+        Env {
+            peak: 0,
+            metered: true,
+            scratch: Scratch::default(),
+            code_scratch: CodeScratch::default(),
+        }
+    }
+}
+
+/// The emptied stacks of the last run, kept for the next. Their element types
+/// borrow a program, so they are kept as vectors of a same-sized stand-in and
+/// [`recycle`]d.
+#[derive(Debug, Default)]
+struct Scratch {
+    stack: Vec<[usize; 2]>,
+    tasks: Vec<Task>,
+    callers: Vec<[usize; 2]>,
 }
 
 impl Env {
@@ -58,8 +83,34 @@ impl Env {
         Env::default()
     }
 
+    /// **For benchmarks only.** An evaluator whose runs skip every fuel,
+    /// memory and cancellation check, so a benchmark can measure what the
+    /// accounting costs. It computes the same values and counts, but it
+    /// ignores [`Limits`] entirely: a divergent program runs forever and a
+    /// growing one until allocation fails. Never use it on untrusted input.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::machines::env::Env;
+    /// use orrery::{Arena, Limits, Machine, Outcome, Program};
+    /// let arena = Arena::new();
+    /// let program = Program::new(arena.app(arena.lam(arena.var(0)), arena.int(5))).unwrap();
+    /// let report = Env::without_accounting().run(&program, &Limits::default(), &arena);
+    /// assert_eq!(report.outcome, Outcome::Value(arena.int(5)));
+    /// ```
+    #[doc(hidden)]
+    pub fn without_accounting() -> Self {
+        Env {
+            metered: false,
+            ..Env::default()
+        }
+    }
+
     /// The most runtime memory the last run held at once, in bytes, sampled
-    /// at every contraction and every constructor built: the compiled code,
+    /// whenever it makes a cell (a closure, a constructor cell, a string) and
+    /// before the first contraction of every fuel slice (at least every
+    /// [`CANCEL_POLL_INTERVAL`](crate::CANCEL_POLL_INTERVAL) contractions): the compiled code,
     /// the value and task stacks (by capacity), and the cells the run made
     /// and still held (closures, constructor cells, strings). This is the
     /// quantity [`Limits::memory`] bounds.
@@ -91,7 +142,7 @@ impl Machine for Env {
         limits: &Limits,
         out: &'o Arena,
     ) -> Report<'o> {
-        let compiled = match compile(program.term()) {
+        let compiled = match compile_with(program.term(), &mut self.code_scratch) {
             Ok(compiled) => compiled,
             Err(index) => {
                 return Report {
@@ -100,32 +151,27 @@ impl Machine for Env {
                 }
             }
         };
-        let meter = Meter::holding(0);
-        let mut run = Run {
-            code: &compiled,
-            stack: Vec::new(),
-            tasks: Vec::new(),
-            callers: Vec::new(),
-            base: 0,
-            closure: None,
-            fuel: limits.fuel,
-            counts: Counts::default(),
-            memory: limits.memory,
-            code_bytes: compiled.bytes(),
-            peak: 0,
-            meter,
+        let scratch = std::mem::take(&mut self.scratch);
+        let (result, counts, peak, scratch) = if self.metered {
+            Run::<true>::evaluate(&compiled, limits, scratch)
+        } else {
+            Run::<false>::evaluate(&compiled, limits, scratch)
         };
-        let outcome = match run.execute() {
-            Ok(value) => Outcome::Value(read_back(&value, out)),
-            Err(Halt::Error(error)) => Outcome::Error(error),
-            Err(Halt::OutOfFuel) => Outcome::OutOfFuel,
-            Err(Halt::Memory) => Outcome::Limit(LimitError::memory(limits.memory)),
+        self.peak = peak;
+        self.scratch = scratch;
+        // A block, so the run's value is dropped before its code is kept.
+        let outcome = {
+            let result = result;
+            match result {
+                Ok(value) => Outcome::Value(read_back(&value, out)),
+                Err(Halt::Error(error)) => Outcome::Error(*error),
+                Err(Halt::OutOfFuel) => Outcome::OutOfFuel,
+                Err(Halt::Memory) => Outcome::Limit(LimitError::memory(limits.memory)),
+                Err(Halt::Cancelled) => Outcome::Limit(LimitError::cancelled()),
+            }
         };
-        self.peak = run.peak;
-        Report {
-            outcome,
-            counts: run.counts,
-        }
+        self.code_scratch.keep(compiled);
+        Report { outcome, counts }
     }
 }
 
@@ -177,6 +223,14 @@ enum Instr<'a> {
     AppAtomFunction {
         function: Atom<'a>,
         argument: CodeId,
+        tail: bool,
+    },
+    /// An application to an atom: the argument is read when the function's
+    /// value is ready (reading an atom is free and cannot fail, and nothing
+    /// the function does changes it).
+    AppAtomArgument {
+        function: CodeId,
+        argument: Atom<'a>,
         tail: bool,
     },
     /// An application of an atom to an atom.
@@ -313,6 +367,7 @@ impl<'a> Compiled<'a> {
 }
 
 /// The function being compiled: its captured free indices and frame size.
+#[derive(Debug)]
 struct Scope {
     captures: Vec<u32>,
     frame: u32,
@@ -339,26 +394,68 @@ impl Scope {
 ///
 /// The de Bruijn index of a variable that escapes every binder (a validated
 /// program has none).
+#[cfg(test)]
 fn compile<'a>(root: &'a Term<'a>) -> Result<Compiled<'a>, u32> {
-    enum Job<'a> {
-        Visit(&'a Term<'a>, u32, bool),
-        Build(&'a Term<'a>, u32, bool),
+    compile_with(root, &mut CodeScratch::default())
+}
+
+/// The compiler's work: a term to visit (at a depth, in tail position or
+/// not), or a node to build from its compiled children.
+enum Job<'a> {
+    Visit(&'a Term<'a>, u32, bool),
+    Build(&'a Term<'a>, u32, bool),
+}
+
+/// The compiler's vectors, emptied, kept between runs (see [`Scratch`]).
+#[derive(Debug, Default)]
+struct CodeScratch {
+    code: Vec<Instr<'static>>,
+    lists: Vec<CodeId>,
+    arms: Vec<CaseArm<'static>>,
+    funs: Vec<Function<'static>>,
+    jobs: Vec<Job<'static>>,
+    done: Vec<CodeId>,
+    scopes: Vec<Scope>,
+}
+
+impl std::fmt::Debug for Job<'_> {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str("Job")
     }
+}
+
+impl CodeScratch {
+    /// Keep `compiled`'s vectors for the next compile.
+    fn keep(&mut self, compiled: Compiled<'_>) {
+        self.code = recycle(compiled.code);
+        self.lists = compiled.lists;
+        self.lists.clear();
+        self.arms = recycle(compiled.arms);
+        self.funs = recycle(compiled.funs);
+    }
+}
+
+/// [`compile`], reusing the vectors of `scratch`.
+fn compile_with<'a>(root: &'a Term<'a>, scratch: &mut CodeScratch) -> Result<Compiled<'a>, u32> {
     let mut c = Compiled {
-        code: Vec::new(),
-        lists: Vec::new(),
-        arms: Vec::new(),
-        funs: Vec::new(),
+        code: recycle(std::mem::take(&mut scratch.code)),
+        lists: std::mem::take(&mut scratch.lists),
+        arms: recycle(std::mem::take(&mut scratch.arms)),
+        funs: recycle(std::mem::take(&mut scratch.funs)),
         root: 0,
         frame: 0,
     };
     // The top level is compiled like a function body with no captures.
-    let mut scopes: Vec<Scope> = vec![Scope {
+    let mut scopes = std::mem::take(&mut scratch.scopes);
+    scopes.clear();
+    scopes.push(Scope {
         captures: Vec::new(),
         frame: 0,
-    }];
-    let mut jobs = vec![Job::Visit(root, 0, true)];
-    let mut done: Vec<CodeId> = Vec::new();
+    });
+    let mut jobs: Vec<Job<'a>> = recycle(std::mem::take(&mut scratch.jobs));
+    jobs.push(Job::Visit(root, 0, true));
+    let mut done = std::mem::take(&mut scratch.done);
+    done.clear();
     let emit = |c: &mut Compiled<'a>, instr| {
         c.code.push(instr);
         u32::try_from(c.code.len() - 1).unwrap_or(u32::MAX)
@@ -487,6 +584,11 @@ fn compile<'a>(root: &'a Term<'a>) -> Result<Compiled<'a>, u32> {
                                     argument,
                                     tail,
                                 },
+                                (None, Some(argument)) => Instr::AppAtomArgument {
+                                    function,
+                                    argument,
+                                    tail,
+                                },
                                 _ => Instr::App {
                                     function,
                                     argument,
@@ -516,14 +618,13 @@ fn compile<'a>(root: &'a Term<'a>) -> Result<Compiled<'a>, u32> {
                         }
                         Node::Prim(op, operands) => {
                             let at = done.len().saturating_sub(operands.len());
-                            let atoms: SmallVec<[Option<Atom<'a>>; 2]> =
-                                done[at..].iter().map(|&id| c.atom(id)).collect();
-                            match atoms[..] {
-                                [Some(a)] => {
+                            let atom = |i: usize| done.get(at + i).and_then(|&id| c.atom(id));
+                            match (operands.len(), atom(0), atom(1)) {
+                                (1, Some(a), _) => {
                                     done.truncate(at);
                                     Instr::Prim1 { op, a }
                                 }
-                                [Some(a), Some(b)] => {
+                                (2, Some(a), Some(b)) => {
                                     done.truncate(at);
                                     Instr::Prim2 { op, a, b }
                                 }
@@ -569,6 +670,9 @@ fn compile<'a>(root: &'a Term<'a>) -> Result<Compiled<'a>, u32> {
     }
     c.root = done.pop().unwrap_or(0);
     c.frame = scopes.first().map_or(0, |s| s.frame);
+    scratch.jobs = recycle(jobs);
+    scratch.done = done;
+    scratch.scopes = scopes;
     Ok(c)
 }
 
@@ -603,6 +707,9 @@ impl Task {
     /// A call has returned: pop its frame from under the value on top and
     /// make the caller's current again (the caller is on `Run::callers`).
     const RETURN: u64 = 8;
+    /// `Instr::AppAtomArgument`: apply the function on top of the stack to
+    /// the instruction's atom.
+    const CALL_ATOM: u64 = 9;
 
     #[inline]
     fn new(kind: u64, code: CodeId) -> Task {
@@ -627,14 +734,23 @@ struct Caller<'a, 'c> {
 }
 
 /// Why [`Run::execute`] stopped without a value.
+/// Boxed errors keep `Result<_, Halt>` small on the hot path.
 enum Halt {
-    Error(EvalError),
+    Error(Box<EvalError>),
     OutOfFuel,
     Memory,
+    Cancelled,
+}
+
+impl Halt {
+    #[cold]
+    fn error(error: EvalError) -> Halt {
+        Halt::Error(Box::new(error))
+    }
 }
 
 /// The state of one run.
-struct Run<'a, 'c> {
+struct Run<'a, 'c, 'l, const METERED: bool> {
     code: &'c Compiled<'a>,
     /// Frames (each `frame` slots, from `base`) and intermediate values.
     stack: Vec<Val<'a, 'c>>,
@@ -644,9 +760,10 @@ struct Run<'a, 'c> {
     base: usize,
     /// The current function's closure (`None` at the top level).
     closure: Option<Rc<Fun<'a, 'c>>>,
-    fuel: u64,
+    tank: Tank,
     counts: Counts,
     memory: usize,
+    limits: &'l Limits,
     code_bytes: usize,
     peak: usize,
     meter: Meter,
@@ -654,16 +771,61 @@ struct Run<'a, 'c> {
 
 /// The evaluator's own invariants were broken; never expected.
 fn inconsistent() -> Halt {
-    Halt::Error(EvalError::new(
+    Halt::error(EvalError::new(
         ErrorKind::TypeMismatch,
         "the evaluator's value stack is inconsistent",
     ))
 }
 
-impl<'a, 'c> Run<'a, 'c> {
+impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
+    /// Run `code` to the end with the stacks of `scratch`: the result, the
+    /// counts, the peak memory, and the emptied stacks to keep.
+    fn evaluate(
+        code: &'c Compiled<'a>,
+        limits: &'l Limits,
+        scratch: Scratch,
+    ) -> (Result<Val<'a, 'c>, Halt>, Counts, usize, Scratch) {
+        let mut run = Run::<METERED> {
+            code,
+            stack: recycle(scratch.stack),
+            tasks: scratch.tasks,
+            callers: recycle(scratch.callers),
+            base: 0,
+            closure: None,
+            tank: Tank::new(limits.fuel),
+            counts: Counts::default(),
+            memory: limits.memory,
+            limits,
+            code_bytes: code.bytes(),
+            peak: 0,
+            meter: Meter::holding(0),
+        };
+        run.tasks.clear();
+        let result = run.execute();
+        // Drop what the run still holds before its stacks are kept.
+        run.closure = None;
+        run.stack.clear();
+        run.callers.clear();
+        run.tasks.clear();
+        let tasks = if run.tasks.capacity() * std::mem::size_of::<Task>() > KEEP_STACK_BYTES {
+            Vec::new()
+        } else {
+            run.tasks
+        };
+        let scratch = Scratch {
+            stack: recycle(run.stack),
+            tasks,
+            callers: recycle(run.callers),
+        };
+        (result, run.counts, run.peak, scratch)
+    }
+
     /// Sample the memory in use; `Err` if it is over the limit.
     #[inline]
     fn check_memory(&mut self) -> Result<(), Halt> {
+        if !METERED {
+            return Ok(());
+        }
         let held = self.meter.cells()
             + self.code_bytes
             + self.stack.capacity() * std::mem::size_of::<Val<'_, '_>>()
@@ -677,15 +839,45 @@ impl<'a, 'c> Run<'a, 'c> {
         }
     }
 
-    /// Take one unit of fuel for a contraction under `rule`. (Memory is
-    /// sampled where it can grow: calls, closures, constructors, strings.)
-    #[inline]
+    /// Take one unit of fuel for a contraction under `rule`. Memory is
+    /// sampled where cells are made (closures, constructors, strings) and,
+    /// with cancellation, before the first contraction of every fuel slice,
+    /// so the stacks can outgrow the limit by at most a slice's worth of
+    /// frames before the run stops.
+    #[inline(always)]
     fn take_fuel(&mut self, rule: Rule) -> Result<(), Halt> {
-        if self.fuel == 0 {
+        if METERED && !self.tank.take() {
+            self.next_slice()?;
+        }
+        self.counts.add(rule);
+        Ok(())
+    }
+
+    /// Take fuel for two contractions in a row, under `first` then `second`.
+    #[inline(always)]
+    fn take_fuel2(&mut self, first: Rule, second: Rule) -> Result<(), Halt> {
+        if METERED && !self.tank.take2() {
+            self.take_fuel(first)?;
+            return self.take_fuel(second);
+        }
+        self.counts.add(first);
+        self.counts.add(second);
+        Ok(())
+    }
+
+    /// The slow checks between fuel slices: cancellation, memory, and the
+    /// next slice of fuel (whose first unit pays for the pending contraction).
+    #[cold]
+    #[inline(never)]
+    fn next_slice(&mut self) -> Result<(), Halt> {
+        if self.limits.is_cancelled() {
+            return Err(Halt::Cancelled);
+        }
+        self.check_memory()?;
+        if !self.tank.refill() {
             return Err(Halt::OutOfFuel);
         }
-        self.fuel -= 1;
-        self.counts.add(rule);
+        self.tank.take();
         Ok(())
     }
 
@@ -731,6 +923,13 @@ impl<'a, 'c> Run<'a, 'c> {
         }
     }
 
+    /// `op(a, b)` on integer atoms, when it is an integer operation that
+    /// does not fail (its fuel not taken).
+    #[inline]
+    fn int_prim(&self, op: Prim, a: Atom<'a>, b: Atom<'a>) -> Option<Val<'a, 'c>> {
+        int_prim(op, self.int(a)?, self.int(b)?)
+    }
+
     /// Contract `op(a, b)` on atoms.
     #[inline]
     fn prim2(&mut self, op: Prim, a: Atom<'a>, b: Atom<'a>) -> Result<Val<'a, 'c>, Halt> {
@@ -749,7 +948,7 @@ impl<'a, 'c> Run<'a, 'c> {
     /// A primitive's result; a new string is sampled against the limit.
     #[inline]
     fn prim_result(&mut self, result: Result<Val<'a, 'c>, EvalError>) -> Result<Val<'a, 'c>, Halt> {
-        let value = result.map_err(Halt::Error)?;
+        let value = result.map_err(Halt::error)?;
         if matches!(value, Value::Str(_)) {
             self.check_memory()?;
         }
@@ -758,14 +957,18 @@ impl<'a, 'c> Run<'a, 'c> {
 
     /// Contract the application of `function` to `argument` (both already
     /// values): enter the function's body in a new frame, which replaces the
-    /// caller's when the call is in tail position. Returns the body's code.
+    /// caller's when the call is in tail position, and return the body's
+    /// code. A body that is itself a `λ` (a curried function given its first
+    /// arguments) is not entered: its closure is made at once from the
+    /// callee's captured values and the argument, and pushed as the call's
+    /// value (`None`).
     #[inline]
     fn call(
         &mut self,
         function: Val<'a, 'c>,
         argument: Val<'a, 'c>,
         tail: bool,
-    ) -> Result<CodeId, Halt> {
+    ) -> Result<Option<CodeId>, Halt> {
         let rule = match &function {
             Value::Fun(f) if f.code.rec => Rule::BetaRec,
             _ => Rule::Beta,
@@ -775,11 +978,47 @@ impl<'a, 'c> Run<'a, 'c> {
             Value::Fun(closure) => closure,
             // The argument was evaluated before the callee was found
             // wanting, as in the stepper.
-            callee => return Err(Halt::Error(EvalError::not_a_function(callee.operand()))),
+            callee => return Err(Halt::error(EvalError::not_a_function(callee.operand()))),
         };
         let code: &'c Function<'a> = closure.code;
+        if let Some(&Instr::Closure(index)) = self.code.code.get(code.body as usize) {
+            let inner = self
+                .code
+                .funs
+                .get(index as usize)
+                .ok_or_else(inconsistent)?;
+            // The callee's frame would hold itself (if recursive), then the
+            // argument; nothing else is bound before its body.
+            let mut captured = Values::with_capacity(inner.fetch.len());
+            for fetch in &inner.fetch {
+                let value = match (*fetch, code.rec) {
+                    (Fetch::Local(0), true) => Value::Fun(Rc::clone(&closure)),
+                    (Fetch::Local(s), rec) if s == u32::from(rec) => argument.clone(),
+                    (Fetch::Free(slot), _) => closure
+                        .captured
+                        .get(slot as usize)
+                        .cloned()
+                        .ok_or_else(inconsistent)?,
+                    _ => return Err(inconsistent()),
+                };
+                captured.push(value);
+            }
+            // A call that holds the callee's only reference (the usual
+            // case for the middle of a curried call) reuses its cell.
+            let mut closure = closure;
+            let made = match Rc::get_mut(&mut closure) {
+                Some(cell) => {
+                    cell.reuse(inner, captured);
+                    closure
+                }
+                None => Closure::new(inner, captured),
+            };
+            self.stack.push(Value::Fun(made));
+            self.check_memory()?;
+            return Ok(None);
+        }
         if tail {
-            self.stack.truncate(self.base);
+            cut(&mut self.stack, self.base);
         } else {
             self.callers.push(Caller {
                 base: self.base,
@@ -792,11 +1031,11 @@ impl<'a, 'c> Run<'a, 'c> {
             self.stack.push(Value::Fun(Rc::clone(&closure)));
         }
         self.stack.push(argument);
-        self.stack
-            .resize(self.base + code.frame as usize, Value::Int(0));
+        for _ in self.stack.len()..self.base + code.frame as usize {
+            self.stack.push(Value::Int(0));
+        }
         self.closure = Some(closure);
-        self.check_memory()?;
-        Ok(code.body)
+        Ok(Some(code.body))
     }
 
     #[inline]
@@ -882,11 +1121,30 @@ impl<'a, 'c> Run<'a, 'c> {
                         self.tasks.push(Task::new(Task::EVAL, argument));
                         pc = function;
                     }
+                    Instr::AppAtomArgument { function, .. } => {
+                        self.tasks.push(Task::new(Task::CALL_ATOM, pc));
+                        pc = function;
+                    }
                     Instr::AppAtomFunction {
                         function,
                         argument,
                         tail,
                     } => {
+                        // `f (x - 1)`: an integer operation on atoms as the
+                        // argument, then the call, with no task between.
+                        if let Some(&Instr::Prim2 { op, a, b }) = code.code.get(argument as usize) {
+                            if let Some(v) = self.int_prim(op, a, b) {
+                                self.take_fuel(Rule::Prim)?;
+                                let f = self.atom(function).ok_or_else(inconsistent)?;
+                                match self.call(f, v, tail)? {
+                                    Some(body) => {
+                                        pc = body;
+                                        continue;
+                                    }
+                                    None => break,
+                                }
+                            }
+                        }
                         self.push_atom(function)?;
                         let call = if tail { Task::TAIL_CALL } else { Task::CALL };
                         self.tasks.push(Task::new(call, 0));
@@ -900,13 +1158,15 @@ impl<'a, 'c> Run<'a, 'c> {
                         let (Some(f), Some(a)) = (self.atom(function), self.atom(argument)) else {
                             return Err(inconsistent());
                         };
-                        pc = self.call(f, a, tail)?;
+                        match self.call(f, a, tail)? {
+                            Some(body) => pc = body,
+                            None => break,
+                        }
                     }
                     Instr::IfPrim2 { op, a, b, yes, no } => {
                         if let (Some(x), Some(y)) = (self.int(a), self.int(b)) {
                             if let Some(holds) = int_test(op, x, y) {
-                                self.take_fuel(Rule::Prim)?;
-                                self.take_fuel(Rule::If)?;
+                                self.take_fuel2(Rule::Prim, Rule::If)?;
                                 pc = if holds { yes } else { no };
                                 continue;
                             }
@@ -916,7 +1176,7 @@ impl<'a, 'c> Run<'a, 'c> {
                         match condition {
                             Value::Bool(b) => pc = if b { yes } else { no },
                             other => {
-                                return Err(Halt::Error(EvalError::not_a_boolean(other.operand())))
+                                return Err(Halt::error(EvalError::not_a_boolean(other.operand())))
                             }
                         }
                     }
@@ -985,12 +1245,31 @@ impl<'a, 'c> Run<'a, 'c> {
                     kind @ (Task::CALL | Task::TAIL_CALL) => {
                         let argument = self.pop()?;
                         let function = self.pop()?;
-                        pc = self.call(function, argument, kind == Task::TAIL_CALL)?;
-                        continue 'eval;
+                        if let Some(body) =
+                            self.call(function, argument, kind == Task::TAIL_CALL)?
+                        {
+                            pc = body;
+                            continue 'eval;
+                        }
+                        continue;
+                    }
+                    Task::CALL_ATOM => {
+                        let Some(&Instr::AppAtomArgument { argument, tail, .. }) =
+                            code.code.get(at as usize)
+                        else {
+                            return Err(inconsistent());
+                        };
+                        let function = self.pop()?;
+                        let argument = self.atom(argument).ok_or_else(inconsistent)?;
+                        if let Some(body) = self.call(function, argument, tail)? {
+                            pc = body;
+                            continue 'eval;
+                        }
+                        continue;
                     }
                     Task::RETURN => {
                         let value = self.pop()?;
-                        self.stack.truncate(self.base);
+                        cut(&mut self.stack, self.base);
                         self.stack.push(value);
                         let caller = self.callers.pop().ok_or_else(inconsistent)?;
                         self.base = caller.base;
@@ -1018,7 +1297,7 @@ impl<'a, 'c> Run<'a, 'c> {
                                 continue 'eval;
                             }
                             other => {
-                                return Err(Halt::Error(EvalError::not_a_boolean(other.operand())))
+                                return Err(Halt::error(EvalError::not_a_boolean(other.operand())))
                             }
                         }
                     }
@@ -1065,7 +1344,7 @@ impl<'a, 'c> Run<'a, 'c> {
                                 continue 'eval;
                             }
                             None => {
-                                return Err(Halt::Error(EvalError::no_matching_case(
+                                return Err(Halt::error(EvalError::no_matching_case(
                                     value.operand(),
                                 )))
                             }
@@ -1124,6 +1403,7 @@ mod tests {
             .iter()
             .filter_map(|i| match i {
                 Instr::App { tail, .. }
+                | Instr::AppAtomArgument { tail, .. }
                 | Instr::AppAtomFunction { tail, .. }
                 | Instr::AppAtoms { tail, .. } => Some(*tail),
                 _ => None,
@@ -1138,6 +1418,93 @@ mod tests {
         let arena = Arena::new();
         assert_eq!(compile(arena.lam(arena.var(3))).err(), Some(2));
         assert_eq!(compile(arena.var(0)).err(), Some(0));
+    }
+
+    /// `(μf. λn. f (n + 1)) 0`: runs until something stops it.
+    fn spin(arena: &Arena) -> &Term<'_> {
+        let body = arena.app(
+            arena.var(1),
+            arena.prim(Prim::Add, &[arena.var(0), arena.int(1)]),
+        );
+        arena.app(arena.rec_lam(body), arena.int(0))
+    }
+
+    #[test]
+    fn a_cancelled_handle_stops_a_divergent_loop() {
+        let arena = Arena::new();
+        let program = Program::new(spin(&arena)).unwrap();
+        let cancel = crate::Cancel::new();
+        let limits = Limits::default()
+            .with_fuel(u64::MAX)
+            .with_cancel(cancel.clone());
+        let mut env = Env::new();
+        // Not cancelled: the fuel ends it, on the exact contraction.
+        let report = env.run(&program, &limits.clone().with_fuel(5_000), &arena);
+        assert_eq!(report.outcome, Outcome::OutOfFuel);
+        assert_eq!(report.counts.total(), 5_000);
+        cancel.cancel();
+        // Polled before the first contraction.
+        let report = env.run(&program, &limits, &arena);
+        assert_eq!(report.outcome, Outcome::Limit(LimitError::cancelled()));
+        assert_eq!(report.counts.total(), 0);
+    }
+
+    #[test]
+    fn cancelling_from_another_thread_stops_a_running_loop() {
+        let cancel = crate::Cancel::new();
+        let limits = Limits::default()
+            .with_fuel(u64::MAX)
+            .with_cancel(cancel.clone());
+        let runner = std::thread::spawn(move || {
+            let arena = Arena::new();
+            let program = Program::new(spin(&arena)).unwrap();
+            let report = Env::new().run(&program, &limits, &arena);
+            (report.outcome.name(), report.counts.total())
+        });
+        std::thread::sleep(std::time::Duration::from_millis(20));
+        cancel.cancel();
+        let (outcome, contractions) = runner.join().unwrap();
+        assert_eq!(outcome, "limit");
+        assert!(contractions > 0);
+    }
+
+    #[test]
+    fn stacks_are_kept_across_runs_and_runs_agree() {
+        let arena = Arena::new();
+        let program = Program::new(spin(&arena)).unwrap();
+        let limits = Limits::default().with_fuel(1_000);
+        let mut env = Env::new();
+        let first = env.run(&program, &limits, &arena);
+        assert!(env.scratch.stack.capacity() > 0);
+        let kept = env.scratch.stack.as_ptr();
+        let second = env.run(&program, &limits, &arena);
+        assert_eq!(first, second);
+        assert_eq!(env.scratch.stack.as_ptr(), kept);
+    }
+
+    #[test]
+    fn without_accounting_gives_the_same_report() {
+        let arena = Arena::new();
+        // The doc example's sum, then a 300-deep non-tail recursion.
+        let body = arena.if_then_else(
+            arena.prim(Prim::Eq, &[arena.var(0), arena.int(0)]),
+            arena.int(0),
+            arena.prim(
+                Prim::Add,
+                &[
+                    arena.var(0),
+                    arena.app(
+                        arena.var(1),
+                        arena.prim(Prim::Sub, &[arena.var(0), arena.int(1)]),
+                    ),
+                ],
+            ),
+        );
+        let program = Program::new(arena.app(arena.rec_lam(body), arena.int(300))).unwrap();
+        let metered = Env::new().run(&program, &Limits::default(), &arena);
+        let unmetered = Env::without_accounting().run(&program, &Limits::default(), &arena);
+        assert_eq!(metered.outcome, Outcome::Value(arena.int(45_150)));
+        assert_eq!(metered, unmetered);
     }
 
     #[test]

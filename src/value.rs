@@ -77,6 +77,105 @@ impl Meter {
     }
 }
 
+/// Fuel handed to the hot loop in slices of at most
+/// [`CANCEL_POLL_INTERVAL`](crate::CANCEL_POLL_INTERVAL) units, so that paying
+/// for a contraction tests one counter, and the slow checks (cancellation,
+/// memory, the rest of the fuel) run once per slice, before its first
+/// contraction. Out of fuel lands on the same contraction as a single counter
+/// would: the slices add up to the fuel given.
+#[derive(Clone, Copy, Debug)]
+pub(crate) struct Tank {
+    /// Units the hot loop may spend before the next slow check.
+    slice: u64,
+    /// Units not yet handed out.
+    reserve: u64,
+}
+
+impl Tank {
+    /// A tank holding `fuel`, with an empty slice (so the first contraction
+    /// makes the slow checks).
+    pub(crate) fn new(fuel: u64) -> Self {
+        Tank {
+            slice: 0,
+            reserve: fuel,
+        }
+    }
+
+    /// Pay one unit from the slice; `false` when the slice is empty and the
+    /// caller must make its slow checks and [`Tank::refill`].
+    #[inline(always)]
+    pub(crate) fn take(&mut self) -> bool {
+        if self.slice == 0 {
+            return false;
+        }
+        self.slice -= 1;
+        true
+    }
+
+    /// Pay two units from the slice if it holds them; `false` (paying
+    /// nothing) otherwise, and the caller pays one at a time.
+    #[inline(always)]
+    pub(crate) fn take2(&mut self) -> bool {
+        if self.slice < 2 {
+            return false;
+        }
+        self.slice -= 2;
+        true
+    }
+
+    /// Whether `n` units are left in all.
+    #[inline(always)]
+    pub(crate) fn has(&self, n: u64) -> bool {
+        self.slice >= n || self.slice.saturating_add(self.reserve) >= n
+    }
+
+    /// Move the next slice out of the reserve; `false` if no fuel is left.
+    pub(crate) fn refill(&mut self) -> bool {
+        let next = self.reserve.min(crate::CANCEL_POLL_INTERVAL);
+        self.reserve -= next;
+        self.slice += next;
+        self.slice > 0
+    }
+
+    /// Units left in all.
+    pub(crate) fn left(&self) -> u64 {
+        self.slice.saturating_add(self.reserve)
+    }
+
+    /// Add `more` units to the reserve.
+    pub(crate) fn add(&mut self, more: u64) {
+        self.reserve = self.reserve.saturating_add(more);
+    }
+}
+
+/// Shorten `values` to `len`, dropping the values above one at a time
+/// (inlined: the stacks of the machines lose one or two values at a time, for
+/// which this is cheaper than the general slice drop).
+#[inline(always)]
+pub(crate) fn cut<'a, C: Code<'a>>(values: &mut Vec<Value<'a, C>>, len: usize) {
+    while values.len() > len {
+        values.pop();
+    }
+}
+
+/// Stacks larger than this many bytes are freed after a run rather than kept
+/// for the next one, so one big run does not pin memory (which the next run's
+/// limit would count).
+pub(crate) const KEEP_STACK_BYTES: usize = 64 << 10;
+
+/// An empty vector of `U` that reuses `v`'s allocation when `T` and `U` have
+/// the same layout (the standard library collects a `filter_map` of a
+/// vector's own `into_iter` in place) and `v` is not larger than
+/// [`KEEP_STACK_BYTES`]; otherwise a new empty vector. This is how a machine
+/// keeps its stacks across runs whose values borrow different programs.
+pub(crate) fn recycle<T, U>(mut v: Vec<T>) -> Vec<U> {
+    if v.capacity() == 0 || v.capacity() * std::mem::size_of::<T>() > KEEP_STACK_BYTES {
+        return Vec::new();
+    }
+    v.clear();
+    v.into_iter().filter_map(|_| None::<U>).collect()
+}
+
 /// What the machines' closures keep of their code, for read-back: the source
 /// `λ` or `μλ` term, and which of its free de Bruijn indices each captured
 /// value stands for.
@@ -254,6 +353,18 @@ impl<'a, C: Code<'a>> Closure<'a, C> {
     }
 }
 
+impl<'a, C: Code<'a>> Closure<'a, C> {
+    /// Make this closure, held by one reference, into a closure of `code`
+    /// over `captured`, reusing its cell; the accounting follows.
+    pub(crate) fn reuse(&mut self, code: C, captured: Values<'a, C>) {
+        refund(values_bytes(&self.captured));
+        charge(values_bytes(&captured));
+        let mut old = std::mem::replace(&mut self.captured, captured);
+        self.code = code;
+        release(&mut old);
+    }
+}
+
 impl<'a, C: Code<'a>> Drop for Closure<'a, C> {
     fn drop(&mut self) {
         refund(RC_HEADER + std::mem::size_of::<Self>() + values_bytes(&self.captured));
@@ -351,8 +462,9 @@ pub(crate) fn free_variable(index: u32) -> EvalError {
 /// Read a value back into a closed de Bruijn term in `out`: a constructor
 /// field by field, a closure as its source `λ`/`μλ` with the captured values
 /// (read back) substituted for its free variables, exactly the term the
-/// substitution stepper would hold. Iterative, and memoised on cell identity,
-/// so a cell reachable many times is read back once and its term shared.
+/// substitution stepper would hold. Iterative, and memoised on the identity
+/// of cells held more than once, so a shared cell is read back once and its
+/// term shared (a cell with one holder is reached at most once).
 pub(crate) fn read_back<'a: 'o, 'o, C: Code<'a>>(
     root: &Value<'a, C>,
     out: &'o Arena,
@@ -361,15 +473,23 @@ pub(crate) fn read_back<'a: 'o, 'o, C: Code<'a>>(
         Visit(&'v Value<'a, C>),
         Build(&'v Value<'a, C>),
     }
+    match root {
+        Value::Int(n) => return out.int(*n),
+        Value::Bool(b) => return out.boolean(*b),
+        Value::Lit(t) => return t,
+        Value::Str(s) => return out.string(&s.text),
+        _ => {}
+    }
     let mut memo: HashMap<*const (), &'o Term<'o>> = HashMap::new();
     let mut rebuild = Rebuild::new(out, usize::MAX);
-    let mut jobs: Vec<Job<'_, 'a, C>> = vec![Job::Visit(root)];
-    let mut done: Vec<&'o Term<'o>> = Vec::new();
+    let mut jobs: SmallVec<[Job<'_, 'a, C>; 16]> = SmallVec::new();
+    jobs.push(Job::Visit(root));
+    let mut done: SmallVec<[&'o Term<'o>; 16]> = SmallVec::new();
     let placeholder = out.int(0);
     while let Some(job) = jobs.pop() {
         match job {
             Job::Visit(value) => {
-                let (key, children): (*const (), &[Value<'a, C>]) = match value {
+                let (key, children, shared): (*const (), &[Value<'a, C>], bool) = match value {
                     Value::Int(n) => {
                         done.push(out.int(*n));
                         continue;
@@ -382,13 +502,15 @@ pub(crate) fn read_back<'a: 'o, 'o, C: Code<'a>>(
                         done.push(t);
                         continue;
                     }
-                    Value::Str(s) => (Rc::as_ptr(s).cast(), &[]),
-                    Value::Con(c) => (Rc::as_ptr(c).cast(), &c.fields),
-                    Value::Fun(f) => (Rc::as_ptr(f).cast(), &f.captured),
+                    Value::Str(s) => (Rc::as_ptr(s).cast(), &[], Rc::strong_count(s) > 1),
+                    Value::Con(c) => (Rc::as_ptr(c).cast(), &c.fields, Rc::strong_count(c) > 1),
+                    Value::Fun(f) => (Rc::as_ptr(f).cast(), &f.captured, Rc::strong_count(f) > 1),
                 };
-                if let Some(term) = memo.get(&key) {
-                    done.push(term);
-                    continue;
+                if shared {
+                    if let Some(term) = memo.get(&key) {
+                        done.push(term);
+                        continue;
+                    }
                 }
                 jobs.push(Job::Build(value));
                 jobs.extend(children.iter().rev().map(Job::Visit));
@@ -433,7 +555,15 @@ pub(crate) fn read_back<'a: 'o, 'o, C: Code<'a>>(
                     // Immediate values never get a build job.
                     _ => continue,
                 };
-                memo.insert(key, term);
+                let shared = match value {
+                    Value::Str(s) => Rc::strong_count(s) > 1,
+                    Value::Con(c) => Rc::strong_count(c) > 1,
+                    Value::Fun(f) => Rc::strong_count(f) > 1,
+                    _ => false,
+                };
+                if shared {
+                    memo.insert(key, term);
+                }
                 done.push(term);
             }
         }
@@ -463,6 +593,23 @@ mod tests {
         ));
         assert!(meter.cells() > 0);
         drop(cell);
+        assert_eq!(meter.cells(), 0);
+    }
+
+    #[test]
+    fn a_reused_closure_is_accounted_as_a_new_one() {
+        let arena = Arena::new();
+        let lam = arena.lam(arena.var(0));
+        let meter = Meter::holding(0);
+        let mut f = Closure::new(lam, SmallVec::from_iter([V::Int(1)]));
+        // Five captured values spill out of the cell.
+        let five: Values<'_, &Term<'_>> = (0..5).map(Value::Int).collect();
+        Rc::get_mut(&mut f).unwrap().reuse(lam, five.clone());
+        let held = meter.cells();
+        let fresh = Closure::new(lam, five);
+        assert_eq!(meter.cells(), 2 * held);
+        drop(f);
+        drop(fresh);
         assert_eq!(meter.cells(), 0);
     }
 
