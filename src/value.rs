@@ -27,8 +27,9 @@ use std::rc::Rc;
 use hashbrown::HashMap;
 use smallvec::SmallVec;
 
+use crate::datum::{Builder, NotData};
 use crate::subst::Rebuild;
-use crate::{delta, Arena, EvalError, Node, Operand, Prim, PrimValue, Term};
+use crate::{delta, Arena, Datum, EvalError, Node, Operand, Prim, PrimValue, Term};
 
 /// Bytes of an `Rc` allocation's header (the strong and weak counts).
 const RC_HEADER: usize = 2 * std::mem::size_of::<usize>();
@@ -145,6 +146,18 @@ impl Tank {
     /// Add `more` units to the reserve.
     pub(crate) fn add(&mut self, more: u64) {
         self.reserve = self.reserve.saturating_add(more);
+    }
+
+    /// Pay `n` units (a host call's fuel) from the slice, then the reserve;
+    /// `false`, paying nothing, if fewer are left.
+    pub(crate) fn spend(&mut self, n: u64) -> bool {
+        if !self.has(n) {
+            return false;
+        }
+        let from_slice = n.min(self.slice);
+        self.slice -= from_slice;
+        self.reserve -= n - from_slice;
+        true
     }
 }
 
@@ -569,6 +582,78 @@ pub(crate) fn read_back<'a: 'o, 'o, C: Code<'a>>(
         }
     }
     done.pop().unwrap_or(placeholder)
+}
+
+/// Read `value` as a datum for a host function, of at most `max_nodes`
+/// nodes (see `host::HostStep`).
+pub(crate) fn to_datum<'a, C: Code<'a>>(
+    value: &Value<'a, C>,
+    max_nodes: usize,
+) -> Result<Datum<'a>, NotData> {
+    /// A value, or a literal term inside the program.
+    enum Item<'v, 'a, C: Code<'a>> {
+        Value(&'v Value<'a, C>),
+        Term(&'a Term<'a>),
+    }
+    let mut builder = Builder::new(max_nodes);
+    let mut pending: Vec<Item<'_, 'a, C>> = vec![Item::Value(value)];
+    while let Some(item) = pending.pop() {
+        match item {
+            Item::Value(Value::Int(n)) => builder.leaf(Datum::Int(*n))?,
+            Item::Value(Value::Bool(b)) => builder.leaf(Datum::Bool(*b))?,
+            Item::Value(Value::Str(s)) => builder.leaf(Datum::Str(s.text.to_string()))?,
+            Item::Value(Value::Fun(_)) => return Err(NotData::Function),
+            Item::Value(Value::Con(c)) => {
+                builder.open(c.tag, c.fields.len())?;
+                pending.extend(c.fields.iter().rev().map(Item::Value));
+            }
+            Item::Value(&Value::Lit(t)) | Item::Term(t) => match *t.node() {
+                Node::Int(n) => builder.leaf(Datum::Int(n))?,
+                Node::Bool(b) => builder.leaf(Datum::Bool(b))?,
+                Node::Str(s) => builder.leaf(Datum::Str(s.to_string()))?,
+                Node::Con(tag, fields) => {
+                    builder.open(tag, fields.len())?;
+                    pending.extend(fields.iter().rev().map(|&f| Item::Term(f)));
+                }
+                Node::Lam(_) | Node::RecLam(_) => return Err(NotData::Function),
+                _ => return Err(NotData::NotAValue),
+            },
+        }
+    }
+    builder.finish()
+}
+
+/// A host function's result as a value; its cells are charged to the
+/// live-byte counter like any other.
+pub(crate) fn from_datum<'a, C: Code<'a>>(datum: &Datum<'a>) -> Value<'a, C> {
+    let mut stack: Vec<Value<'a, C>> = Vec::new();
+    datum.fold(
+        |d, fields: &mut Vec<Value<'a, C>>| match d {
+            Datum::Int(n) => Value::Int(*n),
+            Datum::Bool(b) => Value::Bool(*b),
+            Datum::Str(s) => Value::Str(Text::new(s.clone())),
+            Datum::Con(c) => {
+                let start = fields.len().saturating_sub(c.fields().len());
+                let values: Values<'a, C> = fields.drain(start..).collect();
+                Value::Con(ConCell::new(c.tag(), values))
+            }
+        },
+        &mut stack,
+    )
+}
+
+/// Bytes of the string `op` would make from `args` (0 for a primitive that
+/// makes none), so a machine can refuse a string that would pass its memory
+/// limit before making it.
+#[inline]
+pub(crate) fn string_bytes<'a, C: Code<'a>>(op: Prim, args: &[Value<'a, C>]) -> usize {
+    match (op, args) {
+        (Prim::Concat, [a, b]) => match (a.operand(), b.operand()) {
+            (Operand::Str(x), Operand::Str(y)) => Text::bytes(x.len().saturating_add(y.len())),
+            _ => 0,
+        },
+        _ => 0,
+    }
 }
 
 #[cfg(test)]
