@@ -25,10 +25,16 @@ impl FromDatum for Zone {
             other => return Err(ConvertError::new("a Zone", other.describe())),
         };
         let [name, low, high, mist, litres] = fields else {
-            return Err(ConvertError::new("Zone with five fields", format!("{tag} with {}", fields.len())));
+            return Err(ConvertError::new(
+                "Zone with five fields",
+                format!("{tag} with {}", fields.len()),
+            ));
         };
         if tag != "Zone" {
-            return Err(ConvertError::new("a Zone", format!("the constructor {tag}")));
+            return Err(ConvertError::new(
+                "a Zone",
+                format!("the constructor {tag}"),
+            ));
         }
         Ok(Zone {
             name: String::from_datum(name)?,
@@ -41,9 +47,9 @@ impl FromDatum for Zone {
 }
 
 fn main() {
-    let path = std::env::args()
-        .nth(1)
-        .unwrap_or_else(|| concat!(env!("CARGO_MANIFEST_DIR"), "/examples/greenhouse.orr").to_string());
+    let path = std::env::args().nth(1).unwrap_or_else(|| {
+        concat!(env!("CARGO_MANIFEST_DIR"), "/examples/greenhouse.orr").to_string()
+    });
     let source = match std::fs::read_to_string(&path) {
         Ok(s) => s,
         Err(e) => {
@@ -74,7 +80,10 @@ fn main() {
             std::process::exit(1);
         }
         Outcome::OutOfFuel => {
-            eprintln!("{path}: the configuration used more than {} contractions", limits.fuel);
+            eprintln!(
+                "{path}: the configuration used more than {} contractions",
+                limits.fuel
+            );
             std::process::exit(1);
         }
         Outcome::Limit(l) => {
@@ -89,7 +98,12 @@ fn main() {
             std::process::exit(1);
         }
     };
-    println!("{} zones ({} on {}):", zones.len(), report.counts, machine.name());
+    println!(
+        "{} zones ({} on {}):",
+        zones.len(),
+        report.counts,
+        machine.name()
+    );
     for z in &zones {
         println!(
             "  {:<14} {:>5.1}–{:<5.1} °C  misting: {:<3}  {:>3} l/day",

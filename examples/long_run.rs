@@ -11,7 +11,17 @@ use std::time::Duration;
 
 use orrery::machines::cek::Cek;
 use orrery::machines::stepper::Stepper;
-use orrery::{parse, Arena, Cancel, Limits, Machine, MachineKind, Outcome};
+use orrery::{parse, print, Arena, Cancel, Limits, Machine, MachineKind, Outcome};
+
+/// An outcome in a line: the value printed, or what stopped the run.
+fn describe(outcome: &Outcome<'_>) -> String {
+    match outcome {
+        Outcome::Value(v) => print(v),
+        Outcome::Error(e) => format!("error: {e}"),
+        Outcome::OutOfFuel => "out of fuel".to_string(),
+        Outcome::Limit(l) => format!("stopped: {l}"),
+    }
+}
 
 const PRIME_LOTS: &str = "
 let rec divides_none n d =
@@ -43,10 +53,10 @@ fn main() {
     };
     let whole = Cek::new().run(&program, &Limits::default(), &arena);
     println!(
-        "cek, resumed {pauses} times: {:?} in {} contractions (uninterrupted: {:?} in {})",
-        paused_end.outcome,
+        "cek, resumed {pauses} times: {} prime lots, {} contractions (uninterrupted: {} in {})",
+        describe(&paused_end.outcome),
         paused_end.counts.total(),
-        whole.outcome,
+        describe(&whole.outcome),
         whole.counts.total()
     );
     assert_eq!(paused_end.outcome, whole.outcome);
@@ -66,30 +76,39 @@ fn main() {
     };
     let reference = Stepper::new().run(&small, &Limits::default(), &arena);
     println!(
-        "stepper, resumed {stepper_pauses} times: {:?}, {} contractions, same as uninterrupted: {}",
-        stepped_end.outcome,
+        "stepper, resumed {stepper_pauses} times: {} prime lots below 3000, {} contractions, same as uninterrupted: {}",
+        describe(&stepped_end.outcome),
         stepped_end.counts.total(),
         stepped_end.outcome == reference.outcome && stepped_end.counts == reference.counts
     );
 
     // 2. Cancel: a run with no fuel bound to speak of, stopped from here.
     let cancel = Cancel::new();
-    let limits = Limits::default().with_fuel(u64::MAX).with_cancel(cancel.clone());
+    let limits = Limits::default()
+        .with_fuel(u64::MAX)
+        .with_cancel(cancel.clone());
     let (started, has_started) = mpsc::channel();
     let worker = std::thread::spawn(move || {
         let arena = Arena::new();
-        let program = parse(&arena, &PRIME_LOTS.replace("LOTS", "100000000")).expect("the example parses");
+        let program =
+            parse(&arena, &PRIME_LOTS.replace("LOTS", "100000000")).expect("the example parses");
         let machine = MachineKind::fastest().expect("the example is built with a machine");
         let _ = started.send(());
         let report = machine.run(&program, &limits, &arena);
-        (machine.name(), format!("{:?}", report.outcome), report.counts.total())
+        (
+            machine.name(),
+            format!("{:?}", report.outcome),
+            report.counts.total(),
+        )
     });
     let _ = has_started.recv();
     std::thread::sleep(Duration::from_millis(200));
     cancel.cancel();
     match worker.join() {
         Ok((machine, outcome, steps)) => {
-            println!("{machine}: cancelled from the main thread: {outcome} after {steps} contractions")
+            println!(
+                "{machine}: cancelled from the main thread: {outcome} after {steps} contractions"
+            )
         }
         Err(_) => eprintln!("the worker thread failed"),
     }

@@ -37,8 +37,9 @@ impl Request {
 
 /// The application's answers to the rules' questions.
 fn host_functions() -> HostFunctions {
-    let zones: HashMap<&'static str, i64> =
-        [("RV1", 1), ("RV2", 1), ("MK7", 2), ("TQ9", 3)].into_iter().collect();
+    let zones: HashMap<&'static str, i64> = [("RV1", 1), ("RV2", 1), ("MK7", 2), ("TQ9", 3)]
+        .into_iter()
+        .collect();
     let mut host = HostFunctions::new();
     host.register("zone_of", move |postcode: String| {
         Ok::<_, String>(zones.get(postcode.as_str()).copied().unwrap_or(0))
@@ -74,17 +75,50 @@ fn main() {
     // Evaluate the rules once: the result is the quoting function.
     let setup = machine.run(&rules, &Limits::default().with_fuel(10_000), &rules_arena);
     let Outcome::Value(quote) = setup.outcome else {
-        eprintln!("the rules did not evaluate to a function: {:?}", setup.outcome);
+        eprintln!(
+            "the rules did not evaluate to a function: {:?}",
+            setup.outcome
+        );
         std::process::exit(1);
     };
 
     let requests = [
-        Request { postcode: "RV1", kilograms: 1, hour: 11, fragile: false },
-        Request { postcode: "MK7", kilograms: 6, hour: 8, fragile: true },
-        Request { postcode: "TQ9", kilograms: 3, hour: 23, fragile: false },
-        Request { postcode: "ZZ0", kilograms: 2, hour: 12, fragile: false },
-        Request { postcode: "RV2", kilograms: 45, hour: 12, fragile: false },
-        Request { postcode: "RV2", kilograms: 4, hour: 25, fragile: false },
+        Request {
+            postcode: "RV1",
+            kilograms: 1,
+            hour: 11,
+            fragile: false,
+        },
+        Request {
+            postcode: "MK7",
+            kilograms: 6,
+            hour: 8,
+            fragile: true,
+        },
+        Request {
+            postcode: "TQ9",
+            kilograms: 3,
+            hour: 23,
+            fragile: false,
+        },
+        Request {
+            postcode: "ZZ0",
+            kilograms: 2,
+            hour: 12,
+            fragile: false,
+        },
+        Request {
+            postcode: "RV2",
+            kilograms: 45,
+            hour: 12,
+            fragile: false,
+        },
+        Request {
+            postcode: "RV2",
+            kilograms: 4,
+            hour: 25,
+            fragile: false,
+        },
     ];
     // Each request: its own small arena and fresh, tight limits.
     let limits = Limits::default().with_fuel(5_000).with_memory(1 << 20);

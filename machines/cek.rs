@@ -20,13 +20,14 @@
 
 use std::rc::Rc;
 
+use crate::host::{host_step, max_datum_nodes, HostStep};
 use crate::value::{
-    apply_prim, cut, free_variable, int_prim, int_test, read_back, recycle, Closure, ConCell,
-    Meter, Tank, Value, Values,
+    apply_prim, cut, free_variable, from_datum, int_prim, int_test, read_back, recycle,
+    string_bytes, to_datum, Closure, ConCell, Meter, Tank, Value, Values,
 };
 use crate::{
-    Arena, Arm, Cancel, Counts, EvalError, LimitError, Limits, Machine, Node, Operand, Outcome,
-    Prim, Program, Report, Rule, Term,
+    Arena, Arm, Cancel, Counts, EvalError, HostFunctions, HostId, LimitError, Limits, Machine,
+    Node, Operand, Outcome, Prim, Program, Report, Rule, Term,
 };
 
 /// A runtime value of this machine: closures keep their source term as code.
@@ -341,6 +342,7 @@ pub struct CekRun<'a> {
     counts: Counts,
     memory: usize,
     cancel: Option<Cancel>,
+    host: &'a HostFunctions,
     /// Whether fuel, memory and cancellation are checked.
     metered: bool,
     /// Bytes of cells this run held when it last paused.
@@ -379,6 +381,7 @@ impl<'a> CekRun<'a> {
             counts: Counts::default(),
             memory: limits.memory,
             cancel: limits.cancel.clone(),
+            host: program.host(),
             metered,
             cells: 0,
             peak: 0,
@@ -774,6 +777,13 @@ impl<'a> CekRun<'a> {
     /// shortcut comes here.
     #[inline]
     fn prim<const M: bool>(&mut self, op: Prim, at: usize, meter: &Meter) -> Result<Val<'a>, Halt> {
+        let bytes = string_bytes(op, self.operands.get(at..).unwrap_or(&[]));
+        if M && bytes > 0
+            && (meter.cells() + self.stack_bytes()).saturating_add(bytes) > self.memory
+        {
+            self.operands.truncate(at);
+            return Err(Halt::Memory);
+        }
         let result = apply_prim(op, self.operands.get(at..).unwrap_or(&[]));
         self.operands.truncate(at);
         let value = result.map_err(Halt::error)?;
@@ -781,6 +791,42 @@ impl<'a> CekRun<'a> {
             self.check_memory::<M>(meter)?;
         }
         Ok(value)
+    }
+
+    /// A host function's contraction on the operands from `at` up (see
+    /// `host::HostStep`), popping them if it is made. Out of fuel leaves
+    /// everything as it was, so a resume makes the call.
+    #[cold]
+    fn host_call<const M: bool>(
+        &mut self,
+        id: HostId,
+        at: usize,
+        meter: &Meter,
+    ) -> Result<Val<'a>, Halt> {
+        let fuel_left = if M { self.tank.left() } else { u64::MAX };
+        let held = meter.cells() + self.stack_bytes();
+        let max_nodes = max_datum_nodes(self.memory.saturating_sub(held));
+        let args = match self.operands.get(at..) {
+            Some(values) if fuel_left > 0 => {
+                values.iter().map(|v| to_datum(v, max_nodes)).collect()
+            }
+            _ => Ok(Vec::new()),
+        };
+        match host_step(self.host, id, args, fuel_left) {
+            HostStep::OutOfFuel => Err(Halt::OutOfFuel),
+            HostStep::TooLarge => Err(Halt::Memory),
+            HostStep::Made { fuel, result } => {
+                if M {
+                    self.tank.spend(fuel);
+                }
+                self.counts.add(Rule::Prim);
+                self.counts.add_host_fuel(fuel - 1);
+                self.operands.truncate(at);
+                let value = from_datum(&result.map_err(Halt::error)?);
+                self.check_memory::<M>(meter)?;
+                Ok(value)
+            }
+        }
     }
 
     /// The value of an atom (`None` if `term` is not one).
@@ -968,11 +1014,21 @@ impl<'a> CekRun<'a> {
                             Control::Eval(first)
                         }
                         None => {
-                            if let Err(halt) = self.take_fuel::<M>(Rule::Prim, meter) {
-                                self.control = Some(Control::Eval(term));
-                                return Err(halt);
+                            let made = match op {
+                                Prim::Host(id) => {
+                                    self.host_call::<M>(id, self.operands.len(), meter)
+                                }
+                                _ => self
+                                    .take_fuel::<M>(Rule::Prim, meter)
+                                    .and_then(|()| self.prim::<M>(op, self.operands.len(), meter)),
+                            };
+                            match made {
+                                Ok(value) => Control::Return(value),
+                                Err(halt) => {
+                                    self.control = Some(Control::Eval(term));
+                                    return Err(halt);
+                                }
                             }
-                            Control::Return(self.prim::<M>(op, self.operands.len(), meter)?)
                         }
                     },
                     Node::Con(tag, fields) => match fields.first() {
@@ -999,6 +1055,34 @@ impl<'a> CekRun<'a> {
                     }
                 },
                 Control::Return(value) => {
+                    // The last argument of a host call: its own protocol.
+                    if let Some(Frame::Operand {
+                        head: Head::Prim(Prim::Host(id)),
+                        operands,
+                        index,
+                        ..
+                    }) = self.kont.last()
+                    {
+                        if operands.get(index + 1).is_none() {
+                            let (id, at) = (*id, self.operands.len().saturating_sub(*index));
+                            self.operands.push(value);
+                            match self.host_call::<M>(id, at, meter) {
+                                Ok(result) => {
+                                    if let Some(Frame::Operand { below, .. }) = self.kont.pop() {
+                                        self.floor = below;
+                                    }
+                                    control = Control::Return(result);
+                                    continue;
+                                }
+                                Err(halt) => {
+                                    if let Some(value) = self.operands.pop() {
+                                        self.control = Some(Control::Return(value));
+                                    }
+                                    return Err(halt);
+                                }
+                            }
+                        }
+                    }
                     // Is handing the value to the top frame a contraction?
                     let rule = match self.kont.last() {
                         None => return Ok(value),

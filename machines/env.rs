@@ -13,13 +13,14 @@
 
 use std::rc::Rc;
 
+use crate::host::{host_step, max_datum_nodes, HostStep};
 use crate::value::{
-    apply_prim, cut, free_variable, int_prim, int_test, read_back, recycle, Closure, Code, ConCell,
-    Meter, Tank, Value, Values, KEEP_STACK_BYTES,
+    apply_prim, cut, free_variable, from_datum, int_prim, int_test, read_back, recycle,
+    string_bytes, to_datum, Closure, Code, ConCell, Meter, Tank, Value, Values, KEEP_STACK_BYTES,
 };
 use crate::{
-    Arena, Counts, ErrorKind, EvalError, LimitError, Limits, Machine, Node, Outcome, Prim, Program,
-    Report, Rule, Term,
+    Arena, Counts, ErrorKind, EvalError, HostFunctions, HostId, LimitError, Limits, Machine, Node,
+    Outcome, Prim, Program, Report, Rule, Term,
 };
 
 /// The environment-based evaluator. Holds no program state between runs:
@@ -142,20 +143,25 @@ impl Machine for Env {
         limits: &Limits,
         out: &'o Arena,
     ) -> Report<'o> {
-        let compiled = match compile_with(program.term(), &mut self.code_scratch) {
+        let compiled = match compile_with(program.term(), &mut self.code_scratch, limits.memory) {
             Ok(compiled) => compiled,
-            Err(index) => {
+            Err(error) => {
+                let outcome = match error {
+                    CompileError::Open(index) => Outcome::Error(free_variable(index)),
+                    CompileError::TooLarge => Outcome::Limit(LimitError::memory(limits.memory)),
+                };
                 return Report {
-                    outcome: Outcome::Error(free_variable(index)),
+                    outcome,
                     counts: Counts::default(),
-                }
+                };
             }
         };
         let scratch = std::mem::take(&mut self.scratch);
+        let host = program.host();
         let (result, counts, peak, scratch) = if self.metered {
-            Run::<true>::evaluate(&compiled, limits, scratch)
+            Run::<true>::evaluate(&compiled, limits, host, scratch)
         } else {
-            Run::<false>::evaluate(&compiled, limits, scratch)
+            Run::<false>::evaluate(&compiled, limits, host, scratch)
         };
         self.peak = peak;
         self.scratch = scratch;
@@ -395,8 +401,8 @@ impl Scope {
 /// The de Bruijn index of a variable that escapes every binder (a validated
 /// program has none).
 #[cfg(test)]
-fn compile<'a>(root: &'a Term<'a>) -> Result<Compiled<'a>, u32> {
-    compile_with(root, &mut CodeScratch::default())
+fn compile<'a>(root: &'a Term<'a>) -> Result<Compiled<'a>, CompileError> {
+    compile_with(root, &mut CodeScratch::default(), usize::MAX)
 }
 
 /// The compiler's work: a term to visit (at a depth, in tail position or
@@ -436,7 +442,24 @@ impl CodeScratch {
 }
 
 /// [`compile`], reusing the vectors of `scratch`.
-fn compile_with<'a>(root: &'a Term<'a>, scratch: &mut CodeScratch) -> Result<Compiled<'a>, u32> {
+/// Why a term did not compile.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+enum CompileError {
+    /// It has a free variable (this index, counted from the top).
+    Open(u32),
+    /// Its code would pass the memory limit: a program that shares subterms
+    /// heavily unfolds here, since code is made per occurrence.
+    TooLarge,
+}
+
+/// Compile `root`, giving up with [`CompileError::TooLarge`] once the code
+/// and the work list would hold more than `max_bytes`.
+fn compile_with<'a>(
+    root: &'a Term<'a>,
+    scratch: &mut CodeScratch,
+    max_bytes: usize,
+) -> Result<Compiled<'a>, CompileError> {
+    let max_items = max_bytes / std::mem::size_of::<Instr<'_>>().max(1);
     let mut c = Compiled {
         code: recycle(std::mem::take(&mut scratch.code)),
         lists: std::mem::take(&mut scratch.lists),
@@ -472,6 +495,9 @@ fn compile_with<'a>(root: &'a Term<'a>, scratch: &mut CodeScratch) -> Result<Com
     while let Some(job) = jobs.pop() {
         match job {
             Job::Visit(t, depth, tail) => {
+                if c.code.len() + c.lists.len() + jobs.len() > max_items {
+                    return Err(CompileError::TooLarge);
+                }
                 let top_level = scopes.len() == 1;
                 let Some(scope) = scopes.last_mut() else {
                     break;
@@ -481,7 +507,7 @@ fn compile_with<'a>(root: &'a Term<'a>, scratch: &mut CodeScratch) -> Result<Com
                     Node::Var(k) if k < depth => Some(Atom::Local(depth - 1 - k)),
                     Node::Var(k) => {
                         if top_level {
-                            return Err(k - depth);
+                            return Err(CompileError::Open(k - depth));
                         }
                         Some(Atom::Free(scope.capture(k - depth)))
                     }
@@ -555,7 +581,7 @@ fn compile_with<'a>(root: &'a Term<'a>, scratch: &mut CodeScratch) -> Result<Com
                                 fetch.push(if j < depth {
                                     Fetch::Local(depth - 1 - j)
                                 } else if outer_is_top_level {
-                                    return Err(j - depth);
+                                    return Err(CompileError::Open(j - depth));
                                 } else {
                                     Fetch::Free(outer.capture(j - depth))
                                 });
@@ -619,12 +645,15 @@ fn compile_with<'a>(root: &'a Term<'a>, scratch: &mut CodeScratch) -> Result<Com
                         Node::Prim(op, operands) => {
                             let at = done.len().saturating_sub(operands.len());
                             let atom = |i: usize| done.get(at + i).and_then(|&id| c.atom(id));
+                            // Host calls take the general path, where their
+                            // fuel and data are handled.
+                            let host = matches!(op, Prim::Host(_));
                             match (operands.len(), atom(0), atom(1)) {
-                                (1, Some(a), _) => {
+                                (1, Some(a), _) if !host => {
                                     done.truncate(at);
                                     Instr::Prim1 { op, a }
                                 }
-                                (2, Some(a), Some(b)) => {
+                                (2, Some(a), Some(b)) if !host => {
                                     done.truncate(at);
                                     Instr::Prim2 { op, a, b }
                                 }
@@ -764,6 +793,7 @@ struct Run<'a, 'c, 'l, const METERED: bool> {
     counts: Counts,
     memory: usize,
     limits: &'l Limits,
+    host: &'a HostFunctions,
     code_bytes: usize,
     peak: usize,
     meter: Meter,
@@ -783,6 +813,7 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
     fn evaluate(
         code: &'c Compiled<'a>,
         limits: &'l Limits,
+        host: &'a HostFunctions,
         scratch: Scratch,
     ) -> (Result<Val<'a, 'c>, Halt>, Counts, usize, Scratch) {
         let mut run = Run::<METERED> {
@@ -796,6 +827,7 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
             counts: Counts::default(),
             memory: limits.memory,
             limits,
+            host,
             code_bytes: code.bytes(),
             peak: 0,
             meter: Meter::holding(0),
@@ -826,17 +858,23 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
         if !METERED {
             return Ok(());
         }
-        let held = self.meter.cells()
-            + self.code_bytes
-            + self.stack.capacity() * std::mem::size_of::<Val<'_, '_>>()
-            + self.tasks.capacity() * std::mem::size_of::<Task>()
-            + self.callers.capacity() * std::mem::size_of::<Caller<'_, '_>>();
+        let held = self.held();
         self.peak = self.peak.max(held);
         if held > self.memory {
             Err(Halt::Memory)
         } else {
             Ok(())
         }
+    }
+
+    /// Bytes held now: cells, code and stacks.
+    #[inline]
+    fn held(&self) -> usize {
+        self.meter.cells()
+            + self.code_bytes
+            + self.stack.capacity() * std::mem::size_of::<Val<'_, '_>>()
+            + self.tasks.capacity() * std::mem::size_of::<Task>()
+            + self.callers.capacity() * std::mem::size_of::<Caller<'_, '_>>()
     }
 
     /// Take one unit of fuel for a contraction under `rule`. Memory is
@@ -942,7 +980,47 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
         let (Some(a), Some(b)) = (self.atom(a), self.atom(b)) else {
             return Err(inconsistent());
         };
-        self.prim_result(apply_prim(op, &[a, b]))
+        let args = [a, b];
+        self.check_room(string_bytes(op, &args))?;
+        self.prim_result(apply_prim(op, &args))
+    }
+
+    /// A host function's contraction on the values from `from` up (see
+    /// `host::HostStep`); the caller pops them.
+    #[cold]
+    fn host_call(&mut self, id: HostId, from: usize) -> Result<Val<'a, 'c>, Halt> {
+        let fuel_left = if METERED { self.tank.left() } else { u64::MAX };
+        let max_nodes = max_datum_nodes(self.memory.saturating_sub(self.held()));
+        let args = match self.stack.get(from..) {
+            Some(values) if fuel_left > 0 => {
+                values.iter().map(|v| to_datum(v, max_nodes)).collect()
+            }
+            _ => Ok(Vec::new()),
+        };
+        match host_step(self.host, id, args, fuel_left) {
+            HostStep::OutOfFuel => Err(Halt::OutOfFuel),
+            HostStep::TooLarge => Err(Halt::Memory),
+            HostStep::Made { fuel, result } => {
+                if METERED {
+                    self.tank.spend(fuel);
+                }
+                self.counts.add(Rule::Prim);
+                self.counts.add_host_fuel(fuel - 1);
+                let value = from_datum(&result.map_err(Halt::error)?);
+                self.check_memory()?;
+                Ok(value)
+            }
+        }
+    }
+
+    /// `Err` if `bytes` more would pass the memory limit (checked before a
+    /// primitive makes a string that large).
+    #[inline]
+    fn check_room(&mut self, bytes: usize) -> Result<(), Halt> {
+        if METERED && bytes > 0 && self.held().saturating_add(bytes) > self.memory {
+            return Err(Halt::Memory);
+        }
+        Ok(())
     }
 
     /// A primitive's result; a new string is sampled against the limit.
@@ -1302,8 +1380,15 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
                         }
                     }
                     Instr::Prim { op, operands } => {
-                        self.take_fuel(Rule::Prim)?;
                         let from = self.top(operands.len)?;
+                        if let Prim::Host(id) = op {
+                            let v = self.host_call(id, from)?;
+                            self.stack.truncate(from);
+                            self.stack.push(v);
+                            continue;
+                        }
+                        self.take_fuel(Rule::Prim)?;
+                        self.check_room(string_bytes(op, &self.stack[from..]))?;
                         let result = apply_prim(op, &self.stack[from..]);
                         self.stack.truncate(from);
                         let v = self.prim_result(result)?;
@@ -1416,8 +1501,11 @@ mod tests {
     #[test]
     fn an_open_term_is_an_error_not_a_panic() {
         let arena = Arena::new();
-        assert_eq!(compile(arena.lam(arena.var(3))).err(), Some(2));
-        assert_eq!(compile(arena.var(0)).err(), Some(0));
+        assert_eq!(
+            compile(arena.lam(arena.var(3))).err(),
+            Some(CompileError::Open(2))
+        );
+        assert_eq!(compile(arena.var(0)).err(), Some(CompileError::Open(0)));
     }
 
     /// `(μf. λn. f (n + 1)) 0`: runs until something stops it.

@@ -31,8 +31,11 @@ use crate::datum::{Builder, NotData};
 use crate::subst::Rebuild;
 use crate::{delta, Arena, Datum, EvalError, Node, Operand, Prim, PrimValue, Term};
 
-/// Bytes of an `Rc` allocation's header (the strong and weak counts).
-const RC_HEADER: usize = 2 * std::mem::size_of::<usize>();
+/// Bytes of an `Rc` allocation's header (the strong and weak counts), plus
+/// what the system allocator adds to each allocation for its own header and
+/// rounding (16 bytes on 64-bit glibc malloc: common practice), so that the
+/// limit tracks resident memory and not only the bytes asked for.
+const RC_HEADER: usize = 2 * std::mem::size_of::<usize>() + 16;
 
 thread_local! {
     /// Live bytes of runtime cells on this thread.

@@ -53,7 +53,12 @@ fn orchard() -> HostFunctions {
     host
 }
 
-fn run_with_host<'a>(arena: &'a Arena, host: &'a HostFunctions, source: &str, limits: &Limits) -> orrery::Report<'a> {
+fn run_with_host<'a>(
+    arena: &'a Arena,
+    host: &'a HostFunctions,
+    source: &str,
+    limits: &Limits,
+) -> orrery::Report<'a> {
     let program = match parse_with(arena, source, host) {
         Ok(p) => p,
         Err(e) => panic!("{}", e.render("<test>", source)),
@@ -102,7 +107,10 @@ fn host_errors_and_panics_are_host_errors_on_every_machine() {
     for (source, message) in [
         ("rows (0 - 2)", "rows: -2 rows"),
         ("jammed_valve 3", "jammed_valve panicked: valve 3 jammed"),
-        ("litres_for 9223372036854775807 2", "litres_for: too much water"),
+        (
+            "litres_for 9223372036854775807 2",
+            "litres_for: too much water",
+        ),
     ] {
         let arena = Arena::new();
         let report = run_with_host(&arena, &host, source, &Limits::default());
@@ -113,7 +121,10 @@ fn host_errors_and_panics_are_host_errors_on_every_machine() {
             }
             other => panic!("{source}: {other:?}"),
         }
-        assert_eq!(report.counts.get(Rule::Prim), if source.starts_with("rows") { 2 } else { 1 });
+        assert_eq!(
+            report.counts.get(Rule::Prim),
+            if source.starts_with("rows") { 2 } else { 1 }
+        );
     }
 }
 
@@ -128,7 +139,12 @@ fn arguments_that_are_not_data_are_type_mismatches() {
     }
     assert_eq!(report.counts.total(), 1);
     // With no fuel, the attempt is out of fuel, as for any contraction.
-    let report = run_with_host(&arena, &host, "litres_for (\\x. x) 2", &Limits::default().with_fuel(0));
+    let report = run_with_host(
+        &arena,
+        &host,
+        "litres_for (\\x. x) 2",
+        &Limits::default().with_fuel(0),
+    );
     assert_eq!(report.outcome, Outcome::OutOfFuel);
 }
 
@@ -190,7 +206,9 @@ fn the_builder_api_calls_host_functions_too() {
     let call = host
         .call_term(&arena, "litres_for", &[arena.int(2), arena.int(2)])
         .unwrap();
-    assert!(host.call_term(&arena, "litres_for", &[arena.int(2)]).is_none());
+    assert!(host
+        .call_term(&arena, "litres_for", &[arena.int(2)])
+        .is_none());
     assert!(matches!(
         Program::new(call),
         Err(ValidationError::UnknownHost { .. })
@@ -210,7 +228,12 @@ fn exponentially_shared_arguments_hit_the_memory_limit_not_the_host() {
     let arena = Arena::new();
     // A value whose tree has 2^40 leaves, passed to a host function.
     let source = "let rec grow n v = if n == 0 then v else grow (n - 1) (Twin(v, v)) in litres_for (grow 40 1) 1";
-    let report = run_with_host(&arena, &host, source, &Limits::default().with_memory(8 << 20));
+    let report = run_with_host(
+        &arena,
+        &host,
+        source,
+        &Limits::default().with_memory(8 << 20),
+    );
     match report.outcome {
         Outcome::Limit(l) => assert_eq!(l.kind(), LimitKind::Memory),
         other => panic!("{other:?}"),
@@ -231,7 +254,10 @@ fn results_convert_to_rust_types_with_clear_errors() {
             panic!("{report:?}")
         };
         let trees: Vec<(String, i64, bool)> = extract(v).unwrap();
-        assert_eq!(trees, vec![("pear".into(), 4, true), ("plum".into(), 0, false)]);
+        assert_eq!(
+            trees,
+            vec![("pear".into(), 4, true), ("plum".into(), 0, false)]
+        );
         let err = extract::<Vec<(String, bool, bool)>>(v).unwrap_err();
         assert_eq!(err.to_string(), "expected a boolean, found an integer");
         let err = extract::<i64>(v).unwrap_err();
@@ -259,16 +285,23 @@ fn a_function_value_is_called_per_request_under_fresh_limits() {
             let program = Program::new(call).unwrap();
             let limits = Limits::default().with_fuel(50);
             let report = machine.run(&program, &limits, &request);
-            assert_eq!(extract::<i64>(match report.outcome {
-                Outcome::Value(v) => v,
-                other => panic!("{other:?}"),
-            })
-            .unwrap(), expected);
+            assert_eq!(
+                extract::<i64>(match report.outcome {
+                    Outcome::Value(v) => v,
+                    other => panic!("{other:?}"),
+                })
+                .unwrap(),
+                expected
+            );
         }
         // Fresh, tight limits hold for the call alone.
         let request = Arena::new();
         let call = request.app(request.copy_term(price), request.int(3));
-        let report = machine.run(&Program::new(call).unwrap(), &Limits::default().with_fuel(2), &request);
+        let report = machine.run(
+            &Program::new(call).unwrap(),
+            &Limits::default().with_fuel(2),
+            &request,
+        );
         assert_eq!(report.outcome, Outcome::OutOfFuel);
     }
 }
@@ -325,7 +358,11 @@ fn a_cancelled_handle_stops_every_machine_before_it_starts() {
             Outcome::Limit(l) => assert_eq!(l.kind(), LimitKind::Cancelled, "{}", machine.name()),
             other => panic!("{}: {other:?}", machine.name()),
         }
-        assert!(report.counts.total() <= CANCEL_POLL_INTERVAL, "{}", machine.name());
+        assert!(
+            report.counts.total() <= CANCEL_POLL_INTERVAL,
+            "{}",
+            machine.name()
+        );
     }
 }
 
@@ -333,7 +370,9 @@ fn a_cancelled_handle_stops_every_machine_before_it_starts() {
 fn a_handle_cancelled_from_another_thread_stops_a_divergent_run() {
     for machine in MachineKind::enabled() {
         let cancel = Cancel::new();
-        let limits = Limits::default().with_fuel(u64::MAX).with_cancel(cancel.clone());
+        let limits = Limits::default()
+            .with_fuel(u64::MAX)
+            .with_cancel(cancel.clone());
         let (started_tx, started_rx) = std::sync::mpsc::channel();
         let worker = std::thread::spawn(move || {
             let arena = Arena::new();
@@ -347,7 +386,12 @@ fn a_handle_cancelled_from_another_thread_stops_a_divergent_run() {
         });
         started_rx.recv().unwrap();
         cancel.cancel();
-        assert_eq!(worker.join().unwrap(), LimitKind::Cancelled, "{}", machine.name());
+        assert_eq!(
+            worker.join().unwrap(),
+            LimitKind::Cancelled,
+            "{}",
+            machine.name()
+        );
     }
 }
 
@@ -356,7 +400,9 @@ fn a_paused_run_that_is_cancelled_reports_it_on_resume() {
     let arena = Arena::new();
     let program = parse(&arena, "let rec spin n = spin (n + 1) in spin 0").unwrap();
     let cancel = Cancel::new();
-    let limits = Limits::default().with_fuel(5_000).with_cancel(cancel.clone());
+    let limits = Limits::default()
+        .with_fuel(5_000)
+        .with_cancel(cancel.clone());
     let mut stepper = Stepper::start(&program, &limits);
     let mut cek = Cek::start(&program, &limits);
     assert_eq!(stepper.resume(0, &arena).outcome, Outcome::OutOfFuel);

@@ -16,10 +16,19 @@ const LIMIT: usize = 64 << 20;
 
 /// Programs that grow without bound, each a different kind of runtime data.
 const BOMBS: &[(&str, &str)] = &[
-    ("list", "let rec grow n acc = grow (n + 1) (Cons(n, acc)) in grow 0 Nil"),
-    ("string", "let rec double s = double (s ++ s) in double \"seed\""),
+    (
+        "list",
+        "let rec grow n acc = grow (n + 1) (Cons(n, acc)) in grow 0 Nil",
+    ),
+    (
+        "string",
+        "let rec double s = double (s ++ s) in double \"seed\"",
+    ),
     ("stack", "let rec deep n = 1 + deep (n + 1) in deep 0"),
-    ("closures", "let rec wrap f n = wrap (\\x. f (x + n)) (n + 1) in wrap (\\x. x) 0"),
+    (
+        "closures",
+        "let rec wrap f n = wrap (\\x. f (x + n)) (n + 1) in wrap (\\x. x) 0",
+    ),
 ];
 
 /// `VmRSS` or `VmHWM` of this process, in bytes.
@@ -77,11 +86,17 @@ fn main() {
             let text = String::from_utf8_lossy(&output.stdout);
             let fields: Vec<&str> = text.split_whitespace().collect();
             let [baseline, peak, outcome] = fields.as_slice() else {
-                failures.push(format!("{} {bomb}: child said {text:?} {:?}", machine.name(), output.status));
+                failures.push(format!(
+                    "{} {bomb}: child said {text:?} {:?}",
+                    machine.name(),
+                    output.status
+                ));
                 continue;
             };
-            let (baseline, peak): (usize, usize) =
-                (baseline.parse().unwrap_or(0), peak.parse().unwrap_or(usize::MAX));
+            let (baseline, peak): (usize, usize) = (
+                baseline.parse().unwrap_or(0),
+                peak.parse().unwrap_or(usize::MAX),
+            );
             let over = peak.saturating_sub(baseline);
             println!(
                 "{:<8} {bomb:<9} baseline {:>6.1} MiB  peak {:>6.1} MiB  growth {:>5.1} MiB ({:.0}% of the limit)  {outcome}",
@@ -92,7 +107,10 @@ fn main() {
                 100.0 * over as f64 / LIMIT as f64
             );
             if *outcome != "memory" {
-                failures.push(format!("{} {bomb}: ended with {outcome}, not the memory limit", machine.name()));
+                failures.push(format!(
+                    "{} {bomb}: ended with {outcome}, not the memory limit",
+                    machine.name()
+                ));
             }
             if over > LIMIT + LIMIT / 4 {
                 failures.push(format!(
