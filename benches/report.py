@@ -98,6 +98,8 @@ def workload_table(estimates, contractions):
     throughput_lines = []
     for group in sorted(groups, key=workload_order):
         row = groups[group]
+        if group.startswith("accounting "):
+            continue
         if "rust" not in row:
             for function, est in sorted(row.items()):
                 throughput_lines.append(throughput_line(group, function, est))
@@ -196,6 +198,23 @@ def space_table(root):
     return lines
 
 
+def accounting_table(estimates):
+    """env and cek beside their `without_accounting` builds: the share of
+    the run the accounting takes."""
+    groups = sorted({g for (g, _f, v) in estimates if g.startswith("accounting ") and v is None},
+                    key=workload_order)
+    if not groups:
+        return []
+    lines = ["| workload | machine | accounted | unaccounted | accounting's share |", "|---|---|---|---|---|"]
+    for group in groups:
+        for m in MACHINE_ORDER:
+            x, y = median(estimates, group, m), median(estimates, group, f"{m} unaccounted")
+            if x and y:
+                lines.append(f"| {group[len('accounting '):]} | {m} | {human_time(x)} | {human_time(y)} "
+                             f"| {(x - y) / x * 100:.1f}% |")
+    return lines
+
+
 def median(estimates, group, function, value=None):
     est = estimates.get((group, function, value))
     return est["median"] if est else None
@@ -207,9 +226,13 @@ def targets(estimates, contractions, root):
     lines = ["| target | measured | met |", "|---|---|---|"]
 
     def add(name, value, ok, fmt="{:.3g}"):
-        shown = fmt.format(value) if value is not None else "not measured"
-        met = "–" if value is None else ("yes" if ok(value) else "**no**")
-        lines.append(f"| {name} | {shown} | {met} |")
+        if value is None:
+            missing.append(name)
+            return
+        met = "yes" if ok(value) else "**no**"
+        lines.append(f"| {name} | {fmt.format(value)} | {met} |")
+
+    missing = []
 
     def over(group, a, b):
         x, y = median(estimates, group, a), median(estimates, group, b)
@@ -256,6 +279,8 @@ def targets(estimates, contractions, root):
             x, y = median(estimates, group, m), median(estimates, group, f"{m} unaccounted")
             add(f"{group}: {m}'s fuel and memory accounting under 5% of the run",
                 (x - y) / x * 100 if x and y else None, lambda pct: pct < 5, "{:.1f}%")
+    if missing:
+        lines.append("\nNot measured in this run: " + "; ".join(missing) + ".")
     return lines
 
 
@@ -325,8 +350,11 @@ def escape(text):
 def main():
     here = os.path.dirname(os.path.abspath(__file__))
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--criterion", default=os.path.join(here, "..", "target", "criterion"),
-                        help="criterion's output directory (default: target/criterion)")
+    default = os.environ.get("CRITERION_HOME") or os.path.join(
+        os.environ.get("CARGO_TARGET_DIR") or os.path.join(here, "..", "target"), "criterion")
+    parser.add_argument("--criterion", default=default,
+                        help="criterion's output directory (default: $CRITERION_HOME, "
+                             "else $CARGO_TARGET_DIR/criterion, else target/criterion)")
     parser.add_argument("--svg", default=os.path.join(here, "ratios.svg"),
                         help="where to write the chart (default: benches/ratios.svg)")
     args = parser.parse_args()
@@ -335,14 +363,16 @@ def main():
     estimates = load_estimates(args.criterion)
     contractions = load_contractions(args.criterion)
     table, throughput, chart = workload_table(estimates, contractions)
-    print("### Workloads (median per iteration)\n")
-    print("\n".join(table))
+    if len(table) > 2:
+        print("### Workloads (median per iteration)\n")
+        print("\n".join(table))
     if throughput:
         print("\n### Per run and throughput\n")
         print("\n".join(throughput))
     slopes, depth = scaling_tables(estimates, contractions)
-    print("\n### Scaling: time against contractions\n")
-    print("\n".join(slopes))
+    if len(slopes) > 2:
+        print("\n### Scaling: time against contractions\n")
+        print("\n".join(slopes))
     if depth:
         print("\n### de Bruijn depth: time per contraction\n")
         print("\n".join(depth))
@@ -350,6 +380,10 @@ def main():
     if space:
         print("\n### Space: 10^7-iteration tail loop\n")
         print("\n".join(space))
+    accounting = accounting_table(estimates)
+    if accounting:
+        print("\n### Accounting overhead\n")
+        print("\n".join(accounting))
     print("\n### Targets\n")
     print("\n".join(targets(estimates, contractions, args.criterion)))
     svg_chart(chart, args.svg)

@@ -390,13 +390,16 @@ pub fn record_contractions(id: &str, contractions: u64) {
     record_line("contractions.tsv", &format!("{id}\t{contractions}"));
 }
 
-/// Append `line` to `file` in criterion's output directory,
-/// `$CARGO_TARGET_DIR/criterion` (by default `target/criterion`).
+/// Append `line` to `file` in criterion's output directory, found as
+/// criterion finds it: `$CRITERION_HOME`, else `$CARGO_TARGET_DIR/criterion`,
+/// else `target/criterion`.
 pub fn record_line(file: &str, line: &str) {
-    let target = std::env::var_os("CARGO_TARGET_DIR")
+    let dir = std::env::var_os("CRITERION_HOME")
         .map(PathBuf::from)
-        .unwrap_or_else(|| PathBuf::from("target"));
-    let dir = target.join("criterion");
+        .or_else(|| {
+            std::env::var_os("CARGO_TARGET_DIR").map(|t| PathBuf::from(t).join("criterion"))
+        })
+        .unwrap_or_else(|| PathBuf::from("target/criterion"));
     let written = std::fs::create_dir_all(&dir).and_then(|()| {
         let mut file = OpenOptions::new()
             .create(true)
