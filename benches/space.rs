@@ -5,7 +5,9 @@
 use std::process::{Command, ExitCode};
 use std::time::Instant;
 
-use orrery::{Arena, Machine, MachineKind, Outcome};
+#[cfg(any(feature = "env", feature = "cek"))]
+use orrery::Machine;
+use orrery::{Arena, MachineKind, Outcome};
 
 // Each bench target uses a part of the shared workloads.
 #[allow(dead_code)]
@@ -39,24 +41,22 @@ fn child(name: &str) -> ExitCode {
     let program = program(&arena, &tail_loop(ITERATIONS));
     let expected = tail(ITERATIONS as i64).to_string();
     let baseline = status_bytes("VmRSS:").unwrap_or(0);
-    let mut peak_bytes = None;
     let started = Instant::now();
-    let report = match name {
+    // env and cek report their own peak of runtime bytes; the stepper does not.
+    let (report, peak_bytes) = match name {
         #[cfg(feature = "env")]
         "env" => {
             let mut env = orrery::machines::env::Env::new();
             let report = env.run(&program, &unlimited(), &arena);
-            peak_bytes = Some(env.peak_bytes());
-            report
+            (report, Some(env.peak_bytes()))
         }
         #[cfg(feature = "cek")]
         "cek" => {
             let mut cek = orrery::machines::cek::Cek::new();
             let report = cek.run(&program, &unlimited(), &arena);
-            peak_bytes = Some(cek.peak_bytes());
-            report
+            (report, Some(cek.peak_bytes()))
         }
-        _ => kind.machine().run(&program, &unlimited(), &arena),
+        _ => (kind.machine().run(&program, &unlimited(), &arena), None),
     };
     let seconds = started.elapsed().as_secs_f64();
     let peak = status_bytes("VmHWM:").unwrap_or(0);
@@ -65,7 +65,7 @@ fn child(name: &str) -> ExitCode {
         Outcome::Value(v) => format!("wrong value {}", orrery::print(v)),
         other => other.name().to_string(),
     };
-    let peak_bytes = peak_bytes.map_or("-".to_string(), |b| b.to_string());
+    let peak_bytes = peak_bytes.map_or("-".to_string(), |b: usize| b.to_string());
     println!(
         "{name}\t{baseline}\t{peak}\t{}\t{outcome}\t{peak_bytes}\t{seconds:.2}",
         report.counts.total()
