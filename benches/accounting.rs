@@ -1,0 +1,56 @@
+//! Accounting overhead: env and cek as shipped beside the same machines built
+//! with `without_accounting` (fuel and memory checks compiled out), on
+//! call-heavy, constructor-heavy and loop workloads, in one group each.
+
+use std::time::Duration;
+
+use criterion::{criterion_group, criterion_main, Criterion};
+use orrery::{Arena, Machine};
+
+// Each bench target uses a part of the shared workloads.
+#[allow(dead_code)]
+mod workloads;
+use workloads::*;
+
+/// Bench `source` on env and cek with and without their accounting, as
+/// `accounting NAME/env`, `accounting NAME/env unaccounted`, and so for cek.
+fn overhead(c: &mut Criterion, name: &str, source: &str, expected: i64) {
+    let arena = Arena::new();
+    let program = program(&arena, source);
+    let expected = expected.to_string();
+    let mut workload = Workload::new(c, &format!("accounting {name}"));
+    workload.group().sample_size(10);
+    let mut pairs: Vec<(&str, Box<dyn Machine>)> = Vec::new();
+    #[cfg(feature = "env")]
+    {
+        use orrery::machines::env::Env;
+        pairs.push(("env", Box::new(Env::new())));
+        pairs.push(("env unaccounted", Box::new(Env::without_accounting())));
+    }
+    #[cfg(feature = "cek")]
+    {
+        use orrery::machines::cek::Cek;
+        pairs.push(("cek", Box::new(Cek::new())));
+        pairs.push(("cek unaccounted", Box::new(Cek::without_accounting())));
+    }
+    for (id, machine) in &mut pairs {
+        workload.machine(id, machine.as_mut(), &program, &unlimited(), 1, &expected);
+    }
+    workload.finish();
+}
+
+fn benches(c: &mut Criterion) {
+    overhead(c, "fib 25", &format!("{FIB}25"), fib(25));
+    overhead(c, "tak 18 12 6", &format!("{TAK}18 12 6"), tak(18, 12, 6));
+    overhead(c, "queens 8", QUEENS, queens(8));
+    overhead(c, "tail loop 10^6", &tail_loop(1_000_000), tail(1_000_000));
+}
+
+criterion_group! {
+    name = accounting;
+    config = Criterion::default()
+        .warm_up_time(Duration::from_secs(1))
+        .measurement_time(Duration::from_secs(3));
+    targets = benches
+}
+criterion_main!(accounting);

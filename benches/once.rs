@@ -1,0 +1,70 @@
+//! Run one workload once on one machine and print its outcome and
+//! contractions: a deterministic target for an instruction counter
+//! (`valgrind --tool=callgrind`), which a busy machine does not disturb the
+//! way it disturbs wall-clock time.
+
+use std::process::ExitCode;
+
+use orrery::{print, Arena, MachineKind, Outcome};
+
+// Each bench target uses a part of the shared workloads.
+#[allow(dead_code)]
+mod workloads;
+use workloads::*;
+
+/// The workloads by name: the source and the plain Rust twin's value.
+fn workload(name: &str) -> Option<(String, String)> {
+    let (source, expected) = match name {
+        "fib25" => (format!("{FIB}25"), fib(25).to_string()),
+        "fib30" => (format!("{FIB}30"), fib(30).to_string()),
+        "tak18" => (format!("{TAK}18 12 6"), tak(18, 12, 6).to_string()),
+        "tak24" => (format!("{TAK}24 16 8"), tak(24, 16, 8).to_string()),
+        "ackermann" => (format!("{ACKERMANN}3 7"), ackermann(3, 7).to_string()),
+        "queens" => (QUEENS.to_string(), queens(8).to_string()),
+        "church" => (CHURCH.to_string(), church().to_string()),
+        "tail" => (tail_loop(1_000_000), tail(1_000_000).to_string()),
+        "watering" => (WATERING.to_string(), watering(4, 31).printed()),
+        _ => return None,
+    };
+    Some((source, expected))
+}
+
+const NAMES: &str = "fib25 fib30 tak18 tak24 ackermann queens church tail watering";
+
+fn main() -> ExitCode {
+    // `cargo bench` passes `--bench`; the free arguments are ours.
+    let args: Vec<String> = std::env::args()
+        .skip(1)
+        .filter(|a| !a.starts_with('-'))
+        .collect();
+    let [name, machine] = args.as_slice() else {
+        // Run as part of a plain `cargo bench`: nothing to do.
+        eprintln!("usage: once WORKLOAD MACHINE  (workloads: {NAMES})");
+        return ExitCode::SUCCESS;
+    };
+    let Some((source, expected)) = workload(name) else {
+        eprintln!("no workload {name}; workloads: {NAMES}");
+        return ExitCode::FAILURE;
+    };
+    let Some(kind) = MachineKind::from_name(machine) else {
+        eprintln!("no machine {machine} in this build");
+        return ExitCode::FAILURE;
+    };
+    let arena = Arena::new();
+    let program = program(&arena, &source);
+    let out = Arena::new();
+    let report = kind.run(&program, &unlimited(), &out);
+    match report.outcome {
+        Outcome::Value(v) if print(v) == expected => {
+            println!(
+                "{name} on {machine}: {} contractions",
+                report.counts.total()
+            );
+            ExitCode::SUCCESS
+        }
+        other => {
+            eprintln!("{name} on {machine}: {other:?}, expected {expected}");
+            ExitCode::FAILURE
+        }
+    }
+}
