@@ -97,7 +97,7 @@ fn main() {
         let report = machine.run(&program, &limits, &arena);
         (
             machine.name(),
-            format!("{:?}", report.outcome),
+            describe(&report.outcome),
             report.counts.total(),
         )
     });

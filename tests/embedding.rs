@@ -321,9 +321,8 @@ fn one_program_runs_on_many_threads_at_once() {
     let expected = 12 * 300 * 301 / 2;
     std::thread::scope(|scope| {
         let handles: Vec<_> = (0..4)
-            .flat_map(|i| MachineKind::enabled().into_iter().map(move |m| (i, m)))
+            .flat_map(|i| MachineKind::enabled().iter().map(move |&m| (i, m)))
             .map(|(i, machine)| {
-                let program = program;
                 scope.spawn(move || {
                     let out = Arena::new();
                     // Each run has its own limits: the odd ones too little fuel.

@@ -27,7 +27,7 @@ pub fn run_program_everywhere<'a>(
     let source = what;
     let mut reports: Vec<(&str, Report<'a>)> = MachineKind::enabled()
         .iter()
-        .map(|m| (m.name(), m.run(&program, limits, arena)))
+        .map(|m| (m.name(), m.run(program, limits, arena)))
         .collect();
     let (first_name, first) = reports.remove(0);
     for (name, report) in &reports {
