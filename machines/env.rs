@@ -143,7 +143,10 @@ impl Machine for Env {
         limits: &Limits,
         out: &'o Arena,
     ) -> Report<'o> {
-        let compiled = match compile_with(program.term(), &mut self.code_scratch, limits.memory) {
+        // Code of up to 64 KiB is always compiled; beyond that the memory
+        // limit bounds it (a heavily shared program unfolds here).
+        let code_budget = limits.memory.max(CODE_ALWAYS_ALLOWED);
+        let compiled = match compile_with(program.term(), &mut self.code_scratch, code_budget) {
             Ok(compiled) => compiled,
             Err(error) => {
                 let outcome = match error {
@@ -442,6 +445,11 @@ impl CodeScratch {
 }
 
 /// [`compile`], reusing the vectors of `scratch`.
+/// Bytes of compiled code allowed whatever the memory limit: the compile
+/// step's budget is the larger of this and the limit. (The code still counts
+/// against the limit while the program runs.)
+const CODE_ALWAYS_ALLOWED: usize = 64 << 10;
+
 /// Why a term did not compile.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 enum CompileError {
