@@ -124,6 +124,7 @@ impl Tank {
     }
 
     /// Whether `n` units are left in all.
+    #[cfg_attr(not(feature = "cek"), allow(dead_code))]
     #[inline(always)]
     pub(crate) fn has(&self, n: u64) -> bool {
         self.slice >= n || self.slice.saturating_add(self.reserve) >= n
@@ -138,11 +139,13 @@ impl Tank {
     }
 
     /// Units left in all.
+    #[cfg_attr(not(feature = "cek"), allow(dead_code))]
     pub(crate) fn left(&self) -> u64 {
         self.slice.saturating_add(self.reserve)
     }
 
     /// Add `more` units to the reserve.
+    #[cfg_attr(not(feature = "cek"), allow(dead_code))]
     pub(crate) fn add(&mut self, more: u64) {
         self.reserve = self.reserve.saturating_add(more);
     }
@@ -356,6 +359,7 @@ impl<'a, C: Code<'a>> Closure<'a, C> {
 impl<'a, C: Code<'a>> Closure<'a, C> {
     /// Make this closure, held by one reference, into a closure of `code`
     /// over `captured`, reusing its cell; the accounting follows.
+    #[cfg_attr(not(feature = "env"), allow(dead_code))]
     pub(crate) fn reuse(&mut self, code: C, captured: Values<'a, C>) {
         refund(values_bytes(&self.captured));
         charge(values_bytes(&captured));
