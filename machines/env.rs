@@ -1006,15 +1006,17 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
             // A call that holds the callee's only reference (the usual
             // case for the middle of a curried call) reuses its cell.
             let mut closure = closure;
-            let made = match Rc::get_mut(&mut closure) {
+            let (made, grew) = match Rc::get_mut(&mut closure) {
                 Some(cell) => {
-                    cell.reuse(inner, captured);
-                    closure
+                    let grew = cell.reuse(inner, captured);
+                    (closure, grew)
                 }
-                None => Closure::new(inner, captured),
+                None => (Closure::new(inner, captured), true),
             };
             self.stack.push(Value::Fun(made));
-            self.check_memory()?;
+            if grew {
+                self.check_memory()?;
+            }
             return Ok(None);
         }
         if tail {

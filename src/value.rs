@@ -358,14 +358,17 @@ impl<'a, C: Code<'a>> Closure<'a, C> {
 
 impl<'a, C: Code<'a>> Closure<'a, C> {
     /// Make this closure, held by one reference, into a closure of `code`
-    /// over `captured`, reusing its cell; the accounting follows.
+    /// over `captured`, reusing its cell; the accounting follows. Whether
+    /// the cell grew (its captured values spilled to a larger array).
     #[cfg_attr(not(feature = "env"), allow(dead_code))]
-    pub(crate) fn reuse(&mut self, code: C, captured: Values<'a, C>) {
-        refund(values_bytes(&self.captured));
-        charge(values_bytes(&captured));
+    pub(crate) fn reuse(&mut self, code: C, captured: Values<'a, C>) -> bool {
+        let (before, after) = (values_bytes(&self.captured), values_bytes(&captured));
+        refund(before);
+        charge(after);
         let mut old = std::mem::replace(&mut self.captured, captured);
         self.code = code;
         release(&mut old);
+        after > before
     }
 }
 
@@ -608,7 +611,7 @@ mod tests {
         let mut f = Closure::new(lam, SmallVec::from_iter([V::Int(1)]));
         // Five captured values spill out of the cell.
         let five: Values<'_, &Term<'_>> = (0..5).map(Value::Int).collect();
-        Rc::get_mut(&mut f).unwrap().reuse(lam, five.clone());
+        assert!(Rc::get_mut(&mut f).unwrap().reuse(lam, five.clone()));
         let held = meter.cells();
         let fresh = Closure::new(lam, five);
         assert_eq!(meter.cells(), 2 * held);
