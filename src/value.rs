@@ -354,9 +354,7 @@ impl<'a, C: Code<'a>> Closure<'a, C> {
         charge(RC_HEADER + std::mem::size_of::<Self>() + values_bytes(&captured));
         Rc::new(Closure { code, captured })
     }
-}
 
-impl<'a, C: Code<'a>> Closure<'a, C> {
     /// Make this closure, held by one reference, into a closure of `code`
     /// over `captured`, reusing its cell; the accounting follows. Whether
     /// the cell grew (its captured values spilled to a larger array).
@@ -587,6 +585,27 @@ mod tests {
     #[test]
     fn values_are_sixteen_bytes() {
         assert_eq!(std::mem::size_of::<V<'_>>(), 16);
+    }
+
+    #[test]
+    fn a_tank_pays_exactly_its_fuel_in_slices() {
+        let mut tank = Tank::new(2_500);
+        let (mut paid, mut slices) = (0, 0);
+        loop {
+            if !tank.take() {
+                if !tank.refill() {
+                    break;
+                }
+                slices += 1;
+                continue;
+            }
+            paid += 1;
+        }
+        assert_eq!(paid, 2_500);
+        assert_eq!(slices, 3); // 1024 + 1024 + 452
+        assert_eq!(tank.left(), 0);
+        tank.add(1);
+        assert!(tank.has(1) && !tank.has(2) && !tank.take2());
     }
 
     #[test]
