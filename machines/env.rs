@@ -1088,10 +1088,10 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
         'eval: loop {
             // Evaluate `pc` down its leftmost spine, leaving work for later.
             loop {
-                let Some(&instr) = code.code.get(pc as usize) else {
+                let Some(instr) = code.code.get(pc as usize) else {
                     return Err(inconsistent());
                 };
-                match instr {
+                match *instr {
                     Instr::Atom(atom) => {
                         self.push_atom(atom)?;
                         break;
@@ -1280,10 +1280,10 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
                     }
                     _ => {}
                 }
-                let Some(&instr) = code.code.get(at as usize) else {
+                let Some(instr) = code.code.get(at as usize) else {
                     return Err(inconsistent());
                 };
-                match instr {
+                match *instr {
                     Instr::Let { slot, body, .. } => {
                         self.take_fuel(Rule::Let)?;
                         let value = self.pop()?;
