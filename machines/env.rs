@@ -1092,15 +1092,17 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
             // A call that holds the callee's only reference (the usual
             // case for the middle of a curried call) reuses its cell.
             let mut closure = closure;
-            let made = match Rc::get_mut(&mut closure) {
+            let (made, grew) = match Rc::get_mut(&mut closure) {
                 Some(cell) => {
-                    cell.reuse(inner, captured);
-                    closure
+                    let grew = cell.reuse(inner, captured);
+                    (closure, grew)
                 }
-                None => Closure::new(inner, captured),
+                None => (Closure::new(inner, captured), true),
             };
             self.stack.push(Value::Fun(made));
-            self.check_memory()?;
+            if grew {
+                self.check_memory()?;
+            }
             return Ok(None);
         }
         if tail {
@@ -1172,10 +1174,10 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
         'eval: loop {
             // Evaluate `pc` down its leftmost spine, leaving work for later.
             loop {
-                let Some(&instr) = code.code.get(pc as usize) else {
+                let Some(instr) = code.code.get(pc as usize) else {
                     return Err(inconsistent());
                 };
-                match instr {
+                match *instr {
                     Instr::Atom(atom) => {
                         self.push_atom(atom)?;
                         break;
@@ -1364,10 +1366,10 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
                     }
                     _ => {}
                 }
-                let Some(&instr) = code.code.get(at as usize) else {
+                let Some(instr) = code.code.get(at as usize) else {
                     return Err(inconsistent());
                 };
-                match instr {
+                match *instr {
                     Instr::Let { slot, body, .. } => {
                         self.take_fuel(Rule::Let)?;
                         let value = self.pop()?;
@@ -1601,6 +1603,33 @@ mod tests {
         let unmetered = Env::without_accounting().run(&program, &Limits::default(), &arena);
         assert_eq!(metered.outcome, Outcome::Value(arena.int(45_150)));
         assert_eq!(metered, unmetered);
+    }
+
+    #[test]
+    fn a_long_curried_call_runs_without_native_recursion() {
+        // λ¹⁰⁰⁰⁰⁰. #0 applied to 1, 2, …, 100000, on a 256 KiB stack.
+        let handle = std::thread::Builder::new()
+            .stack_size(256 << 10)
+            .spawn(|| {
+                let arena = Arena::new();
+                let n = 100_000;
+                let mut f = arena.var(0);
+                for _ in 0..n {
+                    f = arena.lam(f);
+                }
+                let mut t = f;
+                for i in 1..=n {
+                    t = arena.app(t, arena.int(i));
+                }
+                let program = Program::new(t).unwrap();
+                let report = Env::new().run(&program, &Limits::default(), &arena);
+                (
+                    report.outcome == Outcome::Value(arena.int(n)),
+                    report.counts.get(Rule::Beta),
+                )
+            })
+            .unwrap();
+        assert_eq!(handle.join().unwrap(), (true, 100_000));
     }
 
     #[test]

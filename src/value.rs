@@ -128,6 +128,7 @@ impl Tank {
     }
 
     /// Whether `n` units are left in all.
+    #[cfg_attr(not(feature = "cek"), allow(dead_code))]
     #[inline(always)]
     pub(crate) fn has(&self, n: u64) -> bool {
         self.slice >= n || self.slice.saturating_add(self.reserve) >= n
@@ -142,11 +143,13 @@ impl Tank {
     }
 
     /// Units left in all.
+    #[cfg_attr(not(feature = "cek"), allow(dead_code))]
     pub(crate) fn left(&self) -> u64 {
         self.slice.saturating_add(self.reserve)
     }
 
     /// Add `more` units to the reserve.
+    #[cfg_attr(not(feature = "cek"), allow(dead_code))]
     pub(crate) fn add(&mut self, more: u64) {
         self.reserve = self.reserve.saturating_add(more);
     }
@@ -367,17 +370,19 @@ impl<'a, C: Code<'a>> Closure<'a, C> {
         charge(RC_HEADER + std::mem::size_of::<Self>() + values_bytes(&captured));
         Rc::new(Closure { code, captured })
     }
-}
 
-impl<'a, C: Code<'a>> Closure<'a, C> {
     /// Make this closure, held by one reference, into a closure of `code`
-    /// over `captured`, reusing its cell; the accounting follows.
-    pub(crate) fn reuse(&mut self, code: C, captured: Values<'a, C>) {
-        refund(values_bytes(&self.captured));
-        charge(values_bytes(&captured));
+    /// over `captured`, reusing its cell; the accounting follows. Whether
+    /// the cell grew (its captured values spilled to a larger array).
+    #[cfg_attr(not(feature = "env"), allow(dead_code))]
+    pub(crate) fn reuse(&mut self, code: C, captured: Values<'a, C>) -> bool {
+        let (before, after) = (values_bytes(&self.captured), values_bytes(&captured));
+        refund(before);
+        charge(after);
         let mut old = std::mem::replace(&mut self.captured, captured);
         self.code = code;
         release(&mut old);
+        after > before
     }
 }
 
@@ -671,6 +676,27 @@ mod tests {
     }
 
     #[test]
+    fn a_tank_pays_exactly_its_fuel_in_slices() {
+        let mut tank = Tank::new(2_500);
+        let (mut paid, mut slices) = (0, 0);
+        loop {
+            if !tank.take() {
+                if !tank.refill() {
+                    break;
+                }
+                slices += 1;
+                continue;
+            }
+            paid += 1;
+        }
+        assert_eq!(paid, 2_500);
+        assert_eq!(slices, 3); // 1024 + 1024 + 452
+        assert_eq!(tank.left(), 0);
+        tank.add(1);
+        assert!(tank.has(1) && !tank.has(2) && !tank.take2());
+    }
+
+    #[test]
     fn cells_are_charged_and_refunded() {
         let arena = Arena::new();
         let meter = Meter::holding(0);
@@ -692,7 +718,7 @@ mod tests {
         let mut f = Closure::new(lam, SmallVec::from_iter([V::Int(1)]));
         // Five captured values spill out of the cell.
         let five: Values<'_, &Term<'_>> = (0..5).map(Value::Int).collect();
-        Rc::get_mut(&mut f).unwrap().reuse(lam, five.clone());
+        assert!(Rc::get_mut(&mut f).unwrap().reuse(lam, five.clone()));
         let held = meter.cells();
         let fresh = Closure::new(lam, five);
         assert_eq!(meter.cells(), 2 * held);
