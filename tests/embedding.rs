@@ -415,3 +415,59 @@ fn a_paused_run_that_is_cancelled_reports_it_on_resume() {
         assert!(report.counts.total() <= 5_000 + CANCEL_POLL_INTERVAL);
     }
 }
+
+#[test]
+fn every_fuel_bound_agrees_with_costed_host_calls_in_a_loop() {
+    let host = orchard();
+    let arena = Arena::new();
+    // Host calls of growing cost inside a non-tail recursion, with a host
+    // error at the end of one branch.
+    let source = r#"
+        let rec go n = if n == 0 then 0
+                       else length (banner "ab" n) + litres_for n 1 + go (n - 1) in
+        Pair(go 4, case rows 2 of { Cons(h, t) => h; Nil => "none" })"#;
+    let program = parse_with(&arena, source, &host).unwrap();
+    let whole = run_program_everywhere(&arena, &program, &Limits::default(), source);
+    assert!(matches!(whole.outcome, Outcome::Value(_)));
+    // banner costs 2n for n = 4, 3, 2, 1.
+    assert_eq!(whole.counts.host_fuel(), 2 * (4 + 3 + 2 + 1));
+    for fuel in 0..=whole.counts.fuel() + 1 {
+        let limits = Limits::default().with_fuel(fuel);
+        let report = run_program_everywhere(&arena, &program, &limits, source);
+        assert!(
+            report.counts.fuel() <= fuel,
+            "fuel {fuel}: {}",
+            report.counts
+        );
+        if fuel >= whole.counts.fuel() {
+            assert_eq!(report.outcome, whole.outcome, "fuel {fuel}");
+        } else {
+            assert_eq!(report.outcome, Outcome::OutOfFuel, "fuel {fuel}");
+        }
+    }
+    // Paused in slices of 1, 2 and 3 units, both pausing machines end as the
+    // uninterrupted run.
+    for slice in 1..=3 {
+        let none = Limits::default().with_fuel(0);
+        let mut stepper = Stepper::start(&program, &none);
+        let stepper_end = loop {
+            let report = stepper.resume(slice, &arena);
+            if report.outcome != Outcome::OutOfFuel {
+                break report;
+            }
+        };
+        let mut cek = Cek::start(&program, &none);
+        let cek_end = loop {
+            let report = cek.resume(slice, &arena);
+            if report.outcome != Outcome::OutOfFuel {
+                break report;
+            }
+        };
+        for end in [stepper_end, cek_end] {
+            assert!(
+                disagreement(&whole, &end).is_none(),
+                "slices of {slice}: {end:?}"
+            );
+        }
+    }
+}
