@@ -121,8 +121,15 @@ pub fn check_agree(bytes: &[u8]) {
     else {
         return;
     };
+    check_pauses(
+        &program,
+        &limits,
+        &arena,
+        &reports,
+        1 + bytes.len() as u64 % 7,
+    );
     if steps > 0 {
-        let shorter = limits.with_fuel(steps - 1);
+        let shorter = limits.clone().with_fuel(steps - 1);
         for (name, report) in run_all(&program, &shorter, &arena) {
             assert!(
                 matches!(report.outcome, Outcome::OutOfFuel | Outcome::Limit(_)),
@@ -132,6 +139,47 @@ pub fn check_agree(bytes: &[u8]) {
             );
         }
     }
+}
+
+/// The pausing machines, resumed in slices of `slice` units from no fuel,
+/// must end exactly where their uninterrupted runs did (the same report,
+/// limits aside).
+fn check_pauses<'a>(
+    program: &Program<'a>,
+    limits: &Limits,
+    arena: &'a Arena,
+    reports: &[(&'static str, Report<'a>)],
+    slice: u64,
+) {
+    let whole = |name: &str| reports.iter().find(|(n, _)| *n == name).map(|(_, r)| r);
+    let start = limits.clone().with_fuel(0);
+    if let Some(whole) = whole("stepper") {
+        let mut run = orrery::machines::stepper::Stepper::start(program, &start);
+        let end = resumed_end(|more| run.resume(more, arena), limits.fuel, slice);
+        if let Some(why) = disagreement(whole, &end) {
+            panic!("stepper paused every {slice} units disagrees with its whole run: {why}");
+        }
+    }
+    if let Some(whole) = whole("cek") {
+        let mut run = orrery::machines::cek::Cek::start(program, &start);
+        let end = resumed_end(|more| run.resume(more, arena), limits.fuel, slice);
+        if let Some(why) = disagreement(whole, &end) {
+            panic!("cek paused every {slice} units disagrees with its whole run: {why}");
+        }
+    }
+}
+
+/// Resume a paused run in slices of `slice` units until it ends or has been
+/// given `fuel` in all; its last report.
+fn resumed_end<'a>(mut resume: impl FnMut(u64) -> Report<'a>, fuel: u64, slice: u64) -> Report<'a> {
+    let mut given = 0;
+    let mut end = resume(0);
+    while end.outcome == Outcome::OutOfFuel && given < fuel {
+        let more = slice.min(fuel - given);
+        given += more;
+        end = resume(more);
+    }
+    end
 }
 
 /// Run `program` on every enabled machine, check each report against the
@@ -189,9 +237,9 @@ const MAX_DEPTH: u32 = 40;
 /// How many nodes the decoder builds before it builds only leaves.
 const MAX_NODES: u32 = 4_000;
 
-/// How many shared subterms one input may build. The env machine turns a
-/// shared program into a tree when it compiles it (reported as a bug; see
-/// `tests/hostile.rs`), so deeper sharing would only find that bug again.
+/// How many shared subterms one input may build. The env machine compiles a
+/// shared subterm once per occurrence (stopping at the memory limit; see
+/// `tests/hostile.rs`), so deeper sharing only tests that limit again.
 const MAX_SHARES: u32 = 8;
 
 /// Decode bytes into a closed, valid term through the builder API, so almost
