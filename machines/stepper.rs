@@ -224,6 +224,19 @@ enum Segment<'r> {
 }
 
 /// A callback that sees each contraction's rule and redex.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::machines::stepper::{Stepper, Tracer};
+/// use orrery::{parse, Arena, Limits, Rule};
+/// let arena = Arena::new();
+/// let program = parse(&arena, "let fee = 3 in fee + 1").unwrap();
+/// let mut rules = Vec::new();
+/// let tracer: &mut Tracer<'_> = &mut |rule, _redex| rules.push(rule);
+/// Stepper::new().run_traced(&program, &Limits::default(), &arena, tracer);
+/// assert_eq!(rules, [Rule::Let, Rule::Prim]);
+/// ```
 pub type Tracer<'t> = dyn FnMut(Rule, &Term<'_>) + 't;
 
 /// Everything a stretch of reduction reads and updates besides the arena.
@@ -491,6 +504,19 @@ fn host_contraction<'r>(
 
 /// The result of [`step`]: one contraction of a closed term.
 #[derive(Clone, Debug)]
+///
+/// # Examples
+///
+/// ```
+/// use orrery::machines::stepper::{step, Step};
+/// use orrery::{parse_term, Arena, ErrorKind, Rule};
+/// let arena = Arena::new();
+/// assert!(matches!(step(&arena, arena.int(5)), Step::Value));
+/// let t = parse_term(&arena, "let boxes = 0 in 12 / boxes").unwrap();
+/// let Step::Contracted { next, .. } = step(&arena, t) else { panic!() };
+/// let Step::Stuck { rule, error, .. } = step(&arena, next) else { panic!() };
+/// assert_eq!((rule, error.kind()), (Rule::Prim, ErrorKind::DivisionByZero));
+/// ```
 pub enum Step<'r> {
     /// The term is a value: nothing to contract.
     Value,
@@ -693,6 +719,18 @@ enum Drive<'o> {
 /// Between resumes it holds the whole current term in the arena the last
 /// resume was given, so each pause costs a copy of the live term there.
 #[derive(Debug)]
+///
+/// # Examples
+///
+/// ```
+/// use orrery::machines::stepper::Stepper;
+/// use orrery::{parse, Arena, Limits, Outcome};
+/// let arena = Arena::new();
+/// let program = parse(&arena, "let stock = 40 in stock - 15").unwrap();
+/// let mut run = Stepper::start(&program, &Limits::default().with_fuel(1));
+/// assert_eq!(run.resume(0, &arena).outcome, Outcome::OutOfFuel);
+/// assert_eq!(run.resume(1, &arena).outcome, Outcome::Value(arena.int(25)));
+/// ```
 pub struct StepperRun<'r> {
     scratch: Stepper,
     host: &'r HostFunctions,
@@ -747,16 +785,54 @@ impl<'r> StepperRun<'r> {
     }
 
     /// Contractions made so far.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::machines::stepper::Stepper;
+    /// use orrery::{parse, Arena, Limits, Rule};
+    /// let arena = Arena::new();
+    /// let program = parse(&arena, "(1 + 2) * (3 + 4)").unwrap();
+    /// let mut run = Stepper::start(&program, &Limits::default().with_fuel(2));
+    /// run.resume(0, &arena);
+    /// assert_eq!(run.counts().get(Rule::Prim), 2);
+    /// ```
     pub fn counts(&self) -> Counts {
         self.counts
     }
 
     /// Fuel not yet used.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::machines::stepper::Stepper;
+    /// use orrery::{parse, Arena, Limits};
+    /// let arena = Arena::new();
+    /// let program = parse(&arena, "(1 + 2) * (3 + 4)").unwrap();
+    /// let mut run = Stepper::start(&program, &Limits::default().with_fuel(10));
+    /// run.resume(0, &arena);
+    /// assert_eq!(run.fuel_left(), 10 - 3);
+    /// ```
     pub fn fuel_left(&self) -> u64 {
         self.fuel_left
     }
 
     /// Whether the run has ended (with a value, an error or a limit).
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::machines::stepper::Stepper;
+    /// use orrery::{parse, Arena, Limits};
+    /// let arena = Arena::new();
+    /// let program = parse(&arena, "if 2 < 3 then 1 else 0").unwrap();
+    /// let mut run = Stepper::start(&program, &Limits::default().with_fuel(1));
+    /// run.resume(0, &arena);
+    /// assert!(!run.is_finished());
+    /// run.resume(1, &arena);
+    /// assert!(run.is_finished());
+    /// ```
     pub fn is_finished(&self) -> bool {
         self.end.is_some()
     }

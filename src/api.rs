@@ -10,9 +10,25 @@ use crate::validate::Program;
 
 /// Default fuel: one hundred million contractions (a few seconds on the fast
 /// machines).
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{Limits, DEFAULT_FUEL};
+/// assert_eq!(DEFAULT_FUEL, 100_000_000);
+/// assert_eq!(Limits::default().fuel, DEFAULT_FUEL);
+/// ```
 pub const DEFAULT_FUEL: u64 = 100_000_000;
 
 /// Default memory limit: 256 MiB of machine-owned runtime data.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{Limits, DEFAULT_MEMORY};
+/// assert_eq!(DEFAULT_MEMORY, 256 * 1024 * 1024);
+/// assert_eq!(Limits::default().memory, DEFAULT_MEMORY);
+/// ```
 pub const DEFAULT_MEMORY: usize = 256 << 20;
 
 /// How far a run may go. Both bounds are finite by default.
@@ -97,6 +113,17 @@ impl Limits {
 
     /// Whether the run these limits govern has been cancelled.
     #[inline]
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Cancel, Limits};
+    /// let cancel = Cancel::new();
+    /// let limits = Limits::default().with_cancel(cancel.clone());
+    /// assert!(!limits.is_cancelled());
+    /// cancel.cancel();
+    /// assert!(limits.is_cancelled());
+    /// ```
     pub fn is_cancelled(&self) -> bool {
         self.cancel.as_ref().is_some_and(Cancel::is_cancelled)
     }
@@ -105,6 +132,22 @@ impl Limits {
 /// Machines look at the cancellation flag at least once every this many
 /// contractions (and before the first), so a cancelled run stops within this
 /// many further contractions.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{parse, Arena, Cancel, Limits, MachineKind, Outcome, CANCEL_POLL_INTERVAL};
+/// let arena = Arena::new();
+/// let program = parse(&arena, "let rec pace n = pace (n + 1) in pace 0").unwrap();
+/// let cancel = Cancel::new();
+/// cancel.cancel();
+/// let limits = Limits::default().with_cancel(cancel);
+/// for kind in MachineKind::enabled() {
+///     let report = kind.run(&program, &limits, &arena);
+///     assert!(matches!(report.outcome, Outcome::Limit(_)));
+///     assert!(report.counts.total() <= CANCEL_POLL_INTERVAL);
+/// }
+/// ```
 pub const CANCEL_POLL_INTERVAL: u64 = 1024;
 
 /// A cancellation handle: cheap to clone, shared between threads. Cancelling
@@ -132,17 +175,43 @@ pub struct Cancel {
 
 impl Cancel {
     /// A fresh handle, not cancelled.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// assert!(!orrery::Cancel::new().is_cancelled());
+    /// ```
     pub fn new() -> Self {
         Cancel::default()
     }
 
     /// Cancel every run that holds this handle (or a clone of it).
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::Cancel;
+    /// let cancel = Cancel::new();
+    /// let held_by_a_run = cancel.clone();
+    /// cancel.cancel();
+    /// assert!(held_by_a_run.is_cancelled());
+    /// ```
     pub fn cancel(&self) {
         self.flag.store(true, std::sync::atomic::Ordering::Relaxed);
     }
 
     /// Whether [`Cancel::cancel`] has been called on this handle or a clone.
     #[inline]
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::Cancel;
+    /// let (first, second) = (Cancel::new(), Cancel::new());
+    /// first.cancel();
+    /// assert!(first.is_cancelled());
+    /// assert!(!second.is_cancelled());
+    /// ```
     pub fn is_cancelled(&self) -> bool {
         self.flag.load(std::sync::atomic::Ordering::Relaxed)
     }
@@ -185,6 +254,14 @@ pub enum Rule {
 
 impl Rule {
     /// Every rule, in the order of DESIGN §1 (and of the JSON output).
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::Rule;
+    /// let names = Rule::ALL.map(Rule::name);
+    /// assert_eq!(names, ["beta", "beta_rec", "let", "if", "prim", "case"]);
+    /// ```
     pub const ALL: [Rule; 6] = [
         Rule::Beta,
         Rule::BetaRec,
@@ -241,6 +318,15 @@ pub struct Counts {
 impl Counts {
     /// Count one more contraction under `rule`.
     #[inline]
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Counts, Rule};
+    /// let mut counts = Counts::default();
+    /// counts.add(Rule::Case);
+    /// assert_eq!((counts.get(Rule::Case), counts.get(Rule::Beta)), (1, 0));
+    /// ```
     pub fn add(&mut self, rule: Rule) {
         self.by_rule[rule as usize] += 1;
     }
@@ -262,22 +348,56 @@ impl Counts {
     }
 
     /// Fuel used by host functions beyond one unit per call.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// let mut counts = orrery::Counts::default();
+    /// counts.add_host_fuel(4);
+    /// counts.add_host_fuel(3);
+    /// assert_eq!(counts.host_fuel(), 7);
+    /// ```
     pub fn host_fuel(&self) -> u64 {
         self.host_fuel
     }
 
     /// All fuel used: one unit per contraction, plus host functions' costs.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// let mut counts = orrery::Counts::from_array([2, 0, 1, 0, 0, 0]);
+    /// counts.add_host_fuel(5);
+    /// assert_eq!(counts.fuel(), 3 + 5);
+    /// ```
     pub fn fuel(&self) -> u64 {
         self.total().saturating_add(self.host_fuel)
     }
 
     /// Contractions made under `rule`.
     #[inline]
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Counts, Rule};
+    /// let counts = Counts::from_array([0, 0, 3, 0, 1, 0]);
+    /// assert_eq!(counts.get(Rule::Let), 3);
+    /// assert_eq!(counts.get(Rule::Prim), 1);
+    /// ```
     pub fn get(&self, rule: Rule) -> u64 {
         self.by_rule[rule as usize]
     }
 
     /// All contractions made.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// let mut counts = orrery::Counts::from_array([1, 2, 3, 0, 0, 4]);
+    /// counts.add_host_fuel(100); // host fuel is not a contraction
+    /// assert_eq!(counts.total(), 10);
+    /// ```
     pub fn total(&self) -> u64 {
         self.by_rule.iter().sum()
     }
@@ -298,6 +418,15 @@ impl Counts {
     }
 
     /// Per-rule numbers in the order of [`Rule::ALL`].
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Counts, Rule};
+    /// let mut counts = Counts::default();
+    /// counts.add(Rule::BetaRec);
+    /// assert_eq!(counts.to_array(), [0, 1, 0, 0, 0, 0]);
+    /// ```
     pub fn to_array(&self) -> [u64; 6] {
         self.by_rule
     }
@@ -355,6 +484,13 @@ pub enum ErrorKind {
 
 impl ErrorKind {
     /// The stable snake_case name used in the JSON output.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// assert_eq!(orrery::ErrorKind::NoMatchingCase.name(), "no_matching_case");
+    /// assert_eq!(orrery::ErrorKind::HostError.name(), "host_error");
+    /// ```
     pub fn name(self) -> &'static str {
         match self {
             ErrorKind::NotAFunction => "not_a_function",
@@ -388,6 +524,15 @@ pub struct EvalError {
 
 impl EvalError {
     /// An error of `kind` with a message.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{ErrorKind, EvalError};
+    /// let e = EvalError::new(ErrorKind::HostError, "the glaze kiln is offline");
+    /// assert_eq!(e.kind(), ErrorKind::HostError);
+    /// assert_eq!(e.message(), "the glaze kiln is offline");
+    /// ```
     pub fn new(kind: ErrorKind, message: impl Into<String>) -> Self {
         EvalError {
             kind,
@@ -413,6 +558,15 @@ impl EvalError {
     }
 
     /// An `if` whose condition is `condition`, not a boolean.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{ErrorKind, EvalError, Operand};
+    /// let e = EvalError::not_a_boolean(Operand::Str("yes"));
+    /// assert_eq!(e.kind(), ErrorKind::NotABoolean);
+    /// assert_eq!(e.message(), "the condition of an if is a string");
+    /// ```
     pub fn not_a_boolean(condition: Operand<'_>) -> Self {
         EvalError::new(
             ErrorKind::NotABoolean,
@@ -421,6 +575,15 @@ impl EvalError {
     }
 
     /// A `case` with no arm for `scrutinee` and no default arm.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{ErrorKind, EvalError, Operand};
+    /// let e = EvalError::no_matching_case(Operand::Con("Drizzle"));
+    /// assert_eq!(e.kind(), ErrorKind::NoMatchingCase);
+    /// assert!(e.message().contains("the constructor Drizzle"));
+    /// ```
     pub fn no_matching_case(scrutinee: Operand<'_>) -> Self {
         EvalError::new(
             ErrorKind::NoMatchingCase,
@@ -429,11 +592,31 @@ impl EvalError {
     }
 
     /// The error's kind.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{parse, Arena, ErrorKind, Limits, MachineKind, Outcome};
+    /// let arena = Arena::new();
+    /// let program = parse(&arena, "let crates = 0 in 120 / crates").unwrap();
+    /// for kind in MachineKind::enabled() {
+    ///     let Outcome::Error(e) = kind.run(&program, &Limits::default(), &arena).outcome else { panic!() };
+    ///     assert_eq!(e.kind(), ErrorKind::DivisionByZero);
+    /// }
+    /// ```
     pub fn kind(&self) -> ErrorKind {
         self.kind
     }
 
     /// The message.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{ErrorKind, EvalError};
+    /// let e = EvalError::new(ErrorKind::TypeMismatch, "a string plus an integer");
+    /// assert_eq!(e.message(), "a string plus an integer");
+    /// ```
     pub fn message(&self) -> &str {
         &self.message
     }
@@ -460,6 +643,12 @@ pub enum LimitKind {
 
 impl LimitKind {
     /// The stable snake_case name used in the JSON output.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// assert_eq!(orrery::LimitKind::Cancelled.name(), "cancelled");
+    /// ```
     pub fn name(self) -> &'static str {
         match self {
             LimitKind::Memory => "memory",
@@ -486,6 +675,15 @@ pub struct LimitError {
 
 impl LimitError {
     /// A limit of `kind` with a message.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{LimitError, LimitKind};
+    /// let e = LimitError::new(LimitKind::Cancelled, "the harbour closed");
+    /// assert_eq!(e.kind(), LimitKind::Cancelled);
+    /// assert_eq!(e.to_string(), "cancelled: the harbour closed");
+    /// ```
     pub fn new(kind: LimitKind, message: impl Into<String>) -> Self {
         LimitError {
             kind,
@@ -494,6 +692,15 @@ impl LimitError {
     }
 
     /// The memory limit, with a message giving the bound.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{LimitError, LimitKind};
+    /// let e = LimitError::memory(4096);
+    /// assert_eq!(e.kind(), LimitKind::Memory);
+    /// assert!(e.message().contains("4096 bytes"));
+    /// ```
     pub fn memory(limit: usize) -> Self {
         LimitError::new(
             LimitKind::Memory,
@@ -502,16 +709,38 @@ impl LimitError {
     }
 
     /// The cancellation limit.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{LimitError, LimitKind};
+    /// assert_eq!(LimitError::cancelled().kind(), LimitKind::Cancelled);
+    /// ```
     pub fn cancelled() -> Self {
         LimitError::new(LimitKind::Cancelled, "the run was cancelled by its host")
     }
 
     /// The limit's kind.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{LimitError, LimitKind};
+    /// assert_eq!(LimitError::memory(1 << 20).kind(), LimitKind::Memory);
+    /// ```
     pub fn kind(&self) -> LimitKind {
         self.kind
     }
 
     /// The message.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{LimitError, LimitKind};
+    /// let e = LimitError::new(LimitKind::Memory, "the pantry is full");
+    /// assert_eq!(e.message(), "the pantry is full");
+    /// ```
     pub fn message(&self) -> &str {
         &self.message
     }
@@ -543,6 +772,18 @@ pub enum Outcome<'o> {
 
 impl Outcome<'_> {
     /// `value`, `error`, `out_of_fuel` or `limit`, as in the JSON output.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{parse, Arena, Limits, MachineKind};
+    /// let arena = Arena::new();
+    /// let program = parse(&arena, "let rec pace n = pace (n + 1) in pace 0").unwrap();
+    /// for kind in MachineKind::enabled() {
+    ///     let report = kind.run(&program, &Limits::default().with_fuel(25), &arena);
+    ///     assert_eq!(report.outcome.name(), "out_of_fuel");
+    /// }
+    /// ```
     pub fn name(&self) -> &'static str {
         match self {
             Outcome::Value(_) => "value",
@@ -578,6 +819,20 @@ pub struct Report<'o> {
 
 /// An evaluator: one of the machines of DESIGN §3. A machine value holds only
 /// reusable scratch state; the program and limits come with each run.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{parse, Arena, Limits, Machine, MachineKind, Outcome};
+/// let arena = Arena::new();
+/// let program = parse(&arena, "let tiles = 6 in tiles * 7").unwrap();
+/// for kind in MachineKind::enabled() {
+///     let mut machine: Box<dyn Machine> = kind.machine();
+///     assert_eq!(machine.name(), kind.name());
+///     let report = machine.run(&program, &Limits::default(), &arena);
+///     assert_eq!(report.outcome, Outcome::Value(arena.int(42)));
+/// }
+/// ```
 pub trait Machine {
     /// The machine's name (`stepper`, `env`, `cek`).
     fn name(&self) -> &'static str;
@@ -619,6 +874,14 @@ pub enum MachineKind {
 
 impl MachineKind {
     /// The enabled machines, fastest first.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::MachineKind;
+    /// # #[cfg(all(feature = "stepper", feature = "env", feature = "cek"))]
+    /// assert_eq!(MachineKind::enabled(), [MachineKind::Env, MachineKind::Cek, MachineKind::Stepper]);
+    /// ```
     pub fn enabled() -> &'static [MachineKind] {
         &[
             #[cfg(feature = "env")]
@@ -631,11 +894,30 @@ impl MachineKind {
     }
 
     /// The fastest enabled machine, or `None` in a build with no machine.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::MachineKind;
+    /// # #[cfg(feature = "env")]
+    /// assert_eq!(MachineKind::fastest(), Some(MachineKind::Env));
+    /// ```
     pub fn fastest() -> Option<MachineKind> {
         Self::enabled().first().copied()
     }
 
     /// The machine's name.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::MachineKind;
+    /// # #[cfg(feature = "cek")]
+    /// assert_eq!(MachineKind::Cek.name(), "cek");
+    /// for kind in MachineKind::enabled() {
+    ///     assert_eq!(MachineKind::from_name(kind.name()), Some(*kind));
+    /// }
+    /// ```
     pub fn name(self) -> &'static str {
         match self {
             #[cfg(feature = "stepper")]
@@ -648,11 +930,28 @@ impl MachineKind {
     }
 
     /// The enabled machine with this name.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::MachineKind;
+    /// # #[cfg(feature = "cek")]
+    /// assert_eq!(MachineKind::from_name("cek"), Some(MachineKind::Cek));
+    /// assert_eq!(MachineKind::from_name("abacus"), None);
+    /// ```
     pub fn from_name(name: &str) -> Option<MachineKind> {
         Self::enabled().iter().copied().find(|m| m.name() == name)
     }
 
     /// A fresh machine of this kind, behind the [`Machine`] trait.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Machine, MachineKind};
+    /// # #[cfg(feature = "stepper")]
+    /// assert_eq!(MachineKind::Stepper.machine().name(), "stepper");
+    /// ```
     pub fn machine(self) -> Box<dyn Machine> {
         match self {
             #[cfg(feature = "stepper")]
@@ -665,6 +964,18 @@ impl MachineKind {
     }
 
     /// Run `program` on a fresh machine of this kind.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{parse, Arena, Limits, MachineKind, Outcome};
+    /// let arena = Arena::new();
+    /// let program = parse(&arena, "let rec pace n = pace (n + 1) in pace 0").unwrap();
+    /// for kind in MachineKind::enabled() {
+    ///     let report = kind.run(&program, &Limits::default().with_fuel(50), &arena);
+    ///     assert_eq!((report.outcome, report.counts.total()), (Outcome::OutOfFuel, 50));
+    /// }
+    /// ```
     pub fn run<'a: 'o, 'o>(
         self,
         program: &Program<'a>,

@@ -53,16 +53,39 @@ pub struct Con<'t> {
 
 impl<'t> Con<'t> {
     /// A constructor with these fields.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Con, Datum};
+    /// let crate_ = Con::new("Crate", vec![Datum::Str("pears".into()), Datum::Int(40)]);
+    /// assert_eq!(Datum::Con(crate_).describe(), "the constructor Crate");
+    /// ```
     pub fn new(tag: &'t str, fields: Vec<Datum<'t>>) -> Self {
         Con { tag, fields }
     }
 
     /// The tag.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// let berth = orrery::Con::new("Berth", vec![orrery::Datum::Int(7)]);
+    /// assert_eq!(berth.tag(), "Berth");
+    /// ```
     pub fn tag(&self) -> &'t str {
         self.tag
     }
 
     /// The fields, field 1 first.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Con, Datum};
+    /// let span = Con::new("Span", vec![Datum::Int(3), Datum::Int(9)]);
+    /// assert_eq!(span.fields(), [Datum::Int(3), Datum::Int(9)]);
+    /// ```
     pub fn fields(&self) -> &[Datum<'t>] {
         &self.fields
     }
@@ -237,6 +260,19 @@ impl<'t> Datum<'t> {
 
 /// The most nodes [`Datum::from_term`] builds (16 Mi): beyond it a value is
 /// refused rather than unfolded (a value can share a subterm exponentially).
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{Arena, Datum, MAX_DATUM_NODES};
+/// let arena = Arena::new();
+/// let mut t = arena.int(0);
+/// for _ in 0..10 {
+///     t = arena.con("Twin", &[t, t]); // one term node, shared twice
+/// }
+/// assert!((1 << 11) - 1 <= MAX_DATUM_NODES); // so 2047 datum nodes are allowed
+/// assert!(Datum::from_term(t).is_ok());
+/// ```
 pub const MAX_DATUM_NODES: usize = 1 << 24;
 
 /// Why a value could not be read as a datum.
@@ -424,6 +460,13 @@ pub struct ConvertError {
 
 impl ConvertError {
     /// An error: the conversion wanted `expected` and was given `found`.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// let err = orrery::ConvertError::new("a tide table", "an empty list");
+    /// assert_eq!(err.to_string(), "expected a tide table, found an empty list");
+    /// ```
     pub fn new(expected: impl Into<String>, found: impl Into<String>) -> Self {
         ConvertError {
             expected: expected.into(),
@@ -436,11 +479,27 @@ impl ConvertError {
     }
 
     /// What the conversion wanted.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Datum, FromDatum};
+    /// let err = bool::from_datum(&Datum::Int(1)).unwrap_err();
+    /// assert_eq!(err.expected(), "a boolean");
+    /// ```
     pub fn expected(&self) -> &str {
         &self.expected
     }
 
     /// What it was given.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Datum, FromDatum};
+    /// let err = String::from_datum(&Datum::con("Empty", vec![])).unwrap_err();
+    /// assert_eq!(err.found(), "the constructor Empty");
+    /// ```
     pub fn found(&self) -> &str {
         &self.found
     }

@@ -34,11 +34,28 @@ pub struct HostId {
 
 impl HostId {
     /// The number of arguments the function takes.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// let mut host = orrery::HostFunctions::new();
+    /// let id = host.register("mix_paint", |a: i64, b: i64| Ok::<_, String>(a + b)).unwrap();
+    /// assert_eq!(id.arity(), 2);
+    /// ```
     pub fn arity(self) -> usize {
         self.arity as usize
     }
 
     /// Its position in its table (registration order, from 0).
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// let mut host = orrery::HostFunctions::new();
+    /// let sow = host.register("sow", |n: i64| Ok::<_, String>(n)).unwrap();
+    /// let reap = host.register("reap", |n: i64| Ok::<_, String>(n)).unwrap();
+    /// assert_eq!((sow.index(), reap.index()), (0, 1));
+    /// ```
     pub fn index(self) -> usize {
         self.index as usize
     }
@@ -79,6 +96,18 @@ pub struct HostFunctions {
 }
 
 /// The most arguments a host function may take.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{Datum, HostFunctions, MAX_HOST_ARITY};
+/// let mut host = HostFunctions::new();
+/// fn widest<'t>(_: &[Datum<'t>]) -> Result<Datum<'t>, String> {
+///     Ok(Datum::Int(0))
+/// }
+/// assert!(host.register_data("widest", MAX_HOST_ARITY, widest).is_ok());
+/// assert!(host.register_data("too_wide", MAX_HOST_ARITY + 1, widest).is_err());
+/// ```
 pub const MAX_HOST_ARITY: usize = 16;
 
 /// Why a host function could not be registered.
@@ -112,6 +141,13 @@ const RESERVED: &[&str] = &[
 
 impl HostFunctions {
     /// An empty table.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// let host = orrery::HostFunctions::new();
+    /// assert_eq!(host.iter().count(), 0);
+    /// ```
     pub fn new() -> Self {
         HostFunctions::default()
     }
@@ -230,6 +266,15 @@ impl HostFunctions {
     }
 
     /// The function registered under `name`.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// let mut host = orrery::HostFunctions::new();
+    /// let id = host.register("ferry_fare", |km: i64| Ok::<_, String>(km * 3)).unwrap();
+    /// assert_eq!(host.id("ferry_fare"), Some(id));
+    /// assert_eq!(host.id("bus_fare"), None);
+    /// ```
     pub fn id(&self, name: &str) -> Option<HostId> {
         self.entries.iter().find(|e| &*e.name == name).map(|e| e.id)
     }
@@ -248,11 +293,30 @@ impl HostFunctions {
     }
 
     /// Every function's name and id, in registration order.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// let mut host = orrery::HostFunctions::new();
+    /// host.register("moult", |n: i64| Ok::<_, String>(n)).unwrap();
+    /// host.register("roost", |b: bool| Ok::<_, String>(!b)).unwrap();
+    /// let names: Vec<&str> = host.iter().map(|(name, _)| name).collect();
+    /// assert_eq!(names, ["moult", "roost"]);
+    /// ```
     pub fn iter(&self) -> impl Iterator<Item = (&str, HostId)> {
         self.entries.iter().map(|e| (&*e.name, e.id))
     }
 
     /// Whether `id` names a function of this table (with the same arity).
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// let mut host = orrery::HostFunctions::new();
+    /// let id = host.register("thaw", |n: i64| Ok::<_, String>(n)).unwrap();
+    /// assert!(host.contains(id));
+    /// assert!(!orrery::HostFunctions::new().contains(id));
+    /// ```
     pub fn contains(&self, id: HostId) -> bool {
         self.entry(id).is_some()
     }

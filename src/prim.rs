@@ -56,7 +56,16 @@ pub enum Prim {
 }
 
 impl Prim {
-    /// Every primitive, in a fixed order.
+    /// Every primitive, in a fixed order. Host functions are not here: they
+    /// live in a [`crate::HostFunctions`] table.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::Prim;
+    /// assert_eq!(Prim::ALL.len(), 15);
+    /// assert!(Prim::ALL.iter().all(|p| Prim::from_name(p.name()) == Some(*p)));
+    /// ```
     pub const ALL: [Prim; 15] = [
         Prim::Add,
         Prim::Sub,

@@ -20,6 +20,14 @@ pub struct UnboundName(String);
 
 impl UnboundName {
     /// The name that was not bound.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// let arena = orrery::Arena::new();
+    /// let err = orrery::Scope::new(&arena).var("harbour_fee").unwrap_err();
+    /// assert_eq!(err.name(), "harbour_fee");
+    /// ```
     pub fn name(&self) -> &str {
         &self.0
     }
@@ -49,10 +57,32 @@ pub struct Scope<'a> {
 }
 
 /// What a body-building closure returns.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{Arena, Built, Scope};
+/// let arena = Arena::new();
+/// let mut scope = Scope::new(&arena);
+/// fn read_count<'a>(s: &mut Scope<'a>) -> Built<'a> {
+///     s.var("crate_count")
+/// }
+/// assert!(scope.lam("crate_count", read_count).is_ok());
+/// assert!(scope.lam("bale_count", read_count).is_err());
+/// ```
 pub type Built<'a> = Result<&'a Term<'a>, UnboundName>;
 
 impl<'a> Scope<'a> {
     /// An empty naming context over `arena`.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Arena, Scope};
+    /// let arena = Arena::new();
+    /// let scope = Scope::new(&arena);
+    /// assert!(scope.var("anything").is_err());
+    /// ```
     pub fn new(arena: &'a Arena) -> Self {
         Scope {
             arena,
@@ -61,6 +91,15 @@ impl<'a> Scope<'a> {
     }
 
     /// The arena terms are built in.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Arena, Scope};
+    /// let arena = Arena::new();
+    /// let scope = Scope::new(&arena);
+    /// assert!(std::ptr::eq(scope.arena(), &arena));
+    /// ```
     pub fn arena(&self) -> &'a Arena {
         self.arena
     }
@@ -90,11 +129,32 @@ impl<'a> Scope<'a> {
     }
 
     /// Enter a binder for `name` (innermost). Pair with [`unbind`](Scope::unbind).
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Arena, Node, Scope};
+    /// let arena = Arena::new();
+    /// let mut scope = Scope::new(&arena);
+    /// scope.bind("tariff");
+    /// assert!(matches!(scope.var("tariff").unwrap().node(), Node::Var(0)));
+    /// ```
     pub fn bind(&mut self, name: &str) {
         self.names.push(name.to_string());
     }
 
     /// Leave the innermost binder.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Arena, Scope};
+    /// let arena = Arena::new();
+    /// let mut scope = Scope::new(&arena);
+    /// scope.bind("tariff");
+    /// scope.unbind();
+    /// assert!(scope.var("tariff").is_err());
+    /// ```
     pub fn unbind(&mut self) {
         self.names.pop();
     }
@@ -113,6 +173,17 @@ impl<'a> Scope<'a> {
     /// # Errors
     ///
     /// Whatever `body` returns.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{parse_term, Arena, Scope};
+    /// let arena = Arena::new();
+    /// let mut scope = Scope::new(&arena);
+    /// let keep = scope.lam("parcel", |s| s.var("parcel")).unwrap();
+    /// assert_eq!(keep, parse_term(&arena, "\\x. x").unwrap());
+    /// assert!(scope.lam("parcel", |s| s.var("letter")).is_err());
+    /// ```
     pub fn lam(&mut self, param: &str, body: impl FnOnce(&mut Self) -> Built<'a>) -> Built<'a> {
         let body = self.under(&[param], body)?;
         Ok(self.arena.lam(body))
@@ -148,6 +219,18 @@ impl<'a> Scope<'a> {
     /// # Errors
     ///
     /// Whatever `body` returns.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{parse_term, Arena, Prim, Scope};
+    /// let arena = Arena::new();
+    /// let mut scope = Scope::new(&arena);
+    /// let t = scope
+    ///     .let_in("tip", arena.int(4), |s| Ok(arena.prim(Prim::Add, &[s.var("tip")?, arena.int(20)])))
+    ///     .unwrap();
+    /// assert_eq!(t, parse_term(&arena, "let t = 4 in t + 20").unwrap());
+    /// ```
     pub fn let_in(
         &mut self,
         name: &str,

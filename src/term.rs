@@ -37,6 +37,16 @@ pub struct Term<'a> {
 /// `#0` is the argument and `#1` the function itself); `Let` binds 1 in its
 /// second term; a case arm for a constructor of arity `n` binds `n` (field 1
 /// outermost, so field `n` is `#0`).
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{Arena, Node};
+/// let arena = Arena::new();
+/// let t = arena.app(arena.lam(arena.var(0)), arena.int(5));
+/// let Node::App(f, a) = t.node() else { panic!("not an application") };
+/// assert!(matches!((f.node(), a.node()), (Node::Lam(_), Node::Int(5))));
+/// ```
 #[derive(Clone, Copy, Debug)]
 pub enum Node<'a> {
     /// A variable, by de Bruijn index.
@@ -187,6 +197,17 @@ impl<'a> Term<'a> {
 }
 
 /// Iterator over a term's direct subterms; see [`Term::children`].
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{Arena, Node};
+/// let arena = Arena::new();
+/// let t = arena.if_then_else(arena.boolean(true), arena.int(1), arena.int(2));
+/// let mut children = t.children();
+/// assert!(matches!(children.next(), Some((c, 0)) if matches!(c.node(), Node::Bool(true))));
+/// assert_eq!(children.count(), 2); // the two branches
+/// ```
 #[derive(Clone, Debug)]
 pub struct Children<'a> {
     node: Node<'a>,

@@ -170,11 +170,32 @@ impl<'a> Program<'a> {
     }
 
     /// The program's term.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Arena, Node, Program};
+    /// let arena = Arena::new();
+    /// let program = Program::new(arena.int(12)).unwrap();
+    /// assert!(matches!(program.term().node(), Node::Int(12)));
+    /// ```
     pub fn term(&self) -> &'a Term<'a> {
         self.root
     }
 
     /// The host functions the program may call.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Arena, HostFunctions, Program};
+    /// let mut host = HostFunctions::new();
+    /// host.register("lantern", |n: i64| Ok::<_, String>(n)).unwrap();
+    /// let arena = Arena::new();
+    /// let program = Program::with_host(arena.int(3), &host).unwrap();
+    /// assert!(program.host().id("lantern").is_some());
+    /// assert_eq!(Program::new(arena.int(3)).unwrap().host().iter().count(), 0);
+    /// ```
     pub fn host(&self) -> &'a HostFunctions {
         self.host
     }
