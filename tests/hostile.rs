@@ -669,23 +669,22 @@ fn memory_bombs_stop_at_a_small_memory_limit() {
     // A string doubled 64 times would be 2^64 bytes.
     let doubling =
         "let rec dbl n s = if n == 0 then s else dbl (n - 1) (s ++ s) in length (dbl 64 \"x\")";
-    for (name, r) in run_everywhere(&arena, doubling, &limits) {
-        assert!(
-            is_memory_limit(&r.outcome),
-            "{name}: {:?}",
-            r.outcome.name()
-        );
-        assert!(r.counts.total() < 1_000, "{name}: stopped late");
-    }
+    stops_at_memory_limit_within(&arena, doubling, &limits, 1_000);
     // A list of 10^8 cells.
     let list = "let rec build n acc = if n == 0 then acc else build (n - 1) (Cons(n, acc)) in build 100000000 Nil";
-    for (name, r) in run_everywhere(&arena, list, &limits) {
+    stops_at_memory_limit_within(&arena, list, &limits, 10_000_000);
+}
+
+/// Every machine stops `source` at the memory limit, within `steps`
+/// contractions.
+fn stops_at_memory_limit_within(arena: &Arena, source: &str, limits: &Limits, steps: u64) {
+    for (name, r) in run_everywhere(arena, source, limits) {
         assert!(
             is_memory_limit(&r.outcome),
             "{name}: {:?}",
             r.outcome.name()
         );
-        assert!(r.counts.total() < 10_000_000, "{name}: stopped late");
+        assert!(r.counts.total() < steps, "{name}: stopped late");
     }
 }
 
