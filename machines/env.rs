@@ -303,7 +303,7 @@ struct CaseArm<'a> {
 }
 
 /// Where the enclosing function finds a value a new closure captures.
-#[derive(Clone, Copy, Debug)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
 enum Fetch {
     Local(u32),
     Free(u32),
@@ -807,6 +807,12 @@ struct Run<'a, 'c, 'l, const METERED: bool> {
     meter: Meter,
 }
 
+/// Move a value out of `place`, leaving an integer (which owns nothing).
+#[inline]
+fn take<'a, 'c>(place: &mut Val<'a, 'c>) -> Val<'a, 'c> {
+    std::mem::replace(place, Value::Int(0))
+}
+
 /// The evaluator's own invariants were broken; never expected.
 fn inconsistent() -> Halt {
     Halt::error(EvalError::new(
@@ -1074,35 +1080,56 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
                 .get(index as usize)
                 .ok_or_else(inconsistent)?;
             // The callee's frame would hold itself (if recursive), then the
-            // argument; nothing else is bound before its body.
+            // argument; nothing else is bound before its body. Each slot is
+            // fetched at most once (captures are distinct), so the argument
+            // and, from a cell about to be reused, the old captured values
+            // are moved rather than cloned.
+            let mut argument = argument;
+            let mut closure = closure;
+            let arg_slot = u32::from(code.rec);
+            // A call that holds the callee's only reference (the usual case
+            // for the middle of a curried call) reuses its cell, unless the
+            // new closure captures the callee itself.
+            if !code.rec || !inner.fetch.contains(&Fetch::Local(0)) {
+                if let Some(cell) = Rc::get_mut(&mut closure) {
+                    let grew = cell.reshape(inner, |old| {
+                        let mut captured = Values::with_capacity(inner.fetch.len());
+                        for fetch in &inner.fetch {
+                            let value = match *fetch {
+                                Fetch::Local(s) if s == arg_slot => take(&mut argument),
+                                Fetch::Free(slot) => {
+                                    take(old.get_mut(slot as usize).ok_or_else(inconsistent)?)
+                                }
+                                Fetch::Local(_) => return Err(inconsistent()),
+                            };
+                            captured.push(value);
+                        }
+                        Ok(captured)
+                    })?;
+                    self.stack.push(Value::Fun(closure));
+                    if grew {
+                        self.check_memory()?;
+                    }
+                    return Ok(None);
+                }
+            }
             let mut captured = Values::with_capacity(inner.fetch.len());
             for fetch in &inner.fetch {
-                let value = match (*fetch, code.rec) {
-                    (Fetch::Local(0), true) => Value::Fun(Rc::clone(&closure)),
-                    (Fetch::Local(s), rec) if s == u32::from(rec) => argument.clone(),
-                    (Fetch::Free(slot), _) => closure
+                let value = match *fetch {
+                    Fetch::Local(0) if code.rec => Value::Fun(Rc::clone(&closure)),
+                    Fetch::Local(s) if s == arg_slot => take(&mut argument),
+                    Fetch::Free(slot) => closure
                         .captured
                         .get(slot as usize)
                         .cloned()
                         .ok_or_else(inconsistent)?,
-                    _ => return Err(inconsistent()),
+                    Fetch::Local(_) => return Err(inconsistent()),
                 };
                 captured.push(value);
             }
-            // A call that holds the callee's only reference (the usual
-            // case for the middle of a curried call) reuses its cell.
-            let mut closure = closure;
-            let (made, grew) = match Rc::get_mut(&mut closure) {
-                Some(cell) => {
-                    let grew = cell.reuse(inner, captured);
-                    (closure, grew)
-                }
-                None => (Closure::new(inner, captured), true),
-            };
+            let made = Closure::new(inner, captured);
             self.stack.push(Value::Fun(made));
-            if grew {
-                self.check_memory()?;
-            }
+            self.check_memory()?;
             return Ok(None);
         }
         if tail {

@@ -384,6 +384,25 @@ impl<'a, C: Code<'a>> Closure<'a, C> {
         release(&mut old);
         after > before
     }
+
+    /// [`Closure::reuse`] with captured values made by `make`, which may
+    /// move values out of the old ones (leaving anything in their place)
+    /// instead of cloning them; what it leaves is released as usual.
+    ///
+    /// # Errors
+    ///
+    /// The error `make` gives; the closure keeps its code, and possibly
+    /// fewer of its captured values.
+    #[cfg_attr(not(feature = "env"), allow(dead_code))]
+    #[inline]
+    pub(crate) fn reshape<E>(
+        &mut self,
+        code: C,
+        make: impl FnOnce(&mut Values<'a, C>) -> Result<Values<'a, C>, E>,
+    ) -> Result<bool, E> {
+        let captured = make(&mut self.captured)?;
+        Ok(self.reuse(code, captured))
+    }
 }
 
 impl<'a, C: Code<'a>> Drop for Closure<'a, C> {
