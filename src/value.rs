@@ -371,6 +371,12 @@ impl<'a, C: Code<'a>> Closure<'a, C> {
         Rc::new(Closure { code, captured })
     }
 
+    /// Bytes charged for a closure cell whose captured values are inline.
+    #[cfg_attr(not(feature = "env"), allow(dead_code))]
+    pub(crate) const fn cell_bytes() -> usize {
+        RC_HEADER + std::mem::size_of::<Self>()
+    }
+
     /// Make this closure, held by one reference, into a closure of `code`
     /// over `captured`, reusing its cell; the accounting follows. Whether
     /// the cell grew (its captured values spilled to a larger array).
