@@ -248,6 +248,18 @@ enum Instr<'a> {
         argument: Atom<'a>,
         tail: bool,
     },
+    /// `f a₁ … aₘ` with `f` a variable and `2 ≤ m ≤ MAX_WIDE`: when `f`
+    /// turns out to be a curried function of exactly `m` parameters with a
+    /// [`Wide`] entry, the arguments are evaluated and their applications
+    /// contracted in the order of the nested calls, and the entry is taken
+    /// with every argument as a local, making no closure for the partial
+    /// applications. Otherwise `fallback`, the nested calls, runs instead.
+    AppWide {
+        function: Atom<'a>,
+        args: Span,
+        tail: bool,
+        fallback: CodeId,
+    },
     Let {
         bound: CodeId,
         slot: u32,
@@ -323,6 +335,80 @@ struct Function<'a> {
     captures: Vec<u32>,
     /// How to fetch each captured value when the closure is made.
     fetch: Vec<Fetch>,
+    /// The entry taking all the parameters of a curried chain at once.
+    wide: Option<Wide>,
+}
+
+/// The entry of a curried function `λx₁. … λxₙ. body` (or `μλ`) applied to
+/// all `n` arguments at once: `body` compiled with the function itself (if
+/// recursive) and `x₁ … xₙ` as its first frame slots, and the function's own
+/// captured values. Made for functions outside every `λ` only, so no term is
+/// compiled more than twice.
+#[derive(Clone, Copy, Debug)]
+struct Wide {
+    arity: u32,
+    body: CodeId,
+}
+
+/// Most arguments a [`Instr::AppWide`] call takes (and most parameters of a
+/// [`Wide`] entry).
+const MAX_WIDE: u32 = 64;
+
+/// `λx₂. … λxₙ. body`, the rest of a curried chain after its first binder:
+/// how many more binders (`n - 1`, at least 1) and the innermost body.
+fn wide_chain<'a>(body: &'a Term<'a>) -> Option<(u32, &'a Term<'a>)> {
+    let mut extra = 0;
+    let mut inner = body;
+    while let Node::Lam(next) = *inner.node() {
+        extra += 1;
+        if extra >= MAX_WIDE {
+            return None;
+        }
+        inner = next;
+    }
+    (extra > 0).then_some((extra, inner))
+}
+
+/// How many arguments application `t` gives a variable at the head of its
+/// spine, when that is between 2 and [`MAX_WIDE`].
+fn wide_spine(t: &Term<'_>) -> Option<u32> {
+    let mut m = 0;
+    let mut head = t;
+    while let Node::App(f, _) = *head.node() {
+        m += 1;
+        if m > MAX_WIDE {
+            return None;
+        }
+        head = f;
+    }
+    (m >= 2 && matches!(head.node(), Node::Var(_))).then_some(m)
+}
+
+/// The instruction applying code `function` to code `argument`, with the
+/// shortcuts for atoms.
+fn app_instr<'a>(c: &Compiled<'a>, function: CodeId, argument: CodeId, tail: bool) -> Instr<'a> {
+    match (c.atom(function), c.atom(argument)) {
+        (Some(function), Some(argument)) => Instr::AppAtoms {
+            function,
+            argument,
+            tail,
+        },
+        (Some(function), None) => Instr::AppAtomFunction {
+            function,
+            argument,
+            tail,
+        },
+        (None, Some(argument)) => Instr::AppAtomArgument {
+            function,
+            argument,
+            tail,
+        },
+        _ => Instr::App {
+            function,
+            argument,
+            tail,
+        },
+    }
 }
 
 impl<'a> Code<'a> for &Function<'a> {
@@ -542,11 +628,26 @@ fn compile_with<'a>(
                         } else {
                             1
                         };
+                        // The wide entry's body, compiled in this function's
+                        // scope after the plain body.
+                        if let Some((extra, inner)) = wide_chain(body).filter(|_| top_level) {
+                            jobs.push(Job::Visit(inner, binders + extra, true));
+                        }
                         jobs.push(Job::Visit(body, binders, true));
                     }
                     Node::App(f, a) => {
-                        jobs.push(Job::Visit(a, depth, false));
-                        jobs.push(Job::Visit(f, depth, false));
+                        if wide_spine(t).is_some() {
+                            // The head and the arguments, first to last.
+                            let mut head = t;
+                            while let Node::App(f, a) = *head.node() {
+                                jobs.push(Job::Visit(a, depth, false));
+                                head = f;
+                            }
+                            jobs.push(Job::Visit(head, depth, false));
+                        } else {
+                            jobs.push(Job::Visit(a, depth, false));
+                            jobs.push(Job::Visit(f, depth, false));
+                        }
                     }
                     Node::Let(bound, body) => {
                         jobs.push(Job::Visit(body, depth + 1, tail));
@@ -577,7 +678,12 @@ fn compile_with<'a>(
             Job::Build(t, depth, tail) => {
                 let instr =
                     match *t.node() {
-                        Node::Lam(_) | Node::RecLam(_) => {
+                        Node::Lam(body) | Node::RecLam(body) => {
+                            let chain = wide_chain(body).filter(|_| scopes.len() == 2);
+                            let wide = chain.map(|(extra, _)| Wide {
+                                arity: extra + 1,
+                                body: done.pop().unwrap_or(0),
+                            });
                             let body = done.pop().unwrap_or(0);
                             let Some(inner) = scopes.pop() else { break };
                             let outer_is_top_level = scopes.len() == 1;
@@ -601,35 +707,40 @@ fn compile_with<'a>(
                                 frame: inner.frame,
                                 captures: inner.captures,
                                 fetch,
+                                wide,
                             });
                             Instr::Closure(u32::try_from(c.funs.len() - 1).unwrap_or(u32::MAX))
                         }
-                        Node::App(..) => {
-                            let argument = done.pop().unwrap_or(0);
-                            let function = done.pop().unwrap_or(0);
-                            match (c.atom(function), c.atom(argument)) {
-                                (Some(function), Some(argument)) => Instr::AppAtoms {
+                        Node::App(..) => match wide_spine(t) {
+                            Some(m) => {
+                                let at = done.len().saturating_sub(m as usize + 1);
+                                let head = done.get(at).copied().unwrap_or(0);
+                                let Some(function) = c.atom(head) else { break };
+                                // The nested calls, for callees without a
+                                // matching wide entry.
+                                let mut fallback = head;
+                                for (k, &argument) in
+                                    done.get(at + 1..).unwrap_or(&[]).iter().enumerate()
+                                {
+                                    let last = k + 1 == m as usize;
+                                    let instr = app_instr(&c, fallback, argument, tail && last);
+                                    fallback = emit(&mut c, instr);
+                                }
+                                let args = span(&mut c.lists, &mut done, m as usize);
+                                done.pop();
+                                Instr::AppWide {
                                     function,
-                                    argument,
+                                    args,
                                     tail,
-                                },
-                                (Some(function), None) => Instr::AppAtomFunction {
-                                    function,
-                                    argument,
-                                    tail,
-                                },
-                                (None, Some(argument)) => Instr::AppAtomArgument {
-                                    function,
-                                    argument,
-                                    tail,
-                                },
-                                _ => Instr::App {
-                                    function,
-                                    argument,
-                                    tail,
-                                },
+                                    fallback,
+                                }
                             }
-                        }
+                            None => {
+                                let argument = done.pop().unwrap_or(0);
+                                let function = done.pop().unwrap_or(0);
+                                app_instr(&c, function, argument, tail)
+                            }
+                        },
                         Node::Let(..) => {
                             let body = done.pop().unwrap_or(0);
                             let bound = done.pop().unwrap_or(0);
@@ -747,6 +858,20 @@ impl Task {
     /// `Instr::AppAtomArgument`: apply the function on top of the stack to
     /// the instruction's atom.
     const CALL_ATOM: u64 = 9;
+    /// `Instr::AppWide`: argument `index` is on top; contract its
+    /// application and go on with the next argument.
+    const WIDE_ARG: u64 = 10;
+
+    /// A task that also carries an index below 2²⁴.
+    #[inline]
+    fn indexed(kind: u64, code: CodeId, index: u32) -> Task {
+        Task(kind | u64::from(code) << 8 | u64::from(index) << 40)
+    }
+
+    #[inline]
+    fn index(self) -> u32 {
+        (self.0 >> 40) as u32
+    }
 
     #[inline]
     fn new(kind: u64, code: CodeId) -> Task {
@@ -1166,6 +1291,102 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
         Ok(Some(code.body))
     }
 
+    /// Whether atom `function` is a function with a wide entry of `arity`.
+    #[inline]
+    fn has_wide(&self, function: Atom<'a>, arity: u32) -> bool {
+        let value = match function {
+            Atom::Local(slot) => self.stack.get(self.base + slot as usize),
+            Atom::Free(slot) => self
+                .closure
+                .as_ref()
+                .and_then(|c| c.captured.get(slot as usize)),
+            _ => None,
+        };
+        matches!(value, Some(Value::Fun(f)) if f.code.wide.is_some_and(|w| w.arity == arity))
+    }
+
+    /// Go on with the wide call `Instr::AppWide` at `at` from argument `k`
+    /// (the callee and the arguments before `k` on the stack, their
+    /// applications contracted): the code to evaluate next, an argument
+    /// (with a `WIDE_ARG` task pushed) or the callee's wide body (entered).
+    fn wide(&mut self, at: CodeId, mut k: u32) -> Result<CodeId, Halt> {
+        let code = self.code;
+        let Some(&Instr::AppWide { args, tail, .. }) = code.code.get(at as usize) else {
+            return Err(inconsistent());
+        };
+        let ids = code.lists.get(args.range()).ok_or_else(inconsistent)?;
+        while let Some(&id) = ids.get(k as usize) {
+            match code.code.get(id as usize) {
+                Some(&Instr::Atom(atom)) => self.push_atom(atom)?,
+                Some(&Instr::Prim2 { op, a, b }) if self.int_prim(op, a, b).is_some() => {
+                    let v = self.int_prim(op, a, b).ok_or_else(inconsistent)?;
+                    self.take_fuel(Rule::Prim)?;
+                    self.stack.push(v);
+                }
+                _ => {
+                    self.tasks.push(Task::indexed(Task::WIDE_ARG, at, k));
+                    return Ok(id);
+                }
+            }
+            self.wide_beta(k)?;
+            k += 1;
+        }
+        self.enter_wide(args.len, tail)
+    }
+
+    /// Contract the application to argument `k` (on top of the stack) of a
+    /// wide call: `beta_rec` for a recursive callee's first, else `beta`.
+    #[inline]
+    fn wide_beta(&mut self, k: u32) -> Result<(), Halt> {
+        let rule = match (
+            k,
+            self.stack
+                .len()
+                .checked_sub(2)
+                .and_then(|i| self.stack.get(i)),
+        ) {
+            (0, Some(Value::Fun(f))) if f.code.rec => Rule::BetaRec,
+            _ => Rule::Beta,
+        };
+        self.take_fuel(rule)
+    }
+
+    /// Enter the wide body of the callee under the top `m` values (its
+    /// arguments): they become the new frame, after the callee itself if it
+    /// is recursive, replacing the caller's in tail position.
+    fn enter_wide(&mut self, m: u32, tail: bool) -> Result<CodeId, Halt> {
+        let mut at = self.top(m + 1)?;
+        let closure = match self.stack.get(at) {
+            Some(Value::Fun(f)) => Rc::clone(f),
+            _ => return Err(inconsistent()),
+        };
+        let code: &'c Function<'a> = closure.code;
+        let wide = code.wide.ok_or_else(inconsistent)?;
+        if tail {
+            if at < self.base {
+                return Err(inconsistent());
+            }
+            self.stack.drain(self.base..at);
+            at = self.base;
+        } else {
+            self.callers.push(Caller {
+                base: self.base,
+                closure: self.closure.take(),
+            });
+            self.tasks.push(Task::new(Task::RETURN, 0));
+        }
+        if !code.rec {
+            self.stack.remove(at);
+        }
+        self.base = at;
+        for _ in self.stack.len()..at + code.frame as usize {
+            self.stack.push(Value::Int(0));
+        }
+        let done = self.closure.replace(closure);
+        self.retire(done);
+        Ok(wide.body)
+    }
+
     /// A closure of `code` over `captured`, in a spare cell if there is one.
     #[inline]
     fn make_closure(
@@ -1358,6 +1579,19 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
                         self.stack.push(v);
                         break;
                     }
+                    Instr::AppWide {
+                        function,
+                        args,
+                        fallback,
+                        ..
+                    } => {
+                        if self.has_wide(function, args.len) {
+                            self.push_atom(function)?;
+                            pc = self.wide(pc, 0)?;
+                        } else {
+                            pc = fallback;
+                        }
+                    }
                     Instr::Let { bound, .. } => {
                         self.tasks.push(Task::new(Task::BIND, pc));
                         pc = bound;
@@ -1432,6 +1666,12 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
                             continue 'eval;
                         }
                         continue;
+                    }
+                    Task::WIDE_ARG => {
+                        let k = task.index();
+                        self.wide_beta(k)?;
+                        pc = self.wide(at, k + 1)?;
+                        continue 'eval;
                     }
                     Task::RETURN => {
                         let value = self.pop()?;
@@ -1682,6 +1922,45 @@ mod tests {
         let unmetered = Env::without_accounting().run(&program, &Limits::default(), &arena);
         assert_eq!(metered.outcome, Outcome::Value(arena.int(45_150)));
         assert_eq!(metered, unmetered);
+    }
+
+    #[test]
+    fn wide_calls_agree_with_the_stepper_at_every_fuel() {
+        // Curried calls that take the wide entries and calls that fall back
+        // to the nested ones (partial, over-applied, not a function), with
+        // arguments that fail, in and out of tail position; at every fuel
+        // bound the outcome and counts must be the stepper's.
+        let sources = [
+            "let f = \\a. \\b. \\c. a - b * c in f 10 (f 1 2 3) 4",
+            "let rec t x y z = if y < x then t (t (x - 1) y z) (t (y - 1) z x) (t (z - 1) x y) else z in t 6 3 1",
+            "let rec go n acc = if n == 0 then acc else go (n - 1) (acc + n) in go 30 0",
+            "let f = \\a. \\b. \\c. a in f 1 2",
+            "let f = \\a. \\b. \\c. a in (f 1 2) 3",
+            "let f = \\a. \\b. a in f 1 2 3",
+            "let f = \\a. \\b. \\c. a + b + c in f 1 (1 / 0) 3",
+            "let f = \\a. \\b. b in f 9223372036854775807 (9223372036854775807 + 1)",
+            "let f = 3 in f 1 2",
+            "let c0 = \\s z. z in let scc = \\n s z. s (n s z) in scc (scc c0) (\\k. k + 1) 0",
+            "let rec f a b = if a == 0 then b else f (a - 1) (\\x. x + b 0) in f 5 (\\y. y) 1",
+        ];
+        for source in sources {
+            let arena = Arena::new();
+            let program = crate::parse(&arena, source).unwrap();
+            let mut stepper = crate::MachineKind::Stepper.machine();
+            let full = stepper.run(&program, &Limits::default(), &arena);
+            let total = full.counts.total();
+            for fuel in 0..=total + 1 {
+                let limits = Limits::default().with_fuel(fuel);
+                let want = stepper.run(&program, &limits, &arena);
+                let got = Env::new().run(&program, &limits, &arena);
+                assert_eq!(got.counts, want.counts, "{source} with fuel {fuel}");
+                assert_eq!(
+                    format!("{:?}", got.outcome),
+                    format!("{:?}", want.outcome),
+                    "{source} with fuel {fuel}"
+                );
+            }
+        }
     }
 
     #[test]
