@@ -1925,42 +1925,9 @@ mod tests {
     }
 
     #[test]
+    #[cfg(feature = "stepper")]
     fn wide_calls_agree_with_the_stepper_at_every_fuel() {
-        // Curried calls that take the wide entries and calls that fall back
-        // to the nested ones (partial, over-applied, not a function), with
-        // arguments that fail, in and out of tail position; at every fuel
-        // bound the outcome and counts must be the stepper's.
-        let sources = [
-            "let f = \\a. \\b. \\c. a - b * c in f 10 (f 1 2 3) 4",
-            "let rec t x y z = if y < x then t (t (x - 1) y z) (t (y - 1) z x) (t (z - 1) x y) else z in t 6 3 1",
-            "let rec go n acc = if n == 0 then acc else go (n - 1) (acc + n) in go 30 0",
-            "let f = \\a. \\b. \\c. a in f 1 2",
-            "let f = \\a. \\b. \\c. a in (f 1 2) 3",
-            "let f = \\a. \\b. a in f 1 2 3",
-            "let f = \\a. \\b. \\c. a + b + c in f 1 (1 / 0) 3",
-            "let f = \\a. \\b. b in f 9223372036854775807 (9223372036854775807 + 1)",
-            "let f = 3 in f 1 2",
-            "let c0 = \\s z. z in let scc = \\n s z. s (n s z) in scc (scc c0) (\\k. k + 1) 0",
-            "let rec f a b = if a == 0 then b else f (a - 1) (\\x. x + b 0) in f 5 (\\y. y) 1",
-        ];
-        for source in sources {
-            let arena = Arena::new();
-            let program = crate::parse(&arena, source).unwrap();
-            let mut stepper = crate::MachineKind::Stepper.machine();
-            let full = stepper.run(&program, &Limits::default(), &arena);
-            let total = full.counts.total();
-            for fuel in 0..=total + 1 {
-                let limits = Limits::default().with_fuel(fuel);
-                let want = stepper.run(&program, &limits, &arena);
-                let got = Env::new().run(&program, &limits, &arena);
-                assert_eq!(got.counts, want.counts, "{source} with fuel {fuel}");
-                assert_eq!(
-                    format!("{:?}", got.outcome),
-                    format!("{:?}", want.outcome),
-                    "{source} with fuel {fuel}"
-                );
-            }
-        }
+        crate::value::tests::curried_calls_agree_with_the_stepper(&mut Env::new());
     }
 
     #[test]
