@@ -1709,6 +1709,20 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
                         }
                     }
                     Instr::Prim { op, operands } => {
+                        // `fib (n - 1) + fib (n - 2)`: integer arithmetic on
+                        // two computed operands, without the general path.
+                        if let [.., Value::Int(x), Value::Int(y)] = self.stack[..] {
+                            if operands.len == 2 {
+                                if let Some(v) = int_prim(op, x, y) {
+                                    self.take_fuel(Rule::Prim)?;
+                                    self.stack.pop();
+                                    if let Some(top) = self.stack.last_mut() {
+                                        *top = v;
+                                    }
+                                    continue;
+                                }
+                            }
+                        }
                         let from = self.top(operands.len)?;
                         if let Prim::Host(id) = op {
                             let v = self.host_call(id, from)?;
