@@ -841,6 +841,120 @@ impl<'a> CekRun<'a> {
         })
     }
 
+    /// `f a₁ … aₘ` (`2 ≤ m ≤ WIDE_ARGS`) with `f` a variable bound to a
+    /// curried function of exactly `m` parameters and each argument an atom
+    /// or an integer operation on atoms that does not fail, when the fuel
+    /// covers every contraction: the contractions of the nested calls, in
+    /// their order, and the body entered with the function (if recursive)
+    /// and the arguments as its locals, as [`CekRun::step`] would, without
+    /// the frames. `None` (nothing done) otherwise.
+    #[inline(always)]
+    fn wide_call<const M: bool>(
+        &mut self,
+        function: &'a Term<'a>,
+        term: &'a Term<'a>,
+        meter: &Meter,
+    ) -> Result<Option<Control<'a>>, Halt> {
+        if !matches!(function.node(), Node::App(..)) {
+            return Ok(None);
+        }
+        self.wide_spine::<M>(term, meter)
+    }
+
+    /// The rest of [`CekRun::wide_call`], for an application whose function
+    /// is an application.
+    #[inline(never)]
+    fn wide_spine<const M: bool>(
+        &mut self,
+        term: &'a Term<'a>,
+        meter: &Meter,
+    ) -> Result<Option<Control<'a>>, Halt> {
+        const WIDE_ARGS: usize = 8;
+        // The arguments, last first, and which are integer operations.
+        let mut args = [term; WIDE_ARGS];
+        let mut prims = 0u32;
+        let mut m = 0;
+        let mut head = term;
+        while let Node::App(f, a) = *head.node() {
+            let prim = match *a.node() {
+                Node::Var(_) | Node::Int(_) | Node::Bool(_) | Node::Str(_) | Node::Con(_, []) => {
+                    false
+                }
+                Node::Prim(_, &[x, y]) => {
+                    let int = |t: &Term<'_>| matches!(t.node(), Node::Var(_) | Node::Int(_));
+                    if !int(x) || !int(y) {
+                        return Ok(None);
+                    }
+                    true
+                }
+                _ => return Ok(None),
+            };
+            let Some(slot) = args.get_mut(m) else {
+                return Ok(None);
+            };
+            *slot = a;
+            prims |= u32::from(prim) << m;
+            m += 1;
+            head = f;
+        }
+        if !self.has_fuel::<M>((m as u32 + prims.count_ones()).into()) {
+            return Ok(None);
+        }
+        let Ok(Some(Value::Fun(closure))) = self.atom(head) else {
+            return Ok(None);
+        };
+        let rec = matches!(closure.code.node(), Node::RecLam(_));
+        // The chain of `m` binders, and the body under the last.
+        let mut body = closure.code;
+        for k in 0..m {
+            body = match *body.node() {
+                Node::Lam(inner) => inner,
+                Node::RecLam(inner) if k == 0 => inner,
+                _ => return Ok(None),
+            };
+        }
+        if matches!(body.node(), Node::Lam(_)) {
+            return Ok(None);
+        }
+        // The new locals go above the current ones, then down to the floor.
+        let old = self.locals.len();
+        if rec {
+            self.locals.push(Value::Fun(Rc::clone(&closure)));
+        }
+        for &a in args.get(..m).unwrap_or(&[]).iter().rev() {
+            let value = match *a.node() {
+                Node::Prim(..) => self.int_prim(a),
+                _ => self.atom(a).ok().flatten(),
+            };
+            match value {
+                Some(value) => self.locals.push(value),
+                None => {
+                    cut(&mut self.locals, old);
+                    return Ok(None);
+                }
+            }
+        }
+        for k in (0..m).rev() {
+            if prims >> k & 1 == 1 {
+                self.take_fuel::<M>(Rule::Prim, meter)?;
+            }
+            let rule = if k + 1 == m && rec {
+                Rule::BetaRec
+            } else {
+                Rule::Beta
+            };
+            self.take_fuel::<M>(rule, meter)?;
+        }
+        let base = self.floor.min(old);
+        self.locals.drain(base..old);
+        self.env = Env {
+            closure: Some(closure),
+            base,
+            depth: (m + usize::from(rec)) as u32,
+        };
+        Ok(Some(Control::Eval(body)))
+    }
+
     /// The integer an atom stands for, read without making a value.
     #[inline]
     fn int(&self, term: &Term<'a>) -> Option<i64> {
@@ -942,14 +1056,17 @@ impl<'a> CekRun<'a> {
                                 Control::Eval(argument)
                             }
                         },
-                        None => {
-                            self.push(|env, below| Frame::Argument {
-                                argument,
-                                env,
-                                below,
-                            });
-                            Control::Eval(function)
-                        }
+                        None => match self.wide_call::<M>(function, term, meter)? {
+                            Some(control) => control,
+                            None => {
+                                self.push(|env, below| Frame::Argument {
+                                    argument,
+                                    env,
+                                    below,
+                                });
+                                Control::Eval(function)
+                            }
+                        },
                     },
                     Node::If(condition, yes, no) if self.has_fuel::<M>(2) => {
                         match self.int_test(condition) {
@@ -1407,6 +1524,12 @@ mod tests {
         let unmetered = Cek::without_accounting().run(&program, &Limits::default(), &arena);
         assert_eq!(metered.outcome, Outcome::Value(arena.int(5)));
         assert_eq!(metered, unmetered);
+    }
+
+    #[test]
+    #[cfg(feature = "stepper")]
+    fn wide_calls_agree_with_the_stepper_at_every_fuel() {
+        crate::value::tests::curried_calls_agree_with_the_stepper(&mut Cek::new());
     }
 
     #[test]

@@ -248,6 +248,18 @@ enum Instr<'a> {
         argument: Atom<'a>,
         tail: bool,
     },
+    /// `f a₁ … aₘ` with `f` a variable and `2 ≤ m ≤ MAX_WIDE`: when `f`
+    /// turns out to be a curried function of exactly `m` parameters with a
+    /// [`Wide`] entry, the arguments are evaluated and their applications
+    /// contracted in the order of the nested calls, and the entry is taken
+    /// with every argument as a local, making no closure for the partial
+    /// applications. Otherwise `fallback`, the nested calls, runs instead.
+    AppWide {
+        function: Atom<'a>,
+        args: Span,
+        tail: bool,
+        fallback: CodeId,
+    },
     Let {
         bound: CodeId,
         slot: u32,
@@ -303,7 +315,7 @@ struct CaseArm<'a> {
 }
 
 /// Where the enclosing function finds a value a new closure captures.
-#[derive(Clone, Copy, Debug)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
 enum Fetch {
     Local(u32),
     Free(u32),
@@ -323,6 +335,80 @@ struct Function<'a> {
     captures: Vec<u32>,
     /// How to fetch each captured value when the closure is made.
     fetch: Vec<Fetch>,
+    /// The entry taking all the parameters of a curried chain at once.
+    wide: Option<Wide>,
+}
+
+/// The entry of a curried function `λx₁. … λxₙ. body` (or `μλ`) applied to
+/// all `n` arguments at once: `body` compiled with the function itself (if
+/// recursive) and `x₁ … xₙ` as its first frame slots, and the function's own
+/// captured values. Made for functions outside every `λ` only, so no term is
+/// compiled more than twice.
+#[derive(Clone, Copy, Debug)]
+struct Wide {
+    arity: u32,
+    body: CodeId,
+}
+
+/// Most arguments a [`Instr::AppWide`] call takes (and most parameters of a
+/// [`Wide`] entry).
+const MAX_WIDE: u32 = 64;
+
+/// `λx₂. … λxₙ. body`, the rest of a curried chain after its first binder:
+/// how many more binders (`n - 1`, at least 1) and the innermost body.
+fn wide_chain<'a>(body: &'a Term<'a>) -> Option<(u32, &'a Term<'a>)> {
+    let mut extra = 0;
+    let mut inner = body;
+    while let Node::Lam(next) = *inner.node() {
+        extra += 1;
+        if extra >= MAX_WIDE {
+            return None;
+        }
+        inner = next;
+    }
+    (extra > 0).then_some((extra, inner))
+}
+
+/// How many arguments application `t` gives a variable at the head of its
+/// spine, when that is between 2 and [`MAX_WIDE`].
+fn wide_spine(t: &Term<'_>) -> Option<u32> {
+    let mut m = 0;
+    let mut head = t;
+    while let Node::App(f, _) = *head.node() {
+        m += 1;
+        if m > MAX_WIDE {
+            return None;
+        }
+        head = f;
+    }
+    (m >= 2 && matches!(head.node(), Node::Var(_))).then_some(m)
+}
+
+/// The instruction applying code `function` to code `argument`, with the
+/// shortcuts for atoms.
+fn app_instr<'a>(c: &Compiled<'a>, function: CodeId, argument: CodeId, tail: bool) -> Instr<'a> {
+    match (c.atom(function), c.atom(argument)) {
+        (Some(function), Some(argument)) => Instr::AppAtoms {
+            function,
+            argument,
+            tail,
+        },
+        (Some(function), None) => Instr::AppAtomFunction {
+            function,
+            argument,
+            tail,
+        },
+        (None, Some(argument)) => Instr::AppAtomArgument {
+            function,
+            argument,
+            tail,
+        },
+        _ => Instr::App {
+            function,
+            argument,
+            tail,
+        },
+    }
 }
 
 impl<'a> Code<'a> for &Function<'a> {
@@ -542,11 +628,26 @@ fn compile_with<'a>(
                         } else {
                             1
                         };
+                        // The wide entry's body, compiled in this function's
+                        // scope after the plain body.
+                        if let Some((extra, inner)) = wide_chain(body).filter(|_| top_level) {
+                            jobs.push(Job::Visit(inner, binders + extra, true));
+                        }
                         jobs.push(Job::Visit(body, binders, true));
                     }
                     Node::App(f, a) => {
-                        jobs.push(Job::Visit(a, depth, false));
-                        jobs.push(Job::Visit(f, depth, false));
+                        if wide_spine(t).is_some() {
+                            // The head and the arguments, first to last.
+                            let mut head = t;
+                            while let Node::App(f, a) = *head.node() {
+                                jobs.push(Job::Visit(a, depth, false));
+                                head = f;
+                            }
+                            jobs.push(Job::Visit(head, depth, false));
+                        } else {
+                            jobs.push(Job::Visit(a, depth, false));
+                            jobs.push(Job::Visit(f, depth, false));
+                        }
                     }
                     Node::Let(bound, body) => {
                         jobs.push(Job::Visit(body, depth + 1, tail));
@@ -577,7 +678,12 @@ fn compile_with<'a>(
             Job::Build(t, depth, tail) => {
                 let instr =
                     match *t.node() {
-                        Node::Lam(_) | Node::RecLam(_) => {
+                        Node::Lam(body) | Node::RecLam(body) => {
+                            let chain = wide_chain(body).filter(|_| scopes.len() == 2);
+                            let wide = chain.map(|(extra, _)| Wide {
+                                arity: extra + 1,
+                                body: done.pop().unwrap_or(0),
+                            });
                             let body = done.pop().unwrap_or(0);
                             let Some(inner) = scopes.pop() else { break };
                             let outer_is_top_level = scopes.len() == 1;
@@ -601,35 +707,40 @@ fn compile_with<'a>(
                                 frame: inner.frame,
                                 captures: inner.captures,
                                 fetch,
+                                wide,
                             });
                             Instr::Closure(u32::try_from(c.funs.len() - 1).unwrap_or(u32::MAX))
                         }
-                        Node::App(..) => {
-                            let argument = done.pop().unwrap_or(0);
-                            let function = done.pop().unwrap_or(0);
-                            match (c.atom(function), c.atom(argument)) {
-                                (Some(function), Some(argument)) => Instr::AppAtoms {
+                        Node::App(..) => match wide_spine(t) {
+                            Some(m) => {
+                                let at = done.len().saturating_sub(m as usize + 1);
+                                let head = done.get(at).copied().unwrap_or(0);
+                                let Some(function) = c.atom(head) else { break };
+                                // The nested calls, for callees without a
+                                // matching wide entry.
+                                let mut fallback = head;
+                                for (k, &argument) in
+                                    done.get(at + 1..).unwrap_or(&[]).iter().enumerate()
+                                {
+                                    let last = k + 1 == m as usize;
+                                    let instr = app_instr(&c, fallback, argument, tail && last);
+                                    fallback = emit(&mut c, instr);
+                                }
+                                let args = span(&mut c.lists, &mut done, m as usize);
+                                done.pop();
+                                Instr::AppWide {
                                     function,
-                                    argument,
+                                    args,
                                     tail,
-                                },
-                                (Some(function), None) => Instr::AppAtomFunction {
-                                    function,
-                                    argument,
-                                    tail,
-                                },
-                                (None, Some(argument)) => Instr::AppAtomArgument {
-                                    function,
-                                    argument,
-                                    tail,
-                                },
-                                _ => Instr::App {
-                                    function,
-                                    argument,
-                                    tail,
-                                },
+                                    fallback,
+                                }
                             }
-                        }
+                            None => {
+                                let argument = done.pop().unwrap_or(0);
+                                let function = done.pop().unwrap_or(0);
+                                app_instr(&c, function, argument, tail)
+                            }
+                        },
                         Node::Let(..) => {
                             let body = done.pop().unwrap_or(0);
                             let bound = done.pop().unwrap_or(0);
@@ -747,6 +858,20 @@ impl Task {
     /// `Instr::AppAtomArgument`: apply the function on top of the stack to
     /// the instruction's atom.
     const CALL_ATOM: u64 = 9;
+    /// `Instr::AppWide`: argument `index` is on top; contract its
+    /// application and go on with the next argument.
+    const WIDE_ARG: u64 = 10;
+
+    /// A task that also carries an index below 2²⁴.
+    #[inline]
+    fn indexed(kind: u64, code: CodeId, index: u32) -> Task {
+        Task(kind | u64::from(code) << 8 | u64::from(index) << 40)
+    }
+
+    #[inline]
+    fn index(self) -> u32 {
+        (self.0 >> 40) as u32
+    }
 
     #[inline]
     fn new(kind: u64, code: CodeId) -> Task {
@@ -797,6 +922,11 @@ struct Run<'a, 'c, 'l, const METERED: bool> {
     base: usize,
     /// The current function's closure (`None` at the top level).
     closure: Option<Rc<Fun<'a, 'c>>>,
+    /// Cells of closures that died, emptied, for the next closures made
+    /// (saving an allocation and a free per call of a curried function).
+    /// Still charged to the live-byte counter, so [`Run::held`] takes them
+    /// off: the limit sees them as freed.
+    spare: Vec<Rc<Fun<'a, 'c>>>,
     tank: Tank,
     counts: Counts,
     memory: usize,
@@ -805,6 +935,15 @@ struct Run<'a, 'c, 'l, const METERED: bool> {
     code_bytes: usize,
     peak: usize,
     meter: Meter,
+}
+
+/// Most spare closure cells a run keeps.
+const SPARE_CELLS: usize = 16;
+
+/// Move a value out of `place`, leaving an integer (which owns nothing).
+#[inline]
+fn take<'a, 'c>(place: &mut Val<'a, 'c>) -> Val<'a, 'c> {
+    std::mem::replace(place, Value::Int(0))
 }
 
 /// The evaluator's own invariants were broken; never expected.
@@ -831,6 +970,7 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
             callers: recycle(scratch.callers),
             base: 0,
             closure: None,
+            spare: Vec::new(),
             tank: Tank::new(limits.fuel),
             counts: Counts::default(),
             memory: limits.memory,
@@ -844,6 +984,7 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
         let result = run.execute();
         // Drop what the run still holds before its stacks are kept.
         run.closure = None;
+        run.spare.clear();
         run.stack.clear();
         run.callers.clear();
         run.tasks.clear();
@@ -878,7 +1019,9 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
     /// Bytes held now: cells, code and stacks.
     #[inline]
     fn held(&self) -> usize {
-        self.meter.cells()
+        self.meter
+            .cells()
+            .saturating_sub(self.spare.len() * Fun::cell_bytes())
             + self.code_bytes
             + self.stack.capacity() * std::mem::size_of::<Val<'_, '_>>()
             + self.tasks.capacity() * std::mem::size_of::<Task>()
@@ -1074,35 +1217,56 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
                 .get(index as usize)
                 .ok_or_else(inconsistent)?;
             // The callee's frame would hold itself (if recursive), then the
-            // argument; nothing else is bound before its body.
+            // argument; nothing else is bound before its body. Each slot is
+            // fetched at most once (captures are distinct), so the argument
+            // and, from a cell about to be reused, the old captured values
+            // are moved rather than cloned.
+            let mut argument = argument;
+            let mut closure = closure;
+            let arg_slot = u32::from(code.rec);
+            // A call that holds the callee's only reference (the usual case
+            // for the middle of a curried call) reuses its cell, unless the
+            // new closure captures the callee itself.
+            if !code.rec || !inner.fetch.contains(&Fetch::Local(0)) {
+                if let Some(cell) = Rc::get_mut(&mut closure) {
+                    let grew = cell.reshape(inner, |old| {
+                        let mut captured = Values::with_capacity(inner.fetch.len());
+                        for fetch in &inner.fetch {
+                            let value = match *fetch {
+                                Fetch::Local(s) if s == arg_slot => take(&mut argument),
+                                Fetch::Free(slot) => {
+                                    take(old.get_mut(slot as usize).ok_or_else(inconsistent)?)
+                                }
+                                Fetch::Local(_) => return Err(inconsistent()),
+                            };
+                            captured.push(value);
+                        }
+                        Ok(captured)
+                    })?;
+                    self.stack.push(Value::Fun(closure));
+                    if grew {
+                        self.check_memory()?;
+                    }
+                    return Ok(None);
+                }
+            }
             let mut captured = Values::with_capacity(inner.fetch.len());
             for fetch in &inner.fetch {
-                let value = match (*fetch, code.rec) {
-                    (Fetch::Local(0), true) => Value::Fun(Rc::clone(&closure)),
-                    (Fetch::Local(s), rec) if s == u32::from(rec) => argument.clone(),
-                    (Fetch::Free(slot), _) => closure
+                let value = match *fetch {
+                    Fetch::Local(0) if code.rec => Value::Fun(Rc::clone(&closure)),
+                    Fetch::Local(s) if s == arg_slot => take(&mut argument),
+                    Fetch::Free(slot) => closure
                         .captured
                         .get(slot as usize)
                         .cloned()
                         .ok_or_else(inconsistent)?,
-                    _ => return Err(inconsistent()),
+                    Fetch::Local(_) => return Err(inconsistent()),
                 };
                 captured.push(value);
             }
-            // A call that holds the callee's only reference (the usual
-            // case for the middle of a curried call) reuses its cell.
-            let mut closure = closure;
-            let (made, grew) = match Rc::get_mut(&mut closure) {
-                Some(cell) => {
-                    let grew = cell.reuse(inner, captured);
-                    (closure, grew)
-                }
-                None => (Closure::new(inner, captured), true),
-            };
+            let made = self.make_closure(inner, captured);
             self.stack.push(Value::Fun(made));
-            if grew {
-                self.check_memory()?;
-            }
+            self.check_memory()?;
             return Ok(None);
         }
         if tail {
@@ -1122,8 +1286,143 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
         for _ in self.stack.len()..self.base + code.frame as usize {
             self.stack.push(Value::Int(0));
         }
-        self.closure = Some(closure);
+        let done = self.closure.replace(closure);
+        self.retire(done);
         Ok(Some(code.body))
+    }
+
+    /// Whether atom `function` is a function with a wide entry of `arity`.
+    #[inline]
+    fn has_wide(&self, function: Atom<'a>, arity: u32) -> bool {
+        let value = match function {
+            Atom::Local(slot) => self.stack.get(self.base + slot as usize),
+            Atom::Free(slot) => self
+                .closure
+                .as_ref()
+                .and_then(|c| c.captured.get(slot as usize)),
+            _ => None,
+        };
+        matches!(value, Some(Value::Fun(f)) if f.code.wide.is_some_and(|w| w.arity == arity))
+    }
+
+    /// Go on with the wide call `Instr::AppWide` at `at` from argument `k`
+    /// (the callee and the arguments before `k` on the stack, their
+    /// applications contracted): the code to evaluate next, an argument
+    /// (with a `WIDE_ARG` task pushed) or the callee's wide body (entered).
+    fn wide(&mut self, at: CodeId, mut k: u32) -> Result<CodeId, Halt> {
+        let code = self.code;
+        let Some(&Instr::AppWide { args, tail, .. }) = code.code.get(at as usize) else {
+            return Err(inconsistent());
+        };
+        let ids = code.lists.get(args.range()).ok_or_else(inconsistent)?;
+        while let Some(&id) = ids.get(k as usize) {
+            match code.code.get(id as usize) {
+                Some(&Instr::Atom(atom)) => self.push_atom(atom)?,
+                Some(&Instr::Prim2 { op, a, b }) if self.int_prim(op, a, b).is_some() => {
+                    let v = self.int_prim(op, a, b).ok_or_else(inconsistent)?;
+                    self.take_fuel(Rule::Prim)?;
+                    self.stack.push(v);
+                }
+                _ => {
+                    self.tasks.push(Task::indexed(Task::WIDE_ARG, at, k));
+                    return Ok(id);
+                }
+            }
+            self.wide_beta(k)?;
+            k += 1;
+        }
+        self.enter_wide(args.len, tail)
+    }
+
+    /// Contract the application to argument `k` (on top of the stack) of a
+    /// wide call: `beta_rec` for a recursive callee's first, else `beta`.
+    #[inline]
+    fn wide_beta(&mut self, k: u32) -> Result<(), Halt> {
+        let rule = match (
+            k,
+            self.stack
+                .len()
+                .checked_sub(2)
+                .and_then(|i| self.stack.get(i)),
+        ) {
+            (0, Some(Value::Fun(f))) if f.code.rec => Rule::BetaRec,
+            _ => Rule::Beta,
+        };
+        self.take_fuel(rule)
+    }
+
+    /// Enter the wide body of the callee under the top `m` values (its
+    /// arguments): they become the new frame, after the callee itself if it
+    /// is recursive, replacing the caller's in tail position.
+    fn enter_wide(&mut self, m: u32, tail: bool) -> Result<CodeId, Halt> {
+        let mut at = self.top(m + 1)?;
+        let closure = match self.stack.get(at) {
+            Some(Value::Fun(f)) => Rc::clone(f),
+            _ => return Err(inconsistent()),
+        };
+        let code: &'c Function<'a> = closure.code;
+        let wide = code.wide.ok_or_else(inconsistent)?;
+        if tail {
+            if at < self.base {
+                return Err(inconsistent());
+            }
+            self.stack.drain(self.base..at);
+            at = self.base;
+        } else {
+            self.callers.push(Caller {
+                base: self.base,
+                closure: self.closure.take(),
+            });
+            self.tasks.push(Task::new(Task::RETURN, 0));
+        }
+        if !code.rec {
+            self.stack.remove(at);
+        }
+        self.base = at;
+        for _ in self.stack.len()..at + code.frame as usize {
+            self.stack.push(Value::Int(0));
+        }
+        let done = self.closure.replace(closure);
+        self.retire(done);
+        Ok(wide.body)
+    }
+
+    /// A closure of `code` over `captured`, in a spare cell if there is one.
+    #[inline]
+    fn make_closure(
+        &mut self,
+        code: &'c Function<'a>,
+        captured: Values<'a, &'c Function<'a>>,
+    ) -> Rc<Fun<'a, 'c>> {
+        if let Some(mut spare) = self.spare.pop() {
+            if let Some(cell) = Rc::get_mut(&mut spare) {
+                cell.reuse(code, captured);
+                return spare;
+            }
+        }
+        Closure::new(code, captured)
+    }
+
+    /// Drop a closure; if this was its last reference, its values are
+    /// released and its cell kept for [`Run::make_closure`].
+    #[inline(always)]
+    fn retire(&mut self, closure: Option<Rc<Fun<'a, 'c>>>) {
+        match closure {
+            Some(closure) if Rc::strong_count(&closure) == 1 => self.keep_spare(closure),
+            _ => {}
+        }
+    }
+
+    /// The rest of [`Run::retire`], for a closure with no other reference.
+    #[inline(never)]
+    fn keep_spare(&mut self, mut closure: Rc<Fun<'a, 'c>>) {
+        if self.spare.len() < SPARE_CELLS {
+            if let Some(cell) = Rc::get_mut(&mut closure) {
+                let code = cell.code;
+                cell.reuse(code, Values::new());
+                self.spare.push(closure);
+            }
+        }
     }
 
     #[inline]
@@ -1194,8 +1493,8 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
                             };
                             captured.push(value.ok_or_else(inconsistent)?);
                         }
-                        self.stack
-                            .push(Value::Fun(Closure::new(function, captured)));
+                        let made = self.make_closure(function, captured);
+                        self.stack.push(Value::Fun(made));
                         self.check_memory()?;
                         break;
                     }
@@ -1280,6 +1579,19 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
                         self.stack.push(v);
                         break;
                     }
+                    Instr::AppWide {
+                        function,
+                        args,
+                        fallback,
+                        ..
+                    } => {
+                        if self.has_wide(function, args.len) {
+                            self.push_atom(function)?;
+                            pc = self.wide(pc, 0)?;
+                        } else {
+                            pc = fallback;
+                        }
+                    }
                     Instr::Let { bound, .. } => {
                         self.tasks.push(Task::new(Task::BIND, pc));
                         pc = bound;
@@ -1355,13 +1667,20 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
                         }
                         continue;
                     }
+                    Task::WIDE_ARG => {
+                        let k = task.index();
+                        self.wide_beta(k)?;
+                        pc = self.wide(at, k + 1)?;
+                        continue 'eval;
+                    }
                     Task::RETURN => {
                         let value = self.pop()?;
                         cut(&mut self.stack, self.base);
                         self.stack.push(value);
                         let caller = self.callers.pop().ok_or_else(inconsistent)?;
                         self.base = caller.base;
-                        self.closure = caller.closure;
+                        let done = std::mem::replace(&mut self.closure, caller.closure);
+                        self.retire(done);
                         continue;
                     }
                     _ => {}
@@ -1390,6 +1709,20 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
                         }
                     }
                     Instr::Prim { op, operands } => {
+                        // `fib (n - 1) + fib (n - 2)`: integer arithmetic on
+                        // two computed operands, without the general path.
+                        if let [.., Value::Int(x), Value::Int(y)] = self.stack[..] {
+                            if operands.len == 2 {
+                                if let Some(v) = int_prim(op, x, y) {
+                                    self.take_fuel(Rule::Prim)?;
+                                    self.stack.pop();
+                                    if let Some(top) = self.stack.last_mut() {
+                                        *top = v;
+                                    }
+                                    continue;
+                                }
+                            }
+                        }
                         let from = self.top(operands.len)?;
                         if let Prim::Host(id) = op {
                             let v = self.host_call(id, from)?;
@@ -1603,6 +1936,12 @@ mod tests {
         let unmetered = Env::without_accounting().run(&program, &Limits::default(), &arena);
         assert_eq!(metered.outcome, Outcome::Value(arena.int(45_150)));
         assert_eq!(metered, unmetered);
+    }
+
+    #[test]
+    #[cfg(feature = "stepper")]
+    fn wide_calls_agree_with_the_stepper_at_every_fuel() {
+        crate::value::tests::curried_calls_agree_with_the_stepper(&mut Env::new());
     }
 
     #[test]

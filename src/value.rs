@@ -371,6 +371,12 @@ impl<'a, C: Code<'a>> Closure<'a, C> {
         Rc::new(Closure { code, captured })
     }
 
+    /// Bytes charged for a closure cell whose captured values are inline.
+    #[cfg_attr(not(feature = "env"), allow(dead_code))]
+    pub(crate) const fn cell_bytes() -> usize {
+        RC_HEADER + std::mem::size_of::<Self>()
+    }
+
     /// Make this closure, held by one reference, into a closure of `code`
     /// over `captured`, reusing its cell; the accounting follows. Whether
     /// the cell grew (its captured values spilled to a larger array).
@@ -383,6 +389,25 @@ impl<'a, C: Code<'a>> Closure<'a, C> {
         self.code = code;
         release(&mut old);
         after > before
+    }
+
+    /// [`Closure::reuse`] with captured values made by `make`, which may
+    /// move values out of the old ones (leaving anything in their place)
+    /// instead of cloning them; what it leaves is released as usual.
+    ///
+    /// # Errors
+    ///
+    /// The error `make` gives; the closure keeps its code, and possibly
+    /// fewer of its captured values.
+    #[cfg_attr(not(feature = "env"), allow(dead_code))]
+    #[inline]
+    pub(crate) fn reshape<E>(
+        &mut self,
+        code: C,
+        make: impl FnOnce(&mut Values<'a, C>) -> Result<Values<'a, C>, E>,
+    ) -> Result<bool, E> {
+        let captured = make(&mut self.captured)?;
+        Ok(self.reuse(code, captured))
     }
 }
 
@@ -665,8 +690,51 @@ pub(crate) fn string_bytes<'a, C: Code<'a>>(op: Prim, args: &[Value<'a, C>]) -> 
 }
 
 #[cfg(test)]
-mod tests {
+pub(crate) mod tests {
     use super::*;
+
+    /// Curried calls that take the machines' shortcuts for calls given all
+    /// their arguments at once and calls that do not (partial, over-applied,
+    /// not a function), with arguments that fail, in and out of tail
+    /// position.
+    #[cfg(all(feature = "stepper", any(feature = "env", feature = "cek")))]
+    const SOURCES: [&str; 11] = [
+        "let f = \\a. \\b. \\c. a - b * c in f 10 (f 1 2 3) 4",
+        "let rec t x y z = if y < x then t (t (x - 1) y z) (t (y - 1) z x) (t (z - 1) x y) else z in t 6 3 1",
+        "let rec go n acc = if n == 0 then acc else go (n - 1) (acc + n) in go 30 0",
+        "let f = \\a. \\b. \\c. a in f 1 2",
+        "let f = \\a. \\b. \\c. a in (f 1 2) 3",
+        "let f = \\a. \\b. a in f 1 2 3",
+        "let f = \\a. \\b. \\c. a + b + c in f 1 (1 / 0) 3",
+        "let f = \\a. \\b. b in f 9223372036854775807 (9223372036854775807 + 1)",
+        "let f = 3 in f 1 2",
+        "let c0 = \\s z. z in let scc = \\n s z. s (n s z) in scc (scc c0) (\\k. k + 1) 0",
+        "let rec f a b = if a == 0 then b else f (a - 1) (\\x. x + b 0) in f 5 (\\y. y) 1",
+    ];
+
+    /// At every fuel bound, `machine` gives the stepper's outcome and counts
+    /// on [`SOURCES`].
+    #[cfg(all(feature = "stepper", any(feature = "env", feature = "cek")))]
+    pub(crate) fn curried_calls_agree_with_the_stepper(machine: &mut dyn crate::Machine) {
+        use crate::{Limits, MachineKind};
+        for source in SOURCES {
+            let arena = Arena::new();
+            let program = crate::parse(&arena, source).unwrap();
+            let mut stepper = MachineKind::Stepper.machine();
+            let full = stepper.run(&program, &Limits::default(), &arena);
+            for fuel in 0..=full.counts.total() + 1 {
+                let limits = Limits::default().with_fuel(fuel);
+                let want = stepper.run(&program, &limits, &arena);
+                let got = machine.run(&program, &limits, &arena);
+                assert_eq!(got.counts, want.counts, "{source} with fuel {fuel}");
+                assert_eq!(
+                    format!("{:?}", got.outcome),
+                    format!("{:?}", want.outcome),
+                    "{source} with fuel {fuel}"
+                );
+            }
+        }
+    }
 
     type V<'a> = Value<'a, &'a Term<'a>>;
 
