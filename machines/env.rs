@@ -1945,33 +1945,6 @@ mod tests {
     }
 
     #[test]
-    fn a_long_curried_call_runs_without_native_recursion() {
-        // λ¹⁰⁰⁰⁰⁰. #0 applied to 1, 2, …, 100000, on a 256 KiB stack.
-        let handle = std::thread::Builder::new()
-            .stack_size(256 << 10)
-            .spawn(|| {
-                let arena = Arena::new();
-                let n = 100_000;
-                let mut f = arena.var(0);
-                for _ in 0..n {
-                    f = arena.lam(f);
-                }
-                let mut t = f;
-                for i in 1..=n {
-                    t = arena.app(t, arena.int(i));
-                }
-                let program = Program::new(t).unwrap();
-                let report = Env::new().run(&program, &Limits::default(), &arena);
-                (
-                    report.outcome == Outcome::Value(arena.int(n)),
-                    report.counts.get(Rule::Beta),
-                )
-            })
-            .unwrap();
-        assert_eq!(handle.join().unwrap(), (true, 100_000));
-    }
-
-    #[test]
     fn the_memory_limit_counts_the_value_stack() {
         let arena = Arena::new();
         // μf. λn. 1 + f n: pending additions forever.
