@@ -4,6 +4,12 @@
 //! arguments. A panic inside a host function is caught and becomes
 //! `host_error`.
 
+// Without a machine nothing calls host functions; the table still builds.
+#![cfg_attr(
+    not(any(feature = "stepper", feature = "env", feature = "cek")),
+    allow(dead_code)
+)]
+
 use std::fmt;
 use std::panic::{catch_unwind, AssertUnwindSafe};
 use std::sync::Arc;
