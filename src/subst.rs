@@ -273,32 +273,53 @@ fn node_with_children<'a, 'b>(
     }
 }
 
+/// Marks a work item whose children have not been pushed yet.
+const NOT_EXPANDED: usize = usize::MAX;
+
 /// Copy `t` into `arena`, node for node, keeping its sharing: a node reached
-/// twice is copied once, so the copy has the size of `t`'s graph, not of its
-/// unfolding. Returns the copy and the number of nodes copied.
+/// twice is copied once (small leaves excepted: they are copied once per
+/// parent), so the copy has the size of `t`'s graph, not of its unfolding.
+/// Returns the copy and the number of nodes made.
+
 pub(crate) fn copy_term<'a, 'b>(arena: &'a Arena, t: &'b Term<'b>) -> (&'a Term<'a>, usize) {
     let mut memo: HashMap<*const Term<'b>, &'a Term<'a>> = HashMap::new();
-    let mut work: Vec<(&'b Term<'b>, bool)> = vec![(t, false)];
+    let mut work: Vec<(&'b Term<'b>, usize)> = vec![(t, NOT_EXPANDED)];
     let mut done: Vec<&'a Term<'a>> = Vec::new();
-    while let Some((node, children_done)) = work.pop() {
+    // Small leaves are copied afresh wherever they occur, without the memo:
+    // a copy per parent edge, so sharing still cannot make the copy blow up,
+    // and half the hash-map traffic of a compaction goes.
+    let mut leaves = 0;
+    while let Some((node, children)) = work.pop() {
         let key = node as *const Term<'b>;
-        if children_done {
-            let n = node.children().count();
-            let at = done.len() - n;
+        if children != NOT_EXPANDED {
+            let at = done.len() - children;
             let copy = node_with_children(arena, node, &done[at..], |s| arena.tag(s));
             done.truncate(at);
             memo.insert(key, copy);
             done.push(copy);
+            continue;
+        }
+        let leaf = match *node.node() {
+            Node::Int(n) => Some(arena.int(n)),
+            Node::Bool(b) => Some(arena.boolean(b)),
+            Node::Var(i) => Some(arena.var(i)),
+            _ => None,
+        };
+        if let Some(copy) = leaf {
+            leaves += 1;
+            done.push(copy);
         } else if let Some(copy) = memo.get(&key) {
             done.push(copy);
         } else {
-            work.push((node, true));
-            let first_child = work.len();
-            work.extend(node.children().map(|(child, _)| (child, false)));
+            let first_child = work.len() + 1;
+            work.push((node, 0));
+            work.extend(node.children().map(|(child, _)| (child, NOT_EXPANDED)));
+            let n = work.len() - first_child;
+            work[first_child - 1].1 = n;
             work[first_child..].reverse();
         }
     }
     // The walk leaves exactly the root's copy on `done`.
     let copy = done.pop().unwrap_or_else(|| arena.int(0));
-    (copy, memo.len())
+    (copy, memo.len() + leaves)
 }
