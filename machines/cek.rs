@@ -944,7 +944,11 @@ impl<'a> CekRun<'a> {
         for &a in args.get(..m).unwrap_or(&[]).iter().rev() {
             let value = match *a.node() {
                 Node::Prim(..) => self.int_prim(a),
-                _ => self.atom(a).ok().flatten(),
+                // An integer is read in place; other values by lookup.
+                _ => match self.int(a) {
+                    Some(n) => Some(Value::Int(n)),
+                    None => self.atom(a).ok().flatten(),
+                },
             };
             match value {
                 Some(value) => self.locals.push(value),
