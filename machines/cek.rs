@@ -580,17 +580,22 @@ impl<'a> CekRun<'a> {
     /// The value of variable `#index` in the current environment.
     #[inline]
     fn lookup(&self, index: u32) -> Result<Val<'a>, Halt> {
+        self.slot(index)
+            .cloned()
+            .ok_or_else(|| Halt::error(free_variable(index)))
+    }
+
+    /// Where the value of variable `#index` is kept, if it is bound.
+    #[inline(always)]
+    fn slot(&self, index: u32) -> Option<&Val<'a>> {
         let env = &self.env;
-        let found = if index < env.depth {
+        if index < env.depth {
             self.locals.get(env.extent() - 1 - index as usize)
         } else {
             env.closure
                 .as_ref()
                 .and_then(|c| c.captured.get((index - env.depth) as usize))
-        };
-        found
-            .cloned()
-            .ok_or_else(|| Halt::error(free_variable(index)))
+        }
     }
 
     /// A flat closure for `term` (a `λ` or `μλ`): it captures the indices
@@ -1025,20 +1030,10 @@ impl<'a> CekRun<'a> {
     fn int(&self, term: &Term<'a>) -> Option<i64> {
         match *term.node() {
             Node::Int(n) => Some(n),
-            Node::Var(index) => {
-                let env = &self.env;
-                let found = if index < env.depth {
-                    self.locals.get(env.extent() - 1 - index as usize)
-                } else {
-                    env.closure
-                        .as_ref()
-                        .and_then(|c| c.captured.get((index - env.depth) as usize))
-                };
-                match found {
-                    Some(&Value::Int(n)) => Some(n),
-                    _ => None,
-                }
-            }
+            Node::Var(index) => match self.slot(index) {
+                Some(&Value::Int(n)) => Some(n),
+                _ => None,
+            },
             _ => None,
         }
     }
