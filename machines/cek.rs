@@ -1296,11 +1296,38 @@ impl<'a> CekRun<'a> {
                             },
                         },
                         Some(Frame::Argument { .. }) => None,
-                        Some(Frame::Spine { closure, index, .. }) => Some(if *index == 0 {
-                            call_rule_fun(closure)
-                        } else {
-                            Rule::Beta
-                        }),
+                        Some(Frame::Spine {
+                            closure,
+                            term,
+                            index,
+                            m,
+                            env,
+                            ..
+                        }) => {
+                            let rule = if *index == 0 {
+                                call_rule_fun(closure)
+                            } else {
+                                Rule::Beta
+                            };
+                            if *index + 1 < *m {
+                                // Not the last argument: contract, keep the
+                                // value and go on to the next, keeping the frame.
+                                let next = spine_arg(term, *m - 2 - *index);
+                                let env = env.clone();
+                                if let Err(halt) = self.take_fuel::<M>(rule, meter) {
+                                    self.control = Some(Control::Return(value));
+                                    return Err(halt);
+                                }
+                                if let Some(Frame::Spine { index, .. }) = self.kont.last_mut() {
+                                    *index += 1;
+                                }
+                                self.operands.push(value);
+                                self.enter(env);
+                                control = Control::Eval(next);
+                                continue;
+                            }
+                            Some(rule)
+                        }
                     };
                     if let Some(rule) = rule {
                         if let Err(halt) = self.take_fuel::<M>(rule, meter) {
@@ -1353,31 +1380,10 @@ impl<'a> CekRun<'a> {
                 count,
             } => self.step::<M>(closure, lam, count, value, meter)?,
             Frame::Spine {
-                closure,
-                term,
-                index,
-                m,
-                env,
-                below,
-            } if index + 1 < m => {
-                // Not the last argument: keep the value, go on to the next.
-                let next = spine_arg(term, m - 2 - index);
-                self.operands.push(value);
-                self.enter(env.clone());
-                self.kont.push(Frame::Spine {
-                    closure,
-                    term,
-                    index: index + 1,
-                    m,
-                    env,
-                    below,
-                });
-                Control::Eval(next)
-            }
-            Frame::Spine {
                 closure, m, below, ..
             } => {
-                // The last argument: enter the body with every value bound.
+                // The last argument (the others are taken with the frame in
+                // place): enter the body with every value bound.
                 let rec = matches!(closure.code.node(), Node::RecLam(_));
                 let code: &'a Term<'a> = closure.code;
                 let body = chain_body(code, m).unwrap_or(code);
