@@ -235,6 +235,21 @@ enum Frame<'a> {
         lam: &'a Term<'a>,
         count: u32,
     },
+    /// `f v₁ … vᵢ₋₁ □ aᵢ₊₁ … aₘ` for the spine `term` of a call whose
+    /// head `f` is bound to `closure`, a curried function of exactly `m`
+    /// parameters: the values to the left (after the function itself, for a
+    /// `μλ`) are on the operand stack, each application already contracted.
+    /// The next value is applied (a contraction), then the next argument is
+    /// evaluated in `env`, and after the last the body is entered with every
+    /// value as a local; no closure is made for the partial applications.
+    Spine {
+        closure: Rc<Fun<'a>>,
+        term: &'a Term<'a>,
+        index: u32,
+        m: u32,
+        env: Env<'a>,
+        below: usize,
+    },
     /// `let □ in t`.
     Let {
         body: &'a Term<'a>,
@@ -565,17 +580,22 @@ impl<'a> CekRun<'a> {
     /// The value of variable `#index` in the current environment.
     #[inline]
     fn lookup(&self, index: u32) -> Result<Val<'a>, Halt> {
+        self.slot(index)
+            .cloned()
+            .ok_or_else(|| Halt::error(free_variable(index)))
+    }
+
+    /// Where the value of variable `#index` is kept, if it is bound.
+    #[inline(always)]
+    fn slot(&self, index: u32) -> Option<&Val<'a>> {
         let env = &self.env;
-        let found = if index < env.depth {
+        if index < env.depth {
             self.locals.get(env.extent() - 1 - index as usize)
         } else {
             env.closure
                 .as_ref()
                 .and_then(|c| c.captured.get((index - env.depth) as usize))
-        };
-        found
-            .cloned()
-            .ok_or_else(|| Halt::error(free_variable(index)))
+        }
     }
 
     /// A flat closure for `term` (a `λ` or `μλ`): it captures the indices
@@ -758,18 +778,32 @@ impl<'a> CekRun<'a> {
                     }
                 }
             }
-            cut(&mut self.locals, self.floor);
-            let base = self.locals.len();
-            let at = self.operands.len().saturating_sub(count as usize);
-            self.locals.extend(self.operands.drain(at..));
-            self.locals.push(value);
-            self.env = Env {
-                closure: Some(closure),
-                base,
-                depth: count + 1,
-            };
-            return Ok(Control::Eval(body));
+            return Ok(self.enter_body(closure, body, count, value));
         }
+    }
+
+    /// Enter `body`, the body of `closure`'s curried chain, with the `count`
+    /// values on top of the operand stack and then `value` as its locals,
+    /// placed where the continuation's locals end.
+    #[inline]
+    fn enter_body(
+        &mut self,
+        closure: Rc<Fun<'a>>,
+        body: &'a Term<'a>,
+        count: u32,
+        value: Val<'a>,
+    ) -> Control<'a> {
+        cut(&mut self.locals, self.floor);
+        let base = self.locals.len();
+        let at = self.operands.len().saturating_sub(count as usize);
+        self.locals.extend(self.operands.drain(at..));
+        self.locals.push(value);
+        self.env = Env {
+            closure: Some(closure),
+            base,
+            depth: count + 1,
+        };
+        Control::Eval(body)
     }
 
     /// Contract `op` applied to the operands from `at` on the operand stack
@@ -904,18 +938,9 @@ impl<'a> CekRun<'a> {
             return Ok(None);
         };
         let rec = matches!(closure.code.node(), Node::RecLam(_));
-        // The chain of `m` binders, and the body under the last.
-        let mut body = closure.code;
-        for k in 0..m {
-            body = match *body.node() {
-                Node::Lam(inner) => inner,
-                Node::RecLam(inner) if k == 0 => inner,
-                _ => return Ok(None),
-            };
-        }
-        if matches!(body.node(), Node::Lam(_)) {
+        let Some(body) = chain_body(closure.code, m as u32) else {
             return Ok(None);
-        }
+        };
         // The new locals go above the current ones, then down to the floor.
         let old = self.locals.len();
         if rec {
@@ -924,7 +949,11 @@ impl<'a> CekRun<'a> {
         for &a in args.get(..m).unwrap_or(&[]).iter().rev() {
             let value = match *a.node() {
                 Node::Prim(..) => self.int_prim(a),
-                _ => self.atom(a).ok().flatten(),
+                // An integer is read in place; other values by lookup.
+                _ => match self.int(a) {
+                    Some(n) => Some(Value::Int(n)),
+                    None => self.atom(a).ok().flatten(),
+                },
             };
             match value {
                 Some(value) => self.locals.push(value),
@@ -955,25 +984,56 @@ impl<'a> CekRun<'a> {
         Ok(Some(Control::Eval(body)))
     }
 
+    /// `f a₁ … aₘ` (`2 ≤ m ≤ SPINE_ARGS`, some argument not covered by
+    /// [`CekRun::wide_call`]) with `f` a variable bound to a curried function
+    /// of exactly `m` parameters: push a [`Frame::Spine`] (and the function,
+    /// if recursive, on the operand stack) to evaluate the arguments in turn,
+    /// and say so; `false` (nothing done) otherwise.
+    #[inline(never)]
+    fn spine_call(&mut self, function: &'a Term<'a>, term: &'a Term<'a>) -> bool {
+        const SPINE_ARGS: u32 = 8;
+        if !matches!(function.node(), Node::App(..)) {
+            return false;
+        }
+        let mut m = 0;
+        let mut head = term;
+        while let Node::App(f, _) = *head.node() {
+            m += 1;
+            if m > SPINE_ARGS {
+                return false;
+            }
+            head = f;
+        }
+        let Ok(Some(Value::Fun(closure))) = self.atom(head) else {
+            return false;
+        };
+        if chain_body(closure.code, m).is_none() {
+            return false;
+        }
+        let rec = matches!(closure.code.node(), Node::RecLam(_));
+        if rec {
+            self.operands.push(Value::Fun(Rc::clone(&closure)));
+        }
+        self.push(|env, below| Frame::Spine {
+            closure,
+            term,
+            index: 0,
+            m,
+            env,
+            below,
+        });
+        true
+    }
+
     /// The integer an atom stands for, read without making a value.
     #[inline]
     fn int(&self, term: &Term<'a>) -> Option<i64> {
         match *term.node() {
             Node::Int(n) => Some(n),
-            Node::Var(index) => {
-                let env = &self.env;
-                let found = if index < env.depth {
-                    self.locals.get(env.extent() - 1 - index as usize)
-                } else {
-                    env.closure
-                        .as_ref()
-                        .and_then(|c| c.captured.get((index - env.depth) as usize))
-                };
-                match found {
-                    Some(&Value::Int(n)) => Some(n),
-                    _ => None,
-                }
-            }
+            Node::Var(index) => match self.slot(index) {
+                Some(&Value::Int(n)) => Some(n),
+                _ => None,
+            },
             _ => None,
         }
     }
@@ -1058,6 +1118,9 @@ impl<'a> CekRun<'a> {
                         },
                         None => match self.wide_call::<M>(function, term, meter)? {
                             Some(control) => control,
+                            None if self.spine_call(function, term) => {
+                                Control::Eval(spine_arg(term, spine_width(term) - 1))
+                            }
                             None => {
                                 self.push(|env, below| Frame::Argument {
                                     argument,
@@ -1233,6 +1296,38 @@ impl<'a> CekRun<'a> {
                             },
                         },
                         Some(Frame::Argument { .. }) => None,
+                        Some(Frame::Spine {
+                            closure,
+                            term,
+                            index,
+                            m,
+                            env,
+                            ..
+                        }) => {
+                            let rule = if *index == 0 {
+                                call_rule_fun(closure)
+                            } else {
+                                Rule::Beta
+                            };
+                            if *index + 1 < *m {
+                                // Not the last argument: contract, keep the
+                                // value and go on to the next, keeping the frame.
+                                let next = spine_arg(term, *m - 2 - *index);
+                                let env = env.clone();
+                                if let Err(halt) = self.take_fuel::<M>(rule, meter) {
+                                    self.control = Some(Control::Return(value));
+                                    return Err(halt);
+                                }
+                                if let Some(Frame::Spine { index, .. }) = self.kont.last_mut() {
+                                    *index += 1;
+                                }
+                                self.operands.push(value);
+                                self.enter(env);
+                                control = Control::Eval(next);
+                                continue;
+                            }
+                            Some(rule)
+                        }
                     };
                     if let Some(rule) = rule {
                         if let Err(halt) = self.take_fuel::<M>(rule, meter) {
@@ -1284,6 +1379,17 @@ impl<'a> CekRun<'a> {
                 lam,
                 count,
             } => self.step::<M>(closure, lam, count, value, meter)?,
+            Frame::Spine {
+                closure, m, below, ..
+            } => {
+                // The last argument (the others are taken with the frame in
+                // place): enter the body with every value bound.
+                let rec = matches!(closure.code.node(), Node::RecLam(_));
+                let code: &'a Term<'a> = closure.code;
+                let body = chain_body(code, m).unwrap_or(code);
+                self.floor = below;
+                self.enter_body(closure, body, m - 1 + u32::from(rec), value)
+            }
             Frame::Let { body, env, below } => {
                 self.floor = below;
                 self.enter(env);
@@ -1360,6 +1466,59 @@ impl<'a> CekRun<'a> {
                 }
             }
         })
+    }
+}
+
+/// The argument `back` places left of the last in the spine of a call
+/// `f a₁ … aₘ` (`back < m`); `term` itself if the spine is shorter.
+#[inline]
+fn spine_arg<'a>(term: &'a Term<'a>, back: u32) -> &'a Term<'a> {
+    let mut at = term;
+    for _ in 0..back {
+        if let Node::App(f, _) = *at.node() {
+            at = f;
+        }
+    }
+    match *at.node() {
+        Node::App(_, argument) => argument,
+        _ => term,
+    }
+}
+
+/// The body of the curried function `code` (a `λ` or `μλ`) under its
+/// first `m` binders, when it has exactly `m` parameters (the body is not a
+/// `λ`); `None` otherwise.
+#[inline]
+fn chain_body<'a>(code: &'a Term<'a>, m: u32) -> Option<&'a Term<'a>> {
+    let mut body = code;
+    for k in 0..m {
+        body = match *body.node() {
+            Node::Lam(inner) => inner,
+            Node::RecLam(inner) if k == 0 => inner,
+            _ => return None,
+        };
+    }
+    (!matches!(body.node(), Node::Lam(_))).then_some(body)
+}
+
+/// How many arguments the spine of `term` has.
+fn spine_width(term: &Term<'_>) -> u32 {
+    let mut m = 0;
+    let mut head = term;
+    while let Node::App(f, _) = *head.node() {
+        m += 1;
+        head = f;
+    }
+    m
+}
+
+/// The rule under which applying `closure` is counted.
+#[inline]
+fn call_rule_fun(closure: &Fun<'_>) -> Rule {
+    if matches!(closure.code.node(), Node::RecLam(_)) {
+        Rule::BetaRec
+    } else {
+        Rule::Beta
     }
 }
 

@@ -698,7 +698,7 @@ pub(crate) mod tests {
     /// not a function), with arguments that fail, in and out of tail
     /// position.
     #[cfg(all(feature = "stepper", any(feature = "env", feature = "cek")))]
-    const SOURCES: [&str; 11] = [
+    const SOURCES: [&str; 14] = [
         "let f = \\a. \\b. \\c. a - b * c in f 10 (f 1 2 3) 4",
         "let rec t x y z = if y < x then t (t (x - 1) y z) (t (y - 1) z x) (t (z - 1) x y) else z in t 6 3 1",
         "let rec go n acc = if n == 0 then acc else go (n - 1) (acc + n) in go 30 0",
@@ -710,6 +710,9 @@ pub(crate) mod tests {
         "let f = 3 in f 1 2",
         "let c0 = \\s z. z in let scc = \\n s z. s (n s z) in scc (scc c0) (\\k. k + 1) 0",
         "let rec f a b = if a == 0 then b else f (a - 1) (\\x. x + b 0) in f 5 (\\y. y) 1",
+        "let f = \\a. \\b. \\c. a - b - c in f (f 1 2 3) (f 4 (5 / 0) 6) (f 7 8 9)",
+        "let rec g a b = if a == 0 then b else g (a - 1) (g (a - 1) (let c = b in c + 1)) in g 3 1",
+        "let rec h a b = if a == 0 then b else h (h (a - 1) b) in h 2 5",
     ];
 
     /// At every fuel bound, `machine` gives the stepper's outcome and counts
