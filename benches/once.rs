@@ -5,7 +5,7 @@
 
 use std::process::ExitCode;
 
-use orrery::{print, Arena, MachineKind, Outcome};
+use orrery::{print, Arena, Machine, MachineKind, Outcome};
 
 // Each bench target uses a part of the shared workloads.
 #[allow(dead_code)]
@@ -46,14 +46,26 @@ fn main() -> ExitCode {
         eprintln!("no workload {name}; workloads: {NAMES}");
         return ExitCode::FAILURE;
     };
-    let Some(kind) = MachineKind::from_name(machine) else {
-        eprintln!("no machine {machine} in this build");
-        return ExitCode::FAILURE;
+    // `env-unaccounted` and `cek-unaccounted` are the machines with their
+    // fuel and memory checks compiled out, for the accounting's share in
+    // instructions.
+    let mut runner: Box<dyn Machine> = match machine.as_str() {
+        #[cfg(feature = "env")]
+        "env-unaccounted" => Box::new(orrery::machines::env::Env::without_accounting()),
+        #[cfg(feature = "cek")]
+        "cek-unaccounted" => Box::new(orrery::machines::cek::Cek::without_accounting()),
+        name => match MachineKind::from_name(name) {
+            Some(kind) => kind.machine(),
+            None => {
+                eprintln!("no machine {machine} in this build");
+                return ExitCode::FAILURE;
+            }
+        },
     };
     let arena = Arena::new();
     let program = program(&arena, &source);
     let out = Arena::new();
-    let report = kind.run(&program, &unlimited(), &out);
+    let report = runner.run(&program, &unlimited(), &out);
     match report.outcome {
         Outcome::Value(v) if print(v) == expected => {
             println!(
