@@ -280,7 +280,6 @@ const NOT_EXPANDED: usize = usize::MAX;
 /// twice is copied once (small leaves excepted: they are copied once per
 /// parent), so the copy has the size of `t`'s graph, not of its unfolding.
 /// Returns the copy and the number of nodes made.
-
 pub(crate) fn copy_term<'a, 'b>(arena: &'a Arena, t: &'b Term<'b>) -> (&'a Term<'a>, usize) {
     let mut memo: HashMap<*const Term<'b>, &'a Term<'a>> = HashMap::new();
     let mut work: Vec<(&'b Term<'b>, usize)> = vec![(t, NOT_EXPANDED)];
