@@ -32,6 +32,10 @@ const MIN_COMPACT: usize = 1 << 20;
 /// non-tail recursion, at 8 about a fifth as many.
 const COMPACT_RATIO: usize = 8;
 
+/// Bytes a compaction's memo (a hash map from old node to copy) takes per
+/// node: two pointers, a control byte, and the table's spare capacity.
+const MEMO_ENTRY_BYTES: usize = 32;
+
 /// The reference substitution stepper. Holds only scratch arenas, reused
 /// from run to run.
 ///
@@ -657,13 +661,18 @@ impl Stepper {
                     // peak of the accounting.
                     spare.reset();
                     let (moved, nodes) = copy_term(spare, whole);
-                    if main.allocated_bytes() + spare.allocated_bytes() + stacks > memory {
+                    // The copy's memo of shared nodes lives until now too.
+                    let memo = nodes.saturating_mul(MEMO_ENTRY_BYTES);
+                    if main.allocated_bytes() + spare.allocated_bytes() + stacks + memo > memory {
                         break Outcome::Limit(LimitError::memory(memory));
                     }
                     main.reset();
                     live = copy_term(main, moved).0;
                     let live_bytes = nodes * std::mem::size_of::<Term<'_>>();
-                    budget.compact_at = MIN_COMPACT.max(COMPACT_RATIO * live_bytes);
+                    // Compact again after COMPACT_RATIO times the live term,
+                    // but by half the limit at the latest, so the arena that
+                    // is compacted and its copy fit under the limit together.
+                    budget.compact_at = MIN_COMPACT.max(COMPACT_RATIO * live_bytes).min(memory / 2);
                 }
             }
         };
