@@ -20,10 +20,9 @@
 
 use std::rc::Rc;
 
-use crate::host::{host_step, max_datum_nodes, HostStep};
 use crate::value::{
-    apply_prim, cut, free_variable, from_datum, int_prim, int_test, read_back, recycle,
-    string_bytes, to_datum, Closure, ConCell, Meter, Tank, Value, Values,
+    apply_prim, cut, free_variable, host_call, int_prim, int_test, read_back, recycle,
+    string_bytes, Closure, ConCell, HostEnd, Meter, Tank, Value, Values,
 };
 use crate::{
     Arena, Arm, Cancel, Counts, EvalError, HostFunctions, HostId, LimitError, Limits, Machine,
@@ -303,6 +302,18 @@ enum Halt {
     OutOfFuel,
     Memory,
     Cancelled,
+}
+
+/// A host call's end, as this machine's halt.
+impl From<HostEnd> for Halt {
+    #[cold]
+    fn from(end: HostEnd) -> Halt {
+        match end {
+            HostEnd::OutOfFuel => Halt::OutOfFuel,
+            HostEnd::Memory => Halt::Memory,
+            HostEnd::Error(error) => Halt::error(error),
+        }
+    }
 }
 
 impl Halt {
@@ -837,30 +848,23 @@ impl<'a> CekRun<'a> {
         at: usize,
         meter: &Meter,
     ) -> Result<Val<'a>, Halt> {
-        let fuel_left = if M { self.tank.left() } else { u64::MAX };
-        let held = meter.cells() + self.stack_bytes();
-        let max_nodes = max_datum_nodes(self.memory.saturating_sub(held));
-        let args = match self.operands.get(at..) {
-            Some(values) if fuel_left > 0 => {
-                values.iter().map(|v| to_datum(v, max_nodes)).collect()
-            }
-            _ => Ok(Vec::new()),
-        };
-        match host_step(self.host, id, args, fuel_left) {
-            HostStep::OutOfFuel => Err(Halt::OutOfFuel),
-            HostStep::TooLarge => Err(Halt::Memory),
-            HostStep::Made { fuel, result } => {
-                if M {
-                    self.tank.spend(fuel);
-                }
-                self.counts.add(Rule::Prim);
-                self.counts.add_host_fuel(fuel - 1);
-                self.operands.truncate(at);
-                let value = from_datum(&result.map_err(Halt::error)?);
-                self.check_memory::<M>(meter)?;
-                Ok(value)
-            }
-        }
+        let room = self
+            .memory
+            .saturating_sub(meter.cells() + self.stack_bytes());
+        let args = self.operands.get(at..).unwrap_or(&[]);
+        let made = host_call(
+            self.host,
+            id,
+            args,
+            &mut self.tank,
+            &mut self.counts,
+            M,
+            room,
+        );
+        let value = made.map_err(Halt::from)?;
+        self.operands.truncate(at);
+        self.check_memory::<M>(meter)?;
+        Ok(value)
     }
 
     /// The value of an atom (`None` if `term` is not one).

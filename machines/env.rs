@@ -13,10 +13,9 @@
 
 use std::rc::Rc;
 
-use crate::host::{host_step, max_datum_nodes, HostStep};
 use crate::value::{
-    apply_prim, cut, free_variable, from_datum, int_prim, int_test, read_back, recycle,
-    string_bytes, to_datum, Closure, Code, ConCell, Meter, Tank, Value, Values, KEEP_STACK_BYTES,
+    apply_prim, cut, free_variable, host_call, int_prim, int_test, read_back, recycle,
+    string_bytes, Closure, Code, ConCell, HostEnd, Meter, Tank, Value, Values, KEEP_STACK_BYTES,
 };
 use crate::{
     Arena, Counts, ErrorKind, EvalError, HostFunctions, HostId, LimitError, Limits, Machine, Node,
@@ -904,6 +903,18 @@ enum Halt {
     Cancelled,
 }
 
+/// A host call's end, as this machine's halt.
+impl From<HostEnd> for Halt {
+    #[cold]
+    fn from(end: HostEnd) -> Halt {
+        match end {
+            HostEnd::OutOfFuel => Halt::OutOfFuel,
+            HostEnd::Memory => Halt::Memory,
+            HostEnd::Error(error) => Halt::error(error),
+        }
+    }
+}
+
 impl Halt {
     #[cold]
     fn error(error: EvalError) -> Halt {
@@ -1140,28 +1151,20 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
     /// `host::HostStep`); the caller pops them.
     #[cold]
     fn host_call(&mut self, id: HostId, from: usize) -> Result<Val<'a, 'c>, Halt> {
-        let fuel_left = if METERED { self.tank.left() } else { u64::MAX };
-        let max_nodes = max_datum_nodes(self.memory.saturating_sub(self.held()));
-        let args = match self.stack.get(from..) {
-            Some(values) if fuel_left > 0 => {
-                values.iter().map(|v| to_datum(v, max_nodes)).collect()
-            }
-            _ => Ok(Vec::new()),
-        };
-        match host_step(self.host, id, args, fuel_left) {
-            HostStep::OutOfFuel => Err(Halt::OutOfFuel),
-            HostStep::TooLarge => Err(Halt::Memory),
-            HostStep::Made { fuel, result } => {
-                if METERED {
-                    self.tank.spend(fuel);
-                }
-                self.counts.add(Rule::Prim);
-                self.counts.add_host_fuel(fuel - 1);
-                let value = from_datum(&result.map_err(Halt::error)?);
-                self.check_memory()?;
-                Ok(value)
-            }
-        }
+        let room = self.memory.saturating_sub(self.held());
+        let args = self.stack.get(from..).unwrap_or(&[]);
+        let made = host_call(
+            self.host,
+            id,
+            args,
+            &mut self.tank,
+            &mut self.counts,
+            METERED,
+            room,
+        );
+        let value = made.map_err(Halt::from)?;
+        self.check_memory()?;
+        Ok(value)
     }
 
     /// `Err` if `bytes` more would pass the memory limit (checked before a

@@ -28,8 +28,12 @@ use hashbrown::HashMap;
 use smallvec::SmallVec;
 
 use crate::datum::{Builder, NotData};
+use crate::host::{host_step, max_datum_nodes, HostStep};
 use crate::subst::Rebuild;
-use crate::{delta, Arena, Datum, EvalError, Node, Operand, Prim, PrimValue, Term};
+use crate::{
+    delta, Arena, Counts, Datum, EvalError, HostFunctions, HostId, Node, Operand, Prim, PrimValue,
+    Rule, Term,
+};
 
 /// Bytes of an `Rc` allocation's header (the strong and weak counts), plus
 /// what the system allocator adds to each allocation for its own header and
@@ -615,6 +619,52 @@ pub(crate) fn read_back<'a: 'o, 'o, C: Code<'a>>(
         }
     }
     done.pop().unwrap_or(placeholder)
+}
+
+/// How a host call ended when no value came of it.
+pub(crate) enum HostEnd {
+    /// Not enough fuel for the call: nothing was used or counted.
+    OutOfFuel,
+    /// The arguments were too large to hand over: the memory limit.
+    Memory,
+    /// The call was made (and paid for) and failed.
+    Error(EvalError),
+}
+
+/// A host function's contraction over runtime values, in the order
+/// `host::HostStep` fixes: read `args` as data (within `room` bytes), let
+/// `host_step` decide, pay its fuel from `tank` (when `metered`) and count
+/// it, and convert the result. The caller pops the arguments if it is made.
+pub(crate) fn host_call<'a, C: Code<'a>>(
+    host: &HostFunctions,
+    id: HostId,
+    args: &[Value<'a, C>],
+    tank: &mut Tank,
+    counts: &mut Counts,
+    metered: bool,
+    room: usize,
+) -> Result<Value<'a, C>, HostEnd> {
+    let fuel_left = if metered { tank.left() } else { u64::MAX };
+    let max_nodes = max_datum_nodes(room);
+    let data = if fuel_left > 0 {
+        args.iter().map(|v| to_datum(v, max_nodes)).collect()
+    } else {
+        Ok(Vec::new())
+    };
+    match host_step(host, id, data, fuel_left) {
+        HostStep::OutOfFuel => Err(HostEnd::OutOfFuel),
+        HostStep::TooLarge => Err(HostEnd::Memory),
+        HostStep::Made { fuel, result } => {
+            if metered {
+                tank.spend(fuel);
+            }
+            counts.add(Rule::Prim);
+            counts.add_host_fuel(fuel - 1);
+            result
+                .map(|datum| from_datum(&datum))
+                .map_err(HostEnd::Error)
+        }
+    }
 }
 
 /// Read `value` as a datum for a host function, of at most `max_nodes`
