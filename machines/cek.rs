@@ -22,7 +22,7 @@ use std::rc::Rc;
 
 use crate::value::{
     apply_prim, cut, free_variable, host_call, int_prim, int_test, read_back, recycle,
-    string_bytes, Closure, ConCell, HostEnd, Meter, Tank, Value, Values,
+    string_bytes, Closure, ConCell, Halt, Meter, Tank, Value, Values,
 };
 use crate::{
     Arena, Arm, Cancel, Counts, EvalError, HostFunctions, HostId, LimitError, Limits, Machine,
@@ -293,34 +293,6 @@ enum Head<'a> {
 enum Control<'a> {
     Eval(&'a Term<'a>),
     Return(Val<'a>),
-}
-
-/// Why [`CekRun::execute`] stopped without a value. Boxed errors keep
-/// `Result<_, Halt>` small on the hot path.
-enum Halt {
-    Error(Box<EvalError>),
-    OutOfFuel,
-    Memory,
-    Cancelled,
-}
-
-/// A host call's end, as this machine's halt.
-impl From<HostEnd> for Halt {
-    #[cold]
-    fn from(end: HostEnd) -> Halt {
-        match end {
-            HostEnd::OutOfFuel => Halt::OutOfFuel,
-            HostEnd::Memory => Halt::Memory,
-            HostEnd::Error(error) => Halt::error(error),
-        }
-    }
-}
-
-impl Halt {
-    #[cold]
-    fn error(error: EvalError) -> Halt {
-        Halt::Error(Box::new(error))
-    }
 }
 
 /// How a run ended, kept so that a finished run reports the same outcome
@@ -861,7 +833,7 @@ impl<'a> CekRun<'a> {
             M,
             room,
         );
-        let value = made.map_err(Halt::from)?;
+        let value = made?;
         self.operands.truncate(at);
         self.check_memory::<M>(meter)?;
         Ok(value)

@@ -15,7 +15,7 @@ use std::rc::Rc;
 
 use crate::value::{
     apply_prim, cut, free_variable, host_call, int_prim, int_test, read_back, recycle,
-    string_bytes, Closure, Code, ConCell, HostEnd, Meter, Tank, Value, Values, KEEP_STACK_BYTES,
+    string_bytes, Closure, Code, ConCell, Halt, Meter, Tank, Value, Values, KEEP_STACK_BYTES,
 };
 use crate::{
     Arena, Counts, ErrorKind, EvalError, HostFunctions, HostId, LimitError, Limits, Machine, Node,
@@ -894,34 +894,6 @@ struct Caller<'a, 'c> {
     closure: Option<Rc<Fun<'a, 'c>>>,
 }
 
-/// Why [`Run::execute`] stopped without a value.
-/// Boxed errors keep `Result<_, Halt>` small on the hot path.
-enum Halt {
-    Error(Box<EvalError>),
-    OutOfFuel,
-    Memory,
-    Cancelled,
-}
-
-/// A host call's end, as this machine's halt.
-impl From<HostEnd> for Halt {
-    #[cold]
-    fn from(end: HostEnd) -> Halt {
-        match end {
-            HostEnd::OutOfFuel => Halt::OutOfFuel,
-            HostEnd::Memory => Halt::Memory,
-            HostEnd::Error(error) => Halt::error(error),
-        }
-    }
-}
-
-impl Halt {
-    #[cold]
-    fn error(error: EvalError) -> Halt {
-        Halt::Error(Box::new(error))
-    }
-}
-
 /// The state of one run.
 struct Run<'a, 'c, 'l, const METERED: bool> {
     code: &'c Compiled<'a>,
@@ -1162,7 +1134,7 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
             METERED,
             room,
         );
-        let value = made.map_err(Halt::from)?;
+        let value = made?;
         self.check_memory()?;
         Ok(value)
     }

@@ -621,20 +621,32 @@ pub(crate) fn read_back<'a: 'o, 'o, C: Code<'a>>(
     done.pop().unwrap_or(placeholder)
 }
 
-/// How a host call ended when no value came of it.
-pub(crate) enum HostEnd {
-    /// Not enough fuel for the call: nothing was used or counted.
+/// Why a machine's run stopped without a value (env and cek). Boxed errors
+/// keep `Result<_, Halt>` small on the hot path.
+pub(crate) enum Halt {
+    /// An evaluation error.
+    Error(Box<EvalError>),
+    /// The fuel ran out (on cek, the run can resume).
     OutOfFuel,
-    /// The arguments were too large to hand over: the memory limit.
+    /// The memory limit.
     Memory,
-    /// The call was made (and paid for) and failed.
-    Error(EvalError),
+    /// The run was cancelled.
+    Cancelled,
+}
+
+impl Halt {
+    /// An evaluation error, boxed.
+    #[cold]
+    pub(crate) fn error(error: EvalError) -> Halt {
+        Halt::Error(Box::new(error))
+    }
 }
 
 /// A host function's contraction over runtime values, in the order
 /// `host::HostStep` fixes: read `args` as data (within `room` bytes), let
 /// `host_step` decide, pay its fuel from `tank` (when `metered`) and count
-/// it, and convert the result. The caller pops the arguments if it is made.
+/// it, and convert the result. The caller pops the arguments if it is made;
+/// out of fuel leaves everything as it was.
 pub(crate) fn host_call<'a, C: Code<'a>>(
     host: &HostFunctions,
     id: HostId,
@@ -643,7 +655,7 @@ pub(crate) fn host_call<'a, C: Code<'a>>(
     counts: &mut Counts,
     metered: bool,
     room: usize,
-) -> Result<Value<'a, C>, HostEnd> {
+) -> Result<Value<'a, C>, Halt> {
     let fuel_left = if metered { tank.left() } else { u64::MAX };
     let max_nodes = max_datum_nodes(room);
     let data = if fuel_left > 0 {
@@ -652,17 +664,15 @@ pub(crate) fn host_call<'a, C: Code<'a>>(
         Ok(Vec::new())
     };
     match host_step(host, id, data, fuel_left) {
-        HostStep::OutOfFuel => Err(HostEnd::OutOfFuel),
-        HostStep::TooLarge => Err(HostEnd::Memory),
+        HostStep::OutOfFuel => Err(Halt::OutOfFuel),
+        HostStep::TooLarge => Err(Halt::Memory),
         HostStep::Made { fuel, result } => {
             if metered {
                 tank.spend(fuel);
             }
             counts.add(Rule::Prim);
             counts.add_host_fuel(fuel - 1);
-            result
-                .map(|datum| from_datum(&datum))
-                .map_err(HostEnd::Error)
+            result.map(|datum| from_datum(&datum)).map_err(Halt::error)
         }
     }
 }
