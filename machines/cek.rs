@@ -663,7 +663,6 @@ impl<'a> CekRun<'a> {
     /// Contract the application of `function` to `argument`, its fuel
     /// already paid: enter the body with the callee's locals where the
     /// continuation's end (so a tail call reuses the caller's).
-    #[inline]
     ///
     /// A curried call given its next argument at once (`f a b`, with `f`'s
     /// body a `λ` and the continuation's top frame `□ b`) makes no closure
@@ -671,6 +670,7 @@ impl<'a> CekRun<'a> {
     /// [`Frame::Partial`], and the function is entered when the last argument
     /// arrives, its locals all the values bound along the way. The
     /// contractions and their order are those of the plain calls.
+    #[inline]
     fn call<const M: bool>(
         &mut self,
         function: Val<'a>,
@@ -1211,34 +1211,6 @@ impl<'a> CekRun<'a> {
                     }
                 },
                 Control::Return(value) => {
-                    // The last argument of a host call: its own protocol.
-                    if let Some(Frame::Operand {
-                        head: Head::Prim(Prim::Host(id)),
-                        operands,
-                        index,
-                        ..
-                    }) = self.kont.last()
-                    {
-                        if operands.get(index + 1).is_none() {
-                            let (id, at) = (*id, self.operands.len().saturating_sub(*index));
-                            self.operands.push(value);
-                            match self.host_call::<M>(id, at, meter) {
-                                Ok(result) => {
-                                    if let Some(Frame::Operand { below, .. }) = self.kont.pop() {
-                                        self.floor = below;
-                                    }
-                                    control = Control::Return(result);
-                                    continue;
-                                }
-                                Err(halt) => {
-                                    if let Some(value) = self.operands.pop() {
-                                        self.control = Some(Control::Return(value));
-                                    }
-                                    return Err(halt);
-                                }
-                            }
-                        }
-                    }
                     // Is handing the value to the top frame a contraction?
                     let rule = match self.kont.last() {
                         None => return Ok(value),
@@ -1266,7 +1238,32 @@ impl<'a> CekRun<'a> {
                                 control = Control::Eval(next);
                                 continue;
                             }
-                            None => match head {
+                            None => match *head {
+                                // The last argument of a host call: its fuel
+                                // depends on the arguments (`host::HostStep`).
+                                Head::Prim(Prim::Host(id)) => {
+                                    let at = self.operands.len().saturating_sub(*index);
+                                    self.operands.push(value);
+                                    match self.host_call::<M>(id, at, meter) {
+                                        Ok(result) => {
+                                            if let Some(Frame::Operand { below, .. }) =
+                                                self.kont.pop()
+                                            {
+                                                self.floor = below;
+                                            }
+                                            control = Control::Return(result);
+                                            continue;
+                                        }
+                                        Err(halt) => {
+                                            // Out of fuel leaves the state as
+                                            // it was, to resume here.
+                                            if let Some(value) = self.operands.pop() {
+                                                self.control = Some(Control::Return(value));
+                                            }
+                                            return Err(halt);
+                                        }
+                                    }
+                                }
                                 Head::Prim(_) => Some(Rule::Prim),
                                 Head::Con(_) => None,
                             },

@@ -1575,28 +1575,23 @@ impl<'a, 'c, 'l, const METERED: bool> Run<'a, 'c, 'l, METERED> {
                         self.tasks.push(Task::new(Task::BRANCH, pc));
                         pc = condition;
                     }
-                    Instr::Prim { operands, .. } => {
-                        self.tasks.push(Task::new(Task::PRIM, pc));
-                        let Some(operands) = code.lists.get(operands.range()) else {
+                    Instr::Prim { operands: list, .. } | Instr::Con { fields: list, .. } => {
+                        // Evaluate the operands (fields) left to right, then
+                        // apply the primitive (build the constructor).
+                        let then = if matches!(instr, Instr::Prim { .. }) {
+                            Task::PRIM
+                        } else {
+                            Task::BUILD
+                        };
+                        self.tasks.push(Task::new(then, pc));
+                        let Some(list) = code.lists.get(list.range()) else {
                             return Err(inconsistent());
                         };
-                        let Some((&first, rest)) = operands.split_first() else {
+                        let Some((&first, rest)) = list.split_first() else {
                             break;
                         };
                         self.tasks
                             .extend(rest.iter().rev().map(|&o| Task::new(Task::EVAL, o)));
-                        pc = first;
-                    }
-                    Instr::Con { fields, .. } => {
-                        self.tasks.push(Task::new(Task::BUILD, pc));
-                        let Some(fields) = code.lists.get(fields.range()) else {
-                            return Err(inconsistent());
-                        };
-                        let Some((&first, rest)) = fields.split_first() else {
-                            break;
-                        };
-                        self.tasks
-                            .extend(rest.iter().rev().map(|&f| Task::new(Task::EVAL, f)));
                         pc = first;
                     }
                     Instr::Case { scrutinee, .. } => {
