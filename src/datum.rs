@@ -184,17 +184,7 @@ impl<'t> Datum<'t> {
         let mut builder = Builder::new(max_nodes);
         let mut pending: Vec<&'t Term<'t>> = vec![term];
         while let Some(t) = pending.pop() {
-            match *t.node() {
-                Node::Int(n) => builder.leaf(Datum::Int(n))?,
-                Node::Bool(b) => builder.leaf(Datum::Bool(b))?,
-                Node::Str(s) => builder.leaf(Datum::Str(s.to_string()))?,
-                Node::Con(tag, fields) => {
-                    builder.open(tag, fields.len())?;
-                    pending.extend(fields.iter().rev());
-                }
-                Node::Lam(_) | Node::RecLam(_) => return Err(NotData::Function),
-                _ => return Err(NotData::NotAValue),
-            }
+            builder.term(t, |field| pending.push(field))?;
         }
         builder.finish()
     }
@@ -306,6 +296,27 @@ impl<'t> Builder<'t> {
     fn spend(&mut self) -> Result<(), NotData> {
         self.budget = self.budget.checked_sub(1).ok_or(NotData::TooLarge)?;
         Ok(())
+    }
+
+    /// Read one node of a value term in pre-order: a leaf, or a constructor
+    /// head whose fields go to `push`, last first (so they pop in order).
+    pub(crate) fn term(
+        &mut self,
+        t: &'t Term<'t>,
+        mut push: impl FnMut(&'t Term<'t>),
+    ) -> Result<(), NotData> {
+        match *t.node() {
+            Node::Int(n) => self.leaf(Datum::Int(n)),
+            Node::Bool(b) => self.leaf(Datum::Bool(b)),
+            Node::Str(s) => self.leaf(Datum::Str(s.to_string())),
+            Node::Con(tag, fields) => {
+                self.open(tag, fields.len())?;
+                fields.iter().rev().for_each(|&f| push(f));
+                Ok(())
+            }
+            Node::Lam(_) | Node::RecLam(_) => Err(NotData::Function),
+            _ => Err(NotData::NotAValue),
+        }
     }
 
     /// A leaf in pre-order.

@@ -700,17 +700,9 @@ pub(crate) fn to_datum<'a, C: Code<'a>>(
                 builder.open(c.tag, c.fields.len())?;
                 pending.extend(c.fields.iter().rev().map(Item::Value));
             }
-            Item::Value(&Value::Lit(t)) | Item::Term(t) => match *t.node() {
-                Node::Int(n) => builder.leaf(Datum::Int(n))?,
-                Node::Bool(b) => builder.leaf(Datum::Bool(b))?,
-                Node::Str(s) => builder.leaf(Datum::Str(s.to_string()))?,
-                Node::Con(tag, fields) => {
-                    builder.open(tag, fields.len())?;
-                    pending.extend(fields.iter().rev().map(|&f| Item::Term(f)));
-                }
-                Node::Lam(_) | Node::RecLam(_) => return Err(NotData::Function),
-                _ => return Err(NotData::NotAValue),
-            },
+            Item::Value(&Value::Lit(t)) | Item::Term(t) => {
+                builder.term(t, |field| pending.push(Item::Term(field)))?
+            }
         }
     }
     builder.finish()
