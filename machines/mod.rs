@@ -8,3 +8,5 @@ pub mod env;
 
 #[cfg(feature = "cek")]
 pub mod cek;
+
+pub(crate) mod runtime;

@@ -494,7 +494,7 @@ fn host_contraction<'r>(
         HostStep::Made { fuel, result } => {
             budget.fuel -= fuel;
             budget.counts.add(Rule::Prim);
-            budget.counts.add_host_fuel(fuel - 1);
+            budget.counts.add_extra_fuel(fuel - 1);
             if let Some(trace) = budget.trace.as_mut() {
                 trace(Rule::Prim, arena.prim(Prim::Host(id), values));
             }

@@ -296,7 +296,9 @@ impl fmt::Display for Rule {
     }
 }
 
-/// Contractions made, per rule. The total is their sum.
+/// Contractions made, per rule, and the fuel used beyond one unit per
+/// contraction (by data-sized primitives and host functions' declared costs).
+/// Every count saturates at `u64::MAX` rather than wrapping.
 ///
 /// # Examples
 ///
@@ -312,12 +314,11 @@ impl fmt::Display for Rule {
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Hash)]
 pub struct Counts {
     by_rule: [u64; 6],
-    host_fuel: u64,
+    extra_fuel: u64,
 }
 
 impl Counts {
     /// Count one more contraction under `rule`.
-    #[inline]
     ///
     /// # Examples
     ///
@@ -327,55 +328,58 @@ impl Counts {
     /// counts.add(Rule::Case);
     /// assert_eq!((counts.get(Rule::Case), counts.get(Rule::Beta)), (1, 0));
     /// ```
+    #[inline]
     pub fn add(&mut self, rule: Rule) {
-        self.by_rule[rule as usize] += 1;
+        let n = &mut self.by_rule[rule as usize];
+        *n = n.saturating_add(1);
     }
 
-    /// Count `units` of fuel used by host functions beyond their one unit per
-    /// call (their declared costs; see [`crate::HostFunctions::set_cost`]).
+    /// Count `units` of fuel used beyond one unit per contraction: a
+    /// data-sized primitive's (a string operation needs `1 + n / 1024`
+    /// units) or a host function's declared cost (see
+    /// [`crate::HostFunctions::set_cost`]).
     ///
     /// # Examples
     ///
     /// ```
     /// let mut counts = orrery::Counts::default();
     /// counts.add(orrery::Rule::Prim);
-    /// counts.add_host_fuel(9);
+    /// counts.add_extra_fuel(9);
     /// assert_eq!((counts.total(), counts.fuel()), (1, 10));
     /// ```
     #[inline]
-    pub fn add_host_fuel(&mut self, units: u64) {
-        self.host_fuel = self.host_fuel.saturating_add(units);
+    pub fn add_extra_fuel(&mut self, units: u64) {
+        self.extra_fuel = self.extra_fuel.saturating_add(units);
     }
 
-    /// Fuel used by host functions beyond one unit per call.
+    /// Fuel used beyond one unit per contraction.
     ///
     /// # Examples
     ///
     /// ```
     /// let mut counts = orrery::Counts::default();
-    /// counts.add_host_fuel(4);
-    /// counts.add_host_fuel(3);
-    /// assert_eq!(counts.host_fuel(), 7);
+    /// counts.add_extra_fuel(4);
+    /// counts.add_extra_fuel(3);
+    /// assert_eq!(counts.extra_fuel(), 7);
     /// ```
-    pub fn host_fuel(&self) -> u64 {
-        self.host_fuel
+    pub fn extra_fuel(&self) -> u64 {
+        self.extra_fuel
     }
 
-    /// All fuel used: one unit per contraction, plus host functions' costs.
+    /// All fuel used: one unit per contraction, plus the extra units.
     ///
     /// # Examples
     ///
     /// ```
     /// let mut counts = orrery::Counts::from_array([2, 0, 1, 0, 0, 0]);
-    /// counts.add_host_fuel(5);
+    /// counts.add_extra_fuel(5);
     /// assert_eq!(counts.fuel(), 3 + 5);
     /// ```
     pub fn fuel(&self) -> u64 {
-        self.total().saturating_add(self.host_fuel)
+        self.total().saturating_add(self.extra_fuel)
     }
 
     /// Contractions made under `rule`.
-    #[inline]
     ///
     /// # Examples
     ///
@@ -385,21 +389,23 @@ impl Counts {
     /// assert_eq!(counts.get(Rule::Let), 3);
     /// assert_eq!(counts.get(Rule::Prim), 1);
     /// ```
+    #[inline]
     pub fn get(&self, rule: Rule) -> u64 {
         self.by_rule[rule as usize]
     }
 
-    /// All contractions made.
+    /// All contractions made (saturating at `u64::MAX`).
     ///
     /// # Examples
     ///
     /// ```
     /// let mut counts = orrery::Counts::from_array([1, 2, 3, 0, 0, 4]);
-    /// counts.add_host_fuel(100); // host fuel is not a contraction
+    /// counts.add_extra_fuel(100); // extra fuel is not a contraction
     /// assert_eq!(counts.total(), 10);
+    /// assert_eq!(orrery::Counts::from_array([u64::MAX, 1, 0, 0, 0, 0]).total(), u64::MAX);
     /// ```
     pub fn total(&self) -> u64 {
-        self.by_rule.iter().sum()
+        self.by_rule.iter().fold(0u64, |sum, &n| sum.saturating_add(n))
     }
 
     /// Counts from per-rule numbers in the order of [`Rule::ALL`].
@@ -413,7 +419,7 @@ impl Counts {
     pub fn from_array(by_rule: [u64; 6]) -> Self {
         Counts {
             by_rule,
-            host_fuel: 0,
+            extra_fuel: 0,
         }
     }
 
@@ -440,8 +446,8 @@ impl fmt::Display for Counts {
             let sep = if i == 0 { "" } else { ", " };
             write!(f, "{sep}{rule} {}", self.get(*rule))?;
         }
-        if self.host_fuel > 0 {
-            write!(f, "; host fuel {}", self.host_fuel)?;
+        if self.extra_fuel > 0 {
+            write!(f, "; extra fuel {}", self.extra_fuel)?;
         }
         f.write_str(")")
     }

@@ -156,8 +156,9 @@ impl<'t> Datum<'t> {
     /// # Errors
     ///
     /// A [`ConvertError`] if the term is not a first-order value (it is a
-    /// function, or not a value at all), or if the datum would have more than
-    /// [`MAX_DATUM_NODES`] nodes (a value shared exponentially often).
+    /// function, or not a value at all), or if the datum would take more than
+    /// [`MAX_DATUM_BYTES`] (a value shared exponentially often, or a string
+    /// shared by many fields: every copy counts).
     ///
     /// # Examples
     ///
@@ -168,20 +169,41 @@ impl<'t> Datum<'t> {
     /// assert!(Datum::from_term(arena.lam(arena.var(0))).is_err());
     /// ```
     pub fn from_term(term: &'t Term<'t>) -> Result<Datum<'t>, ConvertError> {
-        Datum::read_term(term, MAX_DATUM_NODES).map_err(|e| match e {
+        Datum::from_term_within(term, MAX_DATUM_BYTES)
+    }
+
+    /// [`Datum::from_term`] within `max_bytes` (each node counts its own
+    /// size, each string its bytes, once per copy).
+    ///
+    /// # Errors
+    ///
+    /// As [`Datum::from_term`], with `max_bytes` for the limit.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Arena, Datum};
+    /// let arena = Arena::new();
+    /// let word = arena.string(&"ab".repeat(1000));
+    /// let pair = arena.con("Pair", &[word, word]);
+    /// assert!(Datum::from_term_within(pair, 2_000).is_err());
+    /// assert!(Datum::from_term_within(pair, 5_000).is_ok());
+    /// ```
+    pub fn from_term_within(term: &'t Term<'t>, max_bytes: usize) -> Result<Datum<'t>, ConvertError> {
+        Datum::read_term(term, max_bytes).map_err(|e| match e {
             NotData::Function => ConvertError::new("data", "a function"),
             NotData::NotAValue => ConvertError::new("a value", "a term that is not a value"),
             NotData::TooLarge => ConvertError::new(
-                format!("a value of at most {MAX_DATUM_NODES} nodes"),
+                format!("a value of at most {max_bytes} bytes"),
                 "a larger one",
             ),
         })
     }
 
-    /// Read `term` as a datum of at most `max_nodes` nodes: how a machine
+    /// Read `term` as a datum of at most `max_bytes` bytes: how a machine
     /// hands its arguments to a host function.
-    pub(crate) fn read_term(term: &'t Term<'t>, max_nodes: usize) -> Result<Datum<'t>, NotData> {
-        let mut builder = Builder::new(max_nodes);
+    pub(crate) fn read_term(term: &'t Term<'t>, max_bytes: usize) -> Result<Datum<'t>, NotData> {
+        let mut builder = Builder::new(max_bytes);
         let mut pending: Vec<&'t Term<'t>> = vec![term];
         while let Some(t) = pending.pop() {
             builder.term(t, |field| pending.push(field))?;
@@ -248,22 +270,31 @@ impl<'t> Datum<'t> {
     }
 }
 
-/// The most nodes [`Datum::from_term`] builds (16 Mi): beyond it a value is
-/// refused rather than unfolded (a value can share a subterm exponentially).
+/// The most bytes [`Datum::from_term`] and [`extract`] build (the default
+/// memory limit): beyond it a value is refused rather than unfolded (a value
+/// can share a subterm exponentially often). Each datum node counts its own
+/// size, and each string its bytes once per copy.
 ///
 /// # Examples
 ///
 /// ```
-/// use orrery::{Arena, Datum, MAX_DATUM_NODES};
+/// use orrery::{Arena, Datum, MAX_DATUM_BYTES};
 /// let arena = Arena::new();
 /// let mut t = arena.int(0);
 /// for _ in 0..10 {
 ///     t = arena.con("Twin", &[t, t]); // one term node, shared twice
 /// }
-/// assert!((1 << 11) - 1 <= MAX_DATUM_NODES); // so 2047 datum nodes are allowed
-/// assert!(Datum::from_term(t).is_ok());
+/// assert!(Datum::from_term(t).is_ok()); // 2047 nodes
+/// for _ in 0..40 {
+///     t = arena.con("Twin", &[t, t]);
+/// }
+/// assert!(Datum::from_term(t).is_err()); // 2^51 nodes
+/// assert_eq!(MAX_DATUM_BYTES, orrery::DEFAULT_MEMORY);
 /// ```
-pub const MAX_DATUM_NODES: usize = 1 << 24;
+pub const MAX_DATUM_BYTES: usize = crate::api::DEFAULT_MEMORY;
+
+/// Bytes a datum node counts, besides its string's bytes.
+pub(crate) const DATUM_NODE_BYTES: usize = std::mem::size_of::<Datum<'static>>();
 
 /// Why a value could not be read as a datum.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -272,7 +303,7 @@ pub(crate) enum NotData {
     Function,
     /// It is not a value (a machine bug if it happens).
     NotAValue,
-    /// It has more nodes than allowed.
+    /// It would take more bytes than allowed.
     TooLarge,
 }
 
@@ -285,17 +316,27 @@ pub(crate) struct Builder<'t> {
 }
 
 impl<'t> Builder<'t> {
-    pub(crate) fn new(max_nodes: usize) -> Self {
+    /// A builder of at most `max_bytes` (see [`MAX_DATUM_BYTES`]).
+    pub(crate) fn new(max_bytes: usize) -> Self {
         Builder {
             open: Vec::new(),
             done: None,
-            budget: max_nodes,
+            budget: max_bytes,
         }
     }
 
-    fn spend(&mut self) -> Result<(), NotData> {
-        self.budget = self.budget.checked_sub(1).ok_or(NotData::TooLarge)?;
+    fn spend(&mut self, bytes: usize) -> Result<(), NotData> {
+        self.budget = self
+            .budget
+            .checked_sub(DATUM_NODE_BYTES.saturating_add(bytes))
+            .ok_or(NotData::TooLarge)?;
         Ok(())
+    }
+
+    /// Whether `bytes` more would still fit (checked before a string is
+    /// copied for a leaf).
+    pub(crate) fn fits(&self, bytes: usize) -> bool {
+        DATUM_NODE_BYTES.saturating_add(bytes) <= self.budget
     }
 
     /// Read one node of a value term in pre-order: a leaf, or a constructor
@@ -308,7 +349,12 @@ impl<'t> Builder<'t> {
         match *t.node() {
             Node::Int(n) => self.leaf(Datum::Int(n)),
             Node::Bool(b) => self.leaf(Datum::Bool(b)),
-            Node::Str(s) => self.leaf(Datum::Str(s.to_string())),
+            Node::Str(s) => {
+                if !self.fits(s.len()) {
+                    return Err(NotData::TooLarge);
+                }
+                self.leaf(Datum::Str(s.to_string()))
+            }
             Node::Con(tag, fields) => {
                 self.open(tag, fields.len())?;
                 fields.iter().rev().for_each(|&f| push(f));
@@ -321,14 +367,18 @@ impl<'t> Builder<'t> {
 
     /// A leaf in pre-order.
     pub(crate) fn leaf(&mut self, datum: Datum<'t>) -> Result<(), NotData> {
-        self.spend()?;
+        let bytes = match &datum {
+            Datum::Str(s) => s.len(),
+            _ => 0,
+        };
+        self.spend(bytes)?;
         self.place(datum);
         Ok(())
     }
 
     /// A constructor head with `arity` fields to follow in pre-order.
     pub(crate) fn open(&mut self, tag: &'t str, arity: usize) -> Result<(), NotData> {
-        self.spend()?;
+        self.spend(0)?;
         if arity == 0 {
             self.place(Datum::con(tag, Vec::new()));
         } else {

@@ -466,11 +466,6 @@ pub(crate) fn host_step<'t>(
     }
 }
 
-/// The most datum nodes a run may hand a host function, given its memory
-/// limit: each node is charged its own size.
-pub(crate) fn max_datum_nodes(memory: usize) -> usize {
-    memory / std::mem::size_of::<Datum<'_>>()
-}
 
 /// The table shared by programs built without host functions.
 pub(crate) static NO_HOST: HostFunctions = HostFunctions {

@@ -79,7 +79,7 @@
 //! A host function's `Err` or panic is the `host_error` evaluation error. A
 //! host function may declare a fuel cost ([`HostFunctions::set_cost`]),
 //! computed from its arguments so that every machine charges the same; the
-//! extra units are reported by [`Counts::host_fuel`].
+//! extra units are reported by [`Counts::extra_fuel`].
 //!
 //! # Compile once, run many; pause and resume
 //!
@@ -108,18 +108,18 @@
 #![forbid(unsafe_code)]
 
 mod agree;
+mod budget;
 mod api;
 mod datum;
 mod equal;
 mod host;
+mod image;
 mod prim;
 mod scope;
 mod subst;
 pub mod syntax;
 mod term;
 mod validate;
-#[cfg(any(feature = "env", feature = "cek"))]
-mod value;
 
 #[path = "../machines/mod.rs"]
 pub mod machines;
@@ -129,10 +129,11 @@ pub use api::{
     Cancel, Counts, ErrorKind, EvalError, LimitError, LimitKind, Limits, Machine, MachineKind,
     Outcome, Report, Rule, CANCEL_POLL_INTERVAL, DEFAULT_FUEL, DEFAULT_MEMORY,
 };
-pub use datum::{extract, Con, ConvertError, Datum, FromDatum, IntoDatum, MAX_DATUM_NODES};
+pub use datum::{extract, Con, ConvertError, Datum, FromDatum, IntoDatum, MAX_DATUM_BYTES};
 pub use equal::terms_equal;
+pub use image::{MAX_ARMS, MAX_FIELDS, MAX_NODES};
 pub use host::{HostDefinitionError, HostFn, HostFunctions, HostId, MAX_HOST_ARITY};
-pub use prim::{delta, Operand, Prim, PrimValue};
+pub use prim::{delta, fuel_units, Operand, Prim, PrimValue, STRING_UNIT};
 pub use scope::{Built, Scope, UnboundName};
 pub use subst::{instantiate, shift, subst};
 pub use syntax::{

@@ -304,3 +304,161 @@ fn mismatch(op: Prim, operands: &[Operand<'_>]) -> EvalError {
         ),
     )
 }
+
+/// Bytes of string work that one unit of fuel pays for, beyond the first
+/// unit of every contraction (DESIGN §1's data-sized primitives).
+///
+/// # Examples
+///
+/// ```
+/// assert_eq!(orrery::STRING_UNIT, 1024);
+/// ```
+pub const STRING_UNIT: usize = 1024;
+
+/// The units of fuel a contraction of `op` on `operands` needs: `1 + ⌊n /
+/// 1024⌋`, where `n` is the byte length of the result of `++`, of the shorter
+/// operand of a string comparison, or of the operand of `length`; one unit
+/// for every other primitive and for operands of the wrong type. (A host
+/// function's declared cost is added by the machine, not here.)
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{fuel_units, Operand, Prim};
+/// let long = "x".repeat(5000);
+/// assert_eq!(fuel_units(Prim::Concat, &[Operand::Str(&long), Operand::Str("yz")]), 1 + 5002 / 1024);
+/// assert_eq!(fuel_units(Prim::Lt, &[Operand::Str(&long), Operand::Str("yz")]), 1);
+/// assert_eq!(fuel_units(Prim::Length, &[Operand::Int(3)]), 1);
+/// ```
+pub fn fuel_units(op: Prim, operands: &[Operand<'_>]) -> u64 {
+    use Operand::Str;
+    let bytes = match (op, operands) {
+        (Prim::Concat, &[Str(a), Str(b)]) => a.len().saturating_add(b.len()),
+        (Prim::Eq | Prim::Ne | Prim::Lt | Prim::Le | Prim::Gt | Prim::Ge, &[Str(a), Str(b)]) => {
+            a.len().min(b.len())
+        }
+        (Prim::Length, &[Str(s)]) => s.len(),
+        _ => 0,
+    };
+    1 + (bytes / STRING_UNIT) as u64
+}
+
+/// Strings longer than this are worked on in chunks of this many bytes, with
+/// a look at the cancellation flag between chunks.
+const CHUNK: usize = 256 << 10;
+
+/// Why [`delta_polled`] gave no result.
+#[derive(Debug)]
+pub(crate) enum Stopped {
+    /// The δ-rule's error.
+    Error(EvalError),
+    /// `poll` said to stop, between two chunks of a long string operation.
+    Cancelled,
+    /// The allocator refused the result.
+    Memory,
+}
+
+/// [`delta`], working on long strings in chunks and calling `poll` between
+/// them; `poll` returning `true` stops the work.
+pub(crate) fn delta_polled(
+    op: Prim,
+    operands: &[Operand<'_>],
+    poll: &mut dyn FnMut() -> bool,
+) -> Result<PrimValue, Stopped> {
+    use Operand::Str;
+    let stop = |poll: &mut dyn FnMut() -> bool| if poll() { Err(Stopped::Cancelled) } else { Ok(()) };
+    match (op, operands) {
+        (Prim::Concat, &[Str(a), Str(b)]) if a.len() + b.len() > CHUNK => {
+            let mut s = String::new();
+            if s.try_reserve_exact(a.len() + b.len()).is_err() {
+                // The machines refuse strings past their memory limit before
+                // they get here; an allocator that still says no is out of
+                // memory, which the memory limit stands for.
+                return Err(Stopped::Memory);
+            }
+            for part in [a, b] {
+                let mut at = 0;
+                while at < part.len() {
+                    let end = boundary(part, at + CHUNK);
+                    s.push_str(&part[at..end]);
+                    at = end;
+                    stop(poll)?;
+                }
+            }
+            Ok(PrimValue::Str(s))
+        }
+        (Prim::Length, &[Str(s)]) if s.len() > CHUNK => {
+            let (mut at, mut count) = (0, 0usize);
+            while at < s.len() {
+                let end = boundary(s, at + CHUNK);
+                count += s[at..end].chars().count();
+                at = end;
+                stop(poll)?;
+            }
+            Ok(PrimValue::Int(count as i64))
+        }
+        (Prim::Eq | Prim::Ne | Prim::Lt | Prim::Le | Prim::Gt | Prim::Ge, &[Str(a), Str(b)])
+            if a.len().min(b.len()) > CHUNK =>
+        {
+            let (x, y) = (a.as_bytes(), b.as_bytes());
+            let shorter = x.len().min(y.len());
+            let mut order = std::cmp::Ordering::Equal;
+            let mut at = 0;
+            while at < shorter && order.is_eq() {
+                let end = (at + CHUNK).min(shorter);
+                order = x[at..end].cmp(&y[at..end]);
+                at = end;
+                stop(poll)?;
+            }
+            let order = order.then(x.len().cmp(&y.len()));
+            Ok(PrimValue::Bool(match op {
+                Prim::Eq => order.is_eq(),
+                Prim::Ne => order.is_ne(),
+                Prim::Lt => order.is_lt(),
+                Prim::Le => order.is_le(),
+                Prim::Gt => order.is_gt(),
+                _ => order.is_ge(),
+            }))
+        }
+        _ => delta(op, operands).map_err(Stopped::Error),
+    }
+}
+
+/// The first char boundary of `s` at or after `at` (or its end).
+fn boundary(s: &str, at: usize) -> usize {
+    let mut end = at.min(s.len());
+    while !s.is_char_boundary(end) {
+        end += 1;
+    }
+    end
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn chunked_string_work_agrees_with_delta() {
+        let a = "é".repeat(300_000);
+        let mut b = a.clone();
+        b.push('z');
+        let c = format!("{}a", "é".repeat(299_999));
+        for (x, y) in [(&a, &b), (&b, &a), (&a, &a), (&a, &c), (&c, &a)] {
+            let operands = [Operand::Str(x), Operand::Str(y)];
+            for op in [Prim::Concat, Prim::Eq, Prim::Ne, Prim::Lt, Prim::Le, Prim::Gt, Prim::Ge] {
+                let mut polls = 0;
+                let chunked = delta_polled(op, &operands, &mut || {
+                    polls += 1;
+                    false
+                });
+                let Ok(chunked) = chunked else { panic!("{op}") };
+                assert_eq!(chunked, delta(op, &operands).unwrap(), "{op}");
+                assert!(polls > 1, "{op} looked at the flag {polls} times");
+            }
+        }
+        let len = delta_polled(Prim::Length, &[Operand::Str(&a)], &mut || false).unwrap();
+        assert_eq!(len, PrimValue::Int(300_000));
+        let stopped = delta_polled(Prim::Length, &[Operand::Str(&a)], &mut || true);
+        assert!(matches!(stopped, Err(Stopped::Cancelled)));
+    }
+}

@@ -2,12 +2,12 @@
 //! primitive arities, one arity per constructor tag, distinct case arms),
 //! checked once by an iterative walk that visits each shared node once.
 
-use hashbrown::{HashMap, HashSet};
+use std::sync::Arc;
 
 use crate::datum::Datum;
 use crate::host::{HostFunctions, NO_HOST};
-use crate::prim::Prim;
-use crate::term::{Arena, Node, Term};
+use crate::image::Image;
+use crate::term::{Arena, Term};
 
 /// Why a term is not a runnable program.
 ///
@@ -60,15 +60,38 @@ pub enum ValidationError {
         /// The function's index in the table it came from.
         index: usize,
     },
+    /// The program, once its shared open subterms are unfolded, would have
+    /// more than this many nodes (see [`crate::MAX_NODES`]).
+    #[error("the program is too large: more than {nodes} nodes once its shared subterms are unfolded")]
+    TooLarge {
+        /// The most nodes allowed for this program.
+        nodes: usize,
+    },
+    /// A constructor with too many fields, a case with too many arms, or an
+    /// arm binding too many fields ([`crate::MAX_FIELDS`], [`crate::MAX_ARMS`]).
+    #[error("{what}: {given} is more than the {max} allowed")]
+    TooWide {
+        /// What was counted.
+        what: &'static str,
+        /// How many there were.
+        given: usize,
+        /// The most allowed.
+        max: usize,
+    },
+    /// A broken invariant inside orrery itself (a bug, never the program's
+    /// fault).
+    #[error("internal error in orrery (please report it): {0}")]
+    Internal(&'static str),
 }
 
 /// A closed, validated term, ready for any machine, with the table of host
 /// functions it may call.
 ///
-/// A `Program` is a pair of references (to the term in its [`crate::Arena`]
-/// and to its [`HostFunctions`]), so it is `Copy`, `Send` and `Sync`: one
-/// parsed program can be run on many threads at once, each run with its own
-/// limits.
+/// A `Program` holds its term (in its [`crate::Arena`]), its
+/// [`HostFunctions`], and the form every machine runs, prepared once when
+/// the program is made and shared by its clones. It is cheap to clone,
+/// `Send` and `Sync`: one parsed program can be run on many threads at
+/// once, each run with its own limits.
 ///
 /// # Examples
 ///
@@ -78,10 +101,11 @@ pub enum ValidationError {
 /// let program = Program::new(arena.lam(arena.var(0))).unwrap();
 /// assert!(program.term().is_value());
 /// ```
-#[derive(Clone, Copy, Debug)]
+#[derive(Clone, Debug)]
 pub struct Program<'a> {
     root: &'a Term<'a>,
     host: &'a HostFunctions,
+    image: Arc<Image>,
 }
 
 impl<'a> Program<'a> {
@@ -125,8 +149,8 @@ impl<'a> Program<'a> {
     /// assert!(Program::new(call).is_err());
     /// ```
     pub fn with_host(root: &'a Term<'a>, host: &'a HostFunctions) -> Result<Self, ValidationError> {
-        validate_with(root, host)?;
-        Ok(Program { root, host })
+        let image = Arc::new(Image::build(root, host)?);
+        Ok(Program { root, host, image })
     }
 
     /// The program `function a₁ … aₙ`: a function value (say, what a
@@ -199,6 +223,11 @@ impl<'a> Program<'a> {
     pub fn host(&self) -> &'a HostFunctions {
         self.host
     }
+
+    /// The form the machines run.
+    pub(crate) fn image(&self) -> &Image {
+        &self.image
+    }
 }
 
 /// Check the invariants of [`Program::new`] without building a program.
@@ -233,62 +262,5 @@ pub fn validate(root: &Term<'_>) -> Result<(), ValidationError> {
 /// assert!(validate_with(Arena::new().int(1), &host).is_ok());
 /// ```
 pub fn validate_with(root: &Term<'_>, host: &HostFunctions) -> Result<(), ValidationError> {
-    if !root.is_closed() {
-        return Err(ValidationError::Open {
-            index: root.scope() - 1,
-        });
-    }
-    let mut arities: HashMap<&str, u32> = HashMap::new();
-    let mut seen: HashSet<*const Term<'_>> = HashSet::new();
-    let mut pending: Vec<&Term<'_>> = vec![root];
-    let mut note_arity = |tag, arity| -> Result<(), ValidationError> {
-        let first = *arities.entry(tag).or_insert(arity);
-        if first == arity {
-            Ok(())
-        } else {
-            Err(ValidationError::ConArity {
-                tag: tag.to_string(),
-                first,
-                second: arity,
-            })
-        }
-    };
-    while let Some(t) = pending.pop() {
-        let is_leaf = matches!(
-            t.node(),
-            Node::Var(_) | Node::Int(_) | Node::Bool(_) | Node::Str(_)
-        );
-        if is_leaf || !seen.insert(t as *const _) {
-            continue;
-        }
-        match *t.node() {
-            Node::Prim(op, args) if args.len() != op.arity() => {
-                return Err(ValidationError::PrimArity {
-                    name: op.name().to_string(),
-                    expected: op.arity(),
-                    given: args.len(),
-                });
-            }
-            Node::Prim(Prim::Host(id), _) if !host.contains(id) => {
-                return Err(ValidationError::UnknownHost { index: id.index() });
-            }
-            Node::Con(tag, fields) => {
-                note_arity(tag, u32::try_from(fields.len()).unwrap_or(u32::MAX))?
-            }
-            Node::Case(_, arms, _) => {
-                let mut tags: HashSet<&str> = HashSet::with_capacity(arms.len());
-                for arm in arms {
-                    note_arity(arm.tag, arm.arity)?;
-                    if !tags.insert(arm.tag) {
-                        return Err(ValidationError::DuplicateArm {
-                            tag: arm.tag.to_string(),
-                        });
-                    }
-                }
-            }
-            _ => {}
-        }
-        pending.extend(t.children().map(|(child, _)| child));
-    }
-    Ok(())
+    Image::build(root, host).map(drop)
 }

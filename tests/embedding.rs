@@ -157,7 +157,7 @@ fn a_declared_cost_is_charged_and_stops_the_run_at_the_same_fuel_everywhere() {
     assert_eq!(whole.outcome, Outcome::Value(arena.int(11)));
     // banner: 1 + 10 units; length: 1; +: 1.
     assert_eq!(whole.counts.total(), 3);
-    assert_eq!(whole.counts.host_fuel(), 10);
+    assert_eq!(whole.counts.extra_fuel(), 10);
     assert_eq!(whole.counts.fuel(), 13);
     for fuel in 0..=whole.counts.fuel() + 1 {
         let report = run_with_host(&arena, &host, source, &Limits::default().with_fuel(fuel));
@@ -431,7 +431,7 @@ fn every_fuel_bound_agrees_with_costed_host_calls_in_a_loop() {
     let whole = run_program_everywhere(&arena, &program, &Limits::default(), source);
     assert!(matches!(whole.outcome, Outcome::Value(_)));
     // banner costs 2n for n = 4, 3, 2, 1.
-    assert_eq!(whole.counts.host_fuel(), 2 * (4 + 3 + 2 + 1));
+    assert_eq!(whole.counts.extra_fuel(), 2 * (4 + 3 + 2 + 1));
     for fuel in 0..=whole.counts.fuel() + 1 {
         let limits = Limits::default().with_fuel(fuel);
         let report = run_program_everywhere(&arena, &program, &limits, source);

@@ -1,0 +1,18 @@
+//! The runtime the environment machines share: what they hold at run time
+//! and how it meets the rest of the crate.
+//!
+//! | module | holds | used for |
+//! |---|---|---|
+//! | [`value`] | values, cells, flat closures, the live-byte meter, stack recycling | every value a machine makes, and the memory limit's accounting of them |
+//! | [`prims`] | primitive contractions over values, integer shortcuts | the `prim` rule, data-sized fuel, chunked string work |
+//! | [`host`] | the host-call contraction, values to and from data | host functions |
+//! | [`readback`] | values to closed terms | a run's result, under the memory limit |
+//!
+//! The functions and free variables these values are built on are found
+//! once per program, by the image's analysis (`crate::image::analysis`).
+#![cfg_attr(not(any(feature = "env", feature = "cek")), allow(dead_code))]
+
+pub(crate) mod host;
+pub(crate) mod prims;
+pub(crate) mod readback;
+pub(crate) mod value;

@@ -1,0 +1,92 @@
+//! Primitive contractions over runtime values: the integer shortcuts the
+//! machines' hot paths take, and the general path through the shared
+//! δ-rules, which pays a data-sized primitive's units, refuses a string that
+//! would pass the memory limit before making it, and works on long strings
+//! in chunks with a look at the cancellation flag between them.
+
+use smallvec::SmallVec;
+
+use super::value::{Code, Tags, Text, Value};
+use crate::budget::{Budget, Halt};
+use crate::image::Image;
+use crate::prim::{delta_polled, fuel_units, Operand, Prim, PrimValue, Stopped};
+use crate::Rule;
+
+/// Contract `op` on `args`, its fuel not yet paid; the run holds `held`
+/// bytes.
+pub(crate) fn prim_contraction<C: Code>(
+    op: Prim,
+    args: &[Value<C>],
+    image: &Image,
+    tags: &Tags,
+    budget: &mut Budget,
+    held: usize,
+) -> Result<Value<C>, Halt> {
+    let operands: SmallVec<[Operand<'_>; 2]> = args.iter().map(|v| v.operand(image, tags)).collect();
+    budget.pay(Rule::Prim, fuel_units(op, &operands))?;
+    if let (Prim::Concat, [Operand::Str(a), Operand::Str(b)]) = (op, &operands[..]) {
+        let bytes = Text::bytes(a.len().saturating_add(b.len()));
+        budget.check_memory(held.saturating_add(bytes))?;
+    }
+    let result = delta_polled(op, &operands, &mut || budget.is_cancelled());
+    match result {
+        Ok(PrimValue::Int(n)) => Ok(Value::Int(n)),
+        Ok(PrimValue::Bool(b)) => Ok(Value::Bool(b)),
+        Ok(PrimValue::Str(s)) => {
+            budget.check_memory(held.saturating_add(Text::bytes(s.len())))?;
+            Ok(Value::Str(Text::new(s)))
+        }
+        Err(Stopped::Error(e)) => Err(Halt::error(e)),
+        Err(Stopped::Cancelled) => Err(Halt::Cancelled),
+        Err(Stopped::Memory) => Err(Halt::Memory),
+    }
+}
+
+/// `op(x, y)` on integers when it is a comparison.
+#[inline]
+pub(crate) fn int_test(op: Prim, x: i64, y: i64) -> Option<bool> {
+    Some(match op {
+        Prim::Lt => x < y,
+        Prim::Le => x <= y,
+        Prim::Gt => x > y,
+        Prim::Ge => x >= y,
+        Prim::Eq => x == y,
+        Prim::Ne => x != y,
+        _ => return None,
+    })
+}
+
+/// `op(x, y)` on integers when it is a comparison or an arithmetic operation
+/// that does not fail; `None` sends everything else through the δ-rules.
+#[inline]
+pub(crate) fn int_prim<C: Code>(op: Prim, x: i64, y: i64) -> Option<Value<C>> {
+    match op {
+        Prim::Add => x.checked_add(y).map(Value::Int),
+        Prim::Sub => x.checked_sub(y).map(Value::Int),
+        Prim::Mul => x.checked_mul(y).map(Value::Int),
+        _ => int_test(op, x, y).map(Value::Bool),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::prim::delta;
+
+    #[test]
+    fn integer_shortcuts_agree_with_delta() {
+        let samples = [i64::MIN, -7, -1, 0, 1, 2, 7, i64::MAX];
+        for op in Prim::ALL.into_iter().filter(|p| p.arity() == 2) {
+            for a in samples {
+                for b in samples {
+                    let Some(fast) = int_prim::<u32>(op, a, b) else { continue };
+                    match (fast, delta(op, &[Operand::Int(a), Operand::Int(b)])) {
+                        (Value::Int(x), Ok(PrimValue::Int(y))) => assert_eq!(x, y),
+                        (Value::Bool(x), Ok(PrimValue::Bool(y))) => assert_eq!(x, y),
+                        _ => panic!("{op} {a} {b} disagrees"),
+                    }
+                }
+            }
+        }
+    }
+}

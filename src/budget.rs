@@ -1,0 +1,383 @@
+//! Fuel, memory and cancellation, for every machine: one place that decides
+//! when a run must stop.
+//!
+//! * **Fuel** is exact. It is handed to the hot loop in slices of at most
+//!   [`CANCEL_POLL_INTERVAL`] units, so paying for a contraction tests one
+//!   counter; a contraction that needs more than one unit (a data-sized
+//!   primitive, a host call with a cost) is paid only if all its units are
+//!   left, and otherwise the run is out of fuel *before* it, having used and
+//!   counted nothing (the metered-block rule of the cost model).
+//! * **Cancellation** is looked at between fuel slices and, for work that
+//!   costs no fuel (copying captured values, reading a result back, building
+//!   data for a host), after every [`POLL_WORK`] units of such work, so a
+//!   cancelled run stops within a bounded amount of work.
+//! * **Memory** is enforced where it is spent: machines ask
+//!   [`Budget::check_memory`] with what they hold whenever they grow (a
+//!   stack's capacity, a runtime cell, a string before it is made), so the
+//!   limit is never passed by more than the growth being asked for.
+
+use crate::api::{Cancel, Counts, EvalError, LimitError, Limits, Rule, CANCEL_POLL_INTERVAL};
+
+/// Units of fuel-free work between two looks at the cancellation flag.
+pub(crate) const POLL_WORK: i64 = 1 << 16;
+
+/// Why a run stopped without a value. Boxed errors keep `Result<_, Halt>`
+/// small on the hot path.
+#[derive(Debug)]
+pub(crate) enum Halt {
+    /// An evaluation error.
+    Error(Box<EvalError>),
+    /// The fuel ran out (a pausable run can resume).
+    OutOfFuel,
+    /// The memory limit.
+    Memory,
+    /// The run was cancelled.
+    Cancelled,
+}
+
+impl Halt {
+    /// An evaluation error, boxed.
+    #[cold]
+    pub(crate) fn error(error: EvalError) -> Halt {
+        Halt::Error(Box::new(error))
+    }
+
+    /// The resource limit this halt is, with `memory` the run's limit.
+    pub(crate) fn limit(&self, memory: usize) -> Option<LimitError> {
+        match self {
+            Halt::Memory => Some(LimitError::memory(memory)),
+            Halt::Cancelled => Some(LimitError::cancelled()),
+            _ => None,
+        }
+    }
+}
+
+/// Fuel in slices: see the module documentation.
+#[derive(Clone, Copy, Debug)]
+pub(crate) struct Tank {
+    /// Units the hot loop may spend before the next slow check.
+    slice: u64,
+    /// Units not yet handed out.
+    reserve: u64,
+}
+
+impl Tank {
+    /// A tank holding `fuel`, with an empty slice (so the first contraction
+    /// makes the slow checks).
+    pub(crate) fn new(fuel: u64) -> Self {
+        Tank {
+            slice: 0,
+            reserve: fuel,
+        }
+    }
+
+    /// Pay one unit from the slice; `false` when the slice is empty and the
+    /// caller must make its slow checks and [`Tank::refill`].
+    #[inline(always)]
+    pub(crate) fn take(&mut self) -> bool {
+        if self.slice == 0 {
+            return false;
+        }
+        self.slice -= 1;
+        true
+    }
+
+    /// Pay two units from the slice if it holds them; `false` (paying
+    /// nothing) otherwise, and the caller pays one at a time.
+    #[inline(always)]
+    pub(crate) fn take2(&mut self) -> bool {
+        if self.slice < 2 {
+            return false;
+        }
+        self.slice -= 2;
+        true
+    }
+
+    /// Whether `n` units are left in all.
+    #[inline(always)]
+    pub(crate) fn has(&self, n: u64) -> bool {
+        self.slice >= n || self.slice.saturating_add(self.reserve) >= n
+    }
+
+    /// Move the next slice out of the reserve; `false` if no fuel is left.
+    pub(crate) fn refill(&mut self) -> bool {
+        let next = self.reserve.min(CANCEL_POLL_INTERVAL);
+        self.reserve -= next;
+        self.slice += next;
+        self.slice > 0
+    }
+
+    /// Units left in all.
+    pub(crate) fn left(&self) -> u64 {
+        self.slice.saturating_add(self.reserve)
+    }
+
+    /// Add `more` units to the reserve.
+    pub(crate) fn add(&mut self, more: u64) {
+        self.reserve = self.reserve.saturating_add(more);
+    }
+
+    /// Pay `n` units from the slice, then the reserve; `false`, paying
+    /// nothing, if fewer are left.
+    pub(crate) fn spend(&mut self, n: u64) -> bool {
+        if !self.has(n) {
+            return false;
+        }
+        let from_slice = n.min(self.slice);
+        self.slice -= from_slice;
+        self.reserve -= n - from_slice;
+        true
+    }
+}
+
+/// One run's fuel, counts, cancellation and memory limit.
+#[derive(Clone, Debug)]
+pub(crate) struct Budget {
+    pub(crate) tank: Tank,
+    pub(crate) counts: Counts,
+    cancel: Option<Cancel>,
+    /// Units of fuel-free work until the next look at the cancellation flag.
+    until_poll: i64,
+    /// The memory limit, in bytes.
+    pub(crate) memory: usize,
+    /// The most bytes held at any check.
+    pub(crate) peak: usize,
+}
+
+impl Budget {
+    /// The budget of a run under `limits`.
+    pub(crate) fn new(limits: &Limits) -> Self {
+        Budget {
+            tank: Tank::new(limits.fuel),
+            counts: Counts::default(),
+            cancel: limits.cancel.clone(),
+            until_poll: 0,
+            memory: limits.memory,
+            peak: 0,
+        }
+    }
+
+    /// Pay one unit for a contraction under `rule`.
+    #[inline(always)]
+    pub(crate) fn take(&mut self, rule: Rule) -> Result<(), Halt> {
+        if !self.tank.take() {
+            self.next_slice()?;
+        }
+        self.counts.add(rule);
+        Ok(())
+    }
+
+    /// Pay for two contractions in a row, under `first` then `second`.
+    #[inline(always)]
+    pub(crate) fn take2(&mut self, first: Rule, second: Rule) -> Result<(), Halt> {
+        if !self.tank.take2() {
+            self.take(first)?;
+            return self.take(second);
+        }
+        self.counts.add(first);
+        self.counts.add(second);
+        Ok(())
+    }
+
+    /// The slow checks between fuel slices: cancellation, then the next slice
+    /// of fuel, whose first unit pays for the pending contraction.
+    #[cold]
+    #[inline(never)]
+    fn next_slice(&mut self) -> Result<(), Halt> {
+        if self.is_cancelled() {
+            return Err(Halt::Cancelled);
+        }
+        if !self.tank.refill() {
+            return Err(Halt::OutOfFuel);
+        }
+        self.tank.take();
+        Ok(())
+    }
+
+    /// Pay `units` (at least one) for a contraction under `rule`: one unit
+    /// as [`Budget::take`] does, more only if all of them are left (else out
+    /// of fuel, nothing used); the units beyond the first are counted as
+    /// extra fuel. The run is cancelled here if its handle says so.
+    #[inline]
+    pub(crate) fn pay(&mut self, rule: Rule, units: u64) -> Result<(), Halt> {
+        if units <= 1 {
+            return self.take(rule);
+        }
+        self.pay_many(rule, units)
+    }
+
+    #[cold]
+    fn pay_many(&mut self, rule: Rule, units: u64) -> Result<(), Halt> {
+        if self.is_cancelled() {
+            return Err(Halt::Cancelled);
+        }
+        if !self.tank.spend(units) {
+            return Err(Halt::OutOfFuel);
+        }
+        self.counts.add(rule);
+        self.counts.add_extra_fuel(units - 1);
+        Ok(())
+    }
+
+    /// Whether `n` units of fuel are left.
+    #[inline(always)]
+    pub(crate) fn has_fuel(&self, n: u64) -> bool {
+        self.tank.has(n)
+    }
+
+    /// Account for `units` of work that costs no fuel; `Err` once the run
+    /// has been cancelled (looked at every [`POLL_WORK`] units).
+    #[inline(always)]
+    pub(crate) fn work(&mut self, units: u64) -> Result<(), Halt> {
+        self.until_poll -= units.min(i64::MAX as u64) as i64;
+        if self.until_poll < 0 {
+            return self.poll();
+        }
+        Ok(())
+    }
+
+    #[cold]
+    #[inline(never)]
+    fn poll(&mut self) -> Result<(), Halt> {
+        self.until_poll = POLL_WORK;
+        if self.is_cancelled() {
+            Err(Halt::Cancelled)
+        } else {
+            Ok(())
+        }
+    }
+
+    /// Whether the run's handle has been cancelled.
+    #[inline]
+    pub(crate) fn is_cancelled(&self) -> bool {
+        self.cancel.as_ref().is_some_and(Cancel::is_cancelled)
+    }
+
+    /// The cancellation handle, for work done outside the budget (a long
+    /// string operation looks at it between chunks).
+    pub(crate) fn cancel(&self) -> Option<&Cancel> {
+        self.cancel.as_ref()
+    }
+
+    /// Record that the run holds `held` bytes; `Err` if that is over the
+    /// limit.
+    #[inline]
+    pub(crate) fn check_memory(&mut self, held: usize) -> Result<(), Halt> {
+        if held > self.peak {
+            self.peak = held;
+        }
+        if held > self.memory {
+            Err(Halt::Memory)
+        } else {
+            Ok(())
+        }
+    }
+
+    /// Bytes the run may still take, holding `held`.
+    #[inline]
+    pub(crate) fn room(&self, held: usize) -> usize {
+        self.memory.saturating_sub(held)
+    }
+
+    /// Fuel left.
+    pub(crate) fn fuel_left(&self) -> u64 {
+        self.tank.left()
+    }
+
+    /// Add `more` units of fuel (a resumed run).
+    pub(crate) fn add_fuel(&mut self, more: u64) {
+        self.tank.add(more);
+    }
+}
+
+/// The bytes a vector would hold after growing to take `extra` more elements
+/// (its capacity doubles, as `Vec` grows), or `None` if it needs no growth.
+#[inline]
+pub(crate) fn growth<T>(v: &Vec<T>, extra: usize) -> Option<usize> {
+    let need = v.len().saturating_add(extra);
+    if need <= v.capacity() {
+        return None;
+    }
+    let cap = need.max(v.capacity().saturating_mul(2)).max(4);
+    Some(cap.saturating_mul(std::mem::size_of::<T>()))
+}
+
+/// Grow `v` to take `extra` more elements, within `room` bytes beyond what
+/// its current capacity holds; `false` (nothing done) if it would not fit.
+#[inline(never)]
+pub(crate) fn reserve_within<T>(v: &mut Vec<T>, extra: usize, room: usize) -> bool {
+    let Some(bytes) = growth(v, extra) else {
+        return true;
+    };
+    let now = v.capacity() * std::mem::size_of::<T>();
+    if bytes.saturating_sub(now) > room {
+        return false;
+    }
+    let cap = bytes / std::mem::size_of::<T>().max(1);
+    v.reserve_exact(cap - v.len());
+    true
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_tank_pays_exactly_its_fuel_in_slices() {
+        let mut tank = Tank::new(2_500);
+        let (mut paid, mut slices) = (0, 0);
+        loop {
+            if !tank.take() {
+                if !tank.refill() {
+                    break;
+                }
+                slices += 1;
+                continue;
+            }
+            paid += 1;
+        }
+        assert_eq!(paid, 2_500);
+        assert_eq!(slices, 3); // 1024 + 1024 + 452
+        assert_eq!(tank.left(), 0);
+        tank.add(1);
+        assert!(tank.has(1) && !tank.has(2) && !tank.take2());
+    }
+
+    #[test]
+    fn a_contraction_of_many_units_is_paid_whole_or_not_at_all() {
+        let mut budget = Budget::new(&Limits::default().with_fuel(10));
+        budget.take(Rule::Beta).unwrap();
+        assert!(matches!(budget.pay(Rule::Prim, 10), Err(Halt::OutOfFuel)));
+        assert_eq!((budget.counts.total(), budget.fuel_left()), (1, 9));
+        budget.pay(Rule::Prim, 9).unwrap();
+        assert_eq!(budget.counts.total(), 2);
+        assert_eq!(budget.counts.extra_fuel(), 8);
+        assert_eq!(budget.fuel_left(), 0);
+    }
+
+    #[test]
+    fn work_looks_at_the_cancellation_flag() {
+        let cancel = Cancel::new();
+        let mut budget = Budget::new(&Limits::default().with_cancel(cancel.clone()));
+        budget.work(10).unwrap();
+        cancel.cancel();
+        let mut stopped = false;
+        for _ in 0..4 {
+            if budget.work(POLL_WORK as u64 / 2).is_err() {
+                stopped = true;
+                break;
+            }
+        }
+        assert!(stopped);
+    }
+
+    #[test]
+    fn growth_is_refused_beyond_the_room() {
+        let mut v: Vec<u64> = Vec::with_capacity(4);
+        v.extend([1, 2, 3, 4]);
+        assert!(!reserve_within(&mut v, 1, 8));
+        assert_eq!(v.capacity(), 4);
+        assert!(reserve_within(&mut v, 1, 64));
+        assert!(v.capacity() >= 5);
+    }
+}
