@@ -3,7 +3,8 @@
 //! kind) and the same per-rule contraction counts. Resource limits are
 //! reported, never compared.
 
-use crate::api::{Outcome, Report};
+use crate::api::{LimitError, Outcome, Report};
+use crate::equal::terms_equal_within;
 
 /// Why two reports of one program disagree, or `None` when they agree (or
 /// when either stopped at a resource limit, which may trip anywhere).
@@ -19,29 +20,65 @@ use crate::api::{Outcome, Report};
 /// assert!(disagreement(&a, &b).is_some());
 /// ```
 pub fn disagreement(a: &Report<'_>, b: &Report<'_>) -> Option<String> {
-    match (&a.outcome, &b.outcome) {
-        (Outcome::Limit(_), _) | (_, Outcome::Limit(_)) => return None,
+    disagreement_within(a, b, usize::MAX).unwrap_or(None)
+}
+
+/// [`disagreement`], comparing values with at most about `max_bytes` of
+/// working memory (the comparison of two large values needs a memo of the
+/// pairs of nodes it has compared).
+///
+/// # Errors
+///
+/// The memory limit, if the values cannot be compared within `max_bytes`.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{disagreement_within, Arena, Counts, Outcome, Report};
+/// let arena = Arena::new();
+/// let mut list = arena.con("Nil", &[]);
+/// for i in 0..10_000 {
+///     list = arena.con("Cons", &[arena.int(i), list]);
+/// }
+/// let copy = Arena::new();
+/// let other = copy.copy_term(list);
+/// let a = Report { outcome: Outcome::Value(list), counts: Counts::default() };
+/// let b = Report { outcome: Outcome::Value(other), counts: Counts::default() };
+/// assert_eq!(disagreement_within(&a, &b, 1 << 24), Ok(None));
+/// assert!(disagreement_within(&a, &b, 1 << 10).is_err());
+/// ```
+pub fn disagreement_within(
+    a: &Report<'_>,
+    b: &Report<'_>,
+    max_bytes: usize,
+) -> Result<Option<String>, LimitError> {
+    Ok(match (&a.outcome, &b.outcome) {
+        (Outcome::Limit(_), _) | (_, Outcome::Limit(_)) => return Ok(None),
         (Outcome::Value(x), Outcome::Value(y)) => {
-            if x != y {
-                return Some("different values".to_string());
+            match terms_equal_within(x, y, max_bytes) {
+                Some(true) => {}
+                Some(false) => return Ok(Some("different values".to_string())),
+                None => return Err(LimitError::memory(max_bytes)),
             }
+            counts(a, b)
         }
         (Outcome::Error(x), Outcome::Error(y)) => {
             if x.kind() != y.kind() {
-                return Some(format!(
+                return Ok(Some(format!(
                     "different errors: {} and {}",
                     x.kind().name(),
                     y.kind().name()
-                ));
+                )));
             }
+            counts(a, b)
         }
-        (Outcome::OutOfFuel, Outcome::OutOfFuel) => {}
-        (x, y) => {
-            return Some(format!("different outcomes: {} and {}", x.name(), y.name()));
-        }
-    }
-    if a.counts != b.counts {
-        return Some(format!("different counts: {} and {}", a.counts, b.counts));
-    }
-    None
+        (Outcome::OutOfFuel, Outcome::OutOfFuel) => counts(a, b),
+        (x, y) => Some(format!("different outcomes: {} and {}", x.name(), y.name())),
+    })
+}
+
+/// Why the counts of two reports differ, if they do (the extra fuel
+/// included).
+fn counts(a: &Report<'_>, b: &Report<'_>) -> Option<String> {
+    (a.counts != b.counts).then(|| format!("different counts: {} and {}", a.counts, b.counts))
 }

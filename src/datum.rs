@@ -788,6 +788,29 @@ pub fn extract<T: FromDatum>(value: &Term<'_>) -> Result<T, ConvertError> {
     T::from_datum(&Datum::from_term(value)?)
 }
 
+/// [`extract`] building at most `max_bytes` of data on the way (pass the
+/// memory limit of the run the value came from): every node counts its size
+/// and every copy of a string its bytes.
+///
+/// # Errors
+///
+/// As [`extract`], and a [`ConvertError`] when the data would take more than
+/// `max_bytes`.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{extract_within, Arena};
+/// let arena = Arena::new();
+/// let word = arena.string(&"tide".repeat(256));
+/// let list = arena.con("Cons", &[word, arena.con("Cons", &[word, arena.con("Nil", &[])])]);
+/// assert_eq!(extract_within::<Vec<String>>(list, 1 << 16).unwrap().len(), 2);
+/// assert!(extract_within::<Vec<String>>(list, 1 << 10).is_err());
+/// ```
+pub fn extract_within<T: FromDatum>(value: &Term<'_>, max_bytes: usize) -> Result<T, ConvertError> {
+    T::from_datum(&Datum::from_term_within(value, max_bytes)?)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -31,6 +31,13 @@ impl PartialEq for Term<'_> {
 /// assert!(!terms_equal(a.lam(a.var(0)), a.lam(a.lam(a.var(0)))));
 /// ```
 pub fn terms_equal(a: &Term<'_>, b: &Term<'_>) -> bool {
+    terms_equal_within(a, b, usize::MAX).unwrap_or(false)
+}
+
+/// [`terms_equal`] using at most about `max_bytes` for its work list and its
+/// memo of compared pairs; `None` if that is not enough.
+pub(crate) fn terms_equal_within(a: &Term<'_>, b: &Term<'_>, max_bytes: usize) -> Option<bool> {
+    const PAIR: usize = 2 * std::mem::size_of::<usize>();
     let mut pending: Vec<(&Term<'_>, &Term<'_>)> = vec![(a, b)];
     let mut seen: HashSet<(*const Term<'_>, *const Term<'_>)> = HashSet::new();
     let mut compared = 0usize;
@@ -39,7 +46,7 @@ pub fn terms_equal(a: &Term<'_>, b: &Term<'_>) -> bool {
             continue;
         }
         if x.scope() != y.scope() {
-            return false;
+            return Some(false);
         }
         let same_head = match (*x.node(), *y.node()) {
             (Node::Var(i), Node::Var(j)) => i == j,
@@ -64,7 +71,7 @@ pub fn terms_equal(a: &Term<'_>, b: &Term<'_>) -> bool {
             _ => false,
         };
         if !same_head {
-            return false;
+            return Some(false);
         }
         compared += 1;
         if compared > MEMO_AFTER && !seen.insert((x as *const _, y as *const _)) {
@@ -75,6 +82,11 @@ pub fn terms_equal(a: &Term<'_>, b: &Term<'_>) -> bool {
                 .zip(y.children())
                 .map(|((p, _), (q, _))| (p, q)),
         );
+        // The memo's table takes about twice its entries.
+        let bytes = (pending.capacity() + 2 * seen.capacity()).saturating_mul(PAIR);
+        if bytes > max_bytes {
+            return None;
+        }
     }
-    true
+    Some(true)
 }

@@ -124,18 +124,18 @@ mod validate;
 #[path = "../machines/mod.rs"]
 pub mod machines;
 
-pub use agree::disagreement;
+pub use agree::{disagreement, disagreement_within};
 pub use api::{
     Cancel, Counts, ErrorKind, EvalError, LimitError, LimitKind, Limits, Machine, MachineKind,
     Outcome, Report, Rule, CANCEL_POLL_INTERVAL, DEFAULT_FUEL, DEFAULT_MEMORY,
 };
-pub use datum::{extract, Con, ConvertError, Datum, FromDatum, IntoDatum, MAX_DATUM_BYTES};
+pub use datum::{extract, extract_within, Con, ConvertError, Datum, FromDatum, IntoDatum, MAX_DATUM_BYTES};
 pub use equal::terms_equal;
 pub use image::{MAX_ARMS, MAX_FIELDS, MAX_NODES};
 pub use host::{HostDefinitionError, HostFn, HostFunctions, HostId, MAX_HOST_ARITY};
 pub use prim::{delta, fuel_units, Operand, Prim, PrimValue, STRING_UNIT};
 pub use scope::{Built, Scope, UnboundName};
-pub use subst::{instantiate, shift, subst};
+pub use subst::{instantiate, shift, subst, IndexOutOfRange};
 pub use syntax::{
     parse, parse_bytes, parse_term, parse_with, print, print_limited, print_with, Printed,
     SyntaxError, PRINT_LIMIT,

@@ -5,10 +5,9 @@
 use std::io::Write;
 use std::process::ExitCode;
 
-use orrery::machines::stepper::Stepper;
 use orrery::{
-    disagreement, parse_bytes, print_limited, Arena, Limits, MachineKind, Outcome, Report, Rule,
-    DEFAULT_FUEL, DEFAULT_MEMORY,
+    disagreement_within, parse_bytes, print_limited, Arena, Limits, MachineKind, Outcome, Program,
+    Report, Rule, DEFAULT_FUEL, DEFAULT_MEMORY,
 };
 
 /// Exit statuses of DESIGN §5.
@@ -178,8 +177,9 @@ fn json_line(machine: &str, report: &Report<'_>) -> String {
         .map(|r| format!("\"{}\":{}", r.name(), report.counts.get(*r)))
         .collect();
     line.push_str(&format!(
-        ",\"steps\":{},\"rules\":{{{}}}}}",
+        ",\"steps\":{},\"fuel\":{},\"rules\":{{{}}}}}",
         report.counts.total(),
+        report.counts.fuel(),
         rules.join(",")
     ));
     line
@@ -244,47 +244,88 @@ fn run(request: &Request) -> std::io::Result<u8> {
             return Ok(status::SYNTAX);
         }
     };
-    let mut reports: Vec<(&str, Report<'_>)> = Vec::new();
+    // Every machine runs within the one memory limit: the first machine's
+    // result is kept for the comparison, so the others get what it leaves,
+    // and each later result is dropped once compared.
+    let first_out = Arena::new();
+    let mut first: Option<(&str, Report<'_>)> = None;
+    let mut code = status::USAGE;
+    let mut limited = None;
     for machine in &request.machines {
-        let report = if request.trace && machine.name() == "stepper" {
-            let mut n = 0u64;
-            let mut trace_out = std::io::stderr();
-            Stepper::new().run_traced(&program, &request.limits, &arena, &mut |rule, redex| {
-                n += 1;
-                let printed = print_limited(redex, TRACE_PRINT_LIMIT);
-                // A closed stderr cannot stop the run; the outcome still counts.
-                let _ = writeln!(trace_out, "[{n}] {rule}: {}", printed.text);
-            })
-        } else {
-            machine.run(&program, &request.limits, &arena)
-        };
+        let out = Arena::new();
+        let mut limits = request.limits.clone();
+        let target = if first.is_none() { &first_out } else { &out };
+        limits.memory = limits.memory.saturating_sub(first_out.used_bytes());
+        let report = run_one(*machine, &program, &limits, target, request.trace);
         if request.json {
             writeln!(stdout, "{}", json_line(machine.name(), &report))?;
         } else {
             text_report(machine.name(), &report, &mut stdout, &mut stderr)?;
         }
-        reports.push((machine.name(), report));
-    }
-    let mut code = reports
-        .first()
-        .map_or(status::USAGE, |(_, r)| outcome_status(&r.outcome));
-    for (name, report) in reports.iter().skip(1) {
-        let (first, reference) = &reports[0];
-        if let Some(why) = disagreement(reference, report) {
-            writeln!(stderr, "orrery: {first} and {name} disagree: {why}")?;
-            code = status::DISAGREE;
+        if matches!(report.outcome, Outcome::Limit(_)) {
+            limited.get_or_insert(outcome_status(&report.outcome));
+        }
+        match &first {
+            None => {
+                code = outcome_status(&report.outcome);
+                first = Some((machine.name(), report));
+            }
+            Some((name, reference)) => {
+                let room = limits.memory.saturating_sub(out.used_bytes());
+                match disagreement_within(reference, &report, room) {
+                    Ok(None) => {}
+                    Ok(Some(why)) => {
+                        writeln!(stderr, "orrery: {name} and {} disagree: {why}", machine.name())?;
+                        code = status::DISAGREE;
+                    }
+                    Err(limit) => {
+                        writeln!(
+                            stderr,
+                            "orrery: {name} and {} could not be compared: {limit}",
+                            machine.name()
+                        )?;
+                        limited.get_or_insert(status::LIMIT);
+                    }
+                }
+            }
         }
     }
     if code != status::DISAGREE {
         // When the machines agree but one stopped at a resource limit, say so.
-        if let Some((_, r)) = reports
-            .iter()
-            .find(|(_, r)| matches!(r.outcome, Outcome::Limit(_)))
-        {
-            code = outcome_status(&r.outcome);
+        if let Some(limit) = limited {
+            code = limit;
         }
     }
     Ok(code)
+}
+
+/// Run `program` on one machine, tracing the stepper's contractions on
+/// stderr if asked.
+fn run_one<'o>(
+    machine: MachineKind,
+    program: &Program<'o>,
+    limits: &Limits,
+    out: &'o Arena,
+    trace: bool,
+) -> Report<'o> {
+    #[cfg(feature = "stepper")]
+    if trace && machine == MachineKind::Stepper {
+        let mut n = 0u64;
+        let mut trace_out = std::io::stderr();
+        return orrery::machines::stepper::Stepper::new().run_traced(
+            program,
+            limits,
+            out,
+            &mut |rule, redex| {
+                n += 1;
+                let printed = print_limited(redex, TRACE_PRINT_LIMIT);
+                // A closed stderr cannot stop the run; the outcome still counts.
+                let _ = writeln!(trace_out, "[{n}] {rule}: {}", printed.text);
+            },
+        );
+    }
+    let _ = trace;
+    machine.run(program, limits, out)
 }
 
 fn main() -> ExitCode {

@@ -228,6 +228,12 @@ impl<'a> Program<'a> {
     pub(crate) fn image(&self) -> &Image {
         &self.image
     }
+
+    /// The form the machines run, shared (for runs that outlive a borrow).
+    #[cfg_attr(not(any(feature = "stepper", feature = "cek")), allow(dead_code))]
+    pub(crate) fn image_arc(&self) -> Arc<Image> {
+        Arc::clone(&self.image)
+    }
 }
 
 /// Check the invariants of [`Program::new`] without building a program.

@@ -258,7 +258,7 @@ fn closures_read_back_as_the_steppers_terms() {
         let orrery::Node::Lam(inner) = *inner.node() else {
             unreachable!()
         };
-        orrery::instantiate(&arena, inner, &[b.n(3), b.n(5), source])
+        orrery::instantiate(&arena, inner, &[b.n(3), b.n(5), source]).unwrap()
     };
     assert_eq!(value_of(&report), expected_body);
 
