@@ -15,6 +15,15 @@
 //!   [`Budget::check_memory`] with what they hold whenever they grow (a
 //!   stack's capacity, a runtime cell, a string before it is made), so the
 //!   limit is never passed by more than the growth being asked for.
+//!
+//! Each machine uses the part it needs (only the pausing machines add fuel
+//! to a run, only the environment machines stop on a resource limit kept
+//! apart from their state), so a build with fewer machines leaves some of it
+//! unused.
+#![cfg_attr(
+    not(all(feature = "stepper", feature = "env", feature = "cek")),
+    allow(dead_code)
+)]
 
 use crate::api::{Cancel, Counts, EvalError, LimitError, Limits, Rule, CANCEL_POLL_INTERVAL};
 
@@ -163,19 +172,7 @@ impl Budget {
         if !self.tank.take() {
             self.next_slice()?;
         }
-        self.counts.add(rule);
-        Ok(())
-    }
-
-    /// Pay for two contractions in a row, under `first` then `second`.
-    #[inline(always)]
-    pub(crate) fn take2(&mut self, first: Rule, second: Rule) -> Result<(), Halt> {
-        if !self.tank.take2() {
-            self.take(first)?;
-            return self.take(second);
-        }
-        self.counts.add(first);
-        self.counts.add(second);
+        self.counts.tally(rule);
         Ok(())
     }
 
@@ -192,6 +189,16 @@ impl Budget {
         }
         self.tank.take();
         Ok(())
+    }
+
+    /// Move the next slice of fuel in for a shortcut that found the slice
+    /// empty: `false`, moving nothing, if the run is cancelled or out of fuel
+    /// (the shortcut then leaves the contraction to the general path, which
+    /// says so).
+    #[cold]
+    #[inline(never)]
+    pub(crate) fn refill(&mut self) -> bool {
+        !self.is_cancelled() && self.tank.refill()
     }
 
     /// Pay `units` (at least one) for a contraction under `rule`: one unit
@@ -214,7 +221,7 @@ impl Budget {
         if !self.tank.spend(units) {
             return Err(Halt::OutOfFuel);
         }
-        self.counts.add(rule);
+        self.counts.tally(rule);
         self.counts.add_extra_fuel(units - 1);
         Ok(())
     }
@@ -251,12 +258,6 @@ impl Budget {
     #[inline]
     pub(crate) fn is_cancelled(&self) -> bool {
         self.cancel.as_ref().is_some_and(Cancel::is_cancelled)
-    }
-
-    /// The cancellation handle, for work done outside the budget (a long
-    /// string operation looks at it between chunks).
-    pub(crate) fn cancel(&self) -> Option<&Cancel> {
-        self.cancel.as_ref()
     }
 
     /// Record that the run holds `held` bytes; `Err` if that is over the

@@ -189,7 +189,10 @@ impl<'t> Datum<'t> {
     /// assert!(Datum::from_term_within(pair, 2_000).is_err());
     /// assert!(Datum::from_term_within(pair, 5_000).is_ok());
     /// ```
-    pub fn from_term_within(term: &'t Term<'t>, max_bytes: usize) -> Result<Datum<'t>, ConvertError> {
+    pub fn from_term_within(
+        term: &'t Term<'t>,
+        max_bytes: usize,
+    ) -> Result<Datum<'t>, ConvertError> {
         Datum::read_term(term, max_bytes).map_err(|e| match e {
             NotData::Function => ConvertError::new("data", "a function"),
             NotData::NotAValue => ConvertError::new("a value", "a term that is not a value"),

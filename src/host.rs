@@ -466,7 +466,6 @@ pub(crate) fn host_step<'t>(
     }
 }
 
-
 /// The table shared by programs built without host functions.
 pub(crate) static NO_HOST: HostFunctions = HostFunctions {
     entries: Vec::new(),

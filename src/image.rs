@@ -11,6 +11,9 @@
 //! program's table, and the size limits [`MAX_FIELDS`], [`MAX_ARMS`] and
 //! [`MAX_NODES`]. The walk is iterative and visits each shared closed node
 //! once.
+// The analysis and the case lookup serve the environment machines; a build
+// without them (the stepper alone, or no machine) leaves them unread.
+#![cfg_attr(not(any(feature = "env", feature = "cek")), allow(dead_code))]
 
 pub(crate) mod analysis;
 
@@ -71,11 +74,21 @@ pub(crate) enum INode {
     /// A variable: its de Bruijn index and, for a variable free in its
     /// function, its place among the function's captured values (else
     /// [`LOCAL`]).
-    Var { index: u32, slot: u32 },
+    Var {
+        index: u32,
+        slot: u32,
+    },
     /// `λ. body`, at position `pos` of curried function `func` (0: its head).
-    Lam { body: Id, func: u32, pos: u32 },
+    Lam {
+        body: Id,
+        func: u32,
+        pos: u32,
+    },
     /// `μλ. body`, the head of function `func`.
-    RecLam { body: Id, func: u32 },
+    RecLam {
+        body: Id,
+        func: u32,
+    },
     App(Id, Id),
     Let(Id, Id),
     If(Id, Id, Id),
@@ -185,6 +198,7 @@ impl Image {
     }
 
     /// Whether node `id` is a value.
+    #[cfg_attr(not(feature = "stepper"), allow(dead_code))]
     #[inline(always)]
     pub(crate) fn is_value(&self, id: Id) -> bool {
         self.meta[id as usize] & VALUE_BIT != 0
@@ -258,23 +272,6 @@ impl Image {
         id
     }
 
-    /// Bytes this image holds, as the memory limit counts them.
-    pub(crate) fn bytes(&self) -> usize {
-        use std::mem::size_of;
-        self.nodes.capacity() * size_of::<INode>()
-            + self.meta.capacity() * 4
-            + self.lists.capacity() * 4
-            + self.cases.capacity() * size_of::<CaseInfo>()
-            + self.arms.capacity() * size_of::<ArmInfo>()
-            + self.lookup.capacity() * 4
-            + self.strings.iter().map(|s| s.len() + 32).sum::<usize>()
-            + self.tags.iter().map(|s| 2 * s.len() + 64).sum::<usize>()
-            + self.tag_arity.capacity() * 4
-            + self.funcs.capacity() * size_of::<Func>()
-            + self.runs.capacity() * size_of::<Run>()
-            + self.shared.capacity()
-    }
-
     /// Validate `root` and build its image, with host calls checked against
     /// `host`.
     ///
@@ -340,7 +337,10 @@ fn allowed_nodes(root: &Term<'_>) -> usize {
         }
         pending.extend(t.children().map(|(c, _)| c));
     }
-    distinct.saturating_mul(16).saturating_add(1 << 20).min(MAX_NODES)
+    distinct
+        .saturating_mul(16)
+        .saturating_add(1 << 20)
+        .min(MAX_NODES)
 }
 
 /// The builder's work: a term to visit, or a node to build from the ids of
@@ -390,7 +390,9 @@ impl<'h, 't> Builder<'h, 't> {
                         });
                     }
                     match *t.node() {
-                        Node::Var(index) => done.push(self.leaf(INode::Var { index, slot: LOCAL }, t)),
+                        Node::Var(index) => {
+                            done.push(self.leaf(INode::Var { index, slot: LOCAL }, t))
+                        }
                         Node::Int(n) => done.push(self.leaf(INode::Int(n), t)),
                         Node::Bool(b) => done.push(self.leaf(INode::Bool(b), t)),
                         Node::Str(s) => {
@@ -408,7 +410,8 @@ impl<'h, 't> Builder<'h, 't> {
                         _ => {
                             self.check_sizes(t)?;
                             jobs.push(Job::Build(t));
-                            let children: Vec<&'t Term<'t>> = t.children().map(|(c, _)| c).collect();
+                            let children: Vec<&'t Term<'t>> =
+                                t.children().map(|(c, _)| c).collect();
                             jobs.extend(children.into_iter().rev().map(Job::Visit));
                         }
                     }
@@ -494,7 +497,9 @@ impl<'h, 't> Builder<'h, 't> {
         let value = t.is_value();
         let node = match *t.node() {
             Node::Lam(_) => {
-                let [body] = self.children(done, 1)[..] else { unreachable_shape()? };
+                let [body] = self.children(done, 1)[..] else {
+                    unreachable_shape()?
+                };
                 INode::Lam {
                     body,
                     func: NONE,
@@ -502,19 +507,27 @@ impl<'h, 't> Builder<'h, 't> {
                 }
             }
             Node::RecLam(_) => {
-                let [body] = self.children(done, 1)[..] else { unreachable_shape()? };
+                let [body] = self.children(done, 1)[..] else {
+                    unreachable_shape()?
+                };
                 INode::RecLam { body, func: NONE }
             }
             Node::App(..) => {
-                let [f, a] = self.children(done, 2)[..] else { unreachable_shape()? };
+                let [f, a] = self.children(done, 2)[..] else {
+                    unreachable_shape()?
+                };
                 INode::App(f, a)
             }
             Node::Let(..) => {
-                let [a, b] = self.children(done, 2)[..] else { unreachable_shape()? };
+                let [a, b] = self.children(done, 2)[..] else {
+                    unreachable_shape()?
+                };
                 INode::Let(a, b)
             }
             Node::If(..) => {
-                let [c, y, n] = self.children(done, 3)[..] else { unreachable_shape()? };
+                let [c, y, n] = self.children(done, 3)[..] else {
+                    unreachable_shape()?
+                };
                 INode::If(c, y, n)
             }
             Node::Prim(op, args) => {
@@ -547,7 +560,10 @@ impl<'h, 't> Builder<'h, 't> {
                 }
                 let mut order: Vec<u32> = (0..arms.len() as u32).collect();
                 order.sort_by_key(|&k| tags[k as usize]);
-                if let Some(w) = order.windows(2).find(|w| tags[w[0] as usize] == tags[w[1] as usize]) {
+                if let Some(w) = order
+                    .windows(2)
+                    .find(|w| tags[w[0] as usize] == tags[w[1] as usize])
+                {
                     return Err(ValidationError::DuplicateArm {
                         tag: arms[w[0] as usize].tag.to_string(),
                     });
@@ -598,8 +614,12 @@ mod tests {
         let open = arena.app(arena.var(0), arena.var(0));
         let t = arena.lam(arena.con("Two", &[closed, closed, open, open]));
         let image = Image::build(t, &HostFunctions::new()).unwrap();
-        let INode::Lam { body, .. } = image.node(image.root) else { panic!() };
-        let INode::Con(_, start, 4) = image.node(body) else { panic!() };
+        let INode::Lam { body, .. } = image.node(image.root) else {
+            panic!()
+        };
+        let INode::Con(_, start, 4) = image.node(body) else {
+            panic!()
+        };
         let f = image.list(start, 4);
         assert_eq!(f[0], f[1]);
         assert_ne!(f[2], f[3]);
@@ -612,14 +632,30 @@ mod tests {
         let arena = Arena::new();
         let host = HostFunctions::new();
         let bad_arity = arena.prim(Prim::Add, &[arena.int(1)]);
-        assert!(matches!(Image::build(bad_arity, &host), Err(ValidationError::PrimArity { .. })));
+        assert!(matches!(
+            Image::build(bad_arity, &host),
+            Err(ValidationError::PrimArity { .. })
+        ));
         let two_arities = arena.con("P", &[arena.con("K", &[]), arena.con("K", &[arena.int(1)])]);
-        assert!(matches!(Image::build(two_arities, &host), Err(ValidationError::ConArity { .. })));
+        assert!(matches!(
+            Image::build(two_arities, &host),
+            Err(ValidationError::ConArity { .. })
+        ));
         let arm = |tag| crate::Arm::new(tag, 0, arena.int(0));
         let dup = arena.case(arena.int(1), &[arm("A"), arm("B"), arm("A")], None);
-        assert!(matches!(Image::build(dup, &host), Err(ValidationError::DuplicateArm { .. })));
-        let wide = arena.case(arena.int(1), &[crate::Arm::new("W", 1 << 31, arena.int(0))], None);
-        assert!(matches!(Image::build(wide, &host), Err(ValidationError::TooWide { .. })));
+        assert!(matches!(
+            Image::build(dup, &host),
+            Err(ValidationError::DuplicateArm { .. })
+        ));
+        let wide = arena.case(
+            arena.int(1),
+            &[crate::Arm::new("W", 1 << 31, arena.int(0))],
+            None,
+        );
+        assert!(matches!(
+            Image::build(wide, &host),
+            Err(ValidationError::TooWide { .. })
+        ));
     }
 
     #[test]
@@ -633,7 +669,9 @@ mod tests {
             .collect();
         let t = arena.case(arena.con("K17", &[]), &arms, None);
         let image = Image::build(t, &HostFunctions::new()).unwrap();
-        let INode::Case(_, c) = image.node(image.root) else { panic!() };
+        let INode::Case(_, c) = image.node(image.root) else {
+            panic!()
+        };
         let case = image.cases[c as usize];
         assert_ne!(case.lookup, NONE);
         for (i, n) in names.iter().enumerate() {

@@ -108,8 +108,8 @@
 #![forbid(unsafe_code)]
 
 mod agree;
-mod budget;
 mod api;
+mod budget;
 mod datum;
 mod equal;
 mod host;
@@ -129,10 +129,12 @@ pub use api::{
     Cancel, Counts, ErrorKind, EvalError, LimitError, LimitKind, Limits, Machine, MachineKind,
     Outcome, Report, Rule, CANCEL_POLL_INTERVAL, DEFAULT_FUEL, DEFAULT_MEMORY,
 };
-pub use datum::{extract, extract_within, Con, ConvertError, Datum, FromDatum, IntoDatum, MAX_DATUM_BYTES};
+pub use datum::{
+    extract, extract_within, Con, ConvertError, Datum, FromDatum, IntoDatum, MAX_DATUM_BYTES,
+};
 pub use equal::terms_equal;
-pub use image::{MAX_ARMS, MAX_FIELDS, MAX_NODES};
 pub use host::{HostDefinitionError, HostFn, HostFunctions, HostId, MAX_HOST_ARITY};
+pub use image::{MAX_ARMS, MAX_FIELDS, MAX_NODES};
 pub use prim::{delta, fuel_units, Operand, Prim, PrimValue, STRING_UNIT};
 pub use scope::{Built, Scope, UnboundName};
 pub use subst::{instantiate, shift, subst, IndexOutOfRange};

@@ -25,6 +25,7 @@ mod status {
 const VALUE_PRINT_LIMIT: usize = 1 << 20;
 
 /// A redex in a trace line is cut past this many bytes.
+#[cfg_attr(not(feature = "stepper"), allow(dead_code))]
 const TRACE_PRINT_LIMIT: usize = 4096;
 
 fn usage() -> String {
@@ -247,46 +248,56 @@ fn run(request: &Request) -> std::io::Result<u8> {
     // Every machine runs within the one memory limit: the first machine's
     // result is kept for the comparison, so the others get what it leaves,
     // and each later result is dropped once compared.
+    let mut machines = request.machines.iter();
+    let Some(&first) = machines.next() else {
+        return Ok(status::USAGE);
+    };
     let first_out = Arena::new();
-    let mut first: Option<(&str, Report<'_>)> = None;
-    let mut code = status::USAGE;
-    let mut limited = None;
-    for machine in &request.machines {
+    let reference = run_one(first, &program, &request.limits, &first_out, request.trace);
+    emit(
+        request.json,
+        first.name(),
+        &reference,
+        &mut stdout,
+        &mut stderr,
+    )?;
+    let mut code = outcome_status(&reference.outcome);
+    let mut limited = matches!(reference.outcome, Outcome::Limit(_)).then_some(code);
+    for &machine in machines {
         let out = Arena::new();
         let mut limits = request.limits.clone();
-        let target = if first.is_none() { &first_out } else { &out };
         limits.memory = limits.memory.saturating_sub(first_out.used_bytes());
-        let report = run_one(*machine, &program, &limits, target, request.trace);
-        if request.json {
-            writeln!(stdout, "{}", json_line(machine.name(), &report))?;
-        } else {
-            text_report(machine.name(), &report, &mut stdout, &mut stderr)?;
-        }
+        let report = run_one(machine, &program, &limits, &out, request.trace);
+        emit(
+            request.json,
+            machine.name(),
+            &report,
+            &mut stdout,
+            &mut stderr,
+        )?;
         if matches!(report.outcome, Outcome::Limit(_)) {
-            limited.get_or_insert(outcome_status(&report.outcome));
+            limited.get_or_insert(status::LIMIT);
         }
-        match &first {
-            None => {
-                code = outcome_status(&report.outcome);
-                first = Some((machine.name(), report));
+        let room = limits.memory.saturating_sub(out.used_bytes());
+        match disagreement_within(&reference, &report, room) {
+            Ok(None) => {}
+            Ok(Some(why)) => {
+                writeln!(
+                    stderr,
+                    "orrery: {} and {} disagree: {why}",
+                    first.name(),
+                    machine.name()
+                )?;
+                code = status::DISAGREE;
             }
-            Some((name, reference)) => {
-                let room = limits.memory.saturating_sub(out.used_bytes());
-                match disagreement_within(reference, &report, room) {
-                    Ok(None) => {}
-                    Ok(Some(why)) => {
-                        writeln!(stderr, "orrery: {name} and {} disagree: {why}", machine.name())?;
-                        code = status::DISAGREE;
-                    }
-                    Err(limit) => {
-                        writeln!(
-                            stderr,
-                            "orrery: {name} and {} could not be compared: {limit}",
-                            machine.name()
-                        )?;
-                        limited.get_or_insert(status::LIMIT);
-                    }
-                }
+            Err(limit) => {
+                writeln!(
+                    stderr,
+                    "orrery: {} and {} could not be compared: {limit}",
+                    first.name(),
+                    machine.name()
+                )?;
+                limited.get_or_insert(status::LIMIT);
             }
         }
     }
@@ -297,6 +308,21 @@ fn run(request: &Request) -> std::io::Result<u8> {
         }
     }
     Ok(code)
+}
+
+/// Print one machine's report, as a JSON line or as text.
+fn emit(
+    json: bool,
+    machine: &str,
+    report: &Report<'_>,
+    stdout: &mut impl Write,
+    stderr: &mut impl Write,
+) -> std::io::Result<()> {
+    if json {
+        writeln!(stdout, "{}", json_line(machine, report))
+    } else {
+        text_report(machine, report, stdout, stderr)
+    }
 }
 
 /// Run `program` on one machine, tracing the stepper's contractions on

@@ -366,7 +366,13 @@ pub(crate) fn delta_polled(
     poll: &mut dyn FnMut() -> bool,
 ) -> Result<PrimValue, Stopped> {
     use Operand::Str;
-    let stop = |poll: &mut dyn FnMut() -> bool| if poll() { Err(Stopped::Cancelled) } else { Ok(()) };
+    let stop = |poll: &mut dyn FnMut() -> bool| {
+        if poll() {
+            Err(Stopped::Cancelled)
+        } else {
+            Ok(())
+        }
+    };
     match (op, operands) {
         (Prim::Concat, &[Str(a), Str(b)]) if a.len() + b.len() > CHUNK => {
             let mut s = String::new();
@@ -445,7 +451,15 @@ mod tests {
         let c = format!("{}a", "é".repeat(299_999));
         for (x, y) in [(&a, &b), (&b, &a), (&a, &a), (&a, &c), (&c, &a)] {
             let operands = [Operand::Str(x), Operand::Str(y)];
-            for op in [Prim::Concat, Prim::Eq, Prim::Ne, Prim::Lt, Prim::Le, Prim::Gt, Prim::Ge] {
+            for op in [
+                Prim::Concat,
+                Prim::Eq,
+                Prim::Ne,
+                Prim::Lt,
+                Prim::Le,
+                Prim::Gt,
+                Prim::Ge,
+            ] {
                 let mut polls = 0;
                 let chunked = delta_polled(op, &operands, &mut || {
                     polls += 1;

@@ -167,7 +167,10 @@ impl<'a> Rebuild<'a> {
             if index < depth {
                 Ok(arena.var(index))
             } else {
-                index.checked_add(d).map(|i| arena.var(i)).ok_or(IndexOutOfRange)
+                index
+                    .checked_add(d)
+                    .map(|i| arena.var(i))
+                    .ok_or(IndexOutOfRange)
             }
         })
     }
@@ -336,9 +339,15 @@ mod tests {
         assert_eq!(shift(&arena, top, 0, 0), Ok(top));
         // Below the cutoff nothing moves; at it, the index would overflow.
         let below = arena.var(u32::MAX - 1);
-        assert_eq!(shift(&arena, below, 1, u32::MAX).map(|t| t == below), Ok(true));
+        assert_eq!(
+            shift(&arena, below, 1, u32::MAX).map(|t| t == below),
+            Ok(true)
+        );
         assert_eq!(shift(&arena, top, 1, u32::MAX), Err(IndexOutOfRange));
-        assert_eq!(shift(&arena, arena.lam(below), 1, u32::MAX - 1).map(|t| t == arena.lam(below)), Ok(true));
+        assert_eq!(
+            shift(&arena, arena.lam(below), 1, u32::MAX - 1).map(|t| t == arena.lam(below)),
+            Ok(true)
+        );
         // [u32::MAX ↦ 5] #u32::MAX is 5: the scope saturates, so it is not
         // trusted to skip the variable.
         let five = arena.int(5);
@@ -346,6 +355,9 @@ mod tests {
         // Substituting an open term under a binder past the limit.
         let under = arena.lam(arena.var(1));
         assert_eq!(subst(&arena, under, 0, top), Err(IndexOutOfRange));
-        assert_eq!(instantiate(&arena, arena.lam(arena.var(1)), &[top]), Err(IndexOutOfRange));
+        assert_eq!(
+            instantiate(&arena, arena.lam(arena.var(1)), &[top]),
+            Err(IndexOutOfRange)
+        );
     }
 }

@@ -62,7 +62,9 @@ pub enum ValidationError {
     },
     /// The program, once its shared open subterms are unfolded, would have
     /// more than this many nodes (see [`crate::MAX_NODES`]).
-    #[error("the program is too large: more than {nodes} nodes once its shared subterms are unfolded")]
+    #[error(
+        "the program is too large: more than {nodes} nodes once its shared subterms are unfolded"
+    )]
     TooLarge {
         /// The most nodes allowed for this program.
         nodes: usize,
@@ -225,6 +227,7 @@ impl<'a> Program<'a> {
     }
 
     /// The form the machines run.
+    #[cfg_attr(not(any(feature = "stepper", feature = "env")), allow(dead_code))]
     pub(crate) fn image(&self) -> &Image {
         &self.image
     }

@@ -56,7 +56,7 @@ fn json_lines_have_the_documented_shape() {
     assert_eq!(out.status.code(), Some(0));
     assert_eq!(
         stdout(&out).trim_end(),
-        r#"{"machine":"stepper","outcome":"value","value":"42","steps":2,"rules":{"beta":0,"beta_rec":0,"let":1,"if":0,"prim":1,"case":0}}"#
+        r#"{"machine":"stepper","outcome":"value","value":"42","steps":2,"fuel":2,"rules":{"beta":0,"beta_rec":0,"let":1,"if":0,"prim":1,"case":0}}"#
     );
 }
 

@@ -320,6 +320,7 @@ fn one_program_runs_on_many_threads_at_once() {
     fn assert_send_sync<T: Send + Sync>(_: &T) {}
     assert_send_sync(&program);
     let expected = 12 * 300 * 301 / 2;
+    let program = &program;
     std::thread::scope(|scope| {
         let handles: Vec<_> = (0..4)
             .flat_map(|i| MachineKind::enabled().iter().map(move |&m| (i, m)))
@@ -328,7 +329,7 @@ fn one_program_runs_on_many_threads_at_once() {
                     let out = Arena::new();
                     // Each run has its own limits: the odd ones too little fuel.
                     let fuel = if i % 2 == 0 { u64::MAX } else { 100 };
-                    let report = machine.run(&program, &Limits::default().with_fuel(fuel), &out);
+                    let report = machine.run(program, &Limits::default().with_fuel(fuel), &out);
                     match report.outcome {
                         Outcome::Value(v) => extract::<i64>(v).ok(),
                         Outcome::OutOfFuel => None,

@@ -57,7 +57,10 @@ fn wide<'a>(arena: &'a Arena, arms: usize, fields: usize, pick: usize) -> &'a or
             let body = if fields == 0 {
                 arena.int(i as i64)
             } else {
-                arena.prim(orrery::Prim::Add, &[arena.var(fields as u32 - 1), arena.int(i as i64)])
+                arena.prim(
+                    orrery::Prim::Add,
+                    &[arena.var(fields as u32 - 1), arena.int(i as i64)],
+                )
             };
             Arm::new(arena.tag(n), fields as u32, body)
         })
@@ -157,6 +160,11 @@ fn closures_under_many_bindings_fit_a_small_limit() {
     let program = parse(&arena, &bindings(20_000, 2_000)).unwrap();
     for machine in MachineKind::enabled() {
         let report = machine.run(&program, &limits(8 << 20), &arena);
-        assert_eq!(report.outcome, Outcome::Value(arena.int(1)), "{}", machine.name());
+        assert_eq!(
+            report.outcome,
+            Outcome::Value(arena.int(1)),
+            "{}",
+            machine.name()
+        );
     }
 }

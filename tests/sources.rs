@@ -225,7 +225,10 @@ fn substitution_of_exercise_6_2_5() {
     assert_eq!(subst(&a, t, 0, a.var(1)).unwrap(), t);
     // [b ↦ a](λa. b a) = [0 ↦ 1](λ. 1 0) = λ. 2 0
     let t = a.lam(a.app(a.var(1), a.var(0)));
-    assert_eq!(subst(&a, t, 0, a.var(1)).unwrap(), a.lam(a.app(a.var(2), a.var(0))));
+    assert_eq!(
+        subst(&a, t, 0, a.var(1)).unwrap(),
+        a.lam(a.app(a.var(2), a.var(0)))
+    );
 }
 
 #[test]

@@ -12,8 +12,8 @@ use std::rc::Rc;
 use hashbrown::HashMap;
 
 use super::value::{Code, Tags, Value};
-use crate::budget::Halt;
 use crate::budget::Budget;
+use crate::budget::Halt;
 use crate::image::{INode, Id, Image, NONE};
 use crate::term::{Arena, Arm, Node, Term};
 
@@ -82,7 +82,11 @@ impl<'o> Reader<'o, '_> {
         budget.check_memory(self.held.saturating_add(built))
     }
 
-    fn value<C: Code>(&mut self, root: &Value<C>, budget: &mut Budget) -> Result<&'o Term<'o>, Halt> {
+    fn value<C: Code>(
+        &mut self,
+        root: &Value<C>,
+        budget: &mut Budget,
+    ) -> Result<&'o Term<'o>, Halt> {
         let mut jobs: Vec<Job<'_, C>> = vec![Job::Visit(root)];
         let mut done: Vec<&'o Term<'o>> = Vec::new();
         while let Some(job) = jobs.pop() {
@@ -109,7 +113,9 @@ impl<'o> Reader<'o, '_> {
                         }
                         Value::Str(s) => (Rc::as_ptr(s).cast(), &[], Rc::strong_count(s) > 1),
                         Value::Con(c) => (Rc::as_ptr(c).cast(), &c.fields, Rc::strong_count(c) > 1),
-                        Value::Fun(f) => (Rc::as_ptr(f).cast(), &f.captured, Rc::strong_count(f) > 1),
+                        Value::Fun(f) => {
+                            (Rc::as_ptr(f).cast(), &f.captured, Rc::strong_count(f) > 1)
+                        }
                     };
                     if shared {
                         if let Some(&term) = self.cells.get(&key) {
@@ -129,7 +135,11 @@ impl<'o> Reader<'o, '_> {
                             self.held = self.held.saturating_add(s.text.len());
                             self.spend(budget)?;
                             self.held -= s.text.len();
-                            (Rc::as_ptr(s).cast(), self.out.string(&s.text), Rc::strong_count(s) > 1)
+                            (
+                                Rc::as_ptr(s).cast(),
+                                self.out.string(&s.text),
+                                Rc::strong_count(s) > 1,
+                            )
                         }
                         Value::Con(c) => {
                             let at = done.len().saturating_sub(c.fields.len());
@@ -172,7 +182,11 @@ impl<'o> Reader<'o, '_> {
         let node = self.image.chain_node(&f, applied);
         // Binders between the head's outside and `node`: none for an
         // unapplied closure, else the self of a μλ and the parameters given.
-        let bound = if applied == 0 { 0 } else { applied + u32::from(f.rec) };
+        let bound = if applied == 0 {
+            0
+        } else {
+            applied + u32::from(f.rec)
+        };
         let (captured, given) = values.split_at((f.captured as usize).min(values.len()));
         // The function's free variables, as indices outside its head: its
         // captured values are these, outermost (largest index) first.
@@ -195,7 +209,12 @@ impl<'o> Reader<'o, '_> {
 
     /// The distinct indices `h` of the variables of `node` that reach `bound`
     /// binders beyond it: `#(h + bound)` at `node`.
-    fn free_indices(&mut self, node: Id, bound: u32, budget: &mut Budget) -> Result<Vec<u32>, Halt> {
+    fn free_indices(
+        &mut self,
+        node: Id,
+        bound: u32,
+        budget: &mut Budget,
+    ) -> Result<Vec<u32>, Halt> {
         let image = self.image;
         let mut out = Vec::new();
         let mut stack = vec![(node, 0u32)];
@@ -401,7 +420,10 @@ pub(crate) fn children(image: &Image, node: INode, depth: u32, mut visit: impl F
             visit(b, depth);
             visit(c, depth);
         }
-        INode::Prim(op, start) => image.operands(op, start).iter().for_each(|&c| visit(c, depth)),
+        INode::Prim(op, start) => image
+            .operands(op, start)
+            .iter()
+            .for_each(|&c| visit(c, depth)),
         INode::Con(_, start, len) => image.list(start, len).iter().for_each(|&c| visit(c, depth)),
         INode::Case(s, c) => {
             let case = image.cases[c as usize];

@@ -167,7 +167,6 @@ impl Tags {
             self.extra.get((tag - own) as usize).map_or("?", |t| t)
         }
     }
-
 }
 
 impl<C: Code> Value<C> {

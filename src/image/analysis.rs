@@ -54,7 +54,8 @@ struct Scan {
 /// of its own.
 pub(crate) fn analyse(image: &mut Image) {
     let mut roots = vec![image.root];
-    roots.extend((0..image.nodes.len() as Id).filter(|&id| image.is_shared(id) && id != image.root));
+    roots
+        .extend((0..image.nodes.len() as Id).filter(|&id| image.is_shared(id) && id != image.root));
     let mut tree = Tree::default();
     for root in roots {
         tree.scan(image, root);
@@ -131,7 +132,9 @@ impl Tree {
                     let mut params = 1;
                     let mut inner = body;
                     while params < MAX_CHAIN && !image.is_shared(inner) {
-                        let INode::Lam { body, .. } = image.node(inner) else { break };
+                        let INode::Lam { body, .. } = image.node(inner) else {
+                            break;
+                        };
                         image.nodes[inner as usize] = INode::Lam {
                             body,
                             func,
@@ -199,9 +202,8 @@ impl Tree {
         let n = self.scans.len();
         self.children.clear();
         self.children.resize(n, SmallVec::new());
-        for g in 1..n {
-            let p = parent[g] as usize;
-            self.children[p].push(g as u32);
+        for (g, &p) in parent.iter().enumerate().skip(1) {
+            self.children[p as usize].push(g as u32);
         }
         for f in 0..n {
             let kids = &mut self.children[f];
@@ -508,12 +510,10 @@ mod tests {
                 Run::Free { slot, len } => {
                     out.extend((slot..slot + len).map(|s| Run::Free { slot: s, len: 1 }))
                 }
-                Run::Local { index, len } => out.extend(
-                    (0..len).map(|k| Run::Local {
-                        index: index - k,
-                        len: 1,
-                    }),
-                ),
+                Run::Local { index, len } => out.extend((0..len).map(|k| Run::Local {
+                    index: index - k,
+                    len: 1,
+                })),
             }
         }
         out
@@ -522,7 +522,14 @@ mod tests {
     /// The naive analysis: every function's free levels, walked explicitly.
     /// Returns, per function head, its expected sources, and per variable
     /// node its expected slot.
-    fn naive(image: &Image) -> (Vec<(Id, Vec<Run>)>, Vec<(Id, u32)>) {
+    /// Per function head its capture sources, and per variable its slot.
+    type Naive = (Vec<(Id, Vec<Run>)>, Vec<(Id, u32)>);
+
+    /// A node to visit, its depth, and the enclosing functions' first levels
+    /// and captured levels.
+    type Visit = (Id, u32, Vec<(u32, Vec<u32>)>);
+
+    fn naive(image: &Image) -> Naive {
         let mut heads: Vec<(Id, Vec<Run>)> = Vec::new();
         let mut slots: Vec<(Id, u32)> = Vec::new();
         // Free levels of the function whose head is `head`: walk its body.
@@ -544,7 +551,9 @@ mod tests {
                     INode::Prim(op, s) => {
                         stack.extend(image.operands(op, s).iter().map(|&x| (x, depth)))
                     }
-                    INode::Con(_, s, n) => stack.extend(image.list(s, n).iter().map(|&x| (x, depth))),
+                    INode::Con(_, s, n) => {
+                        stack.extend(image.list(s, n).iter().map(|&x| (x, depth)))
+                    }
                     INode::Case(s, c) => {
                         let case = image.cases[c as usize];
                         stack.push((s, depth));
@@ -562,7 +571,7 @@ mod tests {
             out.dedup();
         }
         // Walk the whole tree, keeping the chain of enclosing functions.
-        let mut stack: Vec<(Id, u32, Vec<(u32, Vec<u32>)>)> = vec![(image.root, 0, vec![(0, vec![])])];
+        let mut stack: Vec<Visit> = vec![(image.root, 0, vec![(0, vec![])])];
         while let Some((id, depth, fs)) = stack.pop() {
             let (d, caps) = fs.last().cloned().unwrap();
             match image.node(id) {
@@ -602,9 +611,11 @@ mod tests {
                 }
                 INode::App(a, b) => stack.extend([(a, depth, fs.clone()), (b, depth, fs)]),
                 INode::Let(a, b) => stack.extend([(a, depth, fs.clone()), (b, depth + 1, fs)]),
-                INode::If(a, b, c) => {
-                    stack.extend([(a, depth, fs.clone()), (b, depth, fs.clone()), (c, depth, fs)])
-                }
+                INode::If(a, b, c) => stack.extend([
+                    (a, depth, fs.clone()),
+                    (b, depth, fs.clone()),
+                    (c, depth, fs),
+                ]),
                 INode::Prim(op, s) => {
                     for &x in image.operands(op, s) {
                         stack.push((x, depth, fs.clone()));
@@ -633,7 +644,11 @@ mod tests {
 
     fn check(t: &Term<'_>) -> (usize, usize) {
         let image = Image::build(t, &HostFunctions::new()).unwrap();
-        let free_runs = image.runs.iter().filter(|r| matches!(r, Run::Free { .. })).count();
+        let free_runs = image
+            .runs
+            .iter()
+            .filter(|r| matches!(r, Run::Free { .. }))
+            .count();
         let free_slots = image
             .nodes
             .iter()
@@ -649,7 +664,9 @@ mod tests {
             assert_eq!(func.captured as usize, expected.len());
         }
         for (var, slot) in slots {
-            let INode::Var { slot: got, .. } = image.node(var) else { unreachable!() };
+            let INode::Var { slot: got, .. } = image.node(var) else {
+                unreachable!()
+            };
             assert_eq!(got, slot, "var node {var}");
         }
         (free_runs, free_slots)
@@ -690,7 +707,11 @@ mod tests {
             ),
             _ => arena.case(
                 random_term(arena, seed, depth, size / 3),
-                &[crate::Arm::new("Two", 2, random_term(arena, seed, depth + 2, size / 3))],
+                &[crate::Arm::new(
+                    "Two",
+                    2,
+                    random_term(arena, seed, depth + 2, size / 3),
+                )],
                 Some(random_term(arena, seed, depth, size / 3)),
             ),
         }

@@ -1,0 +1,717 @@
+//! The environment-based evaluator: big-step evaluation (natural semantics,
+//! Kahn, "Natural semantics", 1987) of closure-converted code with flat
+//! closures (Cardelli, "Compiling a functional language", 1984), curried
+//! functions applied eval/apply style (Marlow and Peyton Jones, "Making a
+//! fast curry", 2004), and an explicit task stack in place of native
+//! recursion.
+//!
+//! | file | holds |
+//! |---|---|
+//! | `compile.rs` | the program image to code: variables resolved to frame slots and captured values, each function compiled once |
+//! | `run.rs` | the interpreter: value, task and caller stacks, calls and partial applications, the memory checks |
+//!
+//! Each run compiles the program's image once, in time and space linear in
+//! the image, from the image's analysis of functions and free variables.
+//! A function's frame holds self (of a `μλ`), its parameters, then its
+//! `let`-bound values and case fields; its closure captures exactly its free
+//! variables, gathered by one range copy per capture run. A call in tail
+//! position (a function body, a `let` body, an `if` branch, a case arm,
+//! known at compile time) replaces the caller's frame instead of stacking a
+//! return.
+//!
+//! **Calls.** Applying a closure of a function of `n` parameters, given `k`
+//! of them so far, to one more argument contracts one `beta` (`beta_rec` for
+//! a `μλ`'s first): with `k + 1 < n` the result is a partial application, a
+//! closure holding the captured values, self (of a `μλ`: the unapplied
+//! closure) and the arguments, in the caller's cell when the call holds its
+//! only reference; with `k + 1 = n` the body is entered. A call
+//! `f a₁ … aₘ` (`m ≤ MAX_CHAIN`) whose head is a variable bound to a closure
+//! that exactly `m` more arguments saturate (unapplied with `m` parameters,
+//! or partly applied) evaluates each argument and contracts its application
+//! in the nested calls' order, then enters the body with all of them,
+//! making no partial application; any other callee runs the nested
+//! applications. The contractions, their order, the errors and the point
+//! where fuel runs out are the stepper's.
+//!
+//! **Limits.** Fuel and cancellation go through the run's budget; the
+//! compiler polls cancellation per node. The compiler and the interpreter
+//! grow every vector only within the memory limit (checked when a push
+//! would reallocate), which counts the image, the code, the stacks by
+//! capacity, the live cells and the read-back; near the limit a stack grows
+//! by an eighth rather than doubling. The env machine does not pause: out of
+//! fuel ends the run.
+
+mod compile;
+mod run;
+
+use compile::{Compiled, Workspace};
+use run::{Run, Stacks};
+
+use crate::budget::{Budget, Halt};
+use crate::term::Term;
+use crate::{Arena, Counts, Limits, Machine, Outcome, Program, Report};
+
+/// The environment-based evaluator. Holds no program state between runs:
+/// it keeps its emptied stacks and code vectors for the next run (so a small
+/// program run many times allocates little) and records the peak memory of
+/// its last run. It cannot pause: a run out of fuel is over.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::machines::env::Env;
+/// use orrery::{Arena, Limits, Machine, Outcome, Prim, Program};
+/// let arena = Arena::new();
+/// // let add = λx. λy. x + y in add 40 2
+/// let add = arena.lam(arena.lam(arena.prim(Prim::Add, &[arena.var(1), arena.var(0)])));
+/// let call = arena.app(arena.app(arena.var(0), arena.int(40)), arena.int(2));
+/// let program = Program::new(arena.let_in(add, call)).unwrap();
+/// let report = Env::new().run(&program, &Limits::default(), &arena);
+/// assert_eq!(report.outcome, Outcome::Value(arena.int(42)));
+/// assert_eq!(report.counts.total(), 4); // let, beta, beta, prim
+/// ```
+#[derive(Debug)]
+pub struct Env {
+    peak: usize,
+    /// Whether fuel, memory and cancellation are checked (always, except in
+    /// the benchmark-only [`Env::without_accounting`]).
+    metered: bool,
+    scratch: Scratch,
+}
+
+impl Default for Env {
+    fn default() -> Self {
+        Env {
+            peak: 0,
+            metered: true,
+            scratch: Scratch::default(),
+        }
+    }
+}
+
+/// What a run leaves for the next: emptied stacks and code vectors.
+#[derive(Debug, Default)]
+struct Scratch {
+    stacks: Stacks,
+    compiled: Compiled,
+    workspace: Workspace,
+}
+
+impl Env {
+    /// An environment-based evaluator.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// let _env = orrery::machines::env::Env::new();
+    /// ```
+    pub fn new() -> Self {
+        Env::default()
+    }
+
+    /// **For benchmarks only.** An evaluator whose runs skip every fuel,
+    /// memory and cancellation check, so a benchmark can measure what the
+    /// accounting costs. It computes the same values and counts, but it
+    /// ignores [`Limits`] entirely: a divergent program runs forever and a
+    /// growing one until allocation fails. Never use it on untrusted input.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::machines::env::Env;
+    /// use orrery::{Arena, Limits, Machine, Outcome, Program};
+    /// let arena = Arena::new();
+    /// let program = Program::new(arena.app(arena.lam(arena.var(0)), arena.int(5))).unwrap();
+    /// let report = Env::without_accounting().run(&program, &Limits::default(), &arena);
+    /// assert_eq!(report.outcome, Outcome::Value(arena.int(5)));
+    /// ```
+    #[doc(hidden)]
+    pub fn without_accounting() -> Self {
+        Env {
+            metered: false,
+            ..Env::default()
+        }
+    }
+
+    /// The most memory the last run held at any of its checks, in bytes: the
+    /// program image, the compiled code, the value, task and caller stacks
+    /// (by capacity), the cells the run made and still held (closures,
+    /// constructor cells, strings), and the read-back of its result. This is
+    /// the quantity [`Limits::memory`] bounds; a run stopped by the limit
+    /// records the growth it was refused.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::machines::env::Env;
+    /// use orrery::{Arena, Limits, Machine, Program};
+    /// let arena = Arena::new();
+    /// let program = Program::new(arena.con("Box", &[arena.int(1)])).unwrap();
+    /// let mut env = Env::new();
+    /// env.run(&program, &Limits::default(), &arena);
+    /// assert!(env.peak_bytes() > 0);
+    /// ```
+    pub fn peak_bytes(&self) -> usize {
+        self.peak
+    }
+}
+
+impl Machine for Env {
+    fn name(&self) -> &'static str {
+        "env"
+    }
+
+    fn run<'a: 'o, 'o>(
+        &mut self,
+        program: &Program<'a>,
+        limits: &Limits,
+        out: &'o Arena,
+    ) -> Report<'o> {
+        let mut budget = if self.metered {
+            Budget::new(limits)
+        } else {
+            Budget::new(
+                &Limits::default()
+                    .with_fuel(u64::MAX)
+                    .with_memory(usize::MAX),
+            )
+        };
+        let result = self.evaluate(program, &mut budget, out);
+        self.peak = budget.peak;
+        let outcome = match result {
+            Ok(term) => Outcome::Value(term),
+            Err(Halt::Error(error)) => Outcome::Error(*error),
+            Err(Halt::OutOfFuel) => Outcome::OutOfFuel,
+            Err(halt) => match halt.limit(limits.memory) {
+                Some(limit) => Outcome::Limit(limit),
+                None => Outcome::OutOfFuel,
+            },
+        };
+        let counts: Counts = budget.counts;
+        Report { outcome, counts }
+    }
+}
+
+impl Env {
+    /// Compile and run `program` under `budget`, reading its value back
+    /// into `out`.
+    fn evaluate<'o>(
+        &mut self,
+        program: &Program<'_>,
+        budget: &mut Budget,
+        out: &'o Arena,
+    ) -> Result<&'o Term<'o>, Halt> {
+        // The image is the program's, prepared once and held by the caller:
+        // not this run's memory.
+        let image = program.image();
+        let scratch = &mut self.scratch;
+        let compiled = compile::compile(
+            image,
+            &mut scratch.compiled,
+            &mut scratch.workspace,
+            budget,
+            0,
+        );
+        scratch.workspace.trim();
+        if let Err(halt) = compiled {
+            scratch.compiled.trim();
+            return Err(halt);
+        }
+        let fixed = scratch.compiled.bytes() + scratch.workspace.bytes();
+        let code = &scratch.compiled;
+        let host = program.host();
+        let stacks = &mut scratch.stacks;
+        let result = if self.metered {
+            Run::<true>::evaluate(code, image, host, budget, fixed, stacks, out)
+        } else {
+            Run::<false>::evaluate(code, image, host, budget, fixed, stacks, out)
+        };
+        scratch.compiled.trim();
+        result
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::compile::{compile, Fetch, Instr};
+    use super::*;
+    use crate::image::{INode, LOCAL, NONE};
+    use crate::{parse, print, LimitError, Prim, Rule};
+
+    /// A budget with no limits but `memory`, and a cancel handle.
+    fn budget(memory: usize, cancel: Option<crate::Cancel>) -> Budget {
+        let mut limits = Limits::default().with_memory(memory);
+        limits.cancel = cancel;
+        Budget::new(&limits)
+    }
+
+    /// `program`'s image compiled without limits.
+    fn compiled(program: &Program<'_>) -> Compiled {
+        let mut c = Compiled::default();
+        let mut w = Workspace::default();
+        compile(
+            program.image(),
+            &mut c,
+            &mut w,
+            &mut budget(usize::MAX, None),
+            0,
+        )
+        .unwrap();
+        c
+    }
+
+    /// `let x₀ = 0 in … let x₆₃ = 63 in λy. y + x₀`: the function refers to
+    /// de Bruijn index 64 under its binder.
+    fn deep_closure(arena: &Arena) -> &crate::Term<'_> {
+        let mut body = arena.lam(arena.prim(Prim::Add, &[arena.var(0), arena.var(64)]));
+        for i in (0..64).rev() {
+            body = arena.let_in(arena.int(i), body);
+        }
+        body
+    }
+
+    #[test]
+    fn closures_capture_exactly_their_free_variables() {
+        let arena = Arena::new();
+        let program = Program::new(deep_closure(&arena)).unwrap();
+        let c = compiled(&program);
+        assert_eq!(c.funs.len(), 1);
+        assert_eq!(c.funs[0].captured, 1);
+        // x₀ is slot 0 of the top level's frame, fetched from there.
+        assert_eq!(
+            c.fetches,
+            vec![Fetch {
+                frame: true,
+                start: 0,
+                len: 1
+            }]
+        );
+        assert_eq!(c.frame, 64);
+        // Read back, the closure has x₀ substituted.
+        let report = Env::new().run(&program, &Limits::default(), &arena);
+        let expected = arena.lam(arena.prim(Prim::Add, &[arena.var(0), arena.int(0)]));
+        assert_eq!(report.outcome, Outcome::Value(expected));
+        assert_eq!(report.counts.get(Rule::Let), 64);
+    }
+
+    #[test]
+    fn a_curried_function_is_compiled_once_with_all_its_parameters() {
+        let arena = Arena::new();
+        let program = parse(
+            &arena,
+            "let a = 7 in let f x y z = a * x + y - z in f 1 2 3 + f 4 5 6",
+        )
+        .unwrap();
+        let c = compiled(&program);
+        assert_eq!(c.funs.len(), 1);
+        let f = c.funs[0];
+        assert_eq!((f.params, f.rec, f.captured), (3, false, 1));
+        // Self-less frame: x, y, z.
+        assert_eq!(f.frame, 3);
+        let spines = c
+            .code
+            .iter()
+            .filter(|i| matches!(i, Instr::AppN { .. }))
+            .count();
+        assert_eq!(spines, 2);
+        let report = Env::new().run(&program, &Limits::default(), &arena);
+        assert_eq!(report.outcome, Outcome::Value(arena.int(6 + 27)));
+    }
+
+    #[test]
+    fn calls_in_tail_position_are_marked_at_compile_time() {
+        let arena = Arena::new();
+        // (μf. λn. if n == 0 then g n else (f n) + 1) 3, with g = λx. x
+        let call = |f, a| arena.app(f, a);
+        let body = arena.if_then_else(
+            arena.prim(Prim::Eq, &[arena.var(0), arena.int(0)]),
+            call(arena.lam(arena.var(0)), arena.var(0)),
+            arena.prim(Prim::Add, &[call(arena.var(1), arena.var(0)), arena.int(1)]),
+        );
+        let program = Program::new(call(arena.rec_lam(body), arena.int(3))).unwrap();
+        let tails: Vec<bool> = compiled(&program)
+            .code
+            .iter()
+            .filter_map(|i| match i {
+                Instr::App { tail, .. }
+                | Instr::AppAtomArgument { tail, .. }
+                | Instr::AppAtomFunction { tail, .. }
+                | Instr::AppAtoms { tail, .. } => Some(*tail),
+                _ => None,
+            })
+            .collect();
+        // In compile order: the top-level call, then μf's body: g n, f n.
+        assert_eq!(tails, vec![true, true, false]);
+    }
+
+    #[test]
+    fn a_malformed_image_is_an_error_not_a_panic() {
+        // Program::new validates, so an open term cannot reach the machine;
+        // the compiler still refuses images the analysis would not make.
+        let mut c = Compiled::default();
+        let mut w = Workspace::default();
+        let mut open = crate::image::Image::default();
+        open.root = open.push(
+            INode::Var {
+                index: 3,
+                slot: LOCAL,
+            },
+            4,
+            true,
+        );
+        let mut no_function = crate::image::Image::default();
+        let body = no_function.push(INode::Int(1), 0, true);
+        no_function.root = no_function.push(
+            INode::Lam {
+                body,
+                func: NONE,
+                pos: 0,
+            },
+            0,
+            true,
+        );
+        for image in [open, no_function] {
+            let result = compile(&image, &mut c, &mut w, &mut budget(usize::MAX, None), 0);
+            assert!(matches!(result, Err(Halt::Error(_))));
+        }
+    }
+
+    /// `(μf. λn. f (n + 1)) 0`: runs until something stops it.
+    fn spin(arena: &Arena) -> &crate::Term<'_> {
+        let body = arena.app(
+            arena.var(1),
+            arena.prim(Prim::Add, &[arena.var(0), arena.int(1)]),
+        );
+        arena.app(arena.rec_lam(body), arena.int(0))
+    }
+
+    #[test]
+    fn a_cancelled_handle_stops_a_divergent_loop() {
+        let arena = Arena::new();
+        let program = Program::new(spin(&arena)).unwrap();
+        let cancel = crate::Cancel::new();
+        let limits = Limits::default()
+            .with_fuel(u64::MAX)
+            .with_cancel(cancel.clone());
+        let mut env = Env::new();
+        // Not cancelled: the fuel ends it, on the exact contraction.
+        let report = env.run(&program, &limits.clone().with_fuel(5_000), &arena);
+        assert_eq!(report.outcome, Outcome::OutOfFuel);
+        assert_eq!(report.counts.total(), 5_000);
+        cancel.cancel();
+        let report = env.run(&program, &limits, &arena);
+        assert_eq!(report.outcome, Outcome::Limit(LimitError::cancelled()));
+        assert_eq!(report.counts.total(), 0);
+    }
+
+    #[test]
+    fn cancelling_from_another_thread_stops_a_running_loop() {
+        let cancel = crate::Cancel::new();
+        let limits = Limits::default()
+            .with_fuel(u64::MAX)
+            .with_cancel(cancel.clone());
+        let runner = std::thread::spawn(move || {
+            let arena = Arena::new();
+            let program = Program::new(spin(&arena)).unwrap();
+            let report = Env::new().run(&program, &limits, &arena);
+            (report.outcome.name(), report.counts.total())
+        });
+        std::thread::sleep(std::time::Duration::from_millis(20));
+        cancel.cancel();
+        let (outcome, contractions) = runner.join().unwrap();
+        assert_eq!(outcome, "limit");
+        assert!(contractions > 0);
+    }
+
+    #[test]
+    fn stacks_are_kept_across_runs_and_runs_agree() {
+        let arena = Arena::new();
+        let program = Program::new(spin(&arena)).unwrap();
+        let limits = Limits::default().with_fuel(1_000);
+        let mut env = Env::new();
+        let first = env.run(&program, &limits, &arena);
+        assert!(env.scratch.stacks.stack.capacity() > 0);
+        let kept = env.scratch.stacks.stack.as_ptr();
+        let code = env.scratch.compiled.code.as_ptr();
+        let second = env.run(&program, &limits, &arena);
+        assert_eq!(first, second);
+        assert_eq!(env.scratch.stacks.stack.as_ptr(), kept);
+        assert_eq!(env.scratch.compiled.code.as_ptr(), code);
+    }
+
+    #[test]
+    fn without_accounting_gives_the_same_report() {
+        let arena = Arena::new();
+        // A 300-deep non-tail recursion, then partial applications.
+        let sources = [
+            "let rec sum n = if n == 0 then 0 else n + sum (n - 1) in sum 300",
+            "let rec k a b c = if a == 0 then b - c else k (a - 1) c b in let p = k 3 10 in Pair(p 4, p 5)",
+        ];
+        for source in sources {
+            let program = parse(&arena, source).unwrap();
+            let metered = Env::new().run(&program, &Limits::default(), &arena);
+            let unmetered = Env::without_accounting().run(&program, &Limits::default(), &arena);
+            assert!(matches!(metered.outcome, Outcome::Value(_)));
+            assert_eq!(metered, unmetered, "{source}");
+        }
+    }
+
+    #[test]
+    fn the_memory_limit_counts_the_value_stack() {
+        let arena = Arena::new();
+        // μf. λn. 1 + f n: pending additions forever.
+        let body = arena.prim(
+            Prim::Add,
+            &[arena.int(1), arena.app(arena.var(1), arena.var(0))],
+        );
+        let program = Program::new(arena.app(arena.rec_lam(body), arena.int(0))).unwrap();
+        let mut env = Env::new();
+        let limits = Limits::default().with_memory(256 << 10);
+        let report = env.run(&program, &limits, &arena);
+        assert_eq!(
+            report.outcome,
+            Outcome::Limit(LimitError::memory(256 << 10))
+        );
+        assert!(env.peak_bytes() > 256 << 10);
+        assert!(report.counts.get(Rule::BetaRec) > 1_000);
+    }
+
+    #[test]
+    fn deep_pushes_stop_at_a_one_mebibyte_limit() {
+        let arena = Arena::new();
+        let limit = 1 << 20;
+        // Frames pushed call after call.
+        let program = parse(&arena, "let rec deep n = 1 + deep (n + 1) in deep 0").unwrap();
+        let mut env = Env::new();
+        let report = env.run(&program, &Limits::default().with_memory(limit), &arena);
+        assert_eq!(report.outcome, Outcome::Limit(LimitError::memory(limit)));
+        assert!(report.counts.get(Rule::BetaRec) > 2_000);
+        // The peak is the growth refused, barely past the limit.
+        assert!(env.peak_bytes() < limit + limit / 4, "{}", env.peak_bytes());
+        // Values, tasks and cells made inside one contraction: a body of
+        // 5,000 nested constructors of 8 fields. With one byte less than the
+        // run needs, it stops after the β, before the case.
+        let nested = format!(
+            "{}x{}",
+            "K(1, 2, 3, 4, 5, 6, 7, ".repeat(5_000),
+            ")".repeat(5_000)
+        );
+        let source = format!("(\\x. case {nested} of {{ _ => 0 }}) 1");
+        let program = parse(&arena, &source).unwrap();
+        let report = env.run(&program, &Limits::default(), &arena);
+        assert_eq!(report.outcome, Outcome::Value(arena.int(0)));
+        assert_eq!(report.counts.total(), 2);
+        let need = env.peak_bytes();
+        let limit = need - 1;
+        let report = env.run(&program, &Limits::default().with_memory(limit), &arena);
+        assert_eq!(report.outcome, Outcome::Limit(LimitError::memory(limit)));
+        assert_eq!(report.counts.total(), 1);
+    }
+
+    /// `(λx₁. … λxₙ. x₁ + … + xₙ) 1 … n`: nested functions that each use
+    /// every variable above them.
+    fn nested_functions(n: usize) -> String {
+        let params: String = (1..=n).map(|i| format!("\\x{i}. ")).collect();
+        let sum: Vec<String> = (1..=n).map(|i| format!("x{i}")).collect();
+        let args: Vec<String> = (1..=n).map(|i| i.to_string()).collect();
+        format!("({params}{}) {}", sum.join(" + "), args.join(" "))
+    }
+
+    #[test]
+    fn nested_functions_compile_to_linear_code() {
+        let arena = Arena::new();
+        let program = parse(&arena, &nested_functions(4_000)).unwrap();
+        let nodes = program.image().nodes.len();
+        let c = compiled(&program);
+        assert!(
+            c.bytes() < 64 * nodes,
+            "{} bytes of code for {nodes} nodes",
+            c.bytes()
+        );
+        // One fetch per capture run: each function takes its parent's
+        // captured values and locals in two ranges.
+        assert!(c.fetches.len() <= 2 * c.funs.len());
+        let mut env = Env::new();
+        let limits = Limits::default().with_memory(16 << 20);
+        let report = env.run(&program, &limits.clone().with_fuel(0), &arena);
+        assert_eq!(report.outcome, Outcome::OutOfFuel);
+        let report = env.run(&program, &limits, &arena);
+        assert_eq!(report.outcome, Outcome::Value(arena.int(4_000 * 4_001 / 2)));
+        assert_eq!(report.counts.get(Rule::Beta), 4_000);
+    }
+
+    #[test]
+    fn compilation_stops_at_the_memory_limit_and_when_cancelled() {
+        let arena = Arena::new();
+        let program = parse(&arena, &nested_functions(4_000)).unwrap();
+        let (mut c, mut w) = (Compiled::default(), Workspace::default());
+        // Room for a few kilobytes: the code does not fit.
+        let limit = 4 << 10;
+        let result = compile(program.image(), &mut c, &mut w, &mut budget(limit, None), 0);
+        assert!(matches!(result, Err(Halt::Memory)));
+        let report = Env::new().run(&program, &Limits::default().with_memory(limit), &arena);
+        assert_eq!(report.outcome, Outcome::Limit(LimitError::memory(limit)));
+        let cancel = crate::Cancel::new();
+        cancel.cancel();
+        let result = compile(
+            program.image(),
+            &mut c,
+            &mut w,
+            &mut budget(usize::MAX, Some(cancel)),
+            0,
+        );
+        assert!(matches!(result, Err(Halt::Cancelled)));
+    }
+
+    /// Partial applications of every shape: (source, value or error kind,
+    /// contractions per rule in the order of [`Rule::ALL`]), as the old
+    /// environment evaluator reports them.
+    const SHAPES: &[(&str, &str, [u64; 6])] = &[
+        ("let f = \\x y z. x - y * z in f 1", "\\a b. 1 - a * b", [1, 0, 1, 0, 0, 0]),
+        ("let f = \\x y z. x - y * z in f 1 2", "\\a. 1 - 2 * a", [2, 0, 1, 0, 0, 0]),
+        ("let f = \\x y z. x - y * z in (f 1 2) 3", "-5", [3, 0, 1, 0, 2, 0]),
+        ("let f = \\x y z. x - y * z in f 1 2 3", "-5", [3, 0, 1, 0, 2, 0]),
+        ("let f = \\x y z. x - y * z in ((f 1) 2) 3", "-5", [3, 0, 1, 0, 2, 0]),
+        (
+            "let f = \\x y z. x - y * z in let g = f 1 in let h = g 2 in Pair(h 3, g 4 5, h 6)",
+            "Pair(-5, -19, -11)",
+            [6, 0, 3, 0, 6, 0],
+        ),
+        ("let f = \\x y. \\z. x - y * z in f 1 2 3", "-5", [3, 0, 1, 0, 2, 0]),
+        ("let f = \\x y z. \\w. x - y * z - w in f 1 2 3 4", "-9", [4, 0, 1, 0, 3, 0]),
+        ("let f = \\x y z. x in f 1 2 3 4", "error not_a_function", [4, 0, 1, 0, 0, 0]),
+        (
+            "let rec k a b c = if a == 0 then b - c else k (a - 1) c b in k 3",
+            "\\a b. if 3 == 0 then a - b else (rec c d e f. if d == 0 then e - f else c (d - 1) f e) (3 - 1) b a",
+            [0, 1, 1, 0, 0, 0],
+        ),
+        (
+            "let rec k a b c = if a == 0 then b - c else k (a - 1) c b in k 3 10",
+            "\\a. if 3 == 0 then 10 - a else (rec b c d e. if c == 0 then d - e else b (c - 1) e d) (3 - 1) a 10",
+            [1, 1, 1, 0, 0, 0],
+        ),
+        ("let rec k a b c = if a == 0 then b - c else k (a - 1) c b in (k 3) 10 4", "-6", [8, 4, 1, 4, 8, 0]),
+        ("let rec k a b c = if a == 0 then b - c else k (a - 1) c b in let p = k 3 in p 10 4", "-6", [8, 4, 2, 4, 8, 0]),
+        (
+            "let rec k a b c = if a == 0 then b - c else k (a - 1) c b in let p = k 3 10 in Pair(p 4, p 5)",
+            "Pair(-6, -5)",
+            [15, 7, 2, 8, 16, 0],
+        ),
+        ("let rec k a b c = if a == 0 then b - c else k (a - 1) c b in ((k 3) 10) 4", "-6", [8, 4, 1, 4, 8, 0]),
+        (
+            "let a = 5 in let f = \\x y z. a + x + y + z in Pair(f 1 2, f 1 2 3)",
+            "Pair(\\a. 5 + 1 + 2 + a, 11)",
+            [5, 0, 2, 0, 3, 0],
+        ),
+        (
+            "let a = 5 in let rec f x y = if x == 0 then a + y else f (x - 1) (y + a) in Pair(f 2, f 2 1, (f 2) 1)",
+            "Pair(\\a. if 2 == 0 then 5 + a else (rec b c d. if c == 0 then 5 + d else b (c - 1) (d + 5)) (2 - 1) (a + 5), 16, 16)",
+            [6, 7, 2, 6, 16, 0],
+        ),
+        ("let apply2 = \\g. g 1 2 in let f = \\x y z. x + y + z in apply2 (f 10)", "13", [4, 0, 2, 0, 2, 0]),
+        (
+            "let apply2 = \\g. g 1 2 in let rec f x y z = if x == 0 then y + z else f (x - 1) z y in apply2 (f 3)",
+            "3",
+            [9, 4, 2, 4, 8, 0],
+        ),
+        ("let f = \\x y. x + y in let g = f in g 1 2", "3", [2, 0, 2, 0, 1, 0]),
+        ("let f = \\x y. x / y in f 1 0", "error division_by_zero", [2, 0, 1, 0, 1, 0]),
+        ("let f = \\x y. x / y in (f 1) 0", "error division_by_zero", [2, 0, 1, 0, 1, 0]),
+        ("let f = \\x y z. x in f 1 (2 / 0) 3", "error division_by_zero", [1, 0, 1, 0, 1, 0]),
+    ];
+
+    #[test]
+    fn partial_applications_of_every_shape() {
+        let mut env = Env::new();
+        for &(source, want, counts) in SHAPES {
+            let arena = Arena::new();
+            let program = parse(&arena, source).unwrap();
+            let report = env.run(&program, &Limits::default(), &arena);
+            let got = match &report.outcome {
+                Outcome::Value(v) => print(v),
+                Outcome::Error(e) => format!("error {}", e.kind().name()),
+                other => format!("{other:?}"),
+            };
+            assert_eq!(got, want, "{source}");
+            assert_eq!(report.counts.to_array(), counts, "{source}");
+            // Out of fuel at every smaller bound, on the exact contraction,
+            // having made no more of any rule than the whole run.
+            let total = report.counts.total();
+            for fuel in 0..total {
+                let short = env.run(&program, &Limits::default().with_fuel(fuel), &arena);
+                assert_eq!(
+                    short.outcome,
+                    Outcome::OutOfFuel,
+                    "{source} with fuel {fuel}"
+                );
+                assert_eq!(short.counts.total(), fuel, "{source} with fuel {fuel}");
+                let within = short
+                    .counts
+                    .to_array()
+                    .iter()
+                    .zip(counts)
+                    .all(|(a, b)| *a <= b);
+                assert!(within, "{source} with fuel {fuel}");
+            }
+        }
+    }
+
+    #[test]
+    fn a_shared_closed_function_is_compiled_once() {
+        let arena = Arena::new();
+        // Pair(f 1 2, f 3 4) with one shared node for f = λx y. x - y, and a
+        // shared closed non-function (compiled at each occurrence).
+        let f = arena.lam(arena.lam(arena.prim(Prim::Sub, &[arena.var(1), arena.var(0)])));
+        let call = |a, b| arena.app(arena.app(f, arena.int(a)), arena.int(b));
+        let shared = arena.let_in(
+            arena.int(10),
+            arena.prim(Prim::Mul, &[arena.var(0), arena.var(0)]),
+        );
+        let term = arena.con("Four", &[call(1, 2), call(3, 4), shared, shared]);
+        let program = Program::new(term).unwrap();
+        let c = compiled(&program);
+        assert_eq!(c.funs.len(), 1);
+        let closures = c
+            .code
+            .iter()
+            .filter(|i| matches!(i, Instr::Closure { .. }))
+            .count();
+        assert_eq!(closures, 2);
+        let report = Env::new().run(&program, &Limits::default(), &arena);
+        let want = parse(&arena, "Four(-1, -1, 100, 100)").unwrap().term();
+        assert_eq!(report.outcome, Outcome::Value(want));
+        assert_eq!(report.counts.to_array(), [4, 0, 2, 0, 4, 0]);
+    }
+
+    #[test]
+    fn strings_pay_for_their_size() {
+        let arena = Arena::new();
+        let long = "x".repeat(5_000);
+        let source = format!("let s = \"{long}\" in length (s ++ s)");
+        let program = parse(&arena, &source).unwrap();
+        let report = Env::new().run(&program, &Limits::default(), &arena);
+        assert_eq!(report.outcome, Outcome::Value(arena.int(10_000)));
+        // ++ of 10,000 bytes needs 1 + 9 units, length of them 1 + 9.
+        assert_eq!(report.counts.total(), 3);
+        assert_eq!(report.counts.extra_fuel(), 18);
+        let short = Env::new().run(&program, &Limits::default().with_fuel(10), &arena);
+        assert_eq!(short.outcome, Outcome::OutOfFuel);
+        assert_eq!(short.counts.total(), 1);
+    }
+
+    #[test]
+    fn host_functions_are_called_with_their_arguments_as_data() {
+        let mut host = crate::HostFunctions::new();
+        host.register("scale", |a: i64, b: i64| Ok::<_, String>(a * b))
+            .unwrap();
+        let arena = Arena::new();
+        let call = host
+            .call_term(&arena, "scale", &[arena.var(0), arena.int(6)])
+            .unwrap();
+        let term = arena.app(arena.lam(call), arena.int(7));
+        let program = Program::with_host(term, &host).unwrap();
+        let report = Env::new().run(&program, &Limits::default(), &arena);
+        assert_eq!(report.outcome, Outcome::Value(arena.int(42)));
+        assert_eq!(report.counts.to_array(), [1, 0, 0, 0, 1, 0]);
+    }
+}

@@ -1,0 +1,478 @@
+//! The stepper's own tests: pausing at every fuel bound, the memory limit on
+//! deep terms, space per pending frame, strings shared by handle, host calls
+//! with a cost, read-back of shared values, cancellation inside one long
+//! contraction, and collections at every point of a run.
+
+use super::*;
+use crate::budget::POLL_WORK;
+use crate::{parse, parse_with, print, Cancel, Datum, LimitKind, Node};
+
+fn program<'a>(arena: &'a Arena, source: &str) -> Program<'a> {
+    parse(arena, source).expect("the test programs parse")
+}
+
+/// Run `program` to its end, keeping the state.
+fn reduce(program: &Program<'_>, limits: &Limits) -> (State, Result<Id, Halt>) {
+    let image = program.image();
+    let mut state = State::new(image, limits);
+    let end = state.reduce(image, program.host(), &mut None);
+    (state, end)
+}
+
+fn is_memory(outcome: &Outcome<'_>) -> bool {
+    matches!(outcome, Outcome::Limit(l) if l.kind() == LimitKind::Memory)
+}
+
+/// Every construct, a host call with a cost, and each kind of frame.
+const MIXED: &str = r#"
+let rec map f xs = case xs of { Nil => Nil; Cons(h, t) => Cons(f h, map f t) } in
+let rec range a b = if a > b then Nil else Cons(a, range (a + 1) b) in
+let add = \a b. a + b in
+let pick = \x. case x of { A => 1; B(y) => y; _ => 0 } in
+Triple(map (add 10) (range 1 4), pad "ab" (pick (B(3))) ++ decimal (pick A), not (pick C == 0))"#;
+
+fn host() -> HostFunctions {
+    let mut host = HostFunctions::new();
+    let pad = host
+        .register("pad", |s: String, n: i64| {
+            Ok::<_, String>(s.repeat(n.max(0) as usize))
+        })
+        .unwrap();
+    host.set_cost(pad, |args| match &args[1] {
+        Datum::Int(n) => (*n).max(0) as u64,
+        _ => 0,
+    });
+    host.register_data("wrap", 1, |args| {
+        Ok(Datum::con("Boxed", vec![args[0].clone()]))
+    })
+    .unwrap();
+    host.register_data("some", 1, |args| {
+        Ok(Datum::con("Some", vec![args[0].clone()]))
+    })
+    .unwrap();
+    host
+}
+
+#[test]
+fn frames_and_nodes_are_small() {
+    assert!(std::mem::size_of::<Frame>() <= 24);
+    assert_eq!(NODE_BYTES, 20);
+}
+
+#[test]
+fn every_fuel_bound_pauses_and_resumes_to_the_uninterrupted_end() {
+    let host = host();
+    let arena = Arena::new();
+    let program = parse_with(&arena, MIXED, &host).unwrap();
+    let whole = Stepper::new().run(&program, &Limits::default(), &arena);
+    assert_eq!(
+        whole.outcome,
+        Outcome::Value(parse_term_in(
+            &arena,
+            r#"Triple(Cons(11, Cons(12, Cons(13, Cons(14, Nil)))), "ababab1", false)"#
+        ))
+    );
+    assert_eq!(whole.counts.extra_fuel(), 3);
+    let fuel = whole.counts.fuel();
+    for bound in 0..=fuel + 1 {
+        let limits = Limits::default().with_fuel(bound);
+        let cut = Stepper::new().run(&program, &limits, &arena);
+        if bound < fuel {
+            assert_eq!(cut.outcome, Outcome::OutOfFuel, "fuel {bound}");
+            assert!(cut.counts.fuel() <= bound, "fuel {bound}");
+        } else {
+            assert_eq!(cut, whole, "fuel {bound}");
+        }
+        // Paused at this bound, then resumed with the rest at once.
+        let mut run = Stepper::start(&program, &limits);
+        let paused = run.resume(0, &arena);
+        assert_eq!(paused, cut, "fuel {bound}");
+        let end = run.resume(fuel, &arena);
+        assert_eq!(end, whole, "fuel {bound}");
+        assert_eq!(
+            run.resume(5, &arena),
+            whole,
+            "an ended run reports its end again"
+        );
+    }
+    // Resumed one unit at a time.
+    for slice in [1, 2, 3] {
+        let mut run = Stepper::start(&program, &Limits::default().with_fuel(0));
+        let end = loop {
+            let report = run.resume(slice, &arena);
+            if report.outcome != Outcome::OutOfFuel {
+                break report;
+            }
+        };
+        assert_eq!(end, whole, "slices of {slice}");
+        assert!(run.is_finished());
+    }
+}
+
+fn parse_term_in<'a>(arena: &'a Arena, source: &str) -> &'a Term<'a> {
+    crate::parse_term(arena, source).unwrap()
+}
+
+#[test]
+fn a_paused_run_holds_nothing_of_the_arenas_it_was_given() {
+    let arena = Arena::new();
+    let program = program(&arena, "let rec count n acc = if n == 0 then acc else count (n - 1) (Cons(n, acc)) in count 2000 Nil");
+    let mut run = Stepper::start(&program, &Limits::default().with_fuel(0));
+    let out = Arena::new();
+    for _ in 0..1000 {
+        assert_eq!(run.resume(7, &out).outcome, Outcome::OutOfFuel);
+    }
+    // Nothing was copied into `out` while paused.
+    assert_eq!(out.allocated_bytes(), 0);
+    let end = run.resume(u64::MAX / 2, &out);
+    assert!(matches!(end.outcome, Outcome::Value(_)));
+}
+
+/// `depth` nested applications of `wrap` around `leaf`.
+fn nest<'a>(
+    depth: usize,
+    leaf: &'a Term<'a>,
+    wrap: impl Fn(&'a Term<'a>) -> &'a Term<'a>,
+) -> &'a Term<'a> {
+    (0..depth).fold(leaf, |t, _| wrap(t))
+}
+
+#[test]
+fn deep_terms_stop_at_the_memory_limit() {
+    let arena = Arena::new();
+    let one = arena.int(1);
+    let id = arena.lam(arena.var(0));
+    let depth = 1_000_000;
+    let terms = [
+        nest(depth, one, |t| arena.prim(Prim::Add, &[one, t])),
+        nest(depth, one, |t| arena.prim(Prim::Add, &[t, one])),
+        nest(depth, one, |t| arena.app(id, t)),
+        nest(depth, arena.boolean(true), |t| {
+            arena.if_then_else(t, arena.boolean(false), arena.boolean(true))
+        }),
+        nest(depth, arena.con("Nil", &[]), |t| {
+            arena.case(t, &[], Some(arena.con("Nil", &[])))
+        }),
+    ];
+    for (k, &t) in terms.iter().enumerate() {
+        let program = Program::new(t).unwrap();
+        for memory in [1 << 20, 16 << 20] {
+            let limits = Limits::default().with_memory(memory);
+            let (state, end) = reduce(&program, &limits);
+            assert!(matches!(end, Err(Halt::Memory)), "term {k} under {memory}");
+            // What the run itself holds stays under the limit.
+            assert!(state.held() <= memory, "term {k}");
+        }
+        // With room enough, each deep term is evaluated, without recursion.
+        let (_, end) = reduce(&program, &Limits::default());
+        assert!(end.is_ok(), "term {k}: {end:?}");
+    }
+    // Depth reached at run time: a million pending additions do not fit in
+    // 16 MiB, and the run stops at the limit.
+    let program = program(&arena, "let rec deep n = 1 + deep (n + 1) in deep 0");
+    for memory in [1 << 20, 16 << 20] {
+        let (state, end) = reduce(&program, &Limits::default().with_memory(memory));
+        assert!(matches!(end, Err(Halt::Memory)));
+        assert!(state.held() <= memory);
+        // A good part of the limit went to pending additions.
+        assert!(
+            state.ctx.len() > memory / 400,
+            "{} frames in {memory}",
+            state.ctx.len()
+        );
+    }
+}
+
+#[test]
+fn a_million_pending_additions_complete() {
+    let arena = Arena::new();
+    let program = program(
+        &arena,
+        "let rec sum n = if n == 0 then 0 else n + sum (n - 1) in sum 1000000",
+    );
+    let (state, end) = reduce(&program, &Limits::default());
+    let value = end.unwrap();
+    assert_eq!(
+        state.heap.node(program.image(), value),
+        INode::Int(500_000_500_000)
+    );
+    // A pending addition costs its frame, its operand, and its share of the
+    // heap's garbage and of the room the collector and growing stacks take:
+    // under 200 bytes at the peak.
+    assert!(
+        state.budget.peak < 200_000_000,
+        "peak {}",
+        state.budget.peak
+    );
+}
+
+#[test]
+fn a_big_live_string_is_shared_not_copied() {
+    let arena = Arena::new();
+    let program = program(
+        &arena,
+        r#"let rec dbl n s = if n == 0 then s else dbl (n - 1) (s ++ s) in
+           let big = dbl 24 "ab" in
+           let rec loop n = if n == 0 then length big else loop (n - 1) in loop 300000"#,
+    );
+    let image = program.image();
+    let mut state = State::new(image, &Limits::default().with_fuel(100_000));
+    assert!(matches!(
+        state.reduce(image, &NO_HOST, &mut None),
+        Err(Halt::OutOfFuel)
+    ));
+    let longest = |state: &State| {
+        let s = state.heap.strings.iter().max_by_key(|s| s.len()).unwrap();
+        (s.len(), s.as_ptr())
+    };
+    let (len, at) = longest(&state);
+    assert_eq!(len, 2 << 24);
+    let collections = state.collections;
+    state.budget.add_fuel(1_000_000);
+    assert!(matches!(
+        state.reduce(image, &NO_HOST, &mut None),
+        Err(Halt::OutOfFuel)
+    ));
+    assert!(
+        state.collections >= collections + 10,
+        "{} collections",
+        state.collections
+    );
+    // The same string, never copied, and a heap of nodes small beside it.
+    assert_eq!(longest(&state), (len, at));
+    assert!(state.heap.bytes() - state.heap.string_bytes < 8 << 20);
+    assert!(state.heap.string_bytes < 2 * len + (4 << 20));
+}
+
+#[test]
+fn host_calls_pay_their_cost_and_make_their_tags() {
+    let host = host();
+    let arena = Arena::new();
+    let call = parse_with(&arena, r#"pad "ab" 5"#, &host).unwrap();
+    let report = Stepper::new().run(&call, &Limits::default().with_fuel(5), &arena);
+    assert_eq!(
+        (report.outcome, report.counts.total()),
+        (Outcome::OutOfFuel, 0)
+    );
+    let report = Stepper::new().run(&call, &Limits::default().with_fuel(6), &arena);
+    assert_eq!(report.outcome, Outcome::Value(arena.string("ababababab")));
+    assert_eq!(
+        (report.counts.get(Rule::Prim), report.counts.extra_fuel()),
+        (1, 5)
+    );
+    let mut run = Stepper::start(&call, &Limits::default().with_fuel(3));
+    assert_eq!(run.resume(0, &arena).outcome, Outcome::OutOfFuel);
+    assert_eq!(run.fuel_left(), 3);
+    assert_eq!(run.resume(3, &arena), report);
+    // A tag the program lacks is the run's own: no arm matches it, and it
+    // reads back by name; a tag the program has is the program's.
+    for (source, value) in [
+        ("case wrap 5 of { Boxed(x) => x; _ => 0 }", "5"),
+        ("case wrap 5 of { Some(x) => x; _ => 0 }", "0"),
+        ("case some 5 of { Some(x) => x; _ => 0 }", "5"),
+        (
+            "Pair(wrap (wrap 1), wrap 2)",
+            "Pair(Boxed(Boxed(1)), Boxed(2))",
+        ),
+    ] {
+        let program = parse_with(&arena, source, &host).unwrap();
+        let report = Stepper::new().run(&program, &Limits::default(), &arena);
+        let Outcome::Value(v) = report.outcome else {
+            panic!("{source}: {:?}", report.outcome)
+        };
+        assert_eq!(print(v), value, "{source}");
+    }
+    // A function is not data: a type mismatch, for one unit.
+    let program = parse_with(&arena, r#"pad (\x. x) 2"#, &host).unwrap();
+    let report = Stepper::new().run(&program, &Limits::default(), &arena);
+    let Outcome::Error(e) = report.outcome else {
+        panic!()
+    };
+    assert_eq!(
+        (e.kind(), report.counts.fuel()),
+        (ErrorKind::TypeMismatch, 1)
+    );
+}
+
+#[test]
+fn shared_values_read_back_in_linear_size() {
+    let arena = Arena::new();
+    let program = program(
+        &arena,
+        "let rec dup n t = if n == 0 then t else dup (n - 1) (Pair(t, t)) in dup 60 1",
+    );
+    let out = Arena::new();
+    let report = Stepper::new().run(&program, &Limits::default(), &out);
+    let Outcome::Value(mut v) = report.outcome else {
+        panic!("{:?}", report.outcome)
+    };
+    assert!(
+        out.allocated_bytes() < 1 << 20,
+        "{} bytes",
+        out.allocated_bytes()
+    );
+    let mut depth = 0;
+    while let Node::Con("Pair", [l, r]) = v.node() {
+        assert!(
+            l.is_closed() && (std::ptr::eq(*l, *r) || depth == 59),
+            "one term, twice"
+        );
+        v = l;
+        depth += 1;
+    }
+    assert_eq!(depth, 60);
+    // As host data it would be 2^60 nodes: refused under the limit.
+    let host = host();
+    let program = parse_with(
+        &arena,
+        "let rec dup n t = if n == 0 then t else dup (n - 1) (Pair(t, t)) in wrap (dup 60 1)",
+        &host,
+    )
+    .unwrap();
+    let report = Stepper::new().run(&program, &Limits::default(), &arena);
+    assert!(is_memory(&report.outcome), "{:?}", report.outcome);
+}
+
+#[test]
+fn a_read_back_past_the_limit_is_the_memory_limit() {
+    let arena = Arena::new();
+    let program = program(&arena, "let rec build n acc = if n == 0 then acc else build (n - 1) (Cons(n, acc)) in build 100000 Nil");
+    let report = Stepper::new().run(&program, &Limits::default(), &arena);
+    assert!(matches!(report.outcome, Outcome::Value(_)));
+    let image = program.image();
+    let mut state = State::new(image, &Limits::default());
+    let value = state.reduce(image, &NO_HOST, &mut None).unwrap();
+    // Room for the run, not for its result as terms as well.
+    state.budget.memory = state.held() + (1 << 20);
+    let out = Arena::new();
+    assert!(is_memory(&state.outcome(image, Ok(value), &out)));
+    assert!(out.allocated_bytes() < 4 << 20);
+}
+
+#[test]
+fn a_cancelled_run_stops_within_bounded_work() {
+    // One contraction substitutes into a body of a million nodes; the run is
+    // cancelled as that contraction begins.
+    let arena = Arena::new();
+    let x = arena.var(0);
+    let body = nest(1_000_000, x, |t| arena.prim(Prim::Add, &[x, t]));
+    let program = Program::new(arena.app(arena.lam(body), arena.int(1))).unwrap();
+    let cancel = Cancel::new();
+    let image = program.image();
+    let mut state = State::new(image, &Limits::default().with_cancel(cancel.clone()));
+    let mut scratch = Arena::new();
+    let mut sink = |_: Rule, _: &Term<'_>| cancel.cancel();
+    let mut trace = Some(Trace {
+        scratch: &mut scratch,
+        sink: &mut sink,
+    });
+    let end = state.reduce(image, &NO_HOST, &mut trace);
+    assert!(matches!(end, Err(Halt::Cancelled)), "{end:?}");
+    assert_eq!(state.budget.counts.total(), 1);
+    assert!(
+        state.heap.nodes.len() < 2 * POLL_WORK as usize,
+        "{} nodes built",
+        state.heap.nodes.len()
+    );
+    // Read-back, too, looks at the flag as it goes.
+    let program = self::program(&arena, "let rec build n acc = if n == 0 then acc else build (n - 1) (Cons(n, acc)) in build 300000 Nil");
+    let image = program.image();
+    let cancel = Cancel::new();
+    let mut state = State::new(image, &Limits::default().with_cancel(cancel.clone()));
+    let value = state.reduce(image, &NO_HOST, &mut None).unwrap();
+    cancel.cancel();
+    let out = Arena::new();
+    let outcome = state.outcome(image, Ok(value), &out);
+    assert!(matches!(outcome, Outcome::Limit(ref l) if l.kind() == LimitKind::Cancelled));
+    assert!(out.allocated_bytes() < 8 << 20);
+}
+
+#[test]
+fn collections_anywhere_change_nothing() {
+    let host = host();
+    let arena = Arena::new();
+    let program = parse_with(&arena, MIXED, &host).unwrap();
+    let whole = Stepper::new().run(&program, &Limits::default(), &arena);
+    let image = program.image();
+    // One contraction at a time, with a collection after each.
+    let mut state = State::new(image, &Limits::default().with_fuel(0));
+    let end = loop {
+        state.budget.add_fuel(1);
+        match state.reduce(image, &host, &mut None) {
+            Err(Halt::OutOfFuel) => state.collect(image).unwrap(),
+            end => break end,
+        }
+    };
+    assert!(state.collections >= whole.counts.total());
+    let outcome = state.outcome(image, end, &arena);
+    assert_eq!(outcome, whole.outcome);
+    assert_eq!(state.budget.counts, whole.counts);
+    // Collections made by the policy, in a run that allocates a lot.
+    let program = self::program(
+        &arena,
+        "let rec fib n = if n < 2 then n else fib (n - 1) + fib (n - 2) in fib 22",
+    );
+    let (state, end) = reduce(&program, &Limits::default());
+    assert_eq!(
+        state.heap.node(program.image(), end.unwrap()),
+        INode::Int(17711)
+    );
+    assert!(state.collections > 2);
+}
+
+#[test]
+fn a_tail_loop_runs_in_constant_memory() {
+    let arena = Arena::new();
+    let program = program(&arena, "let rec churn n acc = if n == 0 then acc else churn (n - 1) ((acc * 31 + n) % 1000003) in churn 1000000 0");
+    let (state, end) = reduce(&program, &Limits::default().with_memory(32 << 20));
+    assert_eq!(
+        state.heap.node(program.image(), end.unwrap()),
+        INode::Int(632_919)
+    );
+    assert!(state.budget.peak < 8 << 20, "peak {}", state.budget.peak);
+}
+
+#[test]
+fn single_steps_show_each_redex() {
+    let arena = Arena::new();
+    let mut t = parse_term_in(
+        &arena,
+        "let f = \\x. case x of { Some(y) => y + 1; _ => 0 } in Pair(f (Some(2)), f None)",
+    );
+    let mut rules = Vec::new();
+    loop {
+        match step(&arena, t) {
+            Step::Contracted { rule, next, .. } => {
+                rules.push(rule);
+                t = next;
+            }
+            Step::Value => break,
+            Step::Stuck { error, .. } => panic!("{error}"),
+        }
+    }
+    assert_eq!(print(t), "Pair(3, 0)");
+    use Rule::{Beta, Case, Let, Prim as P};
+    assert_eq!(rules, [Let, Beta, Case, P, Beta, Case]);
+    // A term that is not a program has no step.
+    assert!(matches!(step(&arena, arena.var(0)), Step::Value));
+}
+
+#[test]
+fn a_paused_run_can_move_between_threads() {
+    fn is_send<T: Send>(_: &T) {}
+    let arena = Arena::new();
+    let program = program(
+        &arena,
+        "let rec count n = if n == 0 then 7 else count (n - 1) in count 50",
+    );
+    let mut run = Stepper::start(&program, &Limits::default().with_fuel(10));
+    is_send(&run);
+    let out = Arena::new();
+    assert_eq!(run.resume(0, &out).outcome, Outcome::OutOfFuel);
+    let report = std::thread::scope(|s| {
+        s.spawn(move || run.resume(1000, &Arena::new()).counts)
+            .join()
+            .unwrap()
+    });
+    assert_eq!(report.total(), 204);
+}
