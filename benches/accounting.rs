@@ -5,6 +5,7 @@
 use std::time::Duration;
 
 use criterion::{criterion_group, criterion_main, Criterion};
+use orrery::MachineKind;
 use orrery::{Arena, Machine};
 
 // Each bench target uses a part of the shared workloads.
@@ -20,18 +21,12 @@ fn overhead(c: &mut Criterion, name: &str, source: &str, expected: i64) {
     let expected = expected.to_string();
     let mut workload = Workload::new(c, &format!("accounting {name}"));
     workload.group().sample_size(10);
-    let mut pairs: Vec<(&str, Box<dyn Machine>)> = Vec::new();
-    #[cfg(feature = "env")]
-    {
-        use orrery::machines::env::Env;
-        pairs.push(("env", Box::new(Env::new())));
-        pairs.push(("env unaccounted", Box::new(Env::without_accounting())));
-    }
-    #[cfg(feature = "cek")]
-    {
-        use orrery::machines::cek::Cek;
-        pairs.push(("cek", Box::new(Cek::new())));
-        pairs.push(("cek unaccounted", Box::new(Cek::without_accounting())));
+    let mut pairs: Vec<(String, Box<dyn Machine>)> = Vec::new();
+    for kind in MachineKind::enabled() {
+        if let Some(unaccounted) = kind.unaccounted() {
+            pairs.push((kind.name().to_string(), kind.machine()));
+            pairs.push((format!("{} unaccounted", kind.name()), unaccounted));
+        }
     }
     for (id, machine) in &mut pairs {
         workload.machine(id, machine.as_mut(), &program, &unlimited(), 1, &expected);

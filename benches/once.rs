@@ -49,18 +49,20 @@ fn main() -> ExitCode {
     // `env-unaccounted` and `cek-unaccounted` are the machines with their
     // fuel and memory checks compiled out, for the accounting's share in
     // instructions.
-    let mut runner: Box<dyn Machine> = match machine.as_str() {
-        #[cfg(feature = "env")]
-        "env-unaccounted" => Box::new(orrery::machines::env::Env::without_accounting()),
-        #[cfg(feature = "cek")]
-        "cek-unaccounted" => Box::new(orrery::machines::cek::Cek::without_accounting()),
-        name => match MachineKind::from_name(name) {
-            Some(kind) => kind.machine(),
-            None => {
-                eprintln!("no machine {machine} in this build");
-                return ExitCode::FAILURE;
-            }
-        },
+    let (name_of_kind, unaccounted) = match machine.strip_suffix("-unaccounted") {
+        Some(base) => (base, true),
+        None => (machine.as_str(), false),
+    };
+    let runner = MachineKind::from_name(name_of_kind).and_then(|kind| {
+        if unaccounted {
+            kind.unaccounted()
+        } else {
+            Some(kind.machine())
+        }
+    });
+    let Some(mut runner): Option<Box<dyn Machine>> = runner else {
+        eprintln!("no machine {machine} in this build");
+        return ExitCode::FAILURE;
     };
     let arena = Arena::new();
     let program = program(&arena, &source);

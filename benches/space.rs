@@ -5,8 +5,6 @@
 use std::process::{Command, ExitCode};
 use std::time::Instant;
 
-#[cfg(any(feature = "env", feature = "cek"))]
-use orrery::Machine;
 use orrery::{Arena, MachineKind, Outcome};
 
 // Each bench target uses a part of the shared workloads.
@@ -42,22 +40,10 @@ fn child(name: &str) -> ExitCode {
     let expected = tail(ITERATIONS as i64).to_string();
     let baseline = status_bytes("VmRSS:").unwrap_or(0);
     let started = Instant::now();
-    // env and cek report their own peak of runtime bytes; the stepper does not.
-    let (report, peak_bytes) = match name {
-        #[cfg(feature = "env")]
-        "env" => {
-            let mut env = orrery::machines::env::Env::new();
-            let report = env.run(&program, &unlimited(), &arena);
-            (report, Some(env.peak_bytes()))
-        }
-        #[cfg(feature = "cek")]
-        "cek" => {
-            let mut cek = orrery::machines::cek::Cek::new();
-            let report = cek.run(&program, &unlimited(), &arena);
-            (report, Some(cek.peak_bytes()))
-        }
-        _ => (kind.machine().run(&program, &unlimited(), &arena), None),
-    };
+    // Each machine reports its own peak of runtime bytes too.
+    let mut machine = kind.machine();
+    let report = machine.run(&program, &unlimited(), &arena);
+    let peak_bytes = Some(machine.peak_bytes());
     let seconds = started.elapsed().as_secs_f64();
     let peak = status_bytes("VmHWM:").unwrap_or(0);
     let outcome = match &report.outcome {

@@ -86,6 +86,10 @@ fn main() {
             );
             std::process::exit(1);
         }
+        Outcome::Fault(f) => {
+            eprintln!("{path}: {f}");
+            std::process::exit(1);
+        }
         Outcome::Limit(l) => {
             eprintln!("{path}: {l}");
             std::process::exit(1);

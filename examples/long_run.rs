@@ -20,6 +20,7 @@ fn describe(outcome: &Outcome<'_>) -> String {
         Outcome::Error(e) => format!("error: {e}"),
         Outcome::OutOfFuel => "out of fuel".to_string(),
         Outcome::Limit(l) => format!("stopped: {l}"),
+        Outcome::Fault(f) => format!("orrery failed: {f}"),
     }
 }
 

@@ -141,6 +141,7 @@ fn main() {
             Outcome::Error(e) => format!("rule error: {e}"),
             Outcome::OutOfFuel => "rule ran out of fuel".to_string(),
             Outcome::Limit(l) => format!("stopped: {l}"),
+            Outcome::Fault(f) => format!("orrery failed: {f}"),
         };
         println!(
             "{:<4} {:>3} kg {:>2}h{:<9} → {answer}   [{} contractions]",

@@ -37,10 +37,12 @@ use super::runtime::host::host_call;
 use super::runtime::prims::{int_prim, int_test, prim_contraction};
 use super::runtime::readback::read_back;
 use super::runtime::value::{cut, recycle, Closure, ConCell, Meter, Tags, Value, Values};
-use crate::budget::{growth, reserve_within, Budget, Halt};
+use crate::budget::{growth, reserve_within, Budget, Ended, Halt};
+use crate::error::Fault;
 use crate::image::{INode, Id, Image, Run, NONE};
+use crate::vocabulary::{Build, Machine, Paused};
 use crate::{
-    Arena, ErrorKind, EvalError, HostFunctions, LimitError, Limits, Machine, Outcome, Prim,
+    Arena, Counts, EvalError, HostFunctions, Limits, Outcome, Prim,
     Program, Report, Rule,
 };
 
@@ -119,30 +121,6 @@ impl Cek {
         Cek::default()
     }
 
-    /// **For benchmarks only.** A machine whose [`Machine::run`] skips every
-    /// fuel, memory and cancellation check, so a benchmark can measure what
-    /// the accounting costs. It computes the same values and counts, but it
-    /// ignores [`Limits`] entirely: a divergent program runs forever and a
-    /// growing one until allocation fails. Never use it on untrusted input.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// use orrery::machines::cek::Cek;
-    /// use orrery::{Arena, Limits, Machine, Outcome, Program};
-    /// let arena = Arena::new();
-    /// let program = Program::new(arena.app(arena.lam(arena.var(0)), arena.int(5))).unwrap();
-    /// let report = Cek::without_accounting().run(&program, &Limits::default(), &arena);
-    /// assert_eq!(report.outcome, Outcome::Value(arena.int(5)));
-    /// ```
-    #[doc(hidden)]
-    pub fn without_accounting() -> Self {
-        Cek {
-            metered: false,
-            ..Cek::default()
-        }
-    }
-
     /// The initial machine state for running `program` under `limits`:
     /// nothing is evaluated until [`CekRun::resume`].
     ///
@@ -164,24 +142,6 @@ impl Cek {
     pub fn start<'h>(program: &Program<'h>, limits: &Limits) -> CekRun<'h> {
         CekRun::with_stacks(program, limits, Scratch::default(), true)
     }
-
-    /// The most memory the last [`Machine::run`] held at once, in bytes, as
-    /// the memory limit counts it (see [`CekRun::peak_bytes`]).
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// use orrery::machines::cek::Cek;
-    /// use orrery::{Arena, Limits, Machine, Program};
-    /// let arena = Arena::new();
-    /// let program = Program::new(arena.con("Box", &[arena.int(1)])).unwrap();
-    /// let mut cek = Cek::new();
-    /// cek.run(&program, &Limits::default(), &arena);
-    /// assert!(cek.peak_bytes() > 0);
-    /// ```
-    pub fn peak_bytes(&self) -> usize {
-        self.peak
-    }
 }
 
 impl Machine for Cek {
@@ -189,18 +149,56 @@ impl Machine for Cek {
         "cek"
     }
 
-    fn run<'a: 'o, 'o>(
-        &mut self,
-        program: &Program<'a>,
-        limits: &Limits,
-        out: &'o Arena,
-    ) -> Report<'o> {
+    fn run<'o>(&mut self, program: &Program<'_>, limits: &Limits, out: &'o Arena) -> Report<'o> {
         let scratch = std::mem::take(&mut self.scratch);
         let mut run = CekRun::with_stacks(program, limits, scratch, self.metered);
         let report = run.resume(0, out);
         self.peak = run.peak_bytes();
         self.scratch = run.into_stacks();
         report
+    }
+
+    fn peak_bytes(&self) -> usize {
+        self.peak
+    }
+
+    fn start<'p>(&self, program: &Program<'p>, limits: &Limits) -> Option<Box<dyn Paused + 'p>> {
+        Some(Box::new(Cek::start(program, limits)))
+    }
+}
+
+impl Build for Cek {
+    fn new() -> Self {
+        Cek::default()
+    }
+
+    fn without_accounting() -> Option<Self> {
+        Some(Cek {
+            metered: false,
+            ..Cek::default()
+        })
+    }
+}
+
+impl Paused for CekRun<'_> {
+    fn resume<'o>(&mut self, more_fuel: u64, out: &'o Arena) -> Report<'o> {
+        CekRun::resume(self, more_fuel, out)
+    }
+
+    fn counts(&self) -> Counts {
+        CekRun::counts(self)
+    }
+
+    fn fuel_left(&self) -> u64 {
+        CekRun::fuel_left(self)
+    }
+
+    fn is_finished(&self) -> bool {
+        CekRun::is_finished(self)
+    }
+
+    fn peak_bytes(&self) -> usize {
+        CekRun::peak_bytes(self)
     }
 }
 
@@ -295,8 +293,7 @@ enum Control {
 /// however often it is asked.
 enum End {
     Value(Val),
-    Error(EvalError),
-    Limit(LimitError),
+    Ended(Ended),
 }
 
 /// The state of one CEK run: control, environment, continuation, and the
@@ -451,9 +448,7 @@ impl<'h> CekRun<'h> {
             };
             let end = match result {
                 Ok(value) => Some(End::Value(value)),
-                Err(Halt::Error(error)) => Some(End::Error(*error)),
-                Err(Halt::OutOfFuel) => None,
-                Err(halt) => halt.limit(self.budget.memory).map(End::Limit),
+                Err(halt) => halt.ended(self.budget.memory).map(End::Ended),
             };
             if end.is_some() {
                 // The machine state is no longer needed; drop what it holds
@@ -474,16 +469,16 @@ impl<'h> CekRun<'h> {
                 match read_back(value, &self.image, &self.tags, out, &mut self.budget, held) {
                     Ok(term) => Outcome::Value(term),
                     Err(halt) => {
-                        let limit = halt
-                            .limit(self.budget.memory)
-                            .unwrap_or_else(|| LimitError::memory(self.budget.memory));
-                        self.end = Some(End::Limit(limit.clone()));
-                        Outcome::Limit(limit)
+                        let ended = halt.ended(self.budget.memory).unwrap_or_else(|| {
+                            Ended::Fault(Fault::new("read-back asked for fuel"))
+                        });
+                        let outcome = ended.outcome();
+                        self.end = Some(End::Ended(ended));
+                        outcome
                     }
                 }
             }
-            Some(End::Error(error)) => Outcome::Error(error.clone()),
-            Some(End::Limit(limit)) => Outcome::Limit(limit.clone()),
+            Some(End::Ended(ended)) => ended.outcome(),
         };
         self.cells = self.meter.cells();
         Report {
@@ -1432,8 +1427,5 @@ fn closure_rule(image: &Image, closure: &Fun) -> Rule {
 /// error rather than a panic.
 #[cold]
 fn broken(what: &str) -> Halt {
-    Halt::error(EvalError::new(
-        ErrorKind::TypeMismatch,
-        format!("internal error in the cek machine: {what}"),
-    ))
+    Halt::fault(format!("in the cek machine: {what}"))
 }

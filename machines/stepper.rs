@@ -25,13 +25,15 @@ use heap::{Collector, Heap, Tags, NODE_BYTES, STRING_OVERHEAD};
 use readback::{flatten, to_datum, Piece};
 use subst::{Binds, Job};
 
-use crate::budget::{growth, Budget, Halt};
+use crate::budget::{growth, Budget, Ended, Halt};
+use crate::error::Fault;
 use crate::host::{host_step, HostStep, NO_HOST};
 use crate::image::{CaseInfo, INode, Id, Image, TagId, NONE};
 use crate::prim::{delta_polled, fuel_units, Stopped};
+use crate::vocabulary::{Build, Machine, Paused};
 use crate::{
-    Arena, Counts, ErrorKind, EvalError, HostFunctions, HostId, LimitError, Limits, Machine,
-    Operand, Outcome, Prim, PrimValue, Program, Report, Rule, Term,
+    Arena, Counts, EvalError, HostFunctions, HostId, Limits, Operand,
+    Outcome, Prim, PrimValue, Program, Report, Rule, Term,
 };
 
 /// The heap is collected only once it has this many bytes of nodes and
@@ -70,6 +72,8 @@ const STRING_RATIO: usize = 2;
 #[derive(Debug, Default)]
 pub struct Stepper {
     scratch: Arena,
+    /// The most bytes the last run held at once.
+    peak: usize,
 }
 
 /// A frame of the evaluation context, innermost last. Together with the
@@ -568,9 +572,8 @@ impl State {
                 self.focus = scrutinee;
             }
             INode::Var { index, .. } => {
-                return Err(Halt::error(EvalError::new(
-                    ErrorKind::TypeMismatch,
-                    format!("free variable #{index} in a program that should be closed"),
+                return Err(internal(&format!(
+                    "free variable #{index} in a validated program"
                 )))
             }
             _ => return Err(internal("a value taken for a redex")),
@@ -880,13 +883,10 @@ impl State {
     }
 }
 
-/// A bug in orrery, reported as an error rather than a panic.
+/// A bug in orrery, reported as a fault rather than a panic.
 #[cold]
 fn internal(what: &str) -> Halt {
-    Halt::error(EvalError::new(
-        ErrorKind::TypeMismatch,
-        format!("internal error in the stepper (please report it): {what}"),
-    ))
+    Halt::fault(format!("in the stepper: {what}"))
 }
 
 /// What value `id` looks like to a primitive or an error message.
@@ -1069,20 +1069,21 @@ impl Stepper {
     /// });
     /// assert_eq!(lines, ["prim: 1 < 2", "if: if true then \"yes\" else \"no\""]);
     /// ```
-    pub fn run_traced<'a: 'o, 'o>(
+    pub fn run_traced<'o>(
         &mut self,
-        program: &Program<'a>,
+        program: &Program<'_>,
         limits: &Limits,
         out: &'o Arena,
         trace: &mut dyn FnMut(Rule, &Term<'_>),
     ) -> Report<'o> {
-        let report = {
+        let (report, peak) = {
             let mut trace = Some(Trace {
                 scratch: &mut self.scratch,
                 sink: trace,
             });
             run_with(program, limits, out, &mut trace)
         };
+        self.peak = peak;
         // Keep a small scratch arena for the next run, not a big one.
         if self.scratch.allocated_bytes() > 1 << 20 {
             self.scratch = Arena::new();
@@ -1130,20 +1131,23 @@ impl Stepper {
 }
 
 /// An uninterrupted run of `program`.
+/// Run `program` to its end, with a tracer if given: the report and the
+/// run's peak bytes.
 fn run_with<'o>(
     program: &Program<'_>,
     limits: &Limits,
     out: &'o Arena,
     trace: &mut Option<Trace<'_>>,
-) -> Report<'o> {
+) -> (Report<'o>, usize) {
     let image = program.image();
     let mut state = State::new(image, limits);
     let end = state.reduce(image, program.host(), trace);
     let outcome = state.outcome(image, end, out);
-    Report {
+    let report = Report {
         outcome,
         counts: state.budget.counts,
-    }
+    };
+    (report, state.budget.peak)
 }
 
 /// How a [`StepperRun`] ended.
@@ -1151,8 +1155,7 @@ fn run_with<'o>(
 enum End {
     /// With a value: the state's focus, all the heap still holds.
     Value,
-    Error(EvalError),
-    Limit(LimitError),
+    Ended(Ended),
 }
 
 /// A stepper run that pauses when its fuel runs out (see [`Stepper::start`]).
@@ -1232,8 +1235,7 @@ impl StepperRun<'_> {
                 let value = state.focus;
                 state.outcome(image, Ok(value), out)
             }
-            Some(End::Error(e)) => Outcome::Error(e.clone()),
-            Some(End::Limit(l)) => Outcome::Limit(l.clone()),
+            Some(End::Ended(ended)) => ended.outcome(),
             None => Outcome::OutOfFuel,
         };
         Report {
@@ -1330,11 +1332,10 @@ impl State {
         self.values = Vec::new();
         self.jobs = Vec::new();
         self.done = Vec::new();
-        match self.halted(halt) {
-            Outcome::Error(e) => End::Error(e),
-            Outcome::Limit(l) => End::Limit(l),
-            _ => End::Limit(LimitError::memory(self.budget.memory)),
-        }
+        // Out of fuel is no end: a paused run resumes from it.
+        End::Ended(halt.ended(self.budget.memory).unwrap_or_else(|| {
+            Ended::Fault(Fault::new("the stepper ended a run out of fuel"))
+        }))
     }
 }
 
@@ -1343,12 +1344,45 @@ impl Machine for Stepper {
         "stepper"
     }
 
-    fn run<'a: 'o, 'o>(
-        &mut self,
-        program: &Program<'a>,
-        limits: &Limits,
-        out: &'o Arena,
-    ) -> Report<'o> {
-        run_with(program, limits, out, &mut None)
+    fn run<'o>(&mut self, program: &Program<'_>, limits: &Limits, out: &'o Arena) -> Report<'o> {
+        let (report, peak) = run_with(program, limits, out, &mut None);
+        self.peak = peak;
+        report
+    }
+
+    fn peak_bytes(&self) -> usize {
+        self.peak
+    }
+
+    fn start<'p>(&self, program: &Program<'p>, limits: &Limits) -> Option<Box<dyn Paused + 'p>> {
+        Some(Box::new(Stepper::start(program, limits)))
+    }
+}
+
+impl Build for Stepper {
+    fn new() -> Self {
+        Stepper::default()
+    }
+}
+
+impl Paused for StepperRun<'_> {
+    fn resume<'o>(&mut self, more_fuel: u64, out: &'o Arena) -> Report<'o> {
+        StepperRun::resume(self, more_fuel, out)
+    }
+
+    fn counts(&self) -> Counts {
+        StepperRun::counts(self)
+    }
+
+    fn fuel_left(&self) -> u64 {
+        StepperRun::fuel_left(self)
+    }
+
+    fn is_finished(&self) -> bool {
+        StepperRun::is_finished(self)
+    }
+
+    fn peak_bytes(&self) -> usize {
+        self.state.budget.peak
     }
 }

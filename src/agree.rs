@@ -3,8 +3,9 @@
 //! kind) and the same per-rule contraction counts. Resource limits are
 //! reported, never compared.
 
-use crate::api::{LimitError, Outcome, Report};
 use crate::equal::terms_equal_within;
+use crate::error::LimitError;
+use crate::vocabulary::{Outcome, Report};
 
 /// Why two reports of one program disagree, or `None` when they agree (or
 /// when either stopped at a resource limit, which may trip anywhere).
@@ -53,6 +54,7 @@ pub fn disagreement_within(
     max_bytes: usize,
 ) -> Result<Option<String>, LimitError> {
     Ok(match (&a.outcome, &b.outcome) {
+        (Outcome::Fault(f), _) | (_, Outcome::Fault(f)) => Some(f.to_string()),
         (Outcome::Limit(_), _) | (_, Outcome::Limit(_)) => return Ok(None),
         (Outcome::Value(x), Outcome::Value(y)) => {
             match terms_equal_within(x, y, max_bytes) {

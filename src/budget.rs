@@ -25,7 +25,8 @@
     allow(dead_code)
 )]
 
-use crate::api::{Cancel, Counts, EvalError, LimitError, Limits, Rule, CANCEL_POLL_INTERVAL};
+use crate::error::{EvalError, Fault, LimitError};
+use crate::vocabulary::{Cancel, Counts, Limits, Outcome, Rule, CANCEL_POLL_INTERVAL};
 
 /// Units of fuel-free work between two looks at the cancellation flag.
 pub(crate) const POLL_WORK: i64 = 1 << 16;
@@ -42,6 +43,8 @@ pub(crate) enum Halt {
     Memory,
     /// The run was cancelled.
     Cancelled,
+    /// A broken invariant inside orrery (a bug).
+    Fault(Box<Fault>),
 }
 
 impl Halt {
@@ -51,12 +54,46 @@ impl Halt {
         Halt::Error(Box::new(error))
     }
 
-    /// The resource limit this halt is, with `memory` the run's limit.
-    pub(crate) fn limit(&self, memory: usize) -> Option<LimitError> {
+    /// A fault: invariant `what` of a machine broke.
+    #[cold]
+    pub(crate) fn fault(what: impl Into<String>) -> Halt {
+        Halt::Fault(Box::new(Fault::new(what)))
+    }
+
+    /// How this halt ends a run whose memory limit is `memory`; `None` for
+    /// out of fuel, which a pausable run can resume from.
+    pub(crate) fn ended(self, memory: usize) -> Option<Ended> {
+        Some(match self {
+            Halt::Error(e) => Ended::Error(*e),
+            Halt::OutOfFuel => return None,
+            Halt::Memory => Ended::Limit(LimitError::memory(memory)),
+            Halt::Cancelled => Ended::Limit(LimitError::cancelled()),
+            Halt::Fault(f) => Ended::Fault(*f),
+        })
+    }
+
+    /// The outcome this halt is for a run whose memory limit is `memory`.
+    pub(crate) fn outcome<'o>(self, memory: usize) -> Outcome<'o> {
+        self.ended(memory)
+            .map_or(Outcome::OutOfFuel, |e| e.outcome())
+    }
+}
+
+/// How a run ended without a value, kept by a run that can be asked again.
+#[derive(Clone, Debug)]
+pub(crate) enum Ended {
+    Error(EvalError),
+    Limit(LimitError),
+    Fault(Fault),
+}
+
+impl Ended {
+    /// The outcome it is.
+    pub(crate) fn outcome<'o>(&self) -> Outcome<'o> {
         match self {
-            Halt::Memory => Some(LimitError::memory(memory)),
-            Halt::Cancelled => Some(LimitError::cancelled()),
-            _ => None,
+            Ended::Error(e) => Outcome::Error(e.clone()),
+            Ended::Limit(l) => Outcome::Limit(l.clone()),
+            Ended::Fault(f) => Outcome::Fault(f.clone()),
         }
     }
 }

@@ -294,7 +294,7 @@ impl<'t> Datum<'t> {
 /// assert!(Datum::from_term(t).is_err()); // 2^51 nodes
 /// assert_eq!(MAX_DATUM_BYTES, orrery::DEFAULT_MEMORY);
 /// ```
-pub const MAX_DATUM_BYTES: usize = crate::api::DEFAULT_MEMORY;
+pub const MAX_DATUM_BYTES: usize = 256 << 20;
 
 /// Bytes a datum node counts, besides its string's bytes.
 pub(crate) const DATUM_NODE_BYTES: usize = std::mem::size_of::<Datum<'static>>();

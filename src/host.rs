@@ -14,58 +14,10 @@ use std::fmt;
 use std::panic::{catch_unwind, AssertUnwindSafe};
 use std::sync::Arc;
 
-use crate::api::{ErrorKind, EvalError};
 use crate::datum::{Datum, FromDatum, IntoDatum};
-use crate::prim::Prim;
+use crate::error::{ErrorKind, EvalError};
+use crate::prim::{HostId, Prim};
 use crate::term::{Arena, Term};
-
-/// A host function's identity inside terms: its place in its
-/// [`HostFunctions`] table and its arity. Terms carry it as
-/// [`Prim::Host`]; [`crate::Program::with_host`] checks it against the table.
-///
-/// # Examples
-///
-/// ```
-/// use orrery::HostFunctions;
-/// let mut host = HostFunctions::new();
-/// let id = host.register("halve", |n: i64| Ok::<_, String>(n / 2)).unwrap();
-/// assert_eq!(id.arity(), 1);
-/// assert_eq!(host.id("halve"), Some(id));
-/// ```
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
-pub struct HostId {
-    index: u32,
-    arity: u32,
-}
-
-impl HostId {
-    /// The number of arguments the function takes.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// let mut host = orrery::HostFunctions::new();
-    /// let id = host.register("mix_paint", |a: i64, b: i64| Ok::<_, String>(a + b)).unwrap();
-    /// assert_eq!(id.arity(), 2);
-    /// ```
-    pub fn arity(self) -> usize {
-        self.arity as usize
-    }
-
-    /// Its position in its table (registration order, from 0).
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// let mut host = orrery::HostFunctions::new();
-    /// let sow = host.register("sow", |n: i64| Ok::<_, String>(n)).unwrap();
-    /// let reap = host.register("reap", |n: i64| Ok::<_, String>(n)).unwrap();
-    /// assert_eq!((sow.index(), reap.index()), (0, 1));
-    /// ```
-    pub fn index(self) -> usize {
-        self.index as usize
-    }
-}
 
 /// The signature every host function has once its arguments are data.
 type DataFn = dyn for<'t> Fn(&[Datum<'t>]) -> Result<Datum<'t>, String> + Send + Sync;
@@ -230,10 +182,10 @@ impl HostFunctions {
         if arity > MAX_HOST_ARITY {
             return Err(HostDefinitionError::Arity(name.to_string(), arity));
         }
-        let id = HostId {
-            index: u32::try_from(self.entries.len()).unwrap_or(u32::MAX),
-            arity: arity as u32,
-        };
+        let id = HostId::new(
+            u32::try_from(self.entries.len()).unwrap_or(u32::MAX),
+            arity as u32,
+        );
         self.entries.push(Entry {
             name: name.into(),
             id,
@@ -481,7 +433,7 @@ impl fmt::Debug for HostFunctions {
             .entries(
                 self.entries
                     .iter()
-                    .map(|e| format!("{}/{}", e.name, e.id.arity)),
+                    .map(|e| format!("{}/{}", e.name, e.id.arity())),
             )
             .finish()
     }

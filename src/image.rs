@@ -21,10 +21,10 @@ use std::sync::Arc;
 
 use hashbrown::HashMap;
 
+use crate::error::ValidationError;
 use crate::host::HostFunctions;
 use crate::prim::Prim;
 use crate::term::{Node, Term};
-use crate::validate::ValidationError;
 
 /// The index of a node of an [`Image`].
 pub(crate) type Id = u32;

@@ -10,7 +10,7 @@ use orrery::{
     Report, Rule, DEFAULT_FUEL, DEFAULT_MEMORY,
 };
 
-/// Exit statuses of DESIGN §5.
+/// Exit statuses of SEMANTICS §6.
 mod status {
     pub const VALUE: u8 = 0;
     pub const ERROR: u8 = 1;
@@ -19,6 +19,8 @@ mod status {
     pub const OUT_OF_FUEL: u8 = 4;
     pub const LIMIT: u8 = 5;
     pub const DISAGREE: u8 = 6;
+    /// A machine found its own invariant broken: a bug in orrery.
+    pub const FAULT: u8 = 7;
 }
 
 /// Printed values longer than this are cut, with a marker.
@@ -172,6 +174,7 @@ fn json_line(machine: &str, report: &Report<'_>) -> String {
             l.kind().name(),
             json_string(l.message())
         )),
+        Outcome::Fault(f) => line.push_str(&format!(",\"message\":{}", json_string(f.message()))),
     }
     let rules: Vec<String> = Rule::ALL
         .iter()
@@ -212,6 +215,7 @@ fn text_report(
             l.kind().name(),
             l.message()
         )?,
+        Outcome::Fault(f) => writeln!(stderr, "{machine}: {f}")?,
     }
     writeln!(stderr, "{machine}: {}", report.counts)
 }
@@ -222,6 +226,7 @@ fn outcome_status(outcome: &Outcome<'_>) -> u8 {
         Outcome::Error(_) => status::ERROR,
         Outcome::OutOfFuel => status::OUT_OF_FUEL,
         Outcome::Limit(_) => status::LIMIT,
+        Outcome::Fault(_) => status::FAULT,
     }
 }
 

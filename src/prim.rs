@@ -4,7 +4,7 @@
 
 use std::fmt;
 
-use crate::api::{ErrorKind, EvalError};
+use crate::error::{ErrorKind, EvalError, Operand};
 
 /// A built-in primitive operator. Each has a fixed arity; a primitive
 /// application is always saturated.
@@ -52,7 +52,7 @@ pub enum Prim {
     Decimal,
     /// A host function the embedder registered (see [`crate::HostFunctions`]).
     /// Only [`crate::Program::with_host`] accepts it, with its table.
-    Host(crate::host::HostId),
+    Host(HostId),
 }
 
 impl Prim {
@@ -148,46 +148,56 @@ impl fmt::Display for Prim {
     }
 }
 
-/// What a primitive sees of one operand: machines translate their own value
-/// representation into this view before calling [`delta`].
+/// A host function's identity inside terms: its place in its
+/// [`HostFunctions`] table and its arity. Terms carry it as
+/// [`Prim::Host`]; [`crate::Program::with_host`] checks it against the table.
 ///
 /// # Examples
 ///
 /// ```
-/// use orrery::{delta, Operand, Prim, PrimValue};
-/// let r = delta(Prim::Add, &[Operand::Int(2), Operand::Int(3)]);
-/// assert_eq!(r, Ok(PrimValue::Int(5)));
+/// use orrery::HostFunctions;
+/// let mut host = HostFunctions::new();
+/// let id = host.register("halve", |n: i64| Ok::<_, String>(n / 2)).unwrap();
+/// assert_eq!(id.arity(), 1);
+/// assert_eq!(host.id("halve"), Some(id));
 /// ```
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum Operand<'v> {
-    /// An integer.
-    Int(i64),
-    /// A boolean.
-    Bool(bool),
-    /// A string.
-    Str(&'v str),
-    /// A function or recursive function.
-    Function,
-    /// A constructor value with this tag.
-    Con(&'v str),
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
+pub struct HostId {
+    index: u32,
+    arity: u32,
 }
 
-impl Operand<'_> {
-    /// A short description of the operand's type, for error messages.
+impl HostId {
+    /// The id of function `index` of a table, of `arity` arguments.
+    pub(crate) fn new(index: u32, arity: u32) -> HostId {
+        HostId { index, arity }
+    }
+
+    /// The number of arguments the function takes.
     ///
     /// # Examples
     ///
     /// ```
-    /// assert_eq!(orrery::Operand::Int(3).describe(), "an integer");
+    /// let mut host = orrery::HostFunctions::new();
+    /// let id = host.register("mix_paint", |a: i64, b: i64| Ok::<_, String>(a + b)).unwrap();
+    /// assert_eq!(id.arity(), 2);
     /// ```
-    pub fn describe(&self) -> String {
-        match self {
-            Operand::Int(_) => "an integer".into(),
-            Operand::Bool(_) => "a boolean".into(),
-            Operand::Str(_) => "a string".into(),
-            Operand::Function => "a function".into(),
-            Operand::Con(tag) => format!("the constructor {tag}"),
-        }
+    pub fn arity(self) -> usize {
+        self.arity as usize
+    }
+
+    /// Its position in its table (registration order, from 0).
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// let mut host = orrery::HostFunctions::new();
+    /// let sow = host.register("sow", |n: i64| Ok::<_, String>(n)).unwrap();
+    /// let reap = host.register("reap", |n: i64| Ok::<_, String>(n)).unwrap();
+    /// assert_eq!((sow.index(), reap.index()), (0, 1));
+    /// ```
+    pub fn index(self) -> usize {
+        self.index as usize
     }
 }
 

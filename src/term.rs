@@ -3,6 +3,7 @@
 //! Programming Languages* (2002), ch. 6; index 0 is the nearest enclosing binder.
 
 use bumpalo::Bump;
+use hashbrown::HashMap;
 
 use crate::prim::Prim;
 
@@ -316,7 +317,7 @@ impl Arena {
     /// assert!(copy.is_value());
     /// ```
     pub fn copy_term<'a>(&'a self, term: &Term<'_>) -> &'a Term<'a> {
-        crate::subst::copy_term(self, term).0
+        copy_term(self, term).0
     }
 
     /// Bytes the arena has taken from the allocator so far.
@@ -612,4 +613,87 @@ fn scope_of(node: &Node<'_>) -> u32 {
             .chain(default.map(|d| d.scope))
             .fold(s.scope, u32::max),
     }
+}
+
+/// A node of `t`'s shape with the given children, allocated in `arena`;
+/// `text` maps `t`'s strings and tags into `arena`'s lifetime (the identity
+/// when `t` already lives there, a copy otherwise).
+pub(crate) fn node_with_children<'a, 'b>(
+    arena: &'a Arena,
+    t: &Term<'b>,
+    kids: &[&'a Term<'a>],
+    text: impl Fn(&'b str) -> &'a str,
+) -> &'a Term<'a> {
+    match *t.node() {
+        Node::Var(i) => arena.var(i),
+        Node::Int(n) => arena.int(n),
+        Node::Bool(b) => arena.boolean(b),
+        Node::Str(s) => arena.term(Node::Str(text(s))),
+        Node::Lam(_) => arena.lam(kids[0]),
+        Node::RecLam(_) => arena.rec_lam(kids[0]),
+        Node::App(..) => arena.app(kids[0], kids[1]),
+        Node::Let(..) => arena.let_in(kids[0], kids[1]),
+        Node::If(..) => arena.if_then_else(kids[0], kids[1], kids[2]),
+        Node::Prim(op, _) => arena.term(Node::Prim(op, arena.terms(kids))),
+        Node::Con(tag, _) => arena.term(Node::Con(text(tag), arena.terms(kids))),
+        Node::Case(_, arms, default) => {
+            let new_arms: Vec<Arm<'a>> = arms
+                .iter()
+                .zip(&kids[1..])
+                .map(|(arm, body)| Arm::new(text(arm.tag), arm.arity, body))
+                .collect();
+            let new_default = default.map(|_| kids[kids.len() - 1]);
+            arena.term(Node::Case(kids[0], arena.arms(&new_arms), new_default))
+        }
+    }
+}
+
+/// Marks a work item whose children have not been pushed yet.
+const NOT_EXPANDED: usize = usize::MAX;
+
+/// Copy `t` into `arena`, node for node, keeping its sharing: a node reached
+/// twice is copied once (small leaves excepted: they are copied once per
+/// parent), so the copy has the size of `t`'s graph, not of its unfolding.
+/// Returns the copy and the number of nodes made.
+pub(crate) fn copy_term<'a, 'b>(arena: &'a Arena, t: &'b Term<'b>) -> (&'a Term<'a>, usize) {
+    let mut memo: HashMap<*const Term<'b>, &'a Term<'a>> = HashMap::new();
+    let mut work: Vec<(&'b Term<'b>, usize)> = vec![(t, NOT_EXPANDED)];
+    let mut done: Vec<&'a Term<'a>> = Vec::new();
+    // Small leaves are copied afresh wherever they occur, without the memo:
+    // a copy per parent edge, so sharing still cannot make the copy blow up,
+    // and half the hash-map traffic of a compaction goes.
+    let mut leaves = 0;
+    while let Some((node, children)) = work.pop() {
+        let key = node as *const Term<'b>;
+        if children != NOT_EXPANDED {
+            let at = done.len() - children;
+            let copy = node_with_children(arena, node, &done[at..], |s| arena.tag(s));
+            done.truncate(at);
+            memo.insert(key, copy);
+            done.push(copy);
+            continue;
+        }
+        let leaf = match *node.node() {
+            Node::Int(n) => Some(arena.int(n)),
+            Node::Bool(b) => Some(arena.boolean(b)),
+            Node::Var(i) => Some(arena.var(i)),
+            _ => None,
+        };
+        if let Some(copy) = leaf {
+            leaves += 1;
+            done.push(copy);
+        } else if let Some(copy) = memo.get(&key) {
+            done.push(copy);
+        } else {
+            let first_child = work.len() + 1;
+            work.push((node, 0));
+            work.extend(node.children().map(|(child, _)| (child, NOT_EXPANDED)));
+            let n = work.len() - first_child;
+            work[first_child - 1].1 = n;
+            work[first_child..].reverse();
+        }
+    }
+    // The walk leaves exactly the root's copy on `done`.
+    let copy = done.pop().unwrap_or_else(|| arena.int(0));
+    (copy, memo.len() + leaves)
 }

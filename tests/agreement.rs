@@ -106,6 +106,7 @@ fn generated_programs_cover_every_outcome() {
             Outcome::Error(_) => errors += 1,
             Outcome::OutOfFuel => diverging += 1,
             Outcome::Limit(_) => {}
+            Outcome::Fault(f) => panic!("{f}"),
         }
         if report.counts.total() >= 100 {
             long += 1;

@@ -67,6 +67,7 @@ fn check(report: &Report<'_>, e: &Expectations) -> Result<(), String> {
         Outcome::Error(err) => format!("error {}", err.kind().name()),
         Outcome::OutOfFuel => "out_of_fuel".to_string(),
         Outcome::Limit(l) => format!("limit {}", l.kind().name()),
+        Outcome::Fault(f) => format!("fault {f}"),
     };
     let ok = match (kind, &report.outcome) {
         ("value", Outcome::Value(v)) => {

@@ -16,7 +16,6 @@
 use std::mem::size_of;
 use std::ops::Range;
 
-use crate::api::{ErrorKind, EvalError};
 use crate::budget::{growth, Budget, Halt};
 use crate::image::analysis::MAX_CHAIN;
 use crate::image::{INode, Id, Image, Run, LOCAL, NONE};
@@ -295,10 +294,7 @@ impl Workspace {
 /// place, a `λ` of no function): a bug in orrery, reported, never a panic.
 #[cold]
 pub(super) fn broken() -> Halt {
-    Halt::error(EvalError::new(
-        ErrorKind::TypeMismatch,
-        "the env machine was given code it cannot run (an internal error)",
-    ))
+    Halt::fault("the env machine was given code it cannot run")
 }
 
 /// Grow `v` to take `extra` more elements, within the limit of `budget`

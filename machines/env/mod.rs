@@ -49,7 +49,8 @@ use run::{Run, Stacks};
 
 use crate::budget::{Budget, Halt};
 use crate::term::Term;
-use crate::{Arena, Counts, Limits, Machine, Outcome, Program, Report};
+use crate::vocabulary::{Build, Machine};
+use crate::{Arena, Counts, Limits, Outcome, Program, Report};
 
 /// The environment-based evaluator. Holds no program state between runs:
 /// it keeps its emptied stacks and code vectors for the next run (so a small
@@ -108,51 +109,18 @@ impl Env {
     pub fn new() -> Self {
         Env::default()
     }
+}
 
-    /// **For benchmarks only.** An evaluator whose runs skip every fuel,
-    /// memory and cancellation check, so a benchmark can measure what the
-    /// accounting costs. It computes the same values and counts, but it
-    /// ignores [`Limits`] entirely: a divergent program runs forever and a
-    /// growing one until allocation fails. Never use it on untrusted input.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// use orrery::machines::env::Env;
-    /// use orrery::{Arena, Limits, Machine, Outcome, Program};
-    /// let arena = Arena::new();
-    /// let program = Program::new(arena.app(arena.lam(arena.var(0)), arena.int(5))).unwrap();
-    /// let report = Env::without_accounting().run(&program, &Limits::default(), &arena);
-    /// assert_eq!(report.outcome, Outcome::Value(arena.int(5)));
-    /// ```
-    #[doc(hidden)]
-    pub fn without_accounting() -> Self {
-        Env {
-            metered: false,
-            ..Env::default()
-        }
+impl Build for Env {
+    fn new() -> Self {
+        Env::default()
     }
 
-    /// The most memory the last run held at any of its checks, in bytes: the
-    /// program image, the compiled code, the value, task and caller stacks
-    /// (by capacity), the cells the run made and still held (closures,
-    /// constructor cells, strings), and the read-back of its result. This is
-    /// the quantity [`Limits::memory`] bounds; a run stopped by the limit
-    /// records the growth it was refused.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// use orrery::machines::env::Env;
-    /// use orrery::{Arena, Limits, Machine, Program};
-    /// let arena = Arena::new();
-    /// let program = Program::new(arena.con("Box", &[arena.int(1)])).unwrap();
-    /// let mut env = Env::new();
-    /// env.run(&program, &Limits::default(), &arena);
-    /// assert!(env.peak_bytes() > 0);
-    /// ```
-    pub fn peak_bytes(&self) -> usize {
-        self.peak
+    fn without_accounting() -> Option<Self> {
+        Some(Env {
+            metered: false,
+            ..Env::default()
+        })
     }
 }
 
@@ -161,12 +129,11 @@ impl Machine for Env {
         "env"
     }
 
-    fn run<'a: 'o, 'o>(
-        &mut self,
-        program: &Program<'a>,
-        limits: &Limits,
-        out: &'o Arena,
-    ) -> Report<'o> {
+    fn peak_bytes(&self) -> usize {
+        self.peak
+    }
+
+    fn run<'o>(&mut self, program: &Program<'_>, limits: &Limits, out: &'o Arena) -> Report<'o> {
         let mut budget = if self.metered {
             Budget::new(limits)
         } else {
@@ -180,12 +147,7 @@ impl Machine for Env {
         self.peak = budget.peak;
         let outcome = match result {
             Ok(term) => Outcome::Value(term),
-            Err(Halt::Error(error)) => Outcome::Error(*error),
-            Err(Halt::OutOfFuel) => Outcome::OutOfFuel,
-            Err(halt) => match halt.limit(limits.memory) {
-                Some(limit) => Outcome::Limit(limit),
-                None => Outcome::OutOfFuel,
-            },
+            Err(halt) => halt.outcome(limits.memory),
         };
         let counts: Counts = budget.counts;
         Report { outcome, counts }
@@ -345,7 +307,7 @@ mod tests {
     }
 
     #[test]
-    fn a_malformed_image_is_an_error_not_a_panic() {
+    fn a_malformed_image_is_a_fault_not_a_panic() {
         // Program::new validates, so an open term cannot reach the machine;
         // the compiler still refuses images the analysis would not make.
         let mut c = Compiled::default();
@@ -372,7 +334,7 @@ mod tests {
         );
         for image in [open, no_function] {
             let result = compile(&image, &mut c, &mut w, &mut budget(usize::MAX, None), 0);
-            assert!(matches!(result, Err(Halt::Error(_))));
+            assert!(matches!(result, Err(Halt::Fault(_))));
         }
     }
 
@@ -450,7 +412,7 @@ mod tests {
         for source in sources {
             let program = parse(&arena, source).unwrap();
             let metered = Env::new().run(&program, &Limits::default(), &arena);
-            let unmetered = Env::without_accounting().run(&program, &Limits::default(), &arena);
+            let unmetered = Env::without_accounting().expect("env has an unaccounted build").run(&program, &Limits::default(), &arena);
             assert!(matches!(metered.outcome, Outcome::Value(_)));
             assert_eq!(metered, unmetered, "{source}");
         }

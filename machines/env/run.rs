@@ -13,9 +13,10 @@ use std::mem::size_of;
 use std::rc::Rc;
 
 use super::compile::{broken, grow, Atom, CodeId, Compiled, Function, Instr, Span};
-use crate::api::{Counts, EvalError, Rule};
+use crate::error::EvalError;
+use crate::vocabulary::{Counts, Rule};
 use crate::budget::{Budget, Halt};
-use crate::host::HostId;
+use crate::prim::HostId;
 use crate::image::Image;
 use crate::machines::runtime::host::host_call;
 use crate::machines::runtime::prims::{int_prim, int_test, prim_contraction};

@@ -9,8 +9,9 @@ use std::sync::Arc;
 use super::value::{Code, ConCell, Tags, Text, Value, Values};
 use crate::budget::{Budget, Halt};
 use crate::datum::{Builder, NotData};
-use crate::host::{host_step, HostId, HostStep};
+use crate::host::{host_step, HostStep};
 use crate::image::Image;
+use crate::prim::HostId;
 use crate::{Datum, HostFunctions, Rule};
 
 /// A host function's contraction on `args`, with `room` bytes left under

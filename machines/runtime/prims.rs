@@ -8,8 +8,9 @@ use smallvec::SmallVec;
 
 use super::value::{Code, Tags, Text, Value};
 use crate::budget::{Budget, Halt};
+use crate::error::Operand;
 use crate::image::Image;
-use crate::prim::{delta_polled, fuel_units, Operand, Prim, PrimValue, Stopped};
+use crate::prim::{delta_polled, fuel_units, Prim, PrimValue, Stopped};
 use crate::Rule;
 
 /// Contract `op` on `args`, its fuel not yet paid; the run holds `held`

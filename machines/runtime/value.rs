@@ -24,8 +24,8 @@ use std::sync::Arc;
 
 use smallvec::SmallVec;
 
+use crate::error::Operand;
 use crate::image::{Image, TagId};
-use crate::prim::Operand;
 
 /// Bytes of an `Rc` allocation's header (the strong and weak counts), plus
 /// what the system allocator adds to each allocation (see the module

@@ -15,7 +15,7 @@ use crate::datum::{Builder, NotData, DATUM_NODE_BYTES};
 use crate::image::{INode, Id, Image, TagId};
 use crate::term::{Arena, Arm, Node, Term};
 use crate::Datum;
-use crate::{LimitError, Outcome, Rule};
+use crate::{Outcome, Rule};
 
 /// Bytes a memo entry costs the accounting (key, value, control byte and
 /// the table's spare room).
@@ -417,12 +417,7 @@ impl State {
 
     /// The outcome a halt stands for.
     pub(super) fn halted<'o>(&self, halt: Halt) -> Outcome<'o> {
-        match halt {
-            Halt::Error(e) => Outcome::Error(*e),
-            Halt::OutOfFuel => Outcome::OutOfFuel,
-            Halt::Memory => Outcome::Limit(LimitError::memory(self.budget.memory)),
-            Halt::Cancelled => Outcome::Limit(LimitError::cancelled()),
-        }
+        halt.outcome(self.budget.memory)
     }
 }
 

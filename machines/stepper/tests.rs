@@ -5,7 +5,7 @@
 
 use super::*;
 use crate::budget::POLL_WORK;
-use crate::{parse, parse_with, print, Cancel, Datum, LimitKind, Node};
+use crate::{parse, parse_with, print, Cancel, Datum, ErrorKind, LimitKind, Node};
 
 fn program<'a>(arena: &'a Arena, source: &str) -> Program<'a> {
     parse(arena, source).expect("the test programs parse")

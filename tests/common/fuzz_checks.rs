@@ -151,20 +151,14 @@ fn check_pauses<'a>(
     reports: &[(&'static str, Report<'a>)],
     slice: u64,
 ) {
-    let whole = |name: &str| reports.iter().find(|(n, _)| *n == name).map(|(_, r)| r);
     let start = limits.clone().with_fuel(0);
-    if let Some(whole) = whole("stepper") {
-        let mut run = orrery::machines::stepper::Stepper::start(program, &start);
+    for (kind, (name, whole)) in MachineKind::enabled().iter().zip(reports) {
+        let Some(mut run) = kind.machine().start(program, &start) else {
+            continue;
+        };
         let end = resumed_end(|more| run.resume(more, arena), limits.fuel, slice);
         if let Some(why) = disagreement(whole, &end) {
-            panic!("stepper paused every {slice} units disagrees with its whole run: {why}");
-        }
-    }
-    if let Some(whole) = whole("cek") {
-        let mut run = orrery::machines::cek::Cek::start(program, &start);
-        let end = resumed_end(|more| run.resume(more, arena), limits.fuel, slice);
-        if let Some(why) = disagreement(whole, &end) {
-            panic!("cek paused every {slice} units disagrees with its whole run: {why}");
+            panic!("{name} paused every {slice} units disagrees with its whole run: {why}");
         }
     }
 }
@@ -214,6 +208,7 @@ fn run_all<'a>(
                 );
             }
             Outcome::Limit(_) => assert!(total <= limits.fuel, "{name}: {total}"),
+            Outcome::Fault(ref f) => panic!("{name}: {f}"),
         }
     }
     for (i, (first, a)) in reports.iter().enumerate() {

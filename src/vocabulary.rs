@@ -4,7 +4,7 @@
 
 use std::fmt;
 
-use crate::prim::Operand;
+use crate::error::{EvalError, Fault, LimitError};
 use crate::term::{Arena, Term};
 use crate::validate::Program;
 
@@ -464,305 +464,6 @@ impl fmt::Display for Counts {
     }
 }
 
-/// The stable kinds of evaluation error (a stuck term), DESIGN §1.
-///
-/// # Examples
-///
-/// ```
-/// use orrery::ErrorKind;
-/// assert_eq!(ErrorKind::DivisionByZero.name(), "division_by_zero");
-/// assert_eq!(ErrorKind::DivisionByZero.to_string(), "division by zero");
-/// ```
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, thiserror::Error)]
-#[non_exhaustive]
-pub enum ErrorKind {
-    /// Applying something that is not a function.
-    #[error("not a function")]
-    NotAFunction,
-    /// An `if` condition that is not a boolean.
-    #[error("not a boolean")]
-    NotABoolean,
-    /// A primitive operand of the wrong type.
-    #[error("type mismatch")]
-    TypeMismatch,
-    /// `/` or `%` by zero.
-    #[error("division by zero")]
-    DivisionByZero,
-    /// Integer arithmetic whose exact result does not fit in 64 bits.
-    #[error("integer overflow")]
-    IntegerOverflow,
-    /// A `case` with no arm for the value and no default arm.
-    #[error("no matching case")]
-    NoMatchingCase,
-    /// A host function reported failure.
-    #[error("host function failed")]
-    HostError,
-}
-
-impl ErrorKind {
-    /// The stable snake_case name used in the JSON output.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// assert_eq!(orrery::ErrorKind::NoMatchingCase.name(), "no_matching_case");
-    /// assert_eq!(orrery::ErrorKind::HostError.name(), "host_error");
-    /// ```
-    pub fn name(self) -> &'static str {
-        match self {
-            ErrorKind::NotAFunction => "not_a_function",
-            ErrorKind::NotABoolean => "not_a_boolean",
-            ErrorKind::TypeMismatch => "type_mismatch",
-            ErrorKind::DivisionByZero => "division_by_zero",
-            ErrorKind::IntegerOverflow => "integer_overflow",
-            ErrorKind::NoMatchingCase => "no_matching_case",
-            ErrorKind::HostError => "host_error",
-        }
-    }
-}
-
-/// An evaluation error: its kind and a message for people. Compare kinds, not
-/// messages.
-///
-/// # Examples
-///
-/// ```
-/// use orrery::{ErrorKind, EvalError};
-/// let e = EvalError::new(ErrorKind::NotABoolean, "if on an integer");
-/// assert_eq!(e.kind(), ErrorKind::NotABoolean);
-/// assert_eq!(e.to_string(), "not a boolean: if on an integer");
-/// ```
-#[derive(Clone, Debug, PartialEq, Eq, thiserror::Error)]
-#[error("{kind}: {message}")]
-pub struct EvalError {
-    kind: ErrorKind,
-    message: String,
-}
-
-impl EvalError {
-    /// An error of `kind` with a message.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// use orrery::{ErrorKind, EvalError};
-    /// let e = EvalError::new(ErrorKind::HostError, "the glaze kiln is offline");
-    /// assert_eq!(e.kind(), ErrorKind::HostError);
-    /// assert_eq!(e.message(), "the glaze kiln is offline");
-    /// ```
-    pub fn new(kind: ErrorKind, message: impl Into<String>) -> Self {
-        EvalError {
-            kind,
-            message: message.into(),
-        }
-    }
-
-    /// Applying `callee`, which is not a function. Every machine builds its
-    /// error through these constructors, so messages agree too.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// use orrery::{ErrorKind, EvalError, Operand};
-    /// let e = EvalError::not_a_function(Operand::Int(3));
-    /// assert_eq!(e.kind(), ErrorKind::NotAFunction);
-    /// ```
-    pub fn not_a_function(callee: Operand<'_>) -> Self {
-        EvalError::new(
-            ErrorKind::NotAFunction,
-            format!("cannot apply {}", callee.describe()),
-        )
-    }
-
-    /// An `if` whose condition is `condition`, not a boolean.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// use orrery::{ErrorKind, EvalError, Operand};
-    /// let e = EvalError::not_a_boolean(Operand::Str("yes"));
-    /// assert_eq!(e.kind(), ErrorKind::NotABoolean);
-    /// assert_eq!(e.message(), "the condition of an if is a string");
-    /// ```
-    pub fn not_a_boolean(condition: Operand<'_>) -> Self {
-        EvalError::new(
-            ErrorKind::NotABoolean,
-            format!("the condition of an if is {}", condition.describe()),
-        )
-    }
-
-    /// A `case` with no arm for `scrutinee` and no default arm.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// use orrery::{ErrorKind, EvalError, Operand};
-    /// let e = EvalError::no_matching_case(Operand::Con("Drizzle"));
-    /// assert_eq!(e.kind(), ErrorKind::NoMatchingCase);
-    /// assert!(e.message().contains("the constructor Drizzle"));
-    /// ```
-    pub fn no_matching_case(scrutinee: Operand<'_>) -> Self {
-        EvalError::new(
-            ErrorKind::NoMatchingCase,
-            format!("no arm of the case matches {}", scrutinee.describe()),
-        )
-    }
-
-    /// The error's kind.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// use orrery::{parse, Arena, ErrorKind, Limits, MachineKind, Outcome};
-    /// let arena = Arena::new();
-    /// let program = parse(&arena, "let crates = 0 in 120 / crates").unwrap();
-    /// for kind in MachineKind::enabled() {
-    ///     let Outcome::Error(e) = kind.run(&program, &Limits::default(), &arena).outcome else { panic!() };
-    ///     assert_eq!(e.kind(), ErrorKind::DivisionByZero);
-    /// }
-    /// ```
-    pub fn kind(&self) -> ErrorKind {
-        self.kind
-    }
-
-    /// The message.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// use orrery::{ErrorKind, EvalError};
-    /// let e = EvalError::new(ErrorKind::TypeMismatch, "a string plus an integer");
-    /// assert_eq!(e.message(), "a string plus an integer");
-    /// ```
-    pub fn message(&self) -> &str {
-        &self.message
-    }
-}
-
-/// Resource limits: a family apart from evaluation errors. They may trip at
-/// different points on different machines, so they are reported, not compared.
-///
-/// # Examples
-///
-/// ```
-/// assert_eq!(orrery::LimitKind::Memory.name(), "memory");
-/// ```
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, thiserror::Error)]
-#[non_exhaustive]
-pub enum LimitKind {
-    /// The run needed more runtime memory than [`Limits::memory`].
-    #[error("memory limit")]
-    Memory,
-    /// The run was cancelled from outside.
-    #[error("cancelled")]
-    Cancelled,
-}
-
-impl LimitKind {
-    /// The stable snake_case name used in the JSON output.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// assert_eq!(orrery::LimitKind::Cancelled.name(), "cancelled");
-    /// ```
-    pub fn name(self) -> &'static str {
-        match self {
-            LimitKind::Memory => "memory",
-            LimitKind::Cancelled => "cancelled",
-        }
-    }
-}
-
-/// A resource limit that stopped a run.
-///
-/// # Examples
-///
-/// ```
-/// use orrery::{LimitError, LimitKind};
-/// let e = LimitError::new(LimitKind::Memory, "needed 2 MiB, limit 1 MiB");
-/// assert_eq!(e.kind(), LimitKind::Memory);
-/// ```
-#[derive(Clone, Debug, PartialEq, Eq, thiserror::Error)]
-#[error("{kind}: {message}")]
-pub struct LimitError {
-    kind: LimitKind,
-    message: String,
-}
-
-impl LimitError {
-    /// A limit of `kind` with a message.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// use orrery::{LimitError, LimitKind};
-    /// let e = LimitError::new(LimitKind::Cancelled, "the harbour closed");
-    /// assert_eq!(e.kind(), LimitKind::Cancelled);
-    /// assert_eq!(e.to_string(), "cancelled: the harbour closed");
-    /// ```
-    pub fn new(kind: LimitKind, message: impl Into<String>) -> Self {
-        LimitError {
-            kind,
-            message: message.into(),
-        }
-    }
-
-    /// The memory limit, with a message giving the bound.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// use orrery::{LimitError, LimitKind};
-    /// let e = LimitError::memory(4096);
-    /// assert_eq!(e.kind(), LimitKind::Memory);
-    /// assert!(e.message().contains("4096 bytes"));
-    /// ```
-    pub fn memory(limit: usize) -> Self {
-        LimitError::new(
-            LimitKind::Memory,
-            format!("runtime data exceeded the memory limit of {limit} bytes"),
-        )
-    }
-
-    /// The cancellation limit.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// use orrery::{LimitError, LimitKind};
-    /// assert_eq!(LimitError::cancelled().kind(), LimitKind::Cancelled);
-    /// ```
-    pub fn cancelled() -> Self {
-        LimitError::new(LimitKind::Cancelled, "the run was cancelled by its host")
-    }
-
-    /// The limit's kind.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// use orrery::{LimitError, LimitKind};
-    /// assert_eq!(LimitError::memory(1 << 20).kind(), LimitKind::Memory);
-    /// ```
-    pub fn kind(&self) -> LimitKind {
-        self.kind
-    }
-
-    /// The message.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// use orrery::{LimitError, LimitKind};
-    /// let e = LimitError::new(LimitKind::Memory, "the pantry is full");
-    /// assert_eq!(e.message(), "the pantry is full");
-    /// ```
-    pub fn message(&self) -> &str {
-        &self.message
-    }
-}
-
 /// How a run ended.
 ///
 /// # Examples
@@ -785,10 +486,15 @@ pub enum Outcome<'o> {
     OutOfFuel,
     /// A resource limit stopped the run.
     Limit(LimitError),
+    /// A machine found one of its own invariants broken: a bug in orrery,
+    /// never the program's doing. No report with a fault agrees with any
+    /// other (see [`crate::disagreement`]).
+    Fault(Fault),
 }
 
 impl Outcome<'_> {
-    /// `value`, `error`, `out_of_fuel` or `limit`, as in the JSON output.
+    /// `value`, `error`, `out_of_fuel`, `limit` or `fault`, as in the JSON
+    /// output.
     ///
     /// # Examples
     ///
@@ -807,6 +513,7 @@ impl Outcome<'_> {
             Outcome::Error(_) => "error",
             Outcome::OutOfFuel => "out_of_fuel",
             Outcome::Limit(_) => "limit",
+            Outcome::Fault(_) => "fault",
         }
     }
 }
@@ -834,171 +541,106 @@ pub struct Report<'o> {
     pub counts: Counts,
 }
 
-/// An evaluator: one of the machines of DESIGN §3. A machine value holds only
-/// reusable scratch state; the program and limits come with each run.
+/// An evaluator: one of the machines of SEMANTICS §4. A machine value holds
+/// only reusable scratch state; the program and the limits come with each
+/// run, and a run's result is read back into the caller's `out` arena.
 ///
 /// # Examples
 ///
 /// ```
-/// use orrery::{parse, Arena, Limits, Machine, MachineKind, Outcome};
+/// use orrery::{parse, Arena, Limits, MachineKind, Outcome};
 /// let arena = Arena::new();
 /// let program = parse(&arena, "let tiles = 6 in tiles * 7").unwrap();
 /// for kind in MachineKind::enabled() {
-///     let mut machine: Box<dyn Machine> = kind.machine();
-///     assert_eq!(machine.name(), kind.name());
+///     let mut machine = kind.machine();
 ///     let report = machine.run(&program, &Limits::default(), &arena);
 ///     assert_eq!(report.outcome, Outcome::Value(arena.int(42)));
+///     assert!(machine.peak_bytes() <= Limits::default().memory);
 /// }
 /// ```
 pub trait Machine {
-    /// The machine's name (`stepper`, `env`, `cek`).
+    /// The machine's name (its row in the table).
     fn name(&self) -> &'static str;
 
-    /// Run a closed program to its outcome. Read-back values are allocated in
-    /// `out` (and may share the program's own nodes).
-    fn run<'a: 'o, 'o>(
-        &mut self,
-        program: &Program<'a>,
-        limits: &Limits,
-        out: &'o Arena,
-    ) -> Report<'o>;
+    /// Run a closed program to its outcome, reading its value back into `out`.
+    fn run<'o>(&mut self, program: &Program<'_>, limits: &Limits, out: &'o Arena) -> Report<'o>;
+
+    /// The most bytes the last run held at once, as the memory limit counts
+    /// them.
+    fn peak_bytes(&self) -> usize;
+
+    /// Start a run that stops when its fuel runs out and resumes with more,
+    /// ending exactly as an uninterrupted run would; `None` for a machine
+    /// that cannot pause. Nothing is evaluated until the first resume.
+    fn start<'p>(&self, program: &Program<'p>, limits: &Limits) -> Option<Box<dyn Paused + 'p>> {
+        let _ = (program, limits);
+        None
+    }
 }
 
-/// The machines compiled into this build, for choosing one at run time.
+/// A run that pauses when its fuel runs out (see [`Machine::start`]). It
+/// owns its state between resumes: nothing is kept in an `out` arena but the
+/// value read back when the run ends.
 ///
 /// # Examples
 ///
 /// ```
-/// use orrery::MachineKind;
-/// let names: Vec<&str> = MachineKind::enabled().iter().map(|m| m.name()).collect();
-/// assert!(!names.is_empty() || cfg!(not(any(feature = "stepper", feature = "env", feature = "cek"))));
-/// # #[cfg(feature = "stepper")]
-/// assert_eq!(MachineKind::from_name("stepper"), Some(MachineKind::Stepper));
+/// use orrery::{parse, Arena, Limits, MachineKind, Outcome};
+/// let arena = Arena::new();
+/// let program = parse(&arena, "let rec count n = if n == 0 then 7 else count (n - 1) in count 50").unwrap();
+/// for kind in MachineKind::enabled() {
+///     let whole = kind.run(&program, &Limits::default(), &arena);
+///     let Some(mut run) = kind.machine().start(&program, &Limits::default().with_fuel(0)) else {
+///         continue; // this machine cannot pause
+///     };
+///     let mut report = run.resume(0, &arena);
+///     while report.outcome == Outcome::OutOfFuel {
+///         report = run.resume(10, &arena);
+///     }
+///     assert_eq!(report, whole);
+///     assert!(run.is_finished());
+/// }
 /// ```
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
-#[non_exhaustive]
-pub enum MachineKind {
-    /// The reference substitution stepper.
-    #[cfg(feature = "stepper")]
-    Stepper,
-    /// The environment-based evaluator.
-    #[cfg(feature = "env")]
-    Env,
-    /// The CEK machine.
-    #[cfg(feature = "cek")]
-    Cek,
+pub trait Paused {
+    /// Add `more_fuel` and run until a value, an error, a resource limit, or
+    /// the end of the fuel; the report's counts are the run's totals so far.
+    /// Once the run has ended, every resume reports the same end.
+    fn resume<'o>(&mut self, more_fuel: u64, out: &'o Arena) -> Report<'o>;
+
+    /// The contractions made so far.
+    fn counts(&self) -> Counts;
+
+    /// The fuel not yet used.
+    fn fuel_left(&self) -> u64;
+
+    /// Whether the run has ended (with a value, an error or a limit).
+    fn is_finished(&self) -> bool;
+
+    /// The most bytes the run has held at once.
+    fn peak_bytes(&self) -> usize;
 }
 
-impl MachineKind {
-    /// The enabled machines, fastest first.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// use orrery::MachineKind;
-    /// # #[cfg(all(feature = "stepper", feature = "env", feature = "cek"))]
-    /// assert_eq!(MachineKind::enabled(), [MachineKind::Env, MachineKind::Cek, MachineKind::Stepper]);
-    /// ```
-    pub fn enabled() -> &'static [MachineKind] {
-        &[
-            #[cfg(feature = "env")]
-            MachineKind::Env,
-            #[cfg(feature = "cek")]
-            MachineKind::Cek,
-            #[cfg(feature = "stepper")]
-            MachineKind::Stepper,
-        ]
-    }
+/// How the machine table makes a machine.
+///
+/// # Examples
+///
+/// ```
+/// # #[cfg(feature = "cek")] {
+/// use orrery::machines::{cek::Cek, Build, Machine};
+/// assert_eq!(Cek::new().name(), "cek");
+/// # }
+/// ```
+pub trait Build: Machine + Sized + 'static {
+    /// A fresh machine.
+    fn new() -> Self;
 
-    /// The fastest enabled machine, or `None` in a build with no machine.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// use orrery::MachineKind;
-    /// # #[cfg(feature = "env")]
-    /// assert_eq!(MachineKind::fastest(), Some(MachineKind::Env));
-    /// ```
-    pub fn fastest() -> Option<MachineKind> {
-        Self::enabled().first().copied()
-    }
-
-    /// The machine's name.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// use orrery::MachineKind;
-    /// # #[cfg(feature = "cek")]
-    /// assert_eq!(MachineKind::Cek.name(), "cek");
-    /// for kind in MachineKind::enabled() {
-    ///     assert_eq!(MachineKind::from_name(kind.name()), Some(*kind));
-    /// }
-    /// ```
-    pub fn name(self) -> &'static str {
-        match self {
-            #[cfg(feature = "stepper")]
-            MachineKind::Stepper => "stepper",
-            #[cfg(feature = "env")]
-            MachineKind::Env => "env",
-            #[cfg(feature = "cek")]
-            MachineKind::Cek => "cek",
-        }
-    }
-
-    /// The enabled machine with this name.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// use orrery::MachineKind;
-    /// # #[cfg(feature = "cek")]
-    /// assert_eq!(MachineKind::from_name("cek"), Some(MachineKind::Cek));
-    /// assert_eq!(MachineKind::from_name("abacus"), None);
-    /// ```
-    pub fn from_name(name: &str) -> Option<MachineKind> {
-        Self::enabled().iter().copied().find(|m| m.name() == name)
-    }
-
-    /// A fresh machine of this kind, behind the [`Machine`] trait.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// use orrery::{Machine, MachineKind};
-    /// # #[cfg(feature = "stepper")]
-    /// assert_eq!(MachineKind::Stepper.machine().name(), "stepper");
-    /// ```
-    pub fn machine(self) -> Box<dyn Machine> {
-        match self {
-            #[cfg(feature = "stepper")]
-            MachineKind::Stepper => Box::new(crate::machines::stepper::Stepper::new()),
-            #[cfg(feature = "env")]
-            MachineKind::Env => Box::new(crate::machines::env::Env::new()),
-            #[cfg(feature = "cek")]
-            MachineKind::Cek => Box::new(crate::machines::cek::Cek::new()),
-        }
-    }
-
-    /// Run `program` on a fresh machine of this kind.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// use orrery::{parse, Arena, Limits, MachineKind, Outcome};
-    /// let arena = Arena::new();
-    /// let program = parse(&arena, "let rec pace n = pace (n + 1) in pace 0").unwrap();
-    /// for kind in MachineKind::enabled() {
-    ///     let report = kind.run(&program, &Limits::default().with_fuel(50), &arena);
-    ///     assert_eq!((report.outcome, report.counts.total()), (Outcome::OutOfFuel, 50));
-    /// }
-    /// ```
-    pub fn run<'a: 'o, 'o>(
-        self,
-        program: &Program<'a>,
-        limits: &Limits,
-        out: &'o Arena,
-    ) -> Report<'o> {
-        self.machine().run(program, limits, out)
+    /// **For benchmarks only.** The machine with every fuel, memory and
+    /// cancellation check compiled out, if it has such a build, so a
+    /// benchmark can measure what the accounting costs. It computes the same
+    /// values and counts but ignores every limit: never give it untrusted
+    /// input.
+    #[doc(hidden)]
+    fn without_accounting() -> Option<Self> {
+        None
     }
 }
