@@ -36,10 +36,11 @@ use std::sync::Arc;
 use super::runtime::host::host_call;
 use super::runtime::prims::{int_prim, int_test, prim_contraction};
 use super::runtime::readback::read_back;
-use super::runtime::value::{cut, recycle, Closure, ConCell, Meter, Tags, Value, Values};
+use super::runtime::value::{cut, recycle, Closure, ConCell, Meter, Value, Values};
+use crate::image::Tags;
 use crate::budget::{growth, reserve_within, Budget, Ended, Halt};
 use crate::error::Fault;
-use crate::image::{INode, Id, Image, Run, NONE};
+use crate::image::{INode, Id, Image, Capture, NONE};
 use crate::vocabulary::{Build, Machine, Paused};
 use crate::{
     Arena, Counts, EvalError, HostFunctions, Limits, Outcome, Prim,
@@ -82,7 +83,7 @@ pub struct Cek {
     /// the benchmark-only [`Cek::without_accounting`]).
     metered: bool,
     /// The emptied stacks of the last [`Machine::run`], kept for the next.
-    scratch: Scratch,
+    scratch: SpareStacks,
 }
 
 impl Default for Cek {
@@ -90,22 +91,22 @@ impl Default for Cek {
         Cek {
             peak: 0,
             metered: true,
-            scratch: Scratch::default(),
+            scratch: SpareStacks::default(),
         }
     }
 }
 
 /// A run's stacks, emptied, kept for the next run (see [`recycle`]).
 #[derive(Default)]
-struct Scratch {
+struct SpareStacks {
     locals: Vec<Val>,
-    kont: Vec<Frame>,
+    kont: Vec<ContinuationFrame>,
     operands: Vec<Val>,
 }
 
-impl std::fmt::Debug for Scratch {
+impl std::fmt::Debug for SpareStacks {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
-        f.debug_struct("Scratch").finish_non_exhaustive()
+        f.debug_struct("SpareStacks").finish_non_exhaustive()
     }
 }
 
@@ -140,7 +141,7 @@ impl Cek {
     /// assert_eq!(report.counts.total(), 3);
     /// ```
     pub fn start<'h>(program: &Program<'h>, limits: &Limits) -> CekRun<'h> {
-        CekRun::with_stacks(program, limits, Scratch::default(), true)
+        CekRun::with_stacks(program, limits, SpareStacks::default(), true)
     }
 }
 
@@ -206,16 +207,16 @@ impl Paused for CekRun<'_> {
 /// `locals[base .. base + depth]` (the innermost binder last), and its closure,
 /// whose first captured values are the function's free variables.
 #[derive(Clone)]
-struct Env {
+struct Environment {
     closure: Option<Rc<Fun>>,
     base: usize,
     depth: u32,
 }
 
-impl Env {
+impl Environment {
     /// The environment of the program's top level: empty.
     fn top() -> Self {
-        Env {
+        Environment {
             closure: None,
             base: 0,
             depth: 0,
@@ -232,11 +233,11 @@ impl Env {
 /// A continuation frame: what to do with the value of the current control.
 /// Frames that go on to evaluate a node keep the environment to evaluate it
 /// in, and `below`: how many locals the frames under them need.
-enum Frame {
+enum ContinuationFrame {
     /// `□ t`: evaluate the argument next.
     Arg {
         argument: Id,
-        env: Env,
+        env: Environment,
         below: usize,
     },
     /// `v □`: apply `function` to the value.
@@ -256,16 +257,16 @@ enum Frame {
         term: Id,
         index: u32,
         m: u32,
-        env: Env,
+        env: Environment,
         below: usize,
     },
     /// `let □ in t`.
-    Let { body: Id, env: Env, below: usize },
+    Let { body: Id, env: Environment, below: usize },
     /// `if □ then t else u`.
     If {
         yes: Id,
         no: Id,
-        env: Env,
+        env: Environment,
         below: usize,
     },
     /// `op(v…, □, t…)` or `K(v…, □, t…)` of the primitive or constructor
@@ -276,11 +277,11 @@ enum Frame {
         start: u32,
         len: u32,
         index: u32,
-        env: Env,
+        env: Environment,
         below: usize,
     },
     /// `case □ of {…}`, the case's index in the image.
-    Case { case: u32, env: Env, below: usize },
+    Case { case: u32, env: Environment, below: usize },
 }
 
 /// The control: a node to evaluate, or a value to hand to the continuation.
@@ -323,10 +324,10 @@ pub struct CekRun<'h> {
     image: Arc<Image>,
     host: &'h HostFunctions,
     control: Option<Control>,
-    env: Env,
+    env: Environment,
     /// Parameters, `let`-bound values and case fields of the active functions.
     locals: Vec<Val>,
-    kont: Vec<Frame>,
+    kont: Vec<ContinuationFrame>,
     /// Values of partly evaluated primitive applications, constructors and
     /// curried calls.
     operands: Vec<Val>,
@@ -364,7 +365,7 @@ impl<'h> CekRun<'h> {
     fn with_stacks(
         program: &Program<'h>,
         limits: &Limits,
-        scratch: Scratch,
+        scratch: SpareStacks,
         metered: bool,
     ) -> Self {
         let image = program.image_arc();
@@ -383,7 +384,7 @@ impl<'h> CekRun<'h> {
             control: Some(Control::Eval(image.root)),
             image,
             host: program.host(),
-            env: Env::top(),
+            env: Environment::top(),
             locals: recycle(scratch.locals),
             kont: recycle(scratch.kont),
             operands: recycle(scratch.operands),
@@ -399,11 +400,11 @@ impl<'h> CekRun<'h> {
     }
 
     /// This run's stacks, emptied, to keep for another run.
-    fn into_stacks(mut self) -> Scratch {
+    fn into_stacks(mut self) -> SpareStacks {
         self.control = None;
-        self.env = Env::top();
+        self.env = Environment::top();
         self.end = None;
-        Scratch {
+        SpareStacks {
             locals: recycle(std::mem::take(&mut self.locals)),
             kont: recycle(std::mem::take(&mut self.kont)),
             operands: recycle(std::mem::take(&mut self.operands)),
@@ -454,7 +455,7 @@ impl<'h> CekRun<'h> {
                 // The machine state is no longer needed; drop what it holds
                 // (the stacks stay allocated, for `Cek::run` to keep).
                 self.control = None;
-                self.env = Env::top();
+                self.env = Environment::top();
                 self.kont.clear();
                 self.locals.clear();
                 self.operands.clear();
@@ -561,7 +562,7 @@ impl<'h> CekRun<'h> {
     /// Bytes held by the machine's stacks.
     #[inline]
     fn stack_bytes(&self) -> usize {
-        self.kont.capacity() * size_of::<Frame>()
+        self.kont.capacity() * size_of::<ContinuationFrame>()
             + (self.locals.capacity() + self.operands.capacity()) * size_of::<Val>()
     }
 
@@ -691,7 +692,7 @@ impl<'h> CekRun<'h> {
 
     /// Push `frame`, within the memory limit.
     #[inline(always)]
-    fn push_frame<const M: bool>(&mut self, frame: Frame) -> Result<(), Halt> {
+    fn push_frame<const M: bool>(&mut self, frame: ContinuationFrame) -> Result<(), Halt> {
         self.room_for_frame::<M>()?;
         self.kont.push(frame);
         Ok(())
@@ -702,7 +703,7 @@ impl<'h> CekRun<'h> {
     #[inline(always)]
     fn push_env_frame<const M: bool>(
         &mut self,
-        frame: impl FnOnce(Env, usize) -> Frame,
+        frame: impl FnOnce(Environment, usize) -> ContinuationFrame,
     ) -> Result<(), Halt> {
         self.room_for_frame::<M>()?;
         let below = self.floor;
@@ -714,7 +715,7 @@ impl<'h> CekRun<'h> {
 
     /// Make `env` current again, dropping any locals above it.
     #[inline(always)]
-    fn enter(&mut self, env: Env) {
+    fn enter(&mut self, env: Environment) {
         cut(&mut self.locals, env.extent());
         self.env = env;
     }
@@ -810,12 +811,12 @@ impl<'h> CekRun<'h> {
         let mut captured = Values::with_capacity(n);
         for run in runs {
             let values = match *run {
-                Run::Free { slot, len } => self
+                Capture::Free { slot, len } => self
                     .env
                     .closure
                     .as_ref()
                     .and_then(|c| c.captured.get(slot as usize..(slot + len) as usize)),
-                Run::Local { index, len } => self
+                Capture::Local { index, len } => self
                     .env
                     .extent()
                     .checked_sub(1 + index as usize)
@@ -829,7 +830,7 @@ impl<'h> CekRun<'h> {
         Ok(Value::Fun(Closure::new(func, 0, captured)))
     }
 
-    /// Run the machine until a value, an error, a limit, or the end of the
+    /// Capture the machine until a value, an error, a limit, or the end of the
     /// fuel. On running out of fuel the control is saved (a value about to
     /// meet the top frame, or a node), so that execution can continue from
     /// there.
@@ -882,13 +883,13 @@ impl<'h> CekRun<'h> {
                 }
             }
             INode::Let(bound, body) => {
-                self.push_env_frame::<M>(|env, below| Frame::Let { body, env, below })?;
+                self.push_env_frame::<M>(|env, below| ContinuationFrame::Let { body, env, below })?;
                 Control::Eval(bound)
             }
             INode::If(condition, yes, no) => match self.if_int_test::<M>(image, condition) {
                 Some(holds) => Control::Eval(if holds { yes } else { no }),
                 None => {
-                    self.push_env_frame::<M>(|env, below| Frame::If {
+                    self.push_env_frame::<M>(|env, below| ContinuationFrame::If {
                         yes,
                         no,
                         env,
@@ -902,7 +903,7 @@ impl<'h> CekRun<'h> {
                     if let Some(value) = self.prim_int_atoms::<M>(image, op, a, b) {
                         return Ok(Control::Return(value));
                     }
-                    self.push_env_frame::<M>(|env, below| Frame::Operand {
+                    self.push_env_frame::<M>(|env, below| ContinuationFrame::Operand {
                         node: id,
                         start,
                         len: 2,
@@ -915,7 +916,7 @@ impl<'h> CekRun<'h> {
                 let len = op.arity() as u32;
                 match image.list(start, len).first() {
                     Some(&first) => {
-                        self.push_env_frame::<M>(|env, below| Frame::Operand {
+                        self.push_env_frame::<M>(|env, below| ContinuationFrame::Operand {
                             node: id,
                             start,
                             len,
@@ -939,7 +940,7 @@ impl<'h> CekRun<'h> {
             }
             INode::Con(tag, start, len) => match image.list(start, len).first() {
                 Some(&first) => {
-                    self.push_env_frame::<M>(|env, below| Frame::Operand {
+                    self.push_env_frame::<M>(|env, below| ContinuationFrame::Operand {
                         node: id,
                         start,
                         len,
@@ -952,7 +953,7 @@ impl<'h> CekRun<'h> {
                 None => Control::Return(Value::Tag(tag)),
             },
             INode::Case(scrutinee, case) => {
-                self.push_env_frame::<M>(|env, below| Frame::Case { case, env, below })?;
+                self.push_env_frame::<M>(|env, below| ContinuationFrame::Case { case, env, below })?;
                 Control::Eval(scrutinee)
             }
         })
@@ -1029,7 +1030,7 @@ impl<'h> CekRun<'h> {
                         return self.call_closure::<M>(image, closure, &f, a);
                     }
                     self.room_for_frame::<M>()?;
-                    self.kont.push(Frame::Call {
+                    self.kont.push(ContinuationFrame::Call {
                         function: Value::Fun(closure),
                     });
                     return Ok(Control::Eval(argument));
@@ -1045,13 +1046,13 @@ impl<'h> CekRun<'h> {
                         return Err(Halt::error(EvalError::not_a_function(operand)));
                     }
                     self.room_for_frame::<M>()?;
-                    self.kont.push(Frame::Call { function });
+                    self.kont.push(ContinuationFrame::Call { function });
                     return Ok(Control::Eval(argument));
                 }
             }
         }
         self.room_for_frame::<M>()?;
-        self.kont.push(Frame::Call { function });
+        self.kont.push(ContinuationFrame::Call { function });
         Ok(Control::Eval(argument))
     }
 
@@ -1072,7 +1073,7 @@ impl<'h> CekRun<'h> {
                 return Ok(control);
             }
         }
-        self.push_env_frame::<M>(|env, below| Frame::Arg {
+        self.push_env_frame::<M>(|env, below| ContinuationFrame::Arg {
             argument,
             env,
             below,
@@ -1088,8 +1089,8 @@ impl<'h> CekRun<'h> {
             return Err(broken("no frame to return to"));
         };
         match top {
-            Frame::Arg { .. } => {
-                let Some(Frame::Arg {
+            ContinuationFrame::Arg { .. } => {
+                let Some(ContinuationFrame::Arg {
                     argument,
                     env,
                     below,
@@ -1101,25 +1102,25 @@ impl<'h> CekRun<'h> {
                 self.enter(env);
                 self.apply_atom_function::<M>(image, value, argument)
             }
-            Frame::Call { function } => {
+            ContinuationFrame::Call { function } => {
                 let rule = call_rule(image, function);
                 let value = self.take_at_frame::<M>(rule, value)?;
-                let Some(Frame::Call { function }) = self.kont.pop() else {
+                let Some(ContinuationFrame::Call { function }) = self.kont.pop() else {
                     return Err(broken("the frame changed"));
                 };
                 self.call::<M>(image, function, value)
             }
-            Frame::Partial { .. } => {
+            ContinuationFrame::Partial { .. } => {
                 let value = self.take_at_frame::<M>(Rule::Beta, value)?;
-                let Some(Frame::Partial { closure, applied }) = self.kont.pop() else {
+                let Some(ContinuationFrame::Partial { closure, applied }) = self.kont.pop() else {
                     return Err(broken("the frame changed"));
                 };
                 self.partial_value::<M>(image, closure, applied, value)
             }
-            Frame::Spine { .. } => self.spine_value::<M>(image, value),
-            Frame::Let { .. } => {
+            ContinuationFrame::Spine { .. } => self.spine_value::<M>(image, value),
+            ContinuationFrame::Let { .. } => {
                 let value = self.take_at_frame::<M>(Rule::Let, value)?;
-                let Some(Frame::Let { body, env, below }) = self.kont.pop() else {
+                let Some(ContinuationFrame::Let { body, env, below }) = self.kont.pop() else {
                     return Err(broken("the frame changed"));
                 };
                 self.floor = below;
@@ -1127,9 +1128,9 @@ impl<'h> CekRun<'h> {
                 self.bind::<M>(value)?;
                 Ok(Control::Eval(body))
             }
-            Frame::If { .. } => {
+            ContinuationFrame::If { .. } => {
                 let value = self.take_at_frame::<M>(Rule::If, value)?;
-                let Some(Frame::If {
+                let Some(ContinuationFrame::If {
                     yes,
                     no,
                     env,
@@ -1146,7 +1147,7 @@ impl<'h> CekRun<'h> {
                 self.enter(env);
                 Ok(Control::Eval(if holds { yes } else { no }))
             }
-            Frame::Operand {
+            ContinuationFrame::Operand {
                 node,
                 start,
                 len,
@@ -1172,9 +1173,9 @@ impl<'h> CekRun<'h> {
                     _ => self.construct::<M>(image, node, value),
                 }
             }
-            Frame::Case { .. } => {
+            ContinuationFrame::Case { .. } => {
                 let value = self.take_at_frame::<M>(Rule::Case, value)?;
-                let Some(Frame::Case { case, env, below }) = self.kont.pop() else {
+                let Some(ContinuationFrame::Case { case, env, below }) = self.kont.pop() else {
                     return Err(broken("the frame changed"));
                 };
                 self.floor = below;
@@ -1238,7 +1239,7 @@ impl<'h> CekRun<'h> {
     #[inline(always)]
     fn pop_operand_frame(&mut self) {
         match self.kont.pop() {
-            Some(Frame::Operand { below, env, .. }) => {
+            Some(ContinuationFrame::Operand { below, env, .. }) => {
                 self.floor = below;
                 drop(env);
             }

@@ -21,14 +21,14 @@ use std::sync::Arc;
 
 use smallvec::SmallVec;
 
-use heap::{Collector, Heap, Tags, NODE_BYTES, STRING_OVERHEAD};
-use readback::{flatten, to_datum, Piece};
-use subst::{Binds, Job};
+use heap::{Collector, Heap, NODE_BYTES, STRING_OVERHEAD};
+use readback::{flatten, to_datum, Fragment};
+use subst::{Binds, SubstJob};
 
 use crate::budget::{growth, Budget, Ended, Halt};
 use crate::error::Fault;
 use crate::host::{host_step, HostStep, NO_HOST};
-use crate::image::{CaseInfo, INode, Id, Image, TagId, NONE};
+use crate::image::{CaseInfo, INode, Id, Image, TagId, Tags, NONE};
 use crate::prim::{delta_polled, fuel_units, Stopped};
 use crate::vocabulary::{Build, Machine, Paused};
 use crate::{
@@ -82,7 +82,7 @@ pub struct Stepper {
 /// field hole are on the value stack, and the operands already evaluated are
 /// not kept through their list.
 #[derive(Clone, Copy, Debug)]
-enum Frame {
+enum ContextFrame {
     /// `□ t`.
     AppFunction(Id),
     /// `v □`.
@@ -138,11 +138,11 @@ struct State {
     /// The term in the hole: being searched when it is not a value, else
     /// being plugged into the innermost frame.
     focus: Id,
-    ctx: Vec<Frame>,
+    ctx: Vec<ContextFrame>,
     /// The evaluated operands and fields of the operand and field frames,
     /// innermost last.
     values: Vec<Id>,
-    jobs: Vec<Job>,
+    jobs: Vec<SubstJob>,
     done: Vec<Id>,
     budget: Budget,
     /// Collect once [`Heap::used`] reaches this.
@@ -183,9 +183,9 @@ impl State {
     fn held(&self) -> usize {
         self.heap.bytes()
             + self.tags.bytes()
-            + self.ctx.capacity() * std::mem::size_of::<Frame>()
+            + self.ctx.capacity() * std::mem::size_of::<ContextFrame>()
             + self.values.capacity() * 4
-            + self.jobs.capacity() * std::mem::size_of::<Job>()
+            + self.jobs.capacity() * std::mem::size_of::<SubstJob>()
             + self.done.capacity() * 4
     }
 
@@ -205,7 +205,7 @@ impl State {
 
     /// Bytes of the roots a collection scans: the context and value stack.
     fn roots(&self) -> usize {
-        self.ctx.len() * std::mem::size_of::<Frame>() + self.values.len() * 4
+        self.ctx.len() * std::mem::size_of::<ContextFrame>() + self.values.len() * 4
     }
 
     /// Whether a collection now would free at least `need` bytes, and at
@@ -301,7 +301,7 @@ impl State {
     }
 
     #[inline(always)]
-    fn push_job(&mut self, job: Job) -> Result<(), Halt> {
+    fn push_job(&mut self, job: SubstJob) -> Result<(), Halt> {
         if self.jobs.len() == self.jobs.capacity() {
             self.grow(|s| &mut s.jobs, 1)?;
         }
@@ -408,17 +408,17 @@ impl State {
         for frame in &mut self.ctx {
             budget.work(1)?;
             match frame {
-                Frame::AppFunction(t) | Frame::AppArgument(t) | Frame::LetBound(t) => {
+                ContextFrame::AppFunction(t) | ContextFrame::AppArgument(t) | ContextFrame::LetBound(t) => {
                     *t = c.forward(*t, budget)?;
                 }
-                Frame::IfCondition(y, n) => {
+                ContextFrame::IfCondition(y, n) => {
                     *y = c.forward(*y, budget)?;
                     *n = c.forward(*n, budget)?;
                 }
-                Frame::Operand { next, left, .. } | Frame::Field { next, left, .. } => {
+                ContextFrame::Operand { next, left, .. } | ContextFrame::Field { next, left, .. } => {
                     *next = c.list(*next, *left, budget)?;
                 }
-                Frame::Scrutinee { case, bodies } => {
+                ContextFrame::Scrutinee { case, bodies } => {
                     if *bodies != NONE {
                         let n = image
                             .cases
@@ -474,17 +474,17 @@ impl State {
             };
             let last = self.ctx.len() - 1;
             match top {
-                Frame::AppFunction(argument) => {
-                    self.ctx[last] = Frame::AppArgument(focus);
+                ContextFrame::AppFunction(argument) => {
+                    self.ctx[last] = ContextFrame::AppArgument(focus);
                     self.focus = argument;
                     continue;
                 }
-                Frame::Operand { left, .. } | Frame::Field { left, .. } if left > 0 => {
+                ContextFrame::Operand { left, .. } | ContextFrame::Field { left, .. } if left > 0 => {
                     // (A collection may move the frame's list: read it after.)
                     self.push_focus(image)?;
                     let last = self.ctx.len() - 1;
                     match &mut self.ctx[last] {
-                        Frame::Operand { next, left, .. } | Frame::Field { next, left, .. } => {
+                        ContextFrame::Operand { next, left, .. } | ContextFrame::Field { next, left, .. } => {
                             self.focus = self.heap.list(image, *next);
                             *next += 1;
                             *left -= 1;
@@ -493,16 +493,16 @@ impl State {
                     }
                     continue;
                 }
-                Frame::Field { tag, arity, .. } => {
+                ContextFrame::Field { tag, arity, .. } => {
                     // A constructor of values is a value: building it is free.
                     self.construct(tag, arity)?;
                     continue;
                 }
-                Frame::AppArgument(function) => self.beta(image, function, trace)?,
-                Frame::LetBound(body) => self.let_in(image, body, trace)?,
-                Frame::IfCondition(yes, no) => self.if_then_else(image, yes, no, trace)?,
-                Frame::Operand { op, .. } => self.prim(image, host, op, trace)?,
-                Frame::Scrutinee { case, bodies } => self.case(image, case, bodies, trace)?,
+                ContextFrame::AppArgument(function) => self.beta(image, function, trace)?,
+                ContextFrame::LetBound(body) => self.let_in(image, body, trace)?,
+                ContextFrame::IfCondition(yes, no) => self.if_then_else(image, yes, no, trace)?,
+                ContextFrame::Operand { op, .. } => self.prim(image, host, op, trace)?,
+                ContextFrame::Scrutinee { case, bodies } => self.case(image, case, bodies, trace)?,
             }
             if self.heap.used() >= self.gc_at || self.due {
                 self.collect(image)?;
@@ -526,15 +526,15 @@ impl State {
         let focus = self.focus;
         match self.heap.node(image, focus) {
             INode::App(function, argument) => {
-                self.ctx.push(Frame::AppFunction(argument));
+                self.ctx.push(ContextFrame::AppFunction(argument));
                 self.focus = function;
             }
             INode::Let(bound, body) => {
-                self.ctx.push(Frame::LetBound(body));
+                self.ctx.push(ContextFrame::LetBound(body));
                 self.focus = bound;
             }
             INode::If(condition, yes, no) => {
-                self.ctx.push(Frame::IfCondition(yes, no));
+                self.ctx.push(ContextFrame::IfCondition(yes, no));
                 self.focus = condition;
             }
             INode::Prim(op, start) => {
@@ -550,7 +550,7 @@ impl State {
                     }
                     return Ok(());
                 }
-                self.ctx.push(Frame::Operand {
+                self.ctx.push(ContextFrame::Operand {
                     op,
                     next: start + 1,
                     left: arity - 1,
@@ -558,7 +558,7 @@ impl State {
                 self.focus = self.heap.list(image, start);
             }
             INode::Con(tag, start, len) if len > 0 => {
-                self.ctx.push(Frame::Field {
+                self.ctx.push(ContextFrame::Field {
                     tag,
                     arity: len,
                     next: start + 1,
@@ -568,7 +568,7 @@ impl State {
             }
             INode::Case(scrutinee, x) => {
                 let (case, bodies) = self.heap.case_of(image, focus, x);
-                self.ctx.push(Frame::Scrutinee { case, bodies });
+                self.ctx.push(ContextFrame::Scrutinee { case, bodies });
                 self.focus = scrutinee;
             }
             INode::Var { index, .. } => {
@@ -859,15 +859,15 @@ impl State {
     }
 
     /// A host's result as heap nodes.
-    fn build_pieces(&mut self, pieces: Vec<Piece>) -> Result<Id, Halt> {
+    fn build_pieces(&mut self, pieces: Vec<Fragment>) -> Result<Id, Halt> {
         let start = self.done.len();
         for piece in pieces {
             self.budget.work(1)?;
             let id = match piece {
-                Piece::Int(n) => self.node(INode::Int(n), 0, true)?,
-                Piece::Bool(b) => self.node(INode::Bool(b), 0, true)?,
-                Piece::Str(s) => self.string(s)?,
-                Piece::Con(tag, arity) => {
+                Fragment::Int(n) => self.node(INode::Int(n), 0, true)?,
+                Fragment::Bool(b) => self.node(INode::Bool(b), 0, true)?,
+                Fragment::Str(s) => self.string(s)?,
+                Fragment::Con(tag, arity) => {
                     let at = self.list_from_done(arity as usize)?;
                     self.node(INode::Con(tag, at, arity), 0, true)?
                 }
@@ -1053,7 +1053,7 @@ impl Stepper {
         Stepper::default()
     }
 
-    /// Run like [`Machine::run`], calling `trace` with each contraction's rule
+    /// Capture like [`Machine::run`], calling `trace` with each contraction's rule
     /// and redex as it is made (attempts that fail included).
     ///
     /// # Examples
@@ -1131,7 +1131,7 @@ impl Stepper {
 }
 
 /// An uninterrupted run of `program`.
-/// Run `program` to its end, with a tracer if given: the report and the
+/// Capture `program` to its end, with a tracer if given: the report and the
 /// run's peak bytes.
 fn run_with<'o>(
     program: &Program<'_>,

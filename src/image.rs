@@ -150,7 +150,7 @@ pub(crate) struct Func {
 
 /// How a closure gathers a stretch of its captured values where it is made.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub(crate) enum Run {
+pub(crate) enum Capture {
     /// `len` captured values of the enclosing function, from its slot `slot`.
     Free { slot: u32, len: u32 },
     /// `len` locals, the first the variable of de Bruijn index `index` at the
@@ -176,7 +176,7 @@ pub(crate) struct Image {
     pub(crate) tag_arity: Vec<u32>,
     tag_ids: HashMap<Arc<str>, TagId>,
     pub(crate) funcs: Vec<Func>,
-    pub(crate) runs: Vec<Run>,
+    pub(crate) runs: Vec<Capture>,
     /// Whether a node has more than one parent (only closed nodes do).
     shared: Vec<bool>,
     pub(crate) root: Id,
@@ -284,7 +284,7 @@ impl Image {
                 index: root.scope() - 1,
             });
         }
-        let mut image = Builder::new(host, allowed_nodes(root)).run(root)?;
+        let mut image = ImageBuilder::new(host, allowed_nodes(root)).run(root)?;
         analysis::analyse(&mut image);
         Ok(image)
     }
@@ -345,13 +345,13 @@ fn allowed_nodes(root: &Term<'_>) -> usize {
 
 /// The builder's work: a term to visit, or a node to build from the ids of
 /// its children (on top of `done`).
-enum Job<'t> {
+enum BuildJob<'t> {
     Visit(&'t Term<'t>),
     Build(&'t Term<'t>),
 }
 
 /// Builds an image from a term, bottom-up with explicit stacks.
-struct Builder<'h, 't> {
+struct ImageBuilder<'h, 't> {
     image: Image,
     host: &'h HostFunctions,
     /// Closed compound terms already built, by address.
@@ -362,9 +362,9 @@ struct Builder<'h, 't> {
     max_nodes: usize,
 }
 
-impl<'h, 't> Builder<'h, 't> {
+impl<'h, 't> ImageBuilder<'h, 't> {
     fn new(host: &'h HostFunctions, max_nodes: usize) -> Self {
-        Builder {
+        ImageBuilder {
             image: Image::default(),
             host,
             memo: HashMap::new(),
@@ -375,11 +375,11 @@ impl<'h, 't> Builder<'h, 't> {
     }
 
     fn run(mut self, root: &'t Term<'t>) -> Result<Image, ValidationError> {
-        let mut jobs = vec![Job::Visit(root)];
+        let mut jobs = vec![BuildJob::Visit(root)];
         let mut done: Vec<Id> = Vec::new();
         while let Some(job) = jobs.pop() {
             match job {
-                Job::Visit(t) => {
+                BuildJob::Visit(t) => {
                     if let Some(&id) = self.memo.get(&(t as *const _)) {
                         done.push(id);
                         continue;
@@ -409,14 +409,14 @@ impl<'h, 't> Builder<'h, 't> {
                         }
                         _ => {
                             self.check_sizes(t)?;
-                            jobs.push(Job::Build(t));
+                            jobs.push(BuildJob::Build(t));
                             let children: Vec<&'t Term<'t>> =
                                 t.children().map(|(c, _)| c).collect();
-                            jobs.extend(children.into_iter().rev().map(Job::Visit));
+                            jobs.extend(children.into_iter().rev().map(BuildJob::Visit));
                         }
                     }
                 }
-                Job::Build(t) => {
+                BuildJob::Build(t) => {
                     let id = self.build_node(t, &mut done)?;
                     if t.is_closed() {
                         self.memo.insert(t as *const _, id);
@@ -594,6 +594,58 @@ impl<'h, 't> Builder<'h, 't> {
 /// the builder's stack: a bug in orrery, reported rather than panicking.
 fn unreachable_shape<T>() -> Result<T, ValidationError> {
     Err(ValidationError::Internal("the image builder lost a node"))
+}
+
+/// Constructor tags of a run: the image's, then any a host function made up.
+#[derive(Debug, Default)]
+pub(crate) struct Tags {
+    extra: Vec<Arc<str>>,
+    ids: hashbrown::HashMap<Arc<str>, u32>,
+}
+
+impl Tags {
+    /// The id of tag `name`: the image's, this run's, or else the next of
+    /// the ids `new` (tags not yet appended) stands for.
+    pub(crate) fn id_or_new(&self, image: &Image, name: &str, new: &mut Vec<Arc<str>>) -> TagId {
+        if let Some(id) = image.tag_id(name) {
+            return id;
+        }
+        let own = image.tags.len() as u32;
+        if let Some(&k) = self.ids.get(name) {
+            return own + k;
+        }
+        let k = match new.iter().position(|t| &**t == name) {
+            Some(k) => k,
+            None => {
+                new.push(Arc::from(name));
+                new.len() - 1
+            }
+        };
+        own + (self.extra.len() + k) as u32
+    }
+
+    /// Add the tags [`Tags::id_or_new`] made up.
+    pub(crate) fn append(&mut self, new: Vec<Arc<str>>) {
+        for name in new {
+            self.ids.insert(Arc::clone(&name), self.extra.len() as u32);
+            self.extra.push(name);
+        }
+    }
+
+    /// Bytes this table holds.
+    pub(crate) fn bytes(&self) -> usize {
+        self.extra.iter().map(|t| 2 * t.len() + 96).sum()
+    }
+
+    /// The name of `tag`.
+    pub(crate) fn name<'i>(&'i self, image: &'i Image, tag: TagId) -> &'i str {
+        let own = image.tags.len() as u32;
+        if tag < own {
+            image.tag(tag)
+        } else {
+            self.extra.get((tag - own) as usize).map_or("?", |t| t)
+        }
+    }
 }
 
 #[cfg(test)]

@@ -4,24 +4,27 @@
 //! `n`-th argument arrives; before that, each application makes a partial
 //! application — a closure holding the arguments so far — unless the next
 //! argument follows at once, in which case the arguments wait on the operand
-//! stack under a [`Frame::Partial`] or [`Frame::Spine`] and no closure is
+//! stack under a [`ContinuationFrame::Partial`] or [`ContinuationFrame::Spine`] and no closure is
 //! made. Every application is still one contraction, paid in the order of
 //! the nested calls, so the counts and the fuel bounds are the stepper's.
 
 use std::rc::Rc;
 
-use super::{broken, closure_bytes, closure_rule, int_pair, CekRun, Control, Env, Frame, Fun, Val};
+use smallvec::SmallVec;
+
+use super::{broken, closure_bytes, closure_rule, int_pair, CekRun, Control, Environment, ContinuationFrame, Fun, Val};
 use crate::budget::Halt;
+use crate::image::analysis::MAX_CHAIN;
 use crate::image::{Func, INode, Id, Image};
 use crate::machines::runtime::prims::int_prim;
 use crate::machines::runtime::value::{cut, Closure, Value, Values};
 use crate::{EvalError, Rule};
 
-/// The most arguments [`CekRun::curried_call`] takes at once or under one
-/// frame.
-const SPINE_ARGS: usize = 8;
+/// The arguments of a call kept inline; more (up to the analysis' one bound,
+/// [`MAX_CHAIN`] parameters) spill to the heap.
+const INLINE_ARGS: usize = 8;
 
-/// How far [`CekRun::wide_call`] took a call: whole, or its leading
+/// How far [`CekRun::saturated_call`] took a call: whole, or its leading
 /// arguments (their values on the operand stack).
 enum Taken {
     Whole,
@@ -89,7 +92,7 @@ impl CekRun<'_> {
             self.locals.push(Value::Fun(Rc::clone(&closure)));
         }
         self.locals.push(argument);
-        self.env = Env {
+        self.env = Environment {
             closure: Some(closure),
             base,
             depth,
@@ -119,10 +122,10 @@ impl CekRun<'_> {
             if applied + 1 >= f.params {
                 return self.enter_body::<M>(closure, f, applied, value);
             }
-            if !matches!(self.kont.last(), Some(Frame::Arg { .. })) {
+            if !matches!(self.kont.last(), Some(ContinuationFrame::Arg { .. })) {
                 return self.partial::<M>(closure, f, applied, value);
             }
-            let Some(Frame::Arg {
+            let Some(ContinuationFrame::Arg {
                 argument,
                 env,
                 below,
@@ -137,14 +140,14 @@ impl CekRun<'_> {
             match self.atom(image, argument)? {
                 Some(next) if self.pay_now::<M>(Rule::Beta) => value = next,
                 _ => {
-                    self.push_frame::<M>(Frame::Partial { closure, applied })?;
+                    self.push_frame::<M>(ContinuationFrame::Partial { closure, applied })?;
                     return Ok(Control::Eval(argument));
                 }
             }
         }
     }
 
-    /// The value for a [`Frame::Partial`], its fuel paid.
+    /// The value for a [`ContinuationFrame::Partial`], its fuel paid.
     #[inline]
     pub(super) fn partial_value<const M: bool>(
         &mut self,
@@ -202,7 +205,7 @@ impl CekRun<'_> {
             self.locals.extend(self.operands.drain(at..));
         }
         self.locals.push(value);
-        self.env = Env {
+        self.env = Environment {
             closure: Some(closure),
             base,
             depth,
@@ -239,15 +242,15 @@ impl CekRun<'_> {
         Ok(Control::Return(Value::Fun(made)))
     }
 
-    /// `f a₁ … aₘ` (node `id`, `2 ≤ m ≤ SPINE_ARGS`; `last` holds `aₘ` and
+    /// `f a₁ … aₘ` (node `id`, `2 ≤ m ≤ MAX_CHAIN`; `last` holds `aₘ` and
     /// `aₘ₋₁`, and `inner` is the application or head under them) with `f`
     /// an atom bound to a closure that takes exactly `m` more arguments: the
-    /// call made whole by [`CekRun::wide_call`] if it can be, else its
-    /// arguments evaluated under one [`Frame::Spine`], contracting each
+    /// call made whole by [`CekRun::saturated_call`] if it can be, else its
+    /// arguments evaluated under one [`ContinuationFrame::Spine`], contracting each
     /// application as its argument arrives, instead of an argument frame per
     /// argument (each keeping the environment) and a partial frame per
     /// application. `None` (nothing done) for any other application.
-    // Measured gain (callgrind, with `wide_call`): tak18 84.1M -> 59.7M;
+    // Measured gain (callgrind, with `saturated_call`): tak18 84.1M -> 59.7M;
     // church 65.2M -> 60.7M.
     #[inline(never)]
     pub(super) fn curried_call<const M: bool>(
@@ -258,19 +261,17 @@ impl CekRun<'_> {
         inner: Id,
     ) -> Result<Option<Control>, Halt> {
         // The arguments, last first: the last two are known.
-        let mut args = [0 as Id; SPINE_ARGS];
-        args[0] = last[0];
-        args[1] = last[1];
-        let mut m = 2;
+        let mut args: SmallVec<[Id; INLINE_ARGS]> = SmallVec::new();
+        args.extend_from_slice(&last);
         let mut head = image.node(inner);
         while let INode::App(function, a) = head {
-            let Some(slot) = args.get_mut(m) else {
+            if args.len() >= MAX_CHAIN as usize {
                 return Ok(None);
-            };
-            *slot = a;
-            m += 1;
+            }
+            args.push(a);
             head = image.node(function);
         }
+        let m = args.len();
         let Some(Value::Fun(closure)) = self.atom_of(head)? else {
             return Ok(None);
         };
@@ -281,9 +282,9 @@ impl CekRun<'_> {
             return Ok(None);
         }
         let args = &args[..m];
-        let lead = match self.wide_call::<M>(image, &closure, &f, args)? {
+        let lead = match self.saturated_call::<M>(image, &closure, &f, args)? {
             Taken::Whole => {
-                self.env = Env {
+                self.env = Environment {
                     base: self.env.base,
                     depth: self.env.depth,
                     closure: Some(closure),
@@ -292,7 +293,7 @@ impl CekRun<'_> {
             }
             Taken::Lead(lead) => lead,
         };
-        self.push_env_frame::<M>(|env, below| Frame::Spine {
+        self.push_env_frame::<M>(|env, below| ContinuationFrame::Spine {
             closure,
             term: id,
             index: lead as u32,
@@ -315,7 +316,7 @@ impl CekRun<'_> {
     // Measured gain (callgrind): whole calls tak18 88.7M -> 59.7M, church 75.0M
     // -> 60.7M; leading arguments ackermann 689.1M -> 630.3M, tail 2069M -> 1897M.
     #[inline(always)]
-    fn wide_call<const M: bool>(
+    fn saturated_call<const M: bool>(
         &mut self,
         image: &Image,
         closure: &Rc<Fun>,
@@ -437,7 +438,7 @@ impl CekRun<'_> {
         })
     }
 
-    /// `value` for the [`Frame::Spine`] on top: contract its application
+    /// `value` for the [`ContinuationFrame::Spine`] on top: contract its application
     /// (or pause before it); then go on to the next argument with the frame
     /// in place, or, after the last, enter the body with every value bound.
     pub(super) fn spine_value<const M: bool>(
@@ -445,7 +446,7 @@ impl CekRun<'_> {
         image: &Image,
         value: Val,
     ) -> Result<Control, Halt> {
-        let Some(Frame::Spine {
+        let Some(ContinuationFrame::Spine {
             closure,
             term,
             index,
@@ -468,7 +469,7 @@ impl CekRun<'_> {
             let next = spine_arg(image, term, m - 2 - index);
             let env = env.clone();
             let value = self.take_at_frame::<M>(rule, value)?;
-            if let Some(Frame::Spine { index, .. }) = self.kont.last_mut() {
+            if let Some(ContinuationFrame::Spine { index, .. }) = self.kont.last_mut() {
                 *index += 1;
             }
             self.push_operand::<M>(value)?;
@@ -476,7 +477,7 @@ impl CekRun<'_> {
             return Ok(Control::Eval(next));
         }
         let value = self.take_at_frame::<M>(rule, value)?;
-        let Some(Frame::Spine { closure, below, .. }) = self.kont.pop() else {
+        let Some(ContinuationFrame::Spine { closure, below, .. }) = self.kont.pop() else {
             return Err(broken("the frame changed"));
         };
         self.floor = below;

@@ -570,6 +570,6 @@ fn a_result_too_big_to_read_back_is_the_memory_limit() {
 
 #[test]
 fn frames_and_values_stay_small() {
-    assert!(size_of::<Frame>() <= 56, "{}", size_of::<Frame>());
+    assert!(size_of::<ContinuationFrame>() <= 56, "{}", size_of::<ContinuationFrame>());
     assert_eq!(size_of::<Val>(), 16);
 }

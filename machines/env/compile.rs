@@ -18,7 +18,7 @@ use std::ops::Range;
 
 use crate::budget::{growth, Budget, Halt};
 use crate::image::analysis::MAX_CHAIN;
-use crate::image::{INode, Id, Image, Run, LOCAL, NONE};
+use crate::image::{INode, Id, Image, Capture, LOCAL, NONE};
 use crate::prim::Prim;
 
 /// An index into [`Compiled::code`].
@@ -249,7 +249,7 @@ const KEEP_BYTES: usize = 64 << 10;
 /// not), a node to build from its compiled children, or an application
 /// spine of `len` arguments to build.
 #[derive(Clone, Copy, Debug)]
-pub(super) enum Job {
+pub(super) enum CompileJob {
     Visit { node: Id, depth: u32, tail: bool },
     Build { node: Id, depth: u32 },
     Spine { len: u32, tail: bool },
@@ -258,7 +258,7 @@ pub(super) enum Job {
 /// A compiled child: an atom not yet emitted (its parent may take it in),
 /// or code.
 #[derive(Clone, Copy, Debug)]
-pub(super) enum Item {
+pub(super) enum CompileItem {
     Atom(Atom),
     Code(CodeId),
 }
@@ -266,16 +266,16 @@ pub(super) enum Item {
 /// The compiler's work lists, kept between runs.
 #[derive(Debug, Default)]
 pub(super) struct Workspace {
-    jobs: Vec<Job>,
-    done: Vec<Item>,
+    jobs: Vec<CompileJob>,
+    done: Vec<CompileItem>,
     pending: Vec<u32>,
 }
 
 impl Workspace {
     /// Bytes held, as the memory limit counts them.
     pub(super) fn bytes(&self) -> usize {
-        self.jobs.capacity() * size_of::<Job>()
-            + self.done.capacity() * size_of::<Item>()
+        self.jobs.capacity() * size_of::<CompileJob>()
+            + self.done.capacity() * size_of::<CompileItem>()
             + self.pending.capacity() * size_of::<u32>()
     }
 
@@ -435,7 +435,7 @@ impl Compiler<'_, '_> {
         Ok(id)
     }
 
-    fn job(&mut self, job: Job) -> Result<(), Halt> {
+    fn job(&mut self, job: CompileJob) -> Result<(), Halt> {
         if self.w.jobs.len() == self.w.jobs.capacity() {
             let held = self.held();
             grow(&mut self.w.jobs, 1, held, self.budget)?;
@@ -444,7 +444,7 @@ impl Compiler<'_, '_> {
         Ok(())
     }
 
-    fn done(&mut self, item: Item) -> Result<(), Halt> {
+    fn done(&mut self, item: CompileItem) -> Result<(), Halt> {
         if self.w.done.len() == self.w.done.capacity() {
             let held = self.held();
             grow(&mut self.w.done, 1, held, self.budget)?;
@@ -463,10 +463,10 @@ impl Compiler<'_, '_> {
     }
 
     /// Code for an item, emitting an atom that was not taken in.
-    fn code(&mut self, item: Item) -> Result<CodeId, Halt> {
+    fn code(&mut self, item: CompileItem) -> Result<CodeId, Halt> {
         match item {
-            Item::Code(id) => Ok(id),
-            Item::Atom(atom) => self.emit(Instr::Atom(atom)),
+            CompileItem::Code(id) => Ok(id),
+            CompileItem::Atom(atom) => self.emit(Instr::Atom(atom)),
         }
     }
 
@@ -474,16 +474,16 @@ impl Compiler<'_, '_> {
     /// code and its frame's size.
     fn body(&mut self, node: Id, depth: u32) -> Result<(CodeId, u32), Halt> {
         self.max_depth = depth;
-        self.job(Job::Visit {
+        self.job(CompileJob::Visit {
             node,
             depth,
             tail: true,
         })?;
         while let Some(job) = self.w.jobs.pop() {
             match job {
-                Job::Visit { node, depth, tail } => self.visit(node, depth, tail)?,
-                Job::Build { node, depth } => self.build(node, depth)?,
-                Job::Spine { len, tail } => self.spine(len, tail)?,
+                CompileJob::Visit { node, depth, tail } => self.visit(node, depth, tail)?,
+                CompileJob::Build { node, depth } => self.build(node, depth)?,
+                CompileJob::Spine { len, tail } => self.spine(len, tail)?,
             }
         }
         let item = self.w.done.pop().ok_or_else(broken)?;
@@ -496,7 +496,7 @@ impl Compiler<'_, '_> {
         self.max_depth = self.max_depth.max(depth);
         let image = self.image;
         let node = *image.nodes.get(id as usize).ok_or_else(broken)?;
-        let build = Job::Build { node: id, depth };
+        let build = CompileJob::Build { node: id, depth };
         let atom = match node {
             INode::Var { index, slot } => {
                 if index < depth {
@@ -521,18 +521,18 @@ impl Compiler<'_, '_> {
             INode::Con(tag, _, 0) => Atom::Tag(tag),
             INode::Lam { func, pos: 0, .. } | INode::RecLam { func, .. } => {
                 let code = self.closure(func, depth)?;
-                return self.done(Item::Code(code));
+                return self.done(CompileItem::Code(code));
             }
             INode::Lam { .. } => return Err(broken()),
             INode::App(..) => return self.visit_spine(id, depth, tail),
             INode::Let(bound, body) => {
                 self.job(build)?;
-                self.job(Job::Visit {
+                self.job(CompileJob::Visit {
                     node: body,
                     depth: depth.saturating_add(1),
                     tail,
                 })?;
-                return self.job(Job::Visit {
+                return self.job(CompileJob::Visit {
                     node: bound,
                     depth,
                     tail: false,
@@ -540,17 +540,17 @@ impl Compiler<'_, '_> {
             }
             INode::If(condition, yes, no) => {
                 self.job(build)?;
-                self.job(Job::Visit {
+                self.job(CompileJob::Visit {
                     node: no,
                     depth,
                     tail,
                 })?;
-                self.job(Job::Visit {
+                self.job(CompileJob::Visit {
                     node: yes,
                     depth,
                     tail,
                 })?;
-                return self.job(Job::Visit {
+                return self.job(CompileJob::Visit {
                     node: condition,
                     depth,
                     tail: false,
@@ -563,7 +563,7 @@ impl Compiler<'_, '_> {
                     .get(start as usize..start as usize + op.arity())
                     .ok_or_else(broken)?;
                 for &o in operands.iter().rev() {
-                    self.job(Job::Visit {
+                    self.job(CompileJob::Visit {
                         node: o,
                         depth,
                         tail: false,
@@ -579,7 +579,7 @@ impl Compiler<'_, '_> {
                     .get(start as usize..(start + len) as usize)
                     .ok_or_else(broken)?;
                 for &f in fields.iter().rev() {
-                    self.job(Job::Visit {
+                    self.job(CompileJob::Visit {
                         node: f,
                         depth,
                         tail: false,
@@ -591,7 +591,7 @@ impl Compiler<'_, '_> {
                 self.job(build)?;
                 let case = *image.cases.get(c as usize).ok_or_else(broken)?;
                 if case.default != NONE {
-                    self.job(Job::Visit {
+                    self.job(CompileJob::Visit {
                         node: case.default,
                         depth,
                         tail,
@@ -604,24 +604,24 @@ impl Compiler<'_, '_> {
                 self.budget.work(u64::from(case.len))?;
                 for arm in arms.iter().rev() {
                     let depth = depth.saturating_add(arm.arity);
-                    self.job(Job::Visit {
+                    self.job(CompileJob::Visit {
                         node: arm.body,
                         depth,
                         tail,
                     })?;
                 }
-                return self.job(Job::Visit {
+                return self.job(CompileJob::Visit {
                     node: scrutinee,
                     depth,
                     tail: false,
                 });
             }
         };
-        self.done(Item::Atom(atom))
+        self.done(CompileItem::Atom(atom))
     }
 
     /// An application spine `h a₁ … aₙ`: its head and arguments are
-    /// compiled in order, then built by one [`Job::Spine`].
+    /// compiled in order, then built by one [`CompileJob::Spine`].
     fn visit_spine(&mut self, id: Id, depth: u32, tail: bool) -> Result<(), Halt> {
         let image = self.image;
         let mut len = 0u32;
@@ -631,21 +631,21 @@ impl Compiler<'_, '_> {
             head = f;
         }
         self.budget.work(u64::from(len))?;
-        self.job(Job::Spine { len, tail })?;
+        self.job(CompileJob::Spine { len, tail })?;
         if self.w.jobs.capacity() - self.w.jobs.len() < len as usize + 1 {
             let held = self.held();
             grow(&mut self.w.jobs, len as usize + 1, held, self.budget)?;
         }
         let mut at = id;
         while let Some(&INode::App(f, a)) = image.nodes.get(at as usize) {
-            self.w.jobs.push(Job::Visit {
+            self.w.jobs.push(CompileJob::Visit {
                 node: a,
                 depth,
                 tail: false,
             });
             at = f;
         }
-        self.w.jobs.push(Job::Visit {
+        self.w.jobs.push(CompileJob::Visit {
             node: head,
             depth,
             tail: false,
@@ -655,24 +655,24 @@ impl Compiler<'_, '_> {
 
     /// The application of `function` to `argument`, with the shortcuts for
     /// atoms.
-    fn app(&mut self, function: Item, argument: Item, tail: bool) -> Result<CodeId, Halt> {
+    fn app(&mut self, function: CompileItem, argument: CompileItem, tail: bool) -> Result<CodeId, Halt> {
         let instr = match (function, argument) {
-            (Item::Atom(function), Item::Atom(argument)) => Instr::AppAtoms {
+            (CompileItem::Atom(function), CompileItem::Atom(argument)) => Instr::AppAtoms {
                 function,
                 argument,
                 tail,
             },
-            (Item::Atom(function), Item::Code(argument)) => Instr::AppAtomFunction {
+            (CompileItem::Atom(function), CompileItem::Code(argument)) => Instr::AppAtomFunction {
                 function,
                 argument,
                 tail,
             },
-            (Item::Code(function), Item::Atom(argument)) => Instr::AppAtomArgument {
+            (CompileItem::Code(function), CompileItem::Atom(argument)) => Instr::AppAtomArgument {
                 function,
                 argument,
                 tail,
             },
-            (Item::Code(function), Item::Code(argument)) => Instr::App {
+            (CompileItem::Code(function), CompileItem::Code(argument)) => Instr::App {
                 function,
                 argument,
                 tail,
@@ -694,13 +694,13 @@ impl Compiler<'_, '_> {
         let head = self.w.done[at];
         let mut next = 0;
         let mut function = head;
-        if let Item::Atom(atom @ (Atom::Local(_) | Atom::Free(_))) = head {
+        if let CompileItem::Atom(atom @ (Atom::Local(_) | Atom::Free(_))) = head {
             if len >= 2 {
                 let m = len.min(MAX_CHAIN);
                 let mut fallback = head;
                 for k in 0..m {
                     let a = arg(self.w, k);
-                    fallback = Item::Code(self.app(fallback, a, tail && k + 1 == len)?);
+                    fallback = CompileItem::Code(self.app(fallback, a, tail && k + 1 == len)?);
                 }
                 self.reserve_lists(m as usize)?;
                 let start = self.c.lists.len() as u32;
@@ -709,7 +709,7 @@ impl Compiler<'_, '_> {
                     let id = self.code(a)?;
                     self.c.lists.push(id);
                 }
-                let Item::Code(fallback) = fallback else {
+                let CompileItem::Code(fallback) = fallback else {
                     return Err(broken());
                 };
                 let instr = Instr::AppN {
@@ -718,13 +718,13 @@ impl Compiler<'_, '_> {
                     tail: tail && m == len,
                     fallback,
                 };
-                function = Item::Code(self.emit(instr)?);
+                function = CompileItem::Code(self.emit(instr)?);
                 next = m;
             }
         }
         for k in next..len {
             let a = arg(self.w, k);
-            function = Item::Code(self.app(function, a, tail && k + 1 == len)?);
+            function = CompileItem::Code(self.app(function, a, tail && k + 1 == len)?);
         }
         self.w.done.truncate(at);
         self.done(function)
@@ -747,7 +747,7 @@ impl Compiler<'_, '_> {
         })
     }
 
-    fn pop(&mut self) -> Result<Item, Halt> {
+    fn pop(&mut self) -> Result<CompileItem, Halt> {
         self.w.done.pop().ok_or_else(broken)
     }
 
@@ -772,7 +772,7 @@ impl Compiler<'_, '_> {
                 let no = self.pop_code()?;
                 let yes = self.pop_code()?;
                 match self.pop()? {
-                    Item::Code(c) => match self.c.code.get(c as usize) {
+                    CompileItem::Code(c) => match self.c.code.get(c as usize) {
                         Some(&Instr::Prim2 { op, a, b }) => Instr::IfPrim2 { op, a, b, yes, no },
                         _ => Instr::If {
                             condition: c,
@@ -790,7 +790,7 @@ impl Compiler<'_, '_> {
                 let n = op.arity();
                 let at = self.w.done.len().checked_sub(n).ok_or_else(broken)?;
                 let atom = |w: &Workspace, i: usize| match w.done.get(at + i) {
-                    Some(&Item::Atom(a)) => Some(a),
+                    Some(&CompileItem::Atom(a)) => Some(a),
                     _ => None,
                 };
                 // Host calls take the general path, where their fuel and
@@ -847,7 +847,7 @@ impl Compiler<'_, '_> {
             _ => return Err(broken()),
         };
         let code = self.emit(instr)?;
-        self.done(Item::Code(code))
+        self.done(CompileItem::Code(code))
     }
 
     /// A closure of function `func` made at `depth`: its fetches, from the
@@ -866,7 +866,7 @@ impl Compiler<'_, '_> {
         let start = self.c.fetches.len() as u32;
         for run in runs {
             let fetch = match *run {
-                Run::Free { slot, len } => {
+                Capture::Free { slot, len } => {
                     if slot
                         .checked_add(len)
                         .map_or(true, |end| end > self.captured)
@@ -879,7 +879,7 @@ impl Compiler<'_, '_> {
                         len,
                     }
                 }
-                Run::Local { index, len } => {
+                Capture::Local { index, len } => {
                     let first = depth
                         .checked_sub(index.saturating_add(1))
                         .ok_or_else(broken)?;

@@ -45,7 +45,7 @@ mod compile;
 mod run;
 
 use compile::{Compiled, Workspace};
-use run::{Run, Stacks};
+use run::{Interpreter, Stacks};
 
 use crate::budget::{Budget, Halt};
 use crate::term::Term;
@@ -184,9 +184,9 @@ impl Env {
         let host = program.host();
         let stacks = &mut scratch.stacks;
         let result = if self.metered {
-            Run::<true>::evaluate(code, image, host, budget, fixed, stacks, out)
+            Interpreter::<true>::evaluate(code, image, host, budget, fixed, stacks, out)
         } else {
-            Run::<false>::evaluate(code, image, host, budget, fixed, stacks, out)
+            Interpreter::<false>::evaluate(code, image, host, budget, fixed, stacks, out)
         };
         scratch.compiled.trim();
         result

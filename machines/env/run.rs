@@ -17,12 +17,12 @@ use crate::error::EvalError;
 use crate::vocabulary::{Counts, Rule};
 use crate::budget::{Budget, Halt};
 use crate::prim::HostId;
-use crate::image::Image;
+use crate::image::{Image, Tags};
 use crate::machines::runtime::host::host_call;
 use crate::machines::runtime::prims::{int_prim, int_test, prim_contraction};
 use crate::machines::runtime::readback::read_back;
 use crate::machines::runtime::value::{
-    cut, recycle, Closure, Code, ConCell, Meter, Tags, Value, Values, KEEP_STACK_BYTES,
+    cut, recycle, Closure, Code, ConCell, Meter, Value, Values, KEEP_STACK_BYTES,
 };
 use crate::prim::Prim;
 use crate::term::{Arena, Term};
@@ -124,7 +124,7 @@ pub(super) struct Stacks {
 }
 
 /// The state of one run.
-pub(super) struct Run<'c, 'h, const METERED: bool> {
+pub(super) struct Interpreter<'c, 'h, const METERED: bool> {
     code: &'c Compiled,
     image: &'c Image,
     host: &'h HostFunctions,
@@ -152,8 +152,8 @@ pub(super) struct Run<'c, 'h, const METERED: bool> {
     meter: Meter,
 }
 
-impl<'c, 'h, const METERED: bool> Run<'c, 'h, METERED> {
-    /// Run `code` to its value and read it back into `out`, with the stacks
+impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
+    /// Interpreter `code` to its value and read it back into `out`, with the stacks
     /// of `stacks` (emptied and kept again afterwards). The run holds
     /// `fixed` bytes of image and code besides its own.
     pub(super) fn evaluate<'o>(
@@ -166,7 +166,7 @@ impl<'c, 'h, const METERED: bool> Run<'c, 'h, METERED> {
         out: &'o Arena,
     ) -> Result<&'o Term<'o>, Halt> {
         let kept = std::mem::take(stacks);
-        let mut run = Run::<METERED> {
+        let mut run = Interpreter::<METERED> {
             code,
             image,
             host,
@@ -381,7 +381,7 @@ impl<'c, 'h, const METERED: bool> Run<'c, 'h, METERED> {
     }
 
     /// Push the value of an atom. A fast path: room made first and a local
-    /// cloned straight onto the stack, where through [`Run::atom`] the
+    /// cloned straight onto the stack, where through [`Interpreter::atom`] the
     /// value is rebuilt piece by piece (fib 25: 137.8M instructions without
     /// it, 133.5M with).
     #[inline(always)]
@@ -554,7 +554,7 @@ impl<'c, 'h, const METERED: bool> Run<'c, 'h, METERED> {
         Err(Halt::error(EvalError::not_a_function(operand)))
     }
 
-    /// [`Run::call`] of a closure.
+    /// [`Interpreter::call`] of a closure.
     #[inline(never)]
     fn apply(
         &mut self,
@@ -580,7 +580,7 @@ impl<'c, 'h, const METERED: bool> Run<'c, 'h, METERED> {
     }
 
     /// Enter the body of an unapplied closure of a function of one
-    /// parameter (or, in [`Run::enter_partial`], the last) with `argument`.
+    /// parameter (or, in [`Interpreter::enter_partial`], the last) with `argument`.
     #[inline(always)]
     fn enter(
         &mut self,

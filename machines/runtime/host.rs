@@ -6,11 +6,12 @@
 
 use std::sync::Arc;
 
-use super::value::{Code, ConCell, Tags, Text, Value, Values};
+use super::value::{Code, ConCell, Text, Value, Values};
 use crate::budget::{Budget, Halt};
 use crate::datum::{Builder, NotData};
 use crate::host::{host_step, HostStep};
 use crate::image::Image;
+use crate::image::Tags;
 use crate::prim::HostId;
 use crate::{Datum, HostFunctions, Rule};
 

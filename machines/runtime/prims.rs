@@ -6,10 +6,11 @@
 
 use smallvec::SmallVec;
 
-use super::value::{Code, Tags, Text, Value};
+use super::value::{Code, Text, Value};
 use crate::budget::{Budget, Halt};
 use crate::error::Operand;
 use crate::image::Image;
+use crate::image::Tags;
 use crate::prim::{delta_polled, fuel_units, Prim, PrimValue, Stopped};
 use crate::Rule;
 

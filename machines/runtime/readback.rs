@@ -11,9 +11,10 @@ use std::rc::Rc;
 
 use hashbrown::HashMap;
 
-use super::value::{Code, Tags, Value};
+use super::value::{Code, Value};
 use crate::budget::Budget;
 use crate::budget::Halt;
+use crate::image::Tags;
 use crate::image::{INode, Id, Image, NONE};
 use crate::term::{Arena, Arm, Node, Term};
 
@@ -41,7 +42,7 @@ pub(crate) fn read_back<'o, C: Code>(
         Value::Bool(b) => return Ok(out.boolean(*b)),
         _ => {}
     }
-    let mut r = Reader {
+    let mut r = ValueReader {
         image,
         tags,
         out,
@@ -53,12 +54,12 @@ pub(crate) fn read_back<'o, C: Code>(
     r.value(root, budget)
 }
 
-enum Job<'v, C: Code> {
+enum ValueJob<'v, C: Code> {
     Visit(&'v Value<C>),
     Build(&'v Value<C>),
 }
 
-struct Reader<'o, 'i> {
+struct ValueReader<'o, 'i> {
     image: &'i Image,
     tags: &'i Tags,
     out: &'o Arena,
@@ -71,7 +72,7 @@ struct Reader<'o, 'i> {
     closed: HashMap<Id, &'o Term<'o>>,
 }
 
-impl<'o> Reader<'o, '_> {
+impl<'o> ValueReader<'o, '_> {
     /// Account for one more node built; `Err` past the limit or once
     /// cancelled.
     #[inline]
@@ -87,11 +88,11 @@ impl<'o> Reader<'o, '_> {
         root: &Value<C>,
         budget: &mut Budget,
     ) -> Result<&'o Term<'o>, Halt> {
-        let mut jobs: Vec<Job<'_, C>> = vec![Job::Visit(root)];
+        let mut jobs: Vec<ValueJob<'_, C>> = vec![ValueJob::Visit(root)];
         let mut done: Vec<&'o Term<'o>> = Vec::new();
         while let Some(job) = jobs.pop() {
             match job {
-                Job::Visit(value) => {
+                ValueJob::Visit(value) => {
                     let (key, children, shared): (*const (), &[Value<C>], bool) = match value {
                         Value::Int(n) => {
                             done.push(self.out.int(*n));
@@ -123,10 +124,10 @@ impl<'o> Reader<'o, '_> {
                             continue;
                         }
                     }
-                    jobs.push(Job::Build(value));
-                    jobs.extend(children.iter().rev().map(Job::Visit));
+                    jobs.push(ValueJob::Build(value));
+                    jobs.extend(children.iter().rev().map(ValueJob::Visit));
                 }
-                Job::Build(value) => {
+                ValueJob::Build(value) => {
                     self.spend(budget)?;
                     let (key, term, shared): (*const (), &'o Term<'o>, bool) = match value {
                         Value::Str(s) => {
@@ -240,17 +241,17 @@ impl<'o> Reader<'o, '_> {
         lookup: &dyn Fn(u32) -> Option<&'o Term<'o>>,
         budget: &mut Budget,
     ) -> Result<&'o Term<'o>, Halt> {
-        enum Step {
+        enum Walk {
             Visit(Id, u32),
             Build(Id),
         }
         let image = self.image;
         let out = self.out;
-        let mut steps = vec![Step::Visit(node, 0)];
+        let mut steps = vec![Walk::Visit(node, 0)];
         let mut done: Vec<&'o Term<'o>> = Vec::new();
         while let Some(step) = steps.pop() {
             match step {
-                Step::Visit(id, depth) => {
+                Walk::Visit(id, depth) => {
                     if image.scope(id) <= depth {
                         // Nothing reaches past `node` here: the program's own
                         // subterm, unchanged.
@@ -269,14 +270,14 @@ impl<'o> Reader<'o, '_> {
                             done.push(t);
                         }
                         other => {
-                            steps.push(Step::Build(id));
+                            steps.push(Walk::Build(id));
                             let mut kids = Vec::new();
-                            children(image, other, depth, |c, d| kids.push(Step::Visit(c, d)));
+                            children(image, other, depth, |c, d| kids.push(Walk::Visit(c, d)));
                             steps.extend(kids.into_iter().rev());
                         }
                     }
                 }
-                Step::Build(id) => {
+                Walk::Build(id) => {
                     let t = self.build(id, &mut done);
                     done.push(t);
                 }
@@ -290,16 +291,16 @@ impl<'o> Reader<'o, '_> {
         if let Some(&t) = self.closed.get(&id) {
             return Ok(t);
         }
-        enum Step {
+        enum Walk {
             Visit(Id),
             Build(Id),
         }
         let image = self.image;
-        let mut steps = vec![Step::Visit(id)];
+        let mut steps = vec![Walk::Visit(id)];
         let mut done: Vec<&'o Term<'o>> = Vec::new();
         while let Some(step) = steps.pop() {
             match step {
-                Step::Visit(x) => {
+                Walk::Visit(x) => {
                     if let Some(&t) = self.closed.get(&x) {
                         done.push(t);
                         continue;
@@ -310,12 +311,12 @@ impl<'o> Reader<'o, '_> {
                         done.push(self.out.var(index));
                         continue;
                     }
-                    steps.push(Step::Build(x));
+                    steps.push(Walk::Build(x));
                     let mut kids = Vec::new();
-                    children(image, node, 0, |c, _| kids.push(Step::Visit(c)));
+                    children(image, node, 0, |c, _| kids.push(Walk::Visit(c)));
                     steps.extend(kids.into_iter().rev());
                 }
-                Step::Build(x) => {
+                Walk::Build(x) => {
                     let t = self.build(x, &mut done);
                     if image.is_shared(x) || x == id {
                         self.closed.insert(x, t);

@@ -20,12 +20,11 @@
 
 use std::cell::Cell;
 use std::rc::Rc;
-use std::sync::Arc;
 
 use smallvec::SmallVec;
 
 use crate::error::Operand;
-use crate::image::{Image, TagId};
+use crate::image::{Image, TagId, Tags};
 
 /// Bytes of an `Rc` allocation's header (the strong and weak counts), plus
 /// what the system allocator adds to each allocation (see the module
@@ -113,58 +112,6 @@ impl<C: Code> Clone for Value<C> {
             Value::Str(s) => Value::Str(Rc::clone(s)),
             Value::Con(c) => Value::Con(Rc::clone(c)),
             Value::Fun(f) => Value::Fun(Rc::clone(f)),
-        }
-    }
-}
-
-/// Constructor tags of a run: the image's, then any a host function made up.
-#[derive(Debug, Default)]
-pub(crate) struct Tags {
-    extra: Vec<Arc<str>>,
-    ids: hashbrown::HashMap<Arc<str>, u32>,
-}
-
-impl Tags {
-    /// The id of tag `name`: the image's, this run's, or else the next of
-    /// the ids `new` (tags not yet appended) stands for.
-    pub(crate) fn id_or_new(&self, image: &Image, name: &str, new: &mut Vec<Arc<str>>) -> TagId {
-        if let Some(id) = image.tag_id(name) {
-            return id;
-        }
-        let own = image.tags.len() as u32;
-        if let Some(&k) = self.ids.get(name) {
-            return own + k;
-        }
-        let k = match new.iter().position(|t| &**t == name) {
-            Some(k) => k,
-            None => {
-                new.push(Arc::from(name));
-                new.len() - 1
-            }
-        };
-        own + (self.extra.len() + k) as u32
-    }
-
-    /// Add the tags [`Tags::id_or_new`] made up.
-    pub(crate) fn append(&mut self, new: Vec<Arc<str>>) {
-        for name in new {
-            self.ids.insert(Arc::clone(&name), self.extra.len() as u32);
-            self.extra.push(name);
-        }
-    }
-
-    /// Bytes this table holds.
-    pub(crate) fn bytes(&self) -> usize {
-        self.extra.iter().map(|t| 2 * t.len() + 96).sum()
-    }
-
-    /// The name of `tag`.
-    pub(crate) fn name<'i>(&'i self, image: &'i Image, tag: TagId) -> &'i str {
-        let own = image.tags.len() as u32;
-        if tag < own {
-            image.tag(tag)
-        } else {
-            self.extra.get((tag - own) as usize).map_or("?", |t| t)
         }
     }
 }

@@ -379,58 +379,6 @@ impl<'h> Collector<'h> {
     }
 }
 
-/// Constructor tags of a run: the image's, then those a host function made
-/// up (numbered on from the image's).
-#[derive(Debug, Default)]
-pub(super) struct Tags {
-    extra: Vec<Arc<str>>,
-    ids: hashbrown::HashMap<Arc<str>, u32>,
-}
-
-impl Tags {
-    /// The id of tag `name`: the image's, this run's, or else the next of
-    /// the ids that `new` (tags not yet added) stands for.
-    pub(super) fn id_or_new(&self, image: &Image, name: &str, new: &mut Vec<Arc<str>>) -> u32 {
-        if let Some(id) = image.tag_id(name) {
-            return id;
-        }
-        let own = image.tags.len() as u32;
-        if let Some(&k) = self.ids.get(name) {
-            return own + k;
-        }
-        let k = match new.iter().position(|t| &**t == name) {
-            Some(k) => k,
-            None => {
-                new.push(Arc::from(name));
-                new.len() - 1
-            }
-        };
-        own + (self.extra.len() + k) as u32
-    }
-
-    /// Add the tags [`Tags::id_or_new`] made up, in order.
-    pub(super) fn append(&mut self, new: Vec<Arc<str>>) {
-        for name in new {
-            self.ids.insert(Arc::clone(&name), self.extra.len() as u32);
-            self.extra.push(name);
-        }
-    }
-
-    /// The name of `tag`.
-    pub(super) fn name<'a>(&'a self, image: &'a Image, tag: u32) -> &'a str {
-        let own = image.tags.len() as u32;
-        match tag.checked_sub(own) {
-            None => image.tag(tag),
-            Some(k) => self.extra.get(k as usize).map_or("?", |t| t),
-        }
-    }
-
-    /// Bytes this table holds.
-    pub(super) fn bytes(&self) -> usize {
-        self.extra.iter().map(|t| 2 * t.len() + 96).sum()
-    }
-}
-
 impl Heap {
     /// The body of arm `i` of `case`, whose bodies are at absolute position
     /// `bodies` ([`NONE`]: the image case's own).

@@ -8,8 +8,9 @@ use std::sync::Arc;
 
 use hashbrown::HashMap;
 
-use super::heap::{Heap, Tags};
-use super::{Frame, State, Trace};
+use super::heap::Heap;
+use crate::image::Tags;
+use super::{ContextFrame, State, Trace};
 use crate::budget::{Budget, Halt};
 use crate::datum::{Builder, NotData, DATUM_NODE_BYTES};
 use crate::image::{INode, Id, Image, TagId};
@@ -21,13 +22,13 @@ use crate::{Outcome, Rule};
 /// the table's spare room).
 const MEMO_ENTRY: usize = 48;
 
-enum Job {
+enum ReadJob {
     Visit(Id),
     Build(Id),
 }
 
 /// Reads nodes into `out`, remembering the terms of shared nodes.
-pub(super) struct Reader<'o> {
+pub(super) struct TermReader<'o> {
     out: &'o Arena,
     /// `out`'s bytes in use when the reader began.
     start: usize,
@@ -35,14 +36,14 @@ pub(super) struct Reader<'o> {
     held: usize,
     memo: HashMap<Id, &'o Term<'o>>,
     tags: HashMap<TagId, &'o str>,
-    jobs: Vec<Job>,
+    jobs: Vec<ReadJob>,
     done: Vec<&'o Term<'o>>,
 }
 
-impl<'o> Reader<'o> {
+impl<'o> TermReader<'o> {
     /// A reader into `out` for a run holding `held` bytes.
     pub(super) fn new(out: &'o Arena, held: usize) -> Self {
-        Reader {
+        TermReader {
             out,
             start: out.used_bytes(),
             held,
@@ -65,7 +66,7 @@ impl<'o> Reader<'o> {
         budget.work(1)?;
         let built = self.out.used_bytes().saturating_sub(self.start)
             + (self.memo.len() + self.tags.len()) * MEMO_ENTRY
-            + self.jobs.capacity() * std::mem::size_of::<Job>()
+            + self.jobs.capacity() * std::mem::size_of::<ReadJob>()
             + self.done.capacity() * std::mem::size_of::<&Term<'_>>();
         budget.check_memory(self.held.saturating_add(built).saturating_add(extra))
     }
@@ -97,10 +98,10 @@ impl<'o> Reader<'o> {
         }
         self.jobs.clear();
         self.done.clear();
-        self.jobs.push(Job::Visit(id));
+        self.jobs.push(ReadJob::Visit(id));
         while let Some(job) = self.jobs.pop() {
             match job {
-                Job::Visit(id) => {
+                ReadJob::Visit(id) => {
                     if let Some(&t) = self.memo.get(&id) {
                         self.done.push(t);
                         continue;
@@ -127,12 +128,12 @@ impl<'o> Reader<'o> {
                         self.done.push(t);
                         continue;
                     }
-                    self.jobs.push(Job::Build(id));
+                    self.jobs.push(ReadJob::Build(id));
                     let at = self.jobs.len();
-                    children(image, heap, id, node, |c| self.jobs.push(Job::Visit(c)));
+                    children(image, heap, id, node, |c| self.jobs.push(ReadJob::Visit(c)));
                     self.jobs[at..].reverse();
                 }
-                Job::Build(id) => {
+                ReadJob::Build(id) => {
                     self.spend(budget, 0)?;
                     let t = self.build(image, heap, tags, id);
                     if heap.is_heap(id) || image.is_shared(id) {
@@ -292,14 +293,14 @@ pub(super) fn to_datum<'v>(
 
 /// One node of a host's result, in post-order: a leaf, or a constructor
 /// taking the last `arity` nodes made.
-pub(super) enum Piece {
+pub(super) enum Fragment {
     Int(i64),
     Bool(bool),
     Str(String),
     Con(TagId, u32),
 }
 
-/// A host's result as [`Piece`]s in post-order (taking the datum apart
+/// A host's result as [`Fragment`]s in post-order (taking the datum apart
 /// without recursion), its tags interned: those the image and the run lack
 /// are added to `new`, to be appended to `tags` once the datum is gone.
 pub(super) fn flatten(
@@ -307,15 +308,15 @@ pub(super) fn flatten(
     image: &Image,
     tags: &Tags,
     new: &mut Vec<Arc<str>>,
-) -> Vec<Piece> {
+) -> Vec<Fragment> {
     let mut pieces = Vec::new();
     let mut pending: Vec<Result<Datum<'_>, (TagId, u32)>> = vec![Ok(datum)];
     while let Some(item) = pending.pop() {
         match item {
-            Err((tag, arity)) => pieces.push(Piece::Con(tag, arity)),
-            Ok(Datum::Int(n)) => pieces.push(Piece::Int(n)),
-            Ok(Datum::Bool(b)) => pieces.push(Piece::Bool(b)),
-            Ok(Datum::Str(s)) => pieces.push(Piece::Str(s)),
+            Err((tag, arity)) => pieces.push(Fragment::Con(tag, arity)),
+            Ok(Datum::Int(n)) => pieces.push(Fragment::Int(n)),
+            Ok(Datum::Bool(b)) => pieces.push(Fragment::Bool(b)),
+            Ok(Datum::Str(s)) => pieces.push(Fragment::Str(s)),
             Ok(Datum::Con(c)) => {
                 let (name, fields) = c.into_parts();
                 let tag = tags.id_or_new(image, name, new);
@@ -340,7 +341,7 @@ impl State {
         let Some(trace) = trace else { return Ok(()) };
         trace.scratch.reset();
         let held = self.held().saturating_add(trace.scratch.allocated_bytes());
-        let mut reader = Reader::new(trace.scratch, held);
+        let mut reader = TermReader::new(trace.scratch, held);
         let view = View {
             image,
             heap: &self.heap,
@@ -371,7 +372,7 @@ impl State {
         image: &Image,
         out: &'o Arena,
     ) -> Result<&'o Term<'o>, Halt> {
-        let mut reader = Reader::new(out, self.held());
+        let mut reader = TermReader::new(out, self.held());
         let view = View {
             image,
             heap: &self.heap,
@@ -401,7 +402,7 @@ impl State {
         out: &'o Arena,
     ) -> Outcome<'o> {
         let value = end.and_then(|v| {
-            let mut reader = Reader::new(out, self.held());
+            let mut reader = TermReader::new(out, self.held());
             let view = View {
                 image,
                 heap: &self.heap,
@@ -432,7 +433,7 @@ pub(super) struct View<'a> {
 impl View<'_> {
     fn term<'o>(
         &self,
-        r: &mut Reader<'o>,
+        r: &mut TermReader<'o>,
         id: Id,
         budget: &mut Budget,
     ) -> Result<&'o Term<'o>, Halt> {
@@ -443,8 +444,8 @@ impl View<'_> {
     /// the ones just below `below` on `stack` (and `below` moves under them).
     fn plug<'o>(
         &self,
-        r: &mut Reader<'o>,
-        frame: Frame,
+        r: &mut TermReader<'o>,
+        frame: ContextFrame,
         hole: &'o Term<'o>,
         stack: &[Id],
         below: &mut usize,
@@ -452,19 +453,19 @@ impl View<'_> {
     ) -> Result<&'o Term<'o>, Halt> {
         let out = r.out();
         Ok(match frame {
-            Frame::AppFunction(a) => out.app(hole, self.term(r, a, budget)?),
-            Frame::AppArgument(f) => out.app(self.term(r, f, budget)?, hole),
-            Frame::LetBound(body) => out.let_in(hole, self.term(r, body, budget)?),
-            Frame::IfCondition(y, n) => {
+            ContextFrame::AppFunction(a) => out.app(hole, self.term(r, a, budget)?),
+            ContextFrame::AppArgument(f) => out.app(self.term(r, f, budget)?, hole),
+            ContextFrame::LetBound(body) => out.let_in(hole, self.term(r, body, budget)?),
+            ContextFrame::IfCondition(y, n) => {
                 let y = self.term(r, y, budget)?;
                 out.if_then_else(hole, y, self.term(r, n, budget)?)
             }
-            Frame::Operand { op, next, left } => {
+            ContextFrame::Operand { op, next, left } => {
                 let args =
                     self.spread(r, op.arity() as u32, next, left, hole, stack, below, budget)?;
                 out.prim(op, &args)
             }
-            Frame::Field {
+            ContextFrame::Field {
                 tag,
                 arity,
                 next,
@@ -474,7 +475,7 @@ impl View<'_> {
                 let tag = r.tag(self.image, self.tags, tag);
                 out.term(crate::Node::Con(tag, out.terms(&args)))
             }
-            Frame::Scrutinee { case, bodies } => {
+            ContextFrame::Scrutinee { case, bodies } => {
                 let Some(info) = self.image.cases.get(case as usize).copied() else {
                     return Ok(hole);
                 };
@@ -499,7 +500,7 @@ impl View<'_> {
     #[allow(clippy::too_many_arguments)]
     fn spread<'o>(
         &self,
-        r: &mut Reader<'o>,
+        r: &mut TermReader<'o>,
         arity: u32,
         next: u32,
         left: u32,

@@ -25,7 +25,7 @@ pub(super) enum Binds {
 /// Substitution's work: a node to visit under `depth` binders of the body,
 /// or a node to rebuild from its children's results.
 #[derive(Clone, Copy, Debug)]
-pub(super) enum Job {
+pub(super) enum SubstJob {
     Visit(Id, u32),
     Build(Id),
 }
@@ -57,10 +57,10 @@ impl State {
             return Ok(body);
         }
         let done_base = self.done.len();
-        self.push_job(Job::Visit(body, 0))?;
+        self.push_job(SubstJob::Visit(body, 0))?;
         while let Some(job) = self.jobs.pop() {
             match job {
-                Job::Visit(id, depth) => {
+                SubstJob::Visit(id, depth) => {
                     if self.heap.scope(image, id) <= depth {
                         self.push_done(id)?;
                         continue;
@@ -72,10 +72,10 @@ impl State {
                         self.push_done(v)?;
                         continue;
                     }
-                    self.push_job(Job::Build(id))?;
+                    self.push_job(SubstJob::Build(id))?;
                     self.visit_children(image, id, node, depth)?;
                 }
-                Job::Build(id) => {
+                SubstJob::Build(id) => {
                     let new = self.rebuild(image, id)?;
                     self.push_done(new)?;
                 }
@@ -99,32 +99,32 @@ impl State {
         depth: u32,
     ) -> Result<(), Halt> {
         match node {
-            INode::Lam { body, .. } => self.push_job(Job::Visit(body, depth + 1)),
-            INode::RecLam { body, .. } => self.push_job(Job::Visit(body, depth + 2)),
+            INode::Lam { body, .. } => self.push_job(SubstJob::Visit(body, depth + 1)),
+            INode::RecLam { body, .. } => self.push_job(SubstJob::Visit(body, depth + 2)),
             INode::App(a, b) => {
-                self.push_job(Job::Visit(b, depth))?;
-                self.push_job(Job::Visit(a, depth))
+                self.push_job(SubstJob::Visit(b, depth))?;
+                self.push_job(SubstJob::Visit(a, depth))
             }
             INode::Let(a, b) => {
-                self.push_job(Job::Visit(b, depth + 1))?;
-                self.push_job(Job::Visit(a, depth))
+                self.push_job(SubstJob::Visit(b, depth + 1))?;
+                self.push_job(SubstJob::Visit(a, depth))
             }
             INode::If(c, y, n) => {
-                self.push_job(Job::Visit(n, depth))?;
-                self.push_job(Job::Visit(y, depth))?;
-                self.push_job(Job::Visit(c, depth))
+                self.push_job(SubstJob::Visit(n, depth))?;
+                self.push_job(SubstJob::Visit(y, depth))?;
+                self.push_job(SubstJob::Visit(c, depth))
             }
             INode::Prim(op, start) => {
                 for k in (0..op.arity() as u32).rev() {
                     let c = self.heap.list(image, start + k);
-                    self.push_job(Job::Visit(c, depth))?;
+                    self.push_job(SubstJob::Visit(c, depth))?;
                 }
                 Ok(())
             }
             INode::Con(_, start, len) => {
                 for k in (0..len).rev() {
                     let c = self.heap.list(image, start + k);
-                    self.push_job(Job::Visit(c, depth))?;
+                    self.push_job(SubstJob::Visit(c, depth))?;
                 }
                 Ok(())
             }
@@ -136,7 +136,7 @@ impl State {
                     .copied()
                     .ok_or_else(|| internal("a case the image lacks"))?;
                 if let Some(d) = self.heap.default_body(image, &case, bodies) {
-                    self.push_job(Job::Visit(d, depth))?;
+                    self.push_job(SubstJob::Visit(d, depth))?;
                 }
                 for i in (0..case.len).rev() {
                     let arity = image
@@ -144,9 +144,9 @@ impl State {
                         .get((case.arms + i) as usize)
                         .map_or(0, |a| a.arity);
                     let b = self.heap.arm_body(image, &case, bodies, i);
-                    self.push_job(Job::Visit(b, depth + arity))?;
+                    self.push_job(SubstJob::Visit(b, depth + arity))?;
                 }
-                self.push_job(Job::Visit(scrutinee, depth))
+                self.push_job(SubstJob::Visit(scrutinee, depth))
             }
             INode::Var { .. } | INode::Int(_) | INode::Bool(_) | INode::Str(_) => Ok(()),
         }

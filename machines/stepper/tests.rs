@@ -11,7 +11,7 @@ fn program<'a>(arena: &'a Arena, source: &str) -> Program<'a> {
     parse(arena, source).expect("the test programs parse")
 }
 
-/// Run `program` to its end, keeping the state.
+/// Capture `program` to its end, keeping the state.
 fn reduce(program: &Program<'_>, limits: &Limits) -> (State, Result<Id, Halt>) {
     let image = program.image();
     let mut state = State::new(image, limits);
@@ -55,7 +55,7 @@ fn host() -> HostFunctions {
 
 #[test]
 fn frames_and_nodes_are_small() {
-    assert!(std::mem::size_of::<Frame>() <= 24);
+    assert!(std::mem::size_of::<ContextFrame>() <= 24);
     assert_eq!(NODE_BYTES, 20);
 }
 

@@ -22,7 +22,7 @@
 
 use smallvec::SmallVec;
 
-use super::{Func, INode, Id, Image, Run, NONE};
+use super::{Capture, Func, INode, Id, Image, NONE};
 
 /// The most parameters one function takes; a longer chain of `λ`s is a
 /// function returning a function.
@@ -78,12 +78,12 @@ struct Tree {
     count: Vec<u32>,
     present: Fenwick,
     /// Per function: its capture runs once its parent is finished.
-    runs: Vec<SmallVec<[Run; 2]>>,
+    runs: Vec<SmallVec<[Capture; 2]>>,
 }
 
 /// The analysis's work: a node to visit at a binder depth inside a function,
 /// or the end of a function's occurrences.
-enum Item {
+enum ScanItem {
     Visit(Id, u32, u32),
     End(u32),
 }
@@ -102,14 +102,14 @@ impl Tree {
             end: 0,
         });
         let mut parent: Vec<u32> = vec![NONE];
-        let mut stack = vec![Item::End(0), Item::Visit(root, 0, 0)];
+        let mut stack = vec![ScanItem::End(0), ScanItem::Visit(root, 0, 0)];
         while let Some(item) = stack.pop() {
             let (id, depth, f) = match item {
-                Item::End(f) => {
+                ScanItem::End(f) => {
                     self.scans[f as usize].end = self.occ.len() as u32;
                     continue;
                 }
-                Item::Visit(id, depth, f) => (id, depth, f),
+                ScanItem::Visit(id, depth, f) => (id, depth, f),
             };
             if id != root && image.is_shared(id) {
                 continue;
@@ -166,34 +166,38 @@ impl Tree {
                         end: 0,
                     });
                     parent.push(f);
-                    stack.push(Item::End(g));
-                    stack.push(Item::Visit(inner, depth.saturating_add(binders), g));
+                    stack.push(ScanItem::End(g));
+                    stack.push(ScanItem::Visit(inner, depth.saturating_add(binders), g));
                 }
                 INode::App(a, b) | INode::Let(a, b) => {
                     let inner = u32::from(matches!(image.node(id), INode::Let(..)));
-                    stack.push(Item::Visit(b, depth.saturating_add(inner), f));
-                    stack.push(Item::Visit(a, depth, f));
+                    stack.push(ScanItem::Visit(b, depth.saturating_add(inner), f));
+                    stack.push(ScanItem::Visit(a, depth, f));
                 }
                 INode::If(c, y, n) => {
-                    stack.extend([n, y, c].map(|x| Item::Visit(x, depth, f)));
+                    stack.extend([n, y, c].map(|x| ScanItem::Visit(x, depth, f)));
                 }
                 INode::Prim(op, start) => {
                     let ops = image.operands(op, start);
-                    stack.extend(ops.iter().rev().map(|&x| Item::Visit(x, depth, f)));
+                    stack.extend(ops.iter().rev().map(|&x| ScanItem::Visit(x, depth, f)));
                 }
                 INode::Con(_, start, len) => {
                     let fields = image.list(start, len);
-                    stack.extend(fields.iter().rev().map(|&x| Item::Visit(x, depth, f)));
+                    stack.extend(fields.iter().rev().map(|&x| ScanItem::Visit(x, depth, f)));
                 }
                 INode::Case(scrutinee, c) => {
                     let case = image.cases[c as usize];
                     if case.default != NONE {
-                        stack.push(Item::Visit(case.default, depth, f));
+                        stack.push(ScanItem::Visit(case.default, depth, f));
                     }
                     for arm in image.case_arms(&case).iter().rev() {
-                        stack.push(Item::Visit(arm.body, depth.saturating_add(arm.arity), f));
+                        stack.push(ScanItem::Visit(
+                            arm.body,
+                            depth.saturating_add(arm.arity),
+                            f,
+                        ));
                     }
-                    stack.push(Item::Visit(scrutinee, depth, f));
+                    stack.push(ScanItem::Visit(scrutinee, depth, f));
                 }
                 INode::Int(_) | INode::Bool(_) | INode::Str(_) => {}
             }
@@ -265,7 +269,7 @@ impl Tree {
             let captured = runs
                 .iter()
                 .map(|r| match *r {
-                    Run::Free { len, .. } | Run::Local { len, .. } => len,
+                    Capture::Free { len, .. } | Capture::Local { len, .. } => len,
                 })
                 .sum();
             if let Some(entry) = image.funcs.get_mut(func) {
@@ -377,12 +381,12 @@ impl Tree {
         }
         if let Some(h) = heavy {
             new.sort_unstable();
-            let mut runs: SmallVec<[Run; 2]> = SmallVec::new();
+            let mut runs: SmallVec<[Capture; 2]> = SmallVec::new();
             let mut next = 0;
             for &level in &new {
                 let rank = self.present.prefix(level as usize) as u32;
                 if rank > next {
-                    runs.push(Run::Free {
+                    runs.push(Capture::Free {
                         slot: next,
                         len: rank - next,
                     });
@@ -390,7 +394,7 @@ impl Tree {
                 next = rank + 1;
             }
             if captured > next {
-                runs.push(Run::Free {
+                runs.push(Capture::Free {
                     slot: next,
                     len: captured - next,
                 });
@@ -399,12 +403,12 @@ impl Tree {
             self.runs[h as usize] = runs;
         }
         for (g, free, local) in light_sets {
-            let mut runs: SmallVec<[Run; 2]> = SmallVec::new();
+            let mut runs: SmallVec<[Capture; 2]> = SmallVec::new();
             for level in free {
                 let rank = self.present.prefix(level as usize) as u32;
                 match runs.last_mut() {
-                    Some(Run::Free { slot, len }) if *slot + *len == rank => *len += 1,
-                    _ => runs.push(Run::Free { slot: rank, len: 1 }),
+                    Some(Capture::Free { slot, len }) if *slot + *len == rank => *len += 1,
+                    _ => runs.push(Capture::Free { slot: rank, len: 1 }),
                 }
             }
             local_runs(&mut runs, &local, self.scans[g as usize].d);
@@ -429,7 +433,7 @@ impl Tree {
 
 /// Append the runs of locals at the ascending `levels`, seen from a head
 /// whose first binder is at level `d`.
-fn local_runs(runs: &mut SmallVec<[Run; 2]>, levels: &[u32], d: u32) {
+fn local_runs(runs: &mut SmallVec<[Capture; 2]>, levels: &[u32], d: u32) {
     let mut k = 0;
     while k < levels.len() {
         let first = levels[k];
@@ -437,7 +441,7 @@ fn local_runs(runs: &mut SmallVec<[Run; 2]>, levels: &[u32], d: u32) {
         while k + (len as usize) < levels.len() && levels[k + len as usize] == first + len {
             len += 1;
         }
-        runs.push(Run::Local {
+        runs.push(Capture::Local {
             index: d - 1 - first,
             len,
         });
@@ -502,15 +506,15 @@ mod tests {
 
     /// What a closure of `func` captures, from its runs: for each captured
     /// value, the enclosing function's slot or a local's de Bruijn index.
-    fn sources(image: &Image, func: &Func) -> Vec<Run> {
+    fn sources(image: &Image, func: &Func) -> Vec<Capture> {
         let runs = &image.runs[func.runs as usize..(func.runs + func.runs_len) as usize];
         let mut out = Vec::new();
         for run in runs {
             match *run {
-                Run::Free { slot, len } => {
-                    out.extend((slot..slot + len).map(|s| Run::Free { slot: s, len: 1 }))
+                Capture::Free { slot, len } => {
+                    out.extend((slot..slot + len).map(|s| Capture::Free { slot: s, len: 1 }))
                 }
-                Run::Local { index, len } => out.extend((0..len).map(|k| Run::Local {
+                Capture::Local { index, len } => out.extend((0..len).map(|k| Capture::Local {
                     index: index - k,
                     len: 1,
                 })),
@@ -523,14 +527,14 @@ mod tests {
     /// Returns, per function head, its expected sources, and per variable
     /// node its expected slot.
     /// Per function head its capture sources, and per variable its slot.
-    type Naive = (Vec<(Id, Vec<Run>)>, Vec<(Id, u32)>);
+    type Naive = (Vec<(Id, Vec<Capture>)>, Vec<(Id, u32)>);
 
     /// A node to visit, its depth, and the enclosing functions' first levels
     /// and captured levels.
     type Visit = (Id, u32, Vec<(u32, Vec<u32>)>);
 
     fn naive(image: &Image) -> Naive {
-        let mut heads: Vec<(Id, Vec<Run>)> = Vec::new();
+        let mut heads: Vec<(Id, Vec<Capture>)> = Vec::new();
         let mut slots: Vec<(Id, u32)> = Vec::new();
         // Free levels of the function whose head is `head`: walk its body.
         fn free_levels(image: &Image, body: Id, depth: u32, d: u32, out: &mut Vec<u32>) {
@@ -592,12 +596,12 @@ mod tests {
                         .iter()
                         .map(|&l| {
                             if l < d {
-                                Run::Free {
+                                Capture::Free {
                                     slot: caps.iter().position(|&c| c == l).unwrap() as u32,
                                     len: 1,
                                 }
                             } else {
-                                Run::Local {
+                                Capture::Local {
                                     index: depth - 1 - l,
                                     len: 1,
                                 }
@@ -647,7 +651,7 @@ mod tests {
         let free_runs = image
             .runs
             .iter()
-            .filter(|r| matches!(r, Run::Free { .. }))
+            .filter(|r| matches!(r, Capture::Free { .. }))
             .count();
         let free_slots = image
             .nodes

@@ -89,7 +89,7 @@ fn starts_argument(tok: Tok<'_>) -> bool {
 /// An entry of the operand stack: a term, or a named function still
 /// collecting its arguments (it becomes a primitive once saturated).
 #[derive(Clone, Debug)]
-enum Operand<'a> {
+enum Pending<'a> {
     Term(&'a Term<'a>),
     Partial {
         function: Function,
@@ -155,7 +155,7 @@ enum Kind<'s, 'a> {
 /// One open construct: its kind and the state of the expression inside it,
 /// whose operands and operators sit on the shared stacks above the bases.
 #[derive(Clone, Copy, Debug)]
-struct Frame<'s, 'a> {
+struct Construct<'s, 'a> {
     kind: Kind<'s, 'a>,
     operands: usize,
     operators: usize,
@@ -184,13 +184,13 @@ struct TagUse<'a> {
 /// The names in scope, innermost last, with an index from each name to its
 /// innermost binder so lookups are O(1) however deep the nesting.
 #[derive(Default)]
-struct Scope<'s> {
+struct Bindings<'s> {
     /// Each binder's name and the depth of the binder it shadows.
     binders: Vec<(Option<&'s str>, Option<u32>)>,
     innermost: HashMap<&'s str, u32>,
 }
 
-impl<'s> Scope<'s> {
+impl<'s> Bindings<'s> {
     fn push(&mut self, name: Option<&'s str>, at: usize) -> Parsed<()> {
         let depth = u32::try_from(self.binders.len())
             .map_err(|_| Failure::new(at, "too many nested binders"))?;
@@ -225,8 +225,8 @@ pub(super) struct Parser<'s, 'a> {
     lexer: Lexer<'s>,
     token: Token<'s>,
     functions: Functions<'s>,
-    frames: Vec<Frame<'s, 'a>>,
-    operands: Vec<Operand<'a>>,
+    frames: Vec<Construct<'s, 'a>>,
+    operands: Vec<Pending<'a>>,
     operators: Vec<Operator>,
     fields: Vec<&'a Term<'a>>,
     arms: Vec<Arm<'a>>,
@@ -235,7 +235,7 @@ pub(super) struct Parser<'s, 'a> {
     /// `(case id, tag)` of every arm of every open case, to reject duplicates.
     arm_tags: HashSet<(u32, &'a str)>,
     tags: HashMap<&'s str, TagUse<'a>>,
-    scope: Scope<'s>,
+    scope: Bindings<'s>,
 }
 
 fn expected(what: &str, token: &Token<'_>) -> Failure {
@@ -294,7 +294,7 @@ impl<'s, 'a> Parser<'s, 'a> {
             next_case: 0,
             arm_tags: HashSet::new(),
             tags: HashMap::new(),
-            scope: Scope::default(),
+            scope: Bindings::default(),
         }
     }
 
@@ -332,13 +332,13 @@ impl<'s, 'a> Parser<'s, 'a> {
         }
     }
 
-    fn frame(&mut self) -> Parsed<&mut Frame<'s, 'a>> {
+    fn frame(&mut self) -> Parsed<&mut Construct<'s, 'a>> {
         let at = self.token.start;
         self.frames.last_mut().ok_or_else(|| bug(at))
     }
 
     fn push_frame(&mut self, kind: Kind<'s, 'a>) {
-        self.frames.push(Frame {
+        self.frames.push(Construct {
             kind,
             operands: self.operands.len(),
             operators: self.operators.len(),
@@ -550,7 +550,7 @@ impl<'s, 'a> Parser<'s, 'a> {
             let term = self.eta(function, &[]);
             return self.deliver(term);
         }
-        self.operands.push(Operand::Partial {
+        self.operands.push(Pending::Partial {
             function,
             args: SmallVec::new(),
         });
@@ -621,18 +621,18 @@ impl<'s, 'a> Parser<'s, 'a> {
         let frame = self.frames.last_mut().ok_or_else(|| bug(at))?;
         if !frame.after_operand {
             frame.after_operand = true;
-            self.operands.push(Operand::Term(term));
+            self.operands.push(Pending::Term(term));
             return Ok(());
         }
         let arena = self.arena;
         match self.operands.last_mut() {
-            Some(Operand::Term(head)) => *head = arena.app(head, term),
-            Some(Operand::Partial { function, args }) => {
+            Some(Pending::Term(head)) => *head = arena.app(head, term),
+            Some(Pending::Partial { function, args }) => {
                 args.push(term);
                 if args.len() >= function.arity {
                     let saturated = arena.prim(function.prim, args);
                     if let Some(top) = self.operands.last_mut() {
-                        *top = Operand::Term(saturated);
+                        *top = Pending::Term(saturated);
                     }
                 }
             }
@@ -643,18 +643,18 @@ impl<'s, 'a> Parser<'s, 'a> {
 
     /// Turn an unsaturated function at the top of the operand stack into a term.
     fn materialize(&mut self) {
-        if let Some(Operand::Partial { function, args }) = self.operands.last() {
+        if let Some(Pending::Partial { function, args }) = self.operands.last() {
             let term = self.eta(*function, args);
             if let Some(top) = self.operands.last_mut() {
-                *top = Operand::Term(term);
+                *top = Pending::Term(term);
             }
         }
     }
 
     fn pop_term(&mut self, at: usize) -> Parsed<&'a Term<'a>> {
         match self.operands.pop() {
-            Some(Operand::Term(term)) => Ok(term),
-            Some(Operand::Partial { function, args }) => Ok(self.eta(function, &args)),
+            Some(Pending::Term(term)) => Ok(term),
+            Some(Pending::Partial { function, args }) => Ok(self.eta(function, &args)),
             None => Err(bug(at)),
         }
     }
@@ -721,7 +721,7 @@ impl<'s, 'a> Parser<'s, 'a> {
                 }
             }
         };
-        self.operands.push(Operand::Term(term));
+        self.operands.push(Pending::Term(term));
         Ok(())
     }
 
