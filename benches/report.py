@@ -14,9 +14,21 @@ import argparse
 import json
 import math
 import os
+import re
 import sys
 
-MACHINE_ORDER = ["env", "cek", "stepper"]
+
+def machine_table():
+    """The machines' names, in the order of the machine table in
+    machines/mod.rs (fastest first): every list of machines comes from it."""
+    here = os.path.dirname(os.path.abspath(__file__))
+    with open(os.path.join(here, "..", "machines", "mod.rs")) as f:
+        source = f.read()
+    table = source.split("machine_table! {", 2)[-1].split("}", 1)[0]
+    return re.findall(r'^\s*"([a-z_]+)" =>', table, re.M)
+
+
+MACHINE_ORDER = machine_table()
 
 
 def load_estimates(root):
@@ -221,7 +233,7 @@ def median(estimates, group, function, value=None):
 
 
 def targets(estimates, contractions, root):
-    """The targets of DESIGN §3 and issue 4, each with the measured figure
+    """The performance targets, each with the measured figure
     and whether it is met."""
     lines = ["| target | measured | met |", "|---|---|---|"]
 

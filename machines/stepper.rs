@@ -77,7 +77,7 @@ pub struct Stepper {
 }
 
 /// A frame of the evaluation context, innermost last. Together with the
-/// focus they are the decomposition `E[t]` of DESIGN §1. A frame keeps only
+/// focus they are the decomposition `E[t]` of SEMANTICS §1.1. A frame keeps only
 /// what is still to be evaluated: the values to the left of an operand or
 /// field hole are on the value stack, and the operands already evaluated are
 /// not kept through their list.

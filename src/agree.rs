@@ -1,4 +1,4 @@
-//! The agreement promise of DESIGN §2 as a function: two reports agree when
+//! The agreement promise of SEMANTICS §3 as a function: two reports agree when
 //! they have the same outcome (values compared as de Bruijn terms, errors by
 //! kind) and the same per-rule contraction counts. Resource limits are
 //! reported, never compared.

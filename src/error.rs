@@ -5,7 +5,7 @@
 //! `#[non_exhaustive]` enum with `Display` from thiserror, so callers match
 //! kinds, never messages. This module uses nothing else of the crate.
 
-/// The stable kinds of evaluation error (a stuck term), DESIGN §1.
+/// The stable kinds of evaluation error (a stuck term), SEMANTICS §1.2.
 ///
 /// # Examples
 ///

@@ -1,4 +1,4 @@
-//! Host functions (DESIGN §1): primitives the embedding application
+//! Host functions (SEMANTICS §1.4): primitives the embedding application
 //! registers by name, with a fixed arity, a Rust function from argument data
 //! to a datum or a `host_error`, and an optional fuel cost computed from the
 //! arguments. A panic inside a host function is caught and becomes

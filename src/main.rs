@@ -1,4 +1,4 @@
-//! The `orrery` command line (DESIGN §5): run a program file on one machine or
+//! The `orrery` command line (SEMANTICS §6): run a program file on one machine or
 //! on all of them, print the outcome as text or JSON lines, and exit with a
 //! status that says how the run ended.
 
@@ -151,7 +151,7 @@ fn json_string(s: &str) -> String {
     out
 }
 
-/// One JSON line for a machine's report (DESIGN §5).
+/// One JSON line for a machine's report (SEMANTICS §6).
 fn json_line(machine: &str, report: &Report<'_>) -> String {
     let mut line = format!(
         "{{\"machine\":{},\"outcome\":\"{}\"",

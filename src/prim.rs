@@ -1,4 +1,4 @@
-//! The primitives of the calculus and their δ-rules (DESIGN §1): checked integer
+//! The primitives of the calculus and their δ-rules (SEMANTICS §1.3): checked integer
 //! arithmetic, comparisons, and string operations. Every machine calls [`delta`],
 //! so a primitive means the same thing, with the same error, everywhere.
 
@@ -316,7 +316,7 @@ fn mismatch(op: Prim, operands: &[Operand<'_>]) -> EvalError {
 }
 
 /// Bytes of string work that one unit of fuel pays for, beyond the first
-/// unit of every contraction (DESIGN §1's data-sized primitives).
+/// unit of every contraction (SEMANTICS §2's data-sized primitives).
 ///
 /// # Examples
 ///

@@ -1,4 +1,4 @@
-//! De Bruijn terms of the kernel calculus (DESIGN §1) allocated in a bump arena,
+//! De Bruijn terms of the kernel calculus (SEMANTICS §1) allocated in a bump arena,
 //! with the builder API. The nameless representation follows Pierce, *Types and
 //! Programming Languages* (2002), ch. 6; index 0 is the nearest enclosing binder.
 

@@ -1,4 +1,4 @@
-//! The shared vocabulary of every machine (DESIGN §2): limits, the rules and
+//! The shared vocabulary of every machine (SEMANTICS §3): limits, the rules and
 //! their contraction counts, outcomes, error and limit kinds, and the trait and
 //! enum through which a caller picks a machine.
 
@@ -226,7 +226,7 @@ impl PartialEq for Cancel {
 
 impl Eq for Cancel {}
 
-/// The contraction rules of DESIGN §1. Every contraction, and every attempted
+/// The contraction rules of SEMANTICS §1.2. Every contraction, and every attempted
 /// contraction that fails, is counted under exactly one of them.
 ///
 /// # Examples
@@ -253,7 +253,7 @@ pub enum Rule {
 }
 
 impl Rule {
-    /// Every rule, in the order of DESIGN §1 (and of the JSON output).
+    /// Every rule, in the order of SEMANTICS §1.2 (and of the JSON output).
     ///
     /// # Examples
     ///

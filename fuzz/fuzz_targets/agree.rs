@@ -1,6 +1,6 @@
 //! Fuzz target `agree`: arbitrary bytes decoded into a closed program (or,
 //! after a leading `#`, parsed as text) and run on every machine with small
-//! fuel and memory; the machines must agree (DESIGN §2). The checks live in
+//! fuel and memory; the machines must agree (SEMANTICS §3). The checks live in
 //! `tests/common/fuzz_checks.rs`, shared with the replay test.
 #![no_main]
 

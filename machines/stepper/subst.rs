@@ -1,7 +1,7 @@
 //! Substitution for the stepper (Pierce, *Types and Programming Languages*,
 //! 2002, §6.2): the contractum of beta, beta_rec, let and a case arm is the
-//! body with its innermost binders instantiated by closed values (DESIGN
-//! §1), so nothing is shifted. The walk is iterative, and each node's
+//! body with its innermost binders instantiated by closed values (SEMANTICS
+//! §1.2), so nothing is shifted. The walk is iterative, and each node's
 //! recorded scope lets it skip every subterm that holds none of the
 //! variables replaced: those are shared by id, as the values are, never
 //! copied.
@@ -43,8 +43,9 @@ impl State {
         }
     }
 
-    /// `body` with its innermost binders instantiated by `binds` (DESIGN
-    /// §1's contractum; the values are closed, so nothing is shifted).
+    /// `body` with its innermost binders instantiated by `binds` (the
+    /// contractum of SEMANTICS §1.2; the values are closed, so nothing is
+    /// shifted).
     /// Subterms whose scope shows they hold none of those variables are
     /// shared, not copied; only the rest of the body is rebuilt.
     pub(super) fn instantiate(

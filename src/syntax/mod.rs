@@ -1,4 +1,4 @@
-//! The text syntax of DESIGN §4: a parser from names to de Bruijn indices
+//! The text syntax of SEMANTICS §5: a parser from names to de Bruijn indices
 //! (Pierce, *Types and Programming Languages*, 2002, §6.1) and a printer back to
 //! names that never capture, both driven by explicit stacks so that no input
 //! depth can overflow the native stack.
