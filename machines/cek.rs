@@ -962,7 +962,7 @@ impl<'h> CekRun<'h> {
     /// `if a ⊙ b then …` with `⊙` an integer comparison of integer atoms,
     /// when the fuel slice covers both contractions: the outcome, the prim
     /// and the if paid, without the frame.
-    // Measured gain (callgrind): fib25 200.9M -> 158.9M instructions.
+    // Measured gain (callgrind; benches/README.md, "Fast paths"): fib25 200.9M -> 158.9M instructions.
     #[inline(always)]
     fn if_int_test<const M: bool>(&mut self, image: &Image, condition: Id) -> Option<bool> {
         let INode::Prim(op, start) = image.node(condition) else {
@@ -976,7 +976,7 @@ impl<'h> CekRun<'h> {
 
     /// `a ⊙ b` on integer atoms when it is an integer operation that does
     /// not fail and the fuel slice covers it: its value, without the frame.
-    // Measured gain (callgrind): fib25 165.4M -> 158.9M instructions.
+    // Measured gain (callgrind; benches/README.md, "Fast paths"): fib25 165.4M -> 158.9M instructions.
     #[inline(always)]
     fn prim_int_atoms<const M: bool>(
         &mut self,
@@ -994,7 +994,7 @@ impl<'h> CekRun<'h> {
     /// an integer operation on atoms is taken at once when the fuel slice
     /// covers the contractions; otherwise the argument is evaluated under a
     /// call frame.
-    // Measured gain (callgrind): fib25 209.7M -> 158.9M instructions.
+    // Measured gain (callgrind; benches/README.md, "Fast paths"): fib25 209.7M -> 158.9M instructions.
     #[inline(always)]
     fn apply_atom_function<const M: bool>(
         &mut self,
@@ -1225,7 +1225,7 @@ impl<'h> CekRun<'h> {
     /// operand stack and whose second is `value`, both integers, when it
     /// cannot fail and the fuel slice covers it: its value, paid, without
     /// the trip through the operand stack.
-    // Measured gain (callgrind): fib25 203.4M -> 158.9M instructions.
+    // Measured gain (callgrind; benches/README.md, "Fast paths"): fib25 203.4M -> 158.9M instructions.
     #[inline(always)]
     fn int_prim_last<const M: bool>(&mut self, op: Prim, at: u32, value: &Val) -> Option<Val> {
         let result = match (at, self.operands.last(), value) {

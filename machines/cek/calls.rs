@@ -76,7 +76,7 @@ impl CekRun<'_> {
 
     /// A function of one parameter, entered at once with its self (if it is
     /// recursive) and its argument as locals.
-    // Measured gain (callgrind): fib25 191.8M -> 158.9M instructions.
+    // Measured gain (callgrind; benches/README.md, "Fast paths"): fib25 191.8M -> 158.9M instructions.
     #[inline(always)]
     fn enter_unary<const M: bool>(
         &mut self,
@@ -108,7 +108,7 @@ impl CekRun<'_> {
     /// once); once `f` has all its parameters, enter its body; otherwise the
     /// partial application escapes as a closure. A loop, however long the
     /// chain.
-    // Measured gain (callgrind): a nine-parameter recursive function called
+    // Measured gain (callgrind; benches/README.md, "Fast paths"): a nine-parameter recursive function called
     // 100,000 times (more arguments than a spine takes) 1158.9M -> 368.5M.
     pub(super) fn step<const M: bool>(
         &mut self,
@@ -250,7 +250,7 @@ impl CekRun<'_> {
     /// application as its argument arrives, instead of an argument frame per
     /// argument (each keeping the environment) and a partial frame per
     /// application. `None` (nothing done) for any other application.
-    // Measured gain (callgrind, with `saturated_call`): tak18 84.1M -> 59.7M;
+    // Measured gain (callgrind, with `saturated_call`; benches/README.md, "Fast paths"): tak18 84.1M -> 59.7M;
     // church 65.2M -> 60.7M.
     #[inline(never)]
     pub(super) fn curried_call<const M: bool>(
@@ -313,7 +313,7 @@ impl CekRun<'_> {
     /// closure). Otherwise the leading such arguments are taken at once, if
     /// the fuel covers their contractions, their values left on the operand
     /// stack for a spine frame, and the rest is the frame's.
-    // Measured gain (callgrind): whole calls tak18 88.7M -> 59.7M, church 75.0M
+    // Measured gain (callgrind; benches/README.md, "Fast paths"): whole calls tak18 88.7M -> 59.7M, church 75.0M
     // -> 60.7M; leading arguments ackermann 689.1M -> 630.3M, tail 2069M -> 1897M.
     #[inline(always)]
     fn saturated_call<const M: bool>(

@@ -380,7 +380,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
         }
     }
 
-    /// Push the value of an atom. A fast path: room made first and a local
+    /// Push the value of an atom. A fast path (benches/README.md, "Fast paths"): room made first and a local
     /// cloned straight onto the stack, where through [`Interpreter::atom`] the
     /// value is rebuilt piece by piece (fib 25: 137.8M instructions without
     /// it, 133.5M with).
@@ -748,7 +748,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
     /// contracted): the code to evaluate next, an argument (with a
     /// `SPINE_ARG` task pushed) or the callee's body (entered). An argument
     /// that is an integer operation on atoms is made in place, a fast path
-    /// (tak 18 12 6: 56.2M instructions without it, 50.4M with).
+    /// (benches/README.md, "Fast paths"; tak 18 12 6: 56.2M instructions without it, 50.4M with).
     fn spine(&mut self, at: CodeId, mut k: u32) -> Result<CodeId, Halt> {
         let code = self.code;
         let Some(&Instr::AppN { args, tail, .. }) = code.code.get(at as usize) else {
@@ -1184,7 +1184,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
 }
 
 /// The position among `case`'s arms of its arm for a constructor of `tag`
-/// with `arity` fields. A fast path: a case without a lookup table scans its
+/// with `arity` fields. A fast path (benches/README.md, "Fast paths"): a case without a lookup table scans its
 /// few arms here, inlined, the others go through [`Image::find_arm`]
 /// (queens: 82.9M instructions without it, 81.0M with).
 #[inline(always)]
