@@ -9,9 +9,7 @@
 use std::sync::mpsc;
 use std::time::Duration;
 
-use orrery::machines::cek::Cek;
-use orrery::machines::stepper::Stepper;
-use orrery::{parse, print, Arena, Cancel, Limits, Machine, MachineKind, Outcome};
+use orrery::{parse, print, Arena, Cancel, Limits, MachineKind, Outcome};
 
 /// An outcome in a line: the value printed, or what stopped the run.
 fn describe(outcome: &Outcome<'_>) -> String {
@@ -36,52 +34,45 @@ count LOTS 0";
 
 fn main() {
     let arena = Arena::new();
-    let program = parse(&arena, &PRIME_LOTS.replace("LOTS", "60000")).expect("the example parses");
 
-    // 1. Pause and resume: slices of two million contractions on cek.
-    let slice = 2_000_000;
-    let mut run = Cek::start(&program, &Limits::default().with_fuel(0));
-    let mut pauses = 0;
-    let paused_end = loop {
-        let report = run.resume(slice, &arena);
-        match report.outcome {
-            Outcome::OutOfFuel => {
-                pauses += 1;
-                println!("paused after {:>10} contractions", report.counts.total());
+    // 1. Pause and resume, on every machine that can pause: slices of two
+    // million contractions (the reference stepper, the slow and simple
+    // machine, counts the lots below 3000 in slices of a hundred thousand).
+    for kind in MachineKind::enabled() {
+        let (lots, slice) = if kind.name() == "stepper" {
+            (3000, 100_000)
+        } else {
+            (60000, 2_000_000)
+        };
+        let program = parse(&arena, &PRIME_LOTS.replace("LOTS", &lots.to_string()))
+            .expect("the example parses");
+        let Some(mut run) = kind
+            .machine()
+            .start(&program, &Limits::default().with_fuel(0))
+        else {
+            println!("{}: cannot pause", kind.name());
+            continue;
+        };
+        let mut pauses = 0;
+        let paused_end = loop {
+            let report = run.resume(slice, &arena);
+            if report.outcome != Outcome::OutOfFuel {
+                break report;
             }
-            _ => break report,
-        }
-    };
-    let whole = Cek::new().run(&program, &Limits::default(), &arena);
-    println!(
-        "cek, resumed {pauses} times: {} prime lots, {} contractions (uninterrupted: {} in {})",
-        describe(&paused_end.outcome),
-        paused_end.counts.total(),
-        describe(&whole.outcome),
-        whole.counts.total()
-    );
-    assert_eq!(paused_end.outcome, whole.outcome);
-    assert_eq!(paused_end.counts, whole.counts);
-
-    // The reference stepper pauses the same way (a smaller count: it is the
-    // slow, simple machine).
-    let small = parse(&arena, &PRIME_LOTS.replace("LOTS", "3000")).expect("the example parses");
-    let mut stepped = Stepper::start(&small, &Limits::default().with_fuel(0));
-    let mut stepper_pauses = 0;
-    let stepped_end = loop {
-        let report = stepped.resume(100_000, &arena);
-        if report.outcome != Outcome::OutOfFuel {
-            break report;
-        }
-        stepper_pauses += 1;
-    };
-    let reference = Stepper::new().run(&small, &Limits::default(), &arena);
-    println!(
-        "stepper, resumed {stepper_pauses} times: {} prime lots below 3000, {} contractions, same as uninterrupted: {}",
-        describe(&stepped_end.outcome),
-        stepped_end.counts.total(),
-        stepped_end.outcome == reference.outcome && stepped_end.counts == reference.counts
-    );
+            pauses += 1;
+        };
+        let whole = kind.run(&program, &Limits::default(), &arena);
+        println!(
+            "{}, resumed {pauses} times: {} prime lots below {lots}, {} contractions (uninterrupted: {} in {})",
+            kind.name(),
+            describe(&paused_end.outcome),
+            paused_end.counts.total(),
+            describe(&whole.outcome),
+            whole.counts.total()
+        );
+        assert_eq!(paused_end.outcome, whole.outcome);
+        assert_eq!(paused_end.counts, whole.counts);
+    }
 
     // 2. Cancel: a run with no fuel bound to speak of, stopped from here.
     let cancel = Cancel::new();

@@ -7,10 +7,15 @@
 //! abort or a panic. Linux only: it reads `/proc/self/status`.
 //!
 //! A test without the default harness: `main` re-runs this executable once
-//! per case and machine, so no other test shares the process being measured.
+//! per case and machine, as many at once as there are cores, so no other
+//! test shares the process being measured.
 //! `ORRERY_ADVERSARY=name` runs only the cases whose name contains `name`.
 
-use std::process::Command;
+use std::io;
+use std::path::Path;
+use std::process::{Command, Output};
+use std::sync::atomic::{AtomicUsize, Ordering};
+use std::sync::Mutex;
 
 use orrery::{
     extract_within, parse_with, Arena, HostFunctions, LimitKind, Limits, MachineKind, Outcome,
@@ -268,26 +273,14 @@ fn child(name: &str, machine: &str) {
 /// arena (machines that cannot pause run whole).
 fn pauses(kind: MachineKind, program: &Program<'_>, limits: &Limits) -> (String, String) {
     let out = Arena::new();
-    #[cfg(any(feature = "stepper", feature = "cek"))]
-    let sliced = limits.clone().with_fuel(0);
-    let report: Report<'_> = match kind.name() {
-        #[cfg(feature = "stepper")]
-        "stepper" => {
-            let mut run = orrery::machines::stepper::Stepper::start(program, &sliced);
+    let report: Report<'_> = match kind.machine().start(program, &limits.clone().with_fuel(0)) {
+        Some(mut run) => {
             for _ in 0..300 {
                 run.resume(10, &out);
             }
             run.resume(u64::MAX / 2, &out)
         }
-        #[cfg(feature = "cek")]
-        "cek" => {
-            let mut run = orrery::machines::cek::Cek::start(program, &sliced);
-            for _ in 0..300 {
-                run.resume(10, &out);
-            }
-            run.resume(u64::MAX / 2, &out)
-        }
-        _ => kind.run(program, limits, &out),
+        None => kind.run(program, limits, &out),
     };
     let detail = match &report.outcome {
         Outcome::Value(v) => orrery::print(v),
@@ -316,6 +309,41 @@ fn expected_detail(name: &str) -> Option<&'static str> {
     }
 }
 
+/// Run a child for every job, as many at once as the machine has cores
+/// (each child measures its own resident memory, so they do not disturb
+/// one another's numbers), and return their outputs in the jobs' order.
+fn run_children(exe: &Path, jobs: &[(&Case, MachineKind)]) -> Vec<io::Result<Output>> {
+    let workers = std::thread::available_parallelism().map_or(1, |n| n.get());
+    let next = AtomicUsize::new(0);
+    let slots: Vec<Mutex<Option<io::Result<Output>>>> =
+        jobs.iter().map(|_| Mutex::new(None)).collect();
+    std::thread::scope(|scope| {
+        for _ in 0..workers.min(jobs.len()) {
+            scope.spawn(|| loop {
+                let i = next.fetch_add(1, Ordering::Relaxed);
+                let Some((case, machine)) = jobs.get(i) else {
+                    break;
+                };
+                let output = Command::new(exe)
+                    .args(["--child", case.name, machine.name()])
+                    .output();
+                if let Some(Ok(mut slot)) = slots.get(i).map(Mutex::lock) {
+                    *slot = Some(output);
+                }
+            });
+        }
+    });
+    slots
+        .into_iter()
+        .map(|slot| {
+            slot.into_inner()
+                .ok()
+                .flatten()
+                .unwrap_or_else(|| Err(io::Error::other("the child was never run")))
+        })
+        .collect()
+}
+
 fn main() {
     let args: Vec<String> = std::env::args().collect();
     if let [_, flag, name, machine] = args.as_slice() {
@@ -331,71 +359,71 @@ fn main() {
     let filter = std::env::var("ORRERY_ADVERSARY").unwrap_or_default();
     let exe = std::env::current_exe().expect("the test knows its own path");
     let mut failures = Vec::new();
-    for case in CASES.iter().filter(|c| c.name.contains(filter.as_str())) {
-        for machine in MachineKind::enabled() {
-            let output = Command::new(&exe)
-                .args(["--child", case.name, machine.name()])
-                .output()
-                .expect("the test can run itself");
-            let text = String::from_utf8_lossy(&output.stdout);
-            let fields: Vec<&str> = text.split_whitespace().collect();
-            let [baseline, peak, outcome, detail] = fields.as_slice() else {
-                failures.push(format!(
-                    "{} on {}: the child said {text:?} and ended {:?}: {}",
-                    case.name,
-                    machine.name(),
-                    output.status,
-                    String::from_utf8_lossy(&output.stderr)
-                ));
-                continue;
-            };
-            let (baseline, peak): (usize, usize) = (
-                baseline.parse().unwrap_or(0),
-                peak.parse().unwrap_or(usize::MAX),
-            );
-            let over = peak.saturating_sub(baseline);
-            println!(
-                "{:<26} {:<8} limit {:>4} MiB  growth {:>7.1} MiB ({:>3.0}% of the limit)  {outcome} {detail}",
+    let jobs: Vec<(&Case, MachineKind)> = CASES
+        .iter()
+        .filter(|c| c.name.contains(filter.as_str()))
+        .flat_map(|case| MachineKind::enabled().iter().map(move |&m| (case, m)))
+        .collect();
+    for ((case, machine), output) in jobs.iter().zip(run_children(&exe, &jobs)) {
+        let output = output.expect("the test can run itself");
+        let text = String::from_utf8_lossy(&output.stdout);
+        let fields: Vec<&str> = text.split_whitespace().collect();
+        let [baseline, peak, outcome, detail] = fields.as_slice() else {
+            failures.push(format!(
+                "{} on {}: the child said {text:?} and ended {:?}: {}",
                 case.name,
                 machine.name(),
-                case.limit / MIB,
-                over as f64 / MIB as f64,
-                100.0 * over as f64 / case.limit as f64
-            );
-            let ok = matches!(
-                (case.expect, *outcome),
-                (Expect::Memory, "memory")
-                    | (Expect::Value, "value")
-                    | (Expect::ValueOrMemory, "value" | "memory")
-                    | (Expect::OutOfFuel, "out_of_fuel")
-            );
-            if !ok {
+                output.status,
+                String::from_utf8_lossy(&output.stderr)
+            ));
+            continue;
+        };
+        let (baseline, peak): (usize, usize) = (
+            baseline.parse().unwrap_or(0),
+            peak.parse().unwrap_or(usize::MAX),
+        );
+        let over = peak.saturating_sub(baseline);
+        println!(
+            "{:<26} {:<8} limit {:>4} MiB  growth {:>7.1} MiB ({:>3.0}% of the limit)  {outcome} {detail}",
+            case.name,
+            machine.name(),
+            case.limit / MIB,
+            over as f64 / MIB as f64,
+            100.0 * over as f64 / case.limit as f64
+        );
+        let ok = matches!(
+            (case.expect, *outcome),
+            (Expect::Memory, "memory")
+                | (Expect::Value, "value")
+                | (Expect::ValueOrMemory, "value" | "memory")
+                | (Expect::OutOfFuel, "out_of_fuel")
+        );
+        if !ok {
+            failures.push(format!(
+                "{} on {}: ended {outcome} ({detail}), expected {:?}",
+                case.name,
+                machine.name(),
+                case.expect
+            ));
+        }
+        if let Some(want) = expected_detail(case.name) {
+            if *outcome == "value" && *detail != want {
                 failures.push(format!(
-                    "{} on {}: ended {outcome} ({detail}), expected {:?}",
+                    "{} on {}: gave {detail}, expected {want}",
                     case.name,
-                    machine.name(),
-                    case.expect
+                    machine.name()
                 ));
             }
-            if let Some(want) = expected_detail(case.name) {
-                if *outcome == "value" && *detail != want {
-                    failures.push(format!(
-                        "{} on {}: gave {detail}, expected {want}",
-                        case.name,
-                        machine.name()
-                    ));
-                }
-            }
-            // The allocator's own arenas and page rounding: a few MiB at most.
-            let allowed = case.limit + case.limit / 4 + 4 * MIB;
-            if over > allowed {
-                failures.push(format!(
-                    "{} on {}: resident memory grew by {over} bytes, more than 1.25 × the {}-byte limit",
-                    case.name,
-                    machine.name(),
-                    case.limit
-                ));
-            }
+        }
+        // The allocator's own arenas and page rounding: a few MiB at most.
+        let allowed = case.limit + case.limit / 4 + 4 * MIB;
+        if over > allowed {
+            failures.push(format!(
+                "{} on {}: resident memory grew by {over} bytes, more than 1.25 × the {}-byte limit",
+                case.name,
+                machine.name(),
+                case.limit
+            ));
         }
     }
     if !failures.is_empty() {

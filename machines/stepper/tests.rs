@@ -1,11 +1,13 @@
-//! The stepper's own tests: pausing at every fuel bound, the memory limit on
-//! deep terms, space per pending frame, strings shared by handle, host calls
-//! with a cost, read-back of shared values, cancellation inside one long
-//! contraction, and collections at every point of a run.
+//! The stepper's own tests: the size of its frames and nodes, the memory
+//! limit on deep terms, space per pending frame, strings shared by handle,
+//! read-back past the limit, cancellation inside one long contraction,
+//! collections at every point of a run, single steps, and a paused run moved
+//! between threads. What every machine must do is tested once, over the
+//! machine table, in `tests/`.
 
 use super::*;
 use crate::budget::POLL_WORK;
-use crate::{parse, parse_with, print, Cancel, Datum, ErrorKind, LimitKind, Node};
+use crate::{parse, parse_with, print, Cancel, Datum, LimitKind};
 
 fn program<'a>(arena: &'a Arena, source: &str) -> Program<'a> {
     parse(arena, source).expect("the test programs parse")
@@ -59,73 +61,8 @@ fn frames_and_nodes_are_small() {
     assert_eq!(NODE_BYTES, 20);
 }
 
-#[test]
-fn every_fuel_bound_pauses_and_resumes_to_the_uninterrupted_end() {
-    let host = host();
-    let arena = Arena::new();
-    let program = parse_with(&arena, MIXED, &host).unwrap();
-    let whole = Stepper::new().run(&program, &Limits::default(), &arena);
-    assert_eq!(
-        whole.outcome,
-        Outcome::Value(parse_term_in(
-            &arena,
-            r#"Triple(Cons(11, Cons(12, Cons(13, Cons(14, Nil)))), "ababab1", false)"#
-        ))
-    );
-    assert_eq!(whole.counts.extra_fuel(), 3);
-    let fuel = whole.counts.fuel();
-    for bound in 0..=fuel + 1 {
-        let limits = Limits::default().with_fuel(bound);
-        let cut = Stepper::new().run(&program, &limits, &arena);
-        if bound < fuel {
-            assert_eq!(cut.outcome, Outcome::OutOfFuel, "fuel {bound}");
-            assert!(cut.counts.fuel() <= bound, "fuel {bound}");
-        } else {
-            assert_eq!(cut, whole, "fuel {bound}");
-        }
-        // Paused at this bound, then resumed with the rest at once.
-        let mut run = Stepper::start(&program, &limits);
-        let paused = run.resume(0, &arena);
-        assert_eq!(paused, cut, "fuel {bound}");
-        let end = run.resume(fuel, &arena);
-        assert_eq!(end, whole, "fuel {bound}");
-        assert_eq!(
-            run.resume(5, &arena),
-            whole,
-            "an ended run reports its end again"
-        );
-    }
-    // Resumed one unit at a time.
-    for slice in [1, 2, 3] {
-        let mut run = Stepper::start(&program, &Limits::default().with_fuel(0));
-        let end = loop {
-            let report = run.resume(slice, &arena);
-            if report.outcome != Outcome::OutOfFuel {
-                break report;
-            }
-        };
-        assert_eq!(end, whole, "slices of {slice}");
-        assert!(run.is_finished());
-    }
-}
-
 fn parse_term_in<'a>(arena: &'a Arena, source: &str) -> &'a Term<'a> {
     crate::parse_term(arena, source).unwrap()
-}
-
-#[test]
-fn a_paused_run_holds_nothing_of_the_arenas_it_was_given() {
-    let arena = Arena::new();
-    let program = program(&arena, "let rec count n acc = if n == 0 then acc else count (n - 1) (Cons(n, acc)) in count 2000 Nil");
-    let mut run = Stepper::start(&program, &Limits::default().with_fuel(0));
-    let out = Arena::new();
-    for _ in 0..1000 {
-        assert_eq!(run.resume(7, &out).outcome, Outcome::OutOfFuel);
-    }
-    // Nothing was copied into `out` while paused.
-    assert_eq!(out.allocated_bytes(), 0);
-    let end = run.resume(u64::MAX / 2, &out);
-    assert!(matches!(end.outcome, Outcome::Value(_)));
 }
 
 /// `depth` nested applications of `wrap` around `leaf`.
@@ -245,95 +182,6 @@ fn a_big_live_string_is_shared_not_copied() {
 }
 
 #[test]
-fn host_calls_pay_their_cost_and_make_their_tags() {
-    let host = host();
-    let arena = Arena::new();
-    let call = parse_with(&arena, r#"pad "ab" 5"#, &host).unwrap();
-    let report = Stepper::new().run(&call, &Limits::default().with_fuel(5), &arena);
-    assert_eq!(
-        (report.outcome, report.counts.total()),
-        (Outcome::OutOfFuel, 0)
-    );
-    let report = Stepper::new().run(&call, &Limits::default().with_fuel(6), &arena);
-    assert_eq!(report.outcome, Outcome::Value(arena.string("ababababab")));
-    assert_eq!(
-        (report.counts.get(Rule::Prim), report.counts.extra_fuel()),
-        (1, 5)
-    );
-    let mut run = Stepper::start(&call, &Limits::default().with_fuel(3));
-    assert_eq!(run.resume(0, &arena).outcome, Outcome::OutOfFuel);
-    assert_eq!(run.fuel_left(), 3);
-    assert_eq!(run.resume(3, &arena), report);
-    // A tag the program lacks is the run's own: no arm matches it, and it
-    // reads back by name; a tag the program has is the program's.
-    for (source, value) in [
-        ("case wrap 5 of { Boxed(x) => x; _ => 0 }", "5"),
-        ("case wrap 5 of { Some(x) => x; _ => 0 }", "0"),
-        ("case some 5 of { Some(x) => x; _ => 0 }", "5"),
-        (
-            "Pair(wrap (wrap 1), wrap 2)",
-            "Pair(Boxed(Boxed(1)), Boxed(2))",
-        ),
-    ] {
-        let program = parse_with(&arena, source, &host).unwrap();
-        let report = Stepper::new().run(&program, &Limits::default(), &arena);
-        let Outcome::Value(v) = report.outcome else {
-            panic!("{source}: {:?}", report.outcome)
-        };
-        assert_eq!(print(v), value, "{source}");
-    }
-    // A function is not data: a type mismatch, for one unit.
-    let program = parse_with(&arena, r#"pad (\x. x) 2"#, &host).unwrap();
-    let report = Stepper::new().run(&program, &Limits::default(), &arena);
-    let Outcome::Error(e) = report.outcome else {
-        panic!()
-    };
-    assert_eq!(
-        (e.kind(), report.counts.fuel()),
-        (ErrorKind::TypeMismatch, 1)
-    );
-}
-
-#[test]
-fn shared_values_read_back_in_linear_size() {
-    let arena = Arena::new();
-    let program = program(
-        &arena,
-        "let rec dup n t = if n == 0 then t else dup (n - 1) (Pair(t, t)) in dup 60 1",
-    );
-    let out = Arena::new();
-    let report = Stepper::new().run(&program, &Limits::default(), &out);
-    let Outcome::Value(mut v) = report.outcome else {
-        panic!("{:?}", report.outcome)
-    };
-    assert!(
-        out.allocated_bytes() < 1 << 20,
-        "{} bytes",
-        out.allocated_bytes()
-    );
-    let mut depth = 0;
-    while let Node::Con("Pair", [l, r]) = v.node() {
-        assert!(
-            l.is_closed() && (std::ptr::eq(*l, *r) || depth == 59),
-            "one term, twice"
-        );
-        v = l;
-        depth += 1;
-    }
-    assert_eq!(depth, 60);
-    // As host data it would be 2^60 nodes: refused under the limit.
-    let host = host();
-    let program = parse_with(
-        &arena,
-        "let rec dup n t = if n == 0 then t else dup (n - 1) (Pair(t, t)) in wrap (dup 60 1)",
-        &host,
-    )
-    .unwrap();
-    let report = Stepper::new().run(&program, &Limits::default(), &arena);
-    assert!(is_memory(&report.outcome), "{:?}", report.outcome);
-}
-
-#[test]
 fn a_read_back_past_the_limit_is_the_memory_limit() {
     let arena = Arena::new();
     let program = program(&arena, "let rec build n acc = if n == 0 then acc else build (n - 1) (Cons(n, acc)) in build 100000 Nil");
@@ -418,18 +266,6 @@ fn collections_anywhere_change_nothing() {
         INode::Int(17711)
     );
     assert!(state.collections > 2);
-}
-
-#[test]
-fn a_tail_loop_runs_in_constant_memory() {
-    let arena = Arena::new();
-    let program = program(&arena, "let rec churn n acc = if n == 0 then acc else churn (n - 1) ((acc * 31 + n) % 1000003) in churn 1000000 0");
-    let (state, end) = reduce(&program, &Limits::default().with_memory(32 << 20));
-    assert_eq!(
-        state.heap.node(program.image(), end.unwrap()),
-        INode::Int(632_919)
-    );
-    assert!(state.budget.peak < 8 << 20, "peak {}", state.budget.peak);
 }
 
 #[test]

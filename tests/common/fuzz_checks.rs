@@ -1,12 +1,14 @@
 //! The properties the fuzz targets check, kept in one place so that the cargo
 //! fuzz targets (`fuzz/fuzz_targets/`) and the replay test
-//! (`tests/fuzz_replay.rs`) run exactly the same code. It depends on orrery
-//! alone, so the fuzz crate can include it by path.
+//! (`tests/suite/fuzz_replay.rs`) run exactly the same code. It depends on
+//! orrery alone, and brings the harness (`harness.rs`) with it by path, so
+//! the fuzz crate can include it by path.
 
-use orrery::{
-    disagreement, parse, parse_bytes, print_limited, Arena, Arm, Limits, MachineKind, Outcome,
-    Prim, Program, Report, Term,
-};
+#[path = "harness.rs"]
+pub mod harness;
+
+use harness::Harness;
+use orrery::{parse, parse_bytes, print_limited, Arena, Arm, Limits, Outcome, Prim, Program, Term};
 
 /// Fuel for each differential run: enough for short loops, small enough that
 /// a run takes microseconds.
@@ -90,10 +92,13 @@ fn round_trip(arena: &Arena, term: &Term<'_>, max_bytes: usize) {
 }
 
 /// Arbitrary bytes made into a closed program (text after [`TEXT_MARKER`],
-/// otherwise [`decode`]d), run on every enabled machine with [`FUEL`] and
-/// [`MEMORY`]: the machines must agree (DESIGN §2), each report must be
-/// consistent with the fuel it was given, and a run that ended after `n`
-/// contractions must run out of fuel, on every machine, given `n - 1`.
+/// otherwise [`decode`]d), run on every machine of the table with [`FUEL`]
+/// and [`MEMORY`] through the harness, which checks each report against
+/// the limits and compares every machine with the reference (SEMANTICS §3);
+/// a pausing machine resumed in small slices must end as its whole run did;
+/// and a run that ended after using `n` units of fuel must, on every
+/// machine, run out of fuel (or stop at a resource limit) given `n - 1`.
+/// Panics (the fuzzer's crash) with every failure found.
 pub fn check_agree(bytes: &[u8]) {
     let arena = Arena::new();
     let term = match bytes.split_first() {
@@ -113,112 +118,27 @@ pub fn check_agree(bytes: &[u8]) {
     };
     round_trip(&arena, term, ROUND_TRIP_BYTES);
     let limits = Limits::default().with_fuel(FUEL).with_memory(MEMORY);
-    let reports = run_all(&program, &limits, &arena);
-    let Some(steps) = reports
+    let mut h = Harness::new();
+    let name = "the input";
+    let whole = h.run(name, &program, &limits, &arena);
+    let Some(used) = whole
+        .runs
         .iter()
-        .find(|(_, r)| matches!(r.outcome, Outcome::Value(_) | Outcome::Error(_)))
-        .map(|(_, r)| r.counts.fuel())
+        .find(|r| matches!(r.report.outcome, Outcome::Value(_) | Outcome::Error(_)))
+        .map(|r| r.report.counts.fuel())
     else {
-        return;
+        return h.finish();
     };
-    check_pauses(
-        &program,
-        &limits,
-        &arena,
-        &reports,
-        1 + bytes.len() as u64 % 7,
-    );
-    if steps > 0 {
-        let shorter = limits.clone().with_fuel(steps - 1);
-        for (name, report) in run_all(&program, &shorter, &arena) {
-            assert!(
-                matches!(report.outcome, Outcome::OutOfFuel | Outcome::Limit(_)),
-                "{name} with fuel {} (one less than needed): {:?}",
-                steps - 1,
-                report.outcome
-            );
-        }
+    h.pauses(&whole, &program, 1 + bytes.len() as u64 % 7, &arena);
+    if used > 0 {
+        let shorter = h.run(name, &program, &limits.clone().with_fuel(used - 1), &arena);
+        h.expect(
+            &shorter,
+            "out of fuel or a resource limit, one unit short",
+            |r| matches!(r.outcome, Outcome::OutOfFuel | Outcome::Limit(_)),
+        );
     }
-}
-
-/// The pausing machines, resumed in slices of `slice` units from no fuel,
-/// must end exactly where their uninterrupted runs did (the same report,
-/// limits aside).
-fn check_pauses<'a>(
-    program: &Program<'a>,
-    limits: &Limits,
-    arena: &'a Arena,
-    reports: &[(&'static str, Report<'a>)],
-    slice: u64,
-) {
-    let start = limits.clone().with_fuel(0);
-    for (kind, (name, whole)) in MachineKind::enabled().iter().zip(reports) {
-        let Some(mut run) = kind.machine().start(program, &start) else {
-            continue;
-        };
-        let end = resumed_end(|more| run.resume(more, arena), limits.fuel, slice);
-        if let Some(why) = disagreement(whole, &end) {
-            panic!("{name} paused every {slice} units disagrees with its whole run: {why}");
-        }
-    }
-}
-
-/// Resume a paused run in slices of `slice` units until it ends or has been
-/// given `fuel` in all; its last report.
-fn resumed_end<'a>(mut resume: impl FnMut(u64) -> Report<'a>, fuel: u64, slice: u64) -> Report<'a> {
-    let mut given = 0;
-    let mut end = resume(0);
-    while end.outcome == Outcome::OutOfFuel && given < fuel {
-        let more = slice.min(fuel - given);
-        given += more;
-        end = resume(more);
-    }
-    end
-}
-
-/// Run `program` on every enabled machine, check each report against the
-/// limits and every pair of reports against each other, and return them.
-fn run_all<'a>(
-    program: &Program<'a>,
-    limits: &Limits,
-    arena: &'a Arena,
-) -> Vec<(&'static str, Report<'a>)> {
-    let reports: Vec<(&'static str, Report<'a>)> = MachineKind::enabled()
-        .iter()
-        .map(|m| (m.name(), m.run(program, limits, arena)))
-        .collect();
-    for (name, report) in &reports {
-        let total = report.counts.total();
-        match report.outcome {
-            Outcome::Value(v) => {
-                assert!(v.is_value() && v.is_closed(), "{name}: not a closed value");
-                assert!(total <= limits.fuel, "{name}: {total} contractions");
-            }
-            Outcome::Error(_) => {
-                assert!(total >= 1 && total <= limits.fuel, "{name}: {total}");
-            }
-            // Out of fuel: the next contraction needed more than was left
-            // (one unit, or a data-sized primitive's or host call's units).
-            Outcome::OutOfFuel => {
-                let fuel = report.counts.fuel();
-                assert!(
-                    fuel <= limits.fuel,
-                    "{name}: used {fuel} of {}",
-                    limits.fuel
-                );
-            }
-            Outcome::Limit(_) => assert!(total <= limits.fuel, "{name}: {total}"),
-            Outcome::Fault(ref f) => panic!("{name}: {f}"),
-        }
-    }
-    for (i, (first, a)) in reports.iter().enumerate() {
-        for (second, b) in &reports[i + 1..] {
-            if let Some(why) = disagreement(a, b) {
-                panic!("{first} and {second} disagree: {why}\n{a:?}\n{b:?}");
-            }
-        }
-    }
-    reports
+    h.finish();
 }
 
 /// Constructor tags the decoder uses, each with its one arity.
@@ -243,7 +163,7 @@ const MAX_NODES: u32 = 4_000;
 
 /// How many shared subterms one input may build. The env machine compiles a
 /// shared subterm once per occurrence (stopping at the memory limit; see
-/// `tests/hostile.rs`), so deeper sharing only tests that limit again.
+/// `tests/suite/hostile.rs`), so deeper sharing only tests that limit again.
 const MAX_SHARES: u32 = 8;
 
 /// Decode bytes into a closed, valid term through the builder API, so almost

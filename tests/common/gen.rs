@@ -149,7 +149,7 @@ fn fill<'a>(arena: &'a Arena, args: &[Gen], arity: usize, depth: u32) -> Vec<&'a
         .collect()
 }
 
-/// Whether `t` is a redex of DESIGN §1 (a contraction can be attempted on it).
+/// Whether `t` is a redex of SEMANTICS §1.2 (a contraction can be attempted on it).
 pub fn is_redex(t: &Term<'_>) -> bool {
     match *t.node() {
         Node::App(f, a) => f.is_value() && a.is_value(),
@@ -159,7 +159,7 @@ pub fn is_redex(t: &Term<'_>) -> bool {
     }
 }
 
-/// Every redex `r` with `t = E[r]` for an evaluation context `E` of DESIGN §1,
+/// Every redex `r` with `t = E[r]` for an evaluation context `E` of SEMANTICS §1.1,
 /// found by trying every production of the grammar of `E` (no determinism
 /// assumed: this is what the determinism property checks).
 pub fn all_decompositions<'a>(t: &'a Term<'a>) -> Vec<&'a Term<'a>> {

@@ -2,37 +2,22 @@
 //! spines, wide constructors and case arms, heavy sharing, big strings, many
 //! bindings — at random sizes, under random memory limits: every machine
 //! ends with an outcome (never a panic), the machines that are not stopped by
-//! a resource limit agree with each other exactly (value, counts, extra fuel),
-//! and a memory limit never lets a machine's own accounting pass it.
+//! a resource limit agree with the stepper exactly (value, counts, extra fuel),
+//! and a memory limit never lets a machine's own accounting pass it: each
+//! run goes through the harness.
 
-mod common;
-
-use orrery::{disagreement, parse, Arena, Arm, Limits, MachineKind, Outcome, Program, Report};
+use orrery::{parse, Arena, Arm, Limits, Outcome, Program};
 use proptest::prelude::*;
 
-/// Run `program` on every machine under `limits`; the machines that end
-/// without a resource limit must agree.
+use crate::common::harness::Harness;
+
+/// Run `program` on every machine under `limits` through the harness: the
+/// machines that end without a resource limit agree with the stepper, and
+/// each report holds to the limits.
 fn check(program: &Program<'_>, limits: &Limits, arena: &Arena) -> Result<(), TestCaseError> {
-    let reports: Vec<(&str, Report<'_>)> = MachineKind::enabled()
-        .iter()
-        .map(|m| (m.name(), m.run(program, limits, arena)))
-        .collect();
-    let finished: Vec<&(&str, Report<'_>)> = reports
-        .iter()
-        .filter(|(_, r)| !matches!(r.outcome, Outcome::Limit(_)))
-        .collect();
-    for pair in finished.windows(2) {
-        let ((a, ra), (b, rb)) = (pair[0], pair[1]);
-        if let Some(why) = disagreement(ra, rb) {
-            return Err(TestCaseError::fail(format!(
-                "{a} and {b} disagree: {why}\n{a}: {ra:?}\n{b}: {rb:?}"
-            )));
-        }
-    }
-    for (_, r) in &reports {
-        prop_assert!(r.counts.total() <= limits.fuel);
-    }
-    Ok(())
+    let mut h = Harness::new();
+    h.run("the shape", program, limits, arena);
+    h.into_result().map_err(TestCaseError::fail)
 }
 
 /// `\x. 1 + (1 + (… x))`, `depth` deep, applied `calls` times in a sum.
@@ -136,11 +121,14 @@ proptest! {
         // Enough of everything: every machine finishes, paying for the sizes.
         if k <= 16 {
             let roomy = Limits::default().with_memory(1 << 28);
-            let report = MachineKind::fastest().unwrap().run(&program, &roomy, &arena);
-            prop_assert!(matches!(report.outcome, Outcome::Value(_)));
+            let mut h = Harness::new();
+            let runs = h.run("big strings, roomy", &program, &roomy, &arena);
+            h.expect(&runs, "a value", |r| matches!(r.outcome, Outcome::Value(_)));
             // Each doubling of a string of n bytes pays 1 + 2n/1024; so does
             // each round's ++, and its < and length pay for n bytes.
-            prop_assert!(report.counts.extra_fuel() >= u64::from(rounds) * ((2u64 << k) / 1024));
+            let least = u64::from(rounds) * ((2u64 << k) / 1024);
+            h.expect(&runs, &format!("extra fuel of at least {least}"), |r| r.counts.extra_fuel() >= least);
+            h.into_result().map_err(TestCaseError::fail)?;
         }
     }
 
@@ -158,13 +146,13 @@ proptest! {
 fn closures_under_many_bindings_fit_a_small_limit() {
     let arena = Arena::new();
     let program = parse(&arena, &bindings(20_000, 2_000)).unwrap();
-    for machine in MachineKind::enabled() {
-        let report = machine.run(&program, &limits(8 << 20), &arena);
-        assert_eq!(
-            report.outcome,
-            Outcome::Value(arena.int(1)),
-            "{}",
-            machine.name()
-        );
-    }
+    let mut h = Harness::new();
+    let runs = h.run(
+        "closures under many lets",
+        &program,
+        &limits(8 << 20),
+        &arena,
+    );
+    h.expect_ending(&runs, "value 1");
+    h.finish();
 }

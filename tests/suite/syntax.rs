@@ -1,15 +1,15 @@
-//! Tests of the text syntax (DESIGN §4): desugarings, precedence, η-expansion,
-//! error positions, nesting a million deep on small stacks, printing of shared
+//! Tests of the text syntax (SEMANTICS §5): desugarings, precedence, η-expansion,
+//! error positions, nesting 200,000 deep on small stacks, printing of shared
 //! terms, the nameless forms of Pierce's *TAPL* §6.1, and property tests that
 //! printing then parsing gives back the same de Bruijn term.
-
-use std::time::{Duration, Instant};
 
 use orrery::{
     parse, parse_bytes, parse_term, print, print_limited, terms_equal, validate, Arena, Arm, Prim,
     SyntaxError, Term, PRINT_LIMIT,
 };
 use proptest::prelude::*;
+
+use crate::common::on_small_stack;
 
 // ----- helpers -----------------------------------------------------------
 
@@ -81,17 +81,6 @@ fn round_trip(term: &Term<'_>) -> String {
         printed.text
     );
     printed.text
-}
-
-/// Run `f` on a thread with a 2 MiB stack, as test threads get: a recursive
-/// parser or printer would overflow on the inputs below.
-fn on_small_stack<F: FnOnce() + Send + 'static>(f: F) {
-    std::thread::Builder::new()
-        .stack_size(2 << 20)
-        .spawn(f)
-        .expect("spawn")
-        .join()
-        .expect("the test thread panicked");
 }
 
 fn add<'a>(a: &'a Arena, x: &'a Term<'a>, y: &'a Term<'a>) -> &'a Term<'a> {
@@ -720,7 +709,6 @@ fn shared_dag_prints_truncated_quickly() {
     for _ in 0..60 {
         t = a.app(t, t);
     }
-    let started = Instant::now();
     let text = print(t);
     assert!(text.ends_with(" …[truncated]"));
     assert!(text.len() <= PRINT_LIMIT + " …[truncated]".len());
@@ -732,11 +720,6 @@ fn shared_dag_prints_truncated_quickly() {
     let small = print_limited(t, 100);
     assert!(small.truncated);
     assert!(small.text.len() <= 100 + " …[truncated]".len());
-    assert!(
-        started.elapsed() < Duration::from_secs(10),
-        "printing took {:?}",
-        started.elapsed()
-    );
 }
 
 // ----- Pierce, TAPL (2002), §6.1, exercise 6.1.1 --------------------------
@@ -768,6 +751,16 @@ fn tapl_6_1_1_plus() {
 }
 
 #[test]
+fn tapl_5_2_plus() {
+    // Pierce, TAPL (2002), §6.1, exercise 6.1.1 (solutions from memory), on
+    // plus as §5.2 defines it: λm.λn.λs.λz. m s (n s z)  →  λ.λ.λ.λ. 3 1 (2 1 0)
+    same("\\m n s z. m s (n s z)", |a| {
+        let n_s_z = a.app(a.app(a.var(2), a.var(1)), a.var(0));
+        a.lam(a.lam(a.lam(a.lam(a.app(a.app(a.var(3), a.var(1)), n_s_z)))))
+    });
+}
+
+#[test]
 fn tapl_6_1_1_fix() {
     // fix = λf. (λx. f (λy. (x x) y)) (λx. f (λy. (x x) y))
     //     →  λ. (λ. 1 (λ. (1 1) 0)) (λ. 1 (λ. (1 1) 0))
@@ -788,9 +781,14 @@ fn tapl_6_1_1_foo() {
     });
 }
 
-// ----- a million levels deep, on a 2 MiB stack ---------------------------
+// ----- 200,000 levels deep, on a 2 MiB stack -----------------------------
 
-const DEEP: usize = 1_000_000;
+/// How deep the programs below nest. A recursive parser or printer would
+/// overflow a 2 MiB stack long before: at 100 bytes a frame it holds about
+/// 20,000 levels. (`hostile.rs` parses and runs programs a million deep; here
+/// each one is also printed in full and parsed again, so a smaller depth
+/// keeps the suite quick.)
+const DEEP: usize = 200_000;
 
 /// Parse `source` (built on the small stack), print it in full, parse the
 /// print, and compare; return the parsed term's printed text.
@@ -908,7 +906,7 @@ fn long_operator_chains() {
 fn deep_unclosed_input_fails_cleanly() {
     on_small_stack(|| {
         let e = error(&repeat("(", DEEP));
-        assert_eq!((e.line, e.column), (1, 1_000_001));
+        assert_eq!((e.line, e.column), (1, DEEP as u32 + 1));
         assert!(e.message.contains("unexpected end of input"));
         let e = error(&format!("{}1", repeat("S(", DEEP)));
         assert!(e.message.contains("expected `,` or `)`"), "{e}");

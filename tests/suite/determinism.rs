@@ -1,11 +1,10 @@
 //! Determinism of call-by-value reduction (Plotkin, "Call-by-name,
 //! call-by-value and the λ-calculus", 1975): every closed term that is not a
 //! value has exactly one decomposition into an evaluation context and a redex,
-//! and the stepper contracts exactly that redex.
+//! and the stepper contracts exactly that redex. It needs the stepper's single
+//! steps, so it is built with the `stepper` feature only.
 
-mod common;
-
-use common::gen::{all_decompositions, build, program};
+use crate::common::gen::{all_decompositions, build, program};
 use orrery::machines::stepper::{step, Step};
 use orrery::{Arena, Program};
 use proptest::prelude::*;

@@ -3,13 +3,12 @@
 //! every failure a fuzzer ever found (`tests/fuzz-crashes/<target>/`, each
 //! with its cause written in [`CRASHES`]), and a few thousand inputs from a
 //! fixed pseudo-random stream. The checks are `tests/common/fuzz_checks.rs`,
-//! the very code the fuzz targets run.
-
-mod common;
+//! the very code the fuzz targets run, which
+//! goes through the one harness.
 
 use std::path::{Path, PathBuf};
 
-use common::fuzz_checks::{check_agree, check_parse};
+use crate::common::fuzz_checks::{check_agree, check_parse};
 
 /// Every saved fuzzer failure: target, file name under
 /// `tests/fuzz-crashes/<target>/`, and what caused it. The test below fails
