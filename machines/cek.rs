@@ -22,8 +22,9 @@
 //!
 //! Memory is enforced where it grows: a push that would reallocate a stack
 //! and every cell made (closure, constructor, string) is checked first
-//! against the limit, counting the image, the stacks' capacities and the
-//! live cells.
+//! against the limit, counting the stacks' capacities, the live cells and
+//! any tags a host made up (the program's image is the caller's and not
+//! counted).
 
 mod calls;
 #[cfg(test)]
@@ -337,8 +338,7 @@ pub struct CekRun<'h> {
     budget: Budget,
     /// The run's constructor tags (the image's, and any a host made up).
     tags: Tags,
-    /// Bytes the image holds, as the memory limit counts them.
-    /// Bytes held besides the stacks and cells: the image and the tags.
+    /// Bytes held besides the stacks and cells: the tags a host made up.
     fixed: usize,
     /// The live cells of this run, while it runs.
     meter: Meter,

@@ -36,8 +36,8 @@
 //! **Limits.** Fuel and cancellation go through the run's budget; the
 //! compiler polls cancellation per node. The compiler and the interpreter
 //! grow every vector only within the memory limit (checked when a push
-//! would reallocate), which counts the image, the code, the stacks by
-//! capacity, the live cells and the read-back; near the limit a stack grows
+//! would reallocate), which counts the code, the stacks by capacity,
+//! the live cells and the read-back; near the limit a stack grows
 //! by an eighth rather than doubling. The env machine does not pause: out of
 //! fuel ends the run.
 

@@ -153,9 +153,10 @@ pub(super) struct Interpreter<'c, 'h, const METERED: bool> {
 }
 
 impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
-    /// Interpreter `code` to its value and read it back into `out`, with the stacks
+    /// Run `code` to its value and read it back into `out`, with the stacks
     /// of `stacks` (emptied and kept again afterwards). The run holds
-    /// `fixed` bytes of image and code besides its own.
+    /// `fixed` bytes of compiled code besides its own (the image is the
+    /// caller's and not counted).
     pub(super) fn evaluate<'o>(
         code: &'c Compiled,
         image: &'c Image,

@@ -161,9 +161,10 @@ const MAX_DEPTH: u32 = 40;
 /// How many nodes the decoder builds before it builds only leaves.
 const MAX_NODES: u32 = 4_000;
 
-/// How many shared subterms one input may build. The env machine compiles a
-/// shared subterm once per occurrence (stopping at the memory limit; see
-/// `tests/suite/hostile.rs`), so deeper sharing only tests that limit again.
+/// How many shared subterms one input may build. The program image keeps
+/// closed shared subterms shared but unfolds open ones into a tree (refused
+/// past `MAX_NODES` nodes; see `tests/suite/hostile.rs`), so deeper sharing
+/// only tests that bound again.
 const MAX_SHARES: u32 = 8;
 
 /// Decode bytes into a closed, valid term through the builder API, so almost

@@ -495,10 +495,11 @@ fn a_term_of_tree_size_two_to_the_sixty_validates_compares_prints_copies_and_run
     assert!(shared_pairs(&other, other.int(2), 60) != t);
     let printed = print_limited(t, 4096);
     assert!(printed.truncated && printed.text.starts_with("Pair(Pair("));
-    // The stepper hands the value back as it is; cek makes it runtime data
-    // (a tree) and stops at the memory limit; env compiles a program's
-    // shared subterms once per path to them, so its compiler stops at the
-    // memory limit (this once aborted the process on an allocation failure).
+    // The stepper hands the value back as it is. The program image keeps
+    // the closed shared subterms shared, so preparing it costs its size;
+    // env and cek then build the value as runtime data, one cell per path,
+    // and stop at the memory limit (env's compiler once aborted the process
+    // here on an allocation failure).
     let mut h = Harness::new();
     let limits = Limits::default().with_memory(16 << 20);
     let runs = h.run("2^60 pairs", &program, &limits, &arena);
