@@ -191,7 +191,7 @@ impl EvalError {
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, thiserror::Error)]
 #[non_exhaustive]
 pub enum LimitKind {
-    /// The run needed more runtime memory than [`Limits::memory`].
+    /// The run needed more runtime memory than [`Limits::memory`](crate::Limits::memory).
     #[error("memory limit")]
     Memory,
     /// The run was cancelled from outside.
@@ -349,7 +349,7 @@ impl Fault {
 }
 
 /// What a primitive sees of one operand: machines translate their own value
-/// representation into this view before calling [`delta`].
+/// representation into this view before calling [`delta`](crate::delta).
 ///
 /// # Examples
 ///

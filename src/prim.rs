@@ -149,7 +149,7 @@ impl fmt::Display for Prim {
 }
 
 /// A host function's identity inside terms: its place in its
-/// [`HostFunctions`] table and its arity. Terms carry it as
+/// [`HostFunctions`](crate::HostFunctions) table and its arity. Terms carry it as
 /// [`Prim::Host`]; [`crate::Program::with_host`] checks it against the table.
 ///
 /// # Examples

@@ -39,7 +39,7 @@ pub const DEFAULT_MEMORY: usize = 256 << 20;
 ///   by substitution, environments, closures, continuation frames, strings).
 ///   The program's own arena and the caller's output arena are not counted.
 /// * `cancel` — an optional [`Cancel`] handle; once another thread cancels it,
-///   the run stops with [`LimitKind::Cancelled`] within
+///   the run stops with [`LimitKind::Cancelled`](crate::LimitKind::Cancelled) within
 ///   [`CANCEL_POLL_INTERVAL`] further contractions.
 ///
 /// # Examples
@@ -152,7 +152,7 @@ pub const CANCEL_POLL_INTERVAL: u64 = 1024;
 
 /// A cancellation handle: cheap to clone, shared between threads. Cancelling
 /// it stops every run whose [`Limits`] hold a clone of it, with the
-/// [`LimitKind::Cancelled`] limit, within [`CANCEL_POLL_INTERVAL`]
+/// [`LimitKind::Cancelled`](crate::LimitKind::Cancelled) limit, within [`CANCEL_POLL_INTERVAL`]
 /// contractions. Cancelling is permanent for the handle.
 ///
 /// # Examples
