@@ -10,7 +10,6 @@
 
 use std::rc::Rc;
 
-use smallvec::SmallVec;
 
 use super::{broken, closure_bytes, closure_rule, int_pair, CekRun, Control, Environment, ContinuationFrame, Fun, Val};
 use crate::budget::Halt;
@@ -261,17 +260,32 @@ impl CekRun<'_> {
         inner: Id,
     ) -> Result<Option<Control>, Halt> {
         // The arguments, last first: the last two are known.
-        let mut args: SmallVec<[Id; INLINE_ARGS]> = SmallVec::new();
-        args.extend_from_slice(&last);
+        // A fixed array for the usual few, a vector past it (a `SmallVec`
+        // here cost tak18 +7%: 58.4M -> 62.8M instructions).
+        // A fixed array for the usual few; a longer chain (up to the
+        // analysis' bound) is gathered again into a vector, off the hot path
+        // (gathering into a `SmallVec` cost tak18 +7%: 58.4M -> 62.8M).
+        let mut inline = [0 as Id; INLINE_ARGS];
+        inline[0] = last[0];
+        inline[1] = last[1];
+        let mut m = 2;
         let mut head = image.node(inner);
+        let mut long = Vec::new();
         while let INode::App(function, a) = head {
-            if args.len() >= MAX_CHAIN as usize {
-                return Ok(None);
-            }
-            args.push(a);
+            let Some(slot) = inline.get_mut(m) else {
+                long = long_chain(image, last, inner);
+                if long.is_empty() {
+                    return Ok(None);
+                }
+                m = long.len();
+                head = image.node(spine_head(image, inner));
+                break;
+            };
+            *slot = a;
+            m += 1;
             head = image.node(function);
         }
-        let m = args.len();
+        let args: &[Id] = if long.is_empty() { &inline[..m] } else { &long };
         let Some(Value::Fun(closure)) = self.atom_of(head)? else {
             return Ok(None);
         };
@@ -281,7 +295,6 @@ impl CekRun<'_> {
         if f.params.checked_sub(closure.applied) != Some(m as u32) {
             return Ok(None);
         }
-        let args = &args[..m];
         let lead = match self.saturated_call::<M>(image, &closure, &f, args)? {
             Taken::Whole => {
                 self.env = Environment {
@@ -504,3 +517,30 @@ fn spine_arg(image: &Image, term: Id, back: u32) -> Id {
         _ => term,
     }
 }
+
+/// The arguments of the curried call `f a₁ … aₘ` above `inner`, last first
+/// (`last` holds `aₘ` and `aₘ₋₁`), when `m` is past [`INLINE_ARGS`]; empty
+/// past [`MAX_CHAIN`], the analysis' bound on a function's parameters.
+#[cold]
+fn long_chain(image: &Image, last: [Id; 2], inner: Id) -> Vec<Id> {
+    let mut args = last.to_vec();
+    let mut head = image.node(inner);
+    while let INode::App(function, a) = head {
+        if args.len() >= MAX_CHAIN as usize {
+            return Vec::new();
+        }
+        args.push(a);
+        head = image.node(function);
+    }
+    args
+}
+
+/// The head `f` of the application spine above `inner`.
+fn spine_head(image: &Image, inner: Id) -> Id {
+    let mut id = inner;
+    while let INode::App(function, _) = image.node(id) {
+        id = function;
+    }
+    id
+}
+
