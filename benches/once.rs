@@ -5,7 +5,7 @@
 
 use std::process::ExitCode;
 
-use orrery::{print, Arena, Machine, MachineKind, Outcome};
+use orrery::{Arena, Machine, MachineKind, Outcome};
 
 // Each bench target uses a part of the shared workloads.
 #[allow(dead_code)]
@@ -66,10 +66,9 @@ fn main() -> ExitCode {
     };
     let arena = Arena::new();
     let program = program(&arena, &source);
-    let out = Arena::new();
-    let report = runner.run(&program, &unlimited(), &out);
+    let report = runner.run(&program, &unlimited());
     match report.outcome {
-        Outcome::Value(v) if print(v) == expected => {
+        Outcome::Value(v) if v.to_string() == expected => {
             println!(
                 "{name} on {machine}: {} contractions",
                 report.counts.total()

@@ -42,13 +42,13 @@ fn child(name: &str) -> ExitCode {
     let started = Instant::now();
     // Each machine reports its own peak of runtime bytes too.
     let mut machine = kind.machine();
-    let report = machine.run(&program, &unlimited(), &arena);
+    let report = machine.run(&program, &unlimited());
     let peak_bytes = Some(machine.peak_bytes());
     let seconds = started.elapsed().as_secs_f64();
     let peak = status_bytes("VmHWM:").unwrap_or(0);
     let outcome = match &report.outcome {
-        Outcome::Value(v) if orrery::print(v) == expected => "value".to_string(),
-        Outcome::Value(v) => format!("wrong value {}", orrery::print(v)),
+        Outcome::Value(v) if v.to_string() == expected => "value".to_string(),
+        Outcome::Value(v) => format!("wrong value {v}"),
         other => other.name().to_string(),
     };
     let peak_bytes = peak_bytes.map_or("-".to_string(), |b: usize| b.to_string());

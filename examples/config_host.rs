@@ -5,7 +5,7 @@
 //!
 //! Run with `cargo run --example config_host [FILE]`.
 
-use orrery::{extract, parse, Arena, ConvertError, Datum, FromDatum, Limits, MachineKind, Outcome};
+use orrery::{ConvertError, Datum, FromDatum, Limits, MachineKind, Outcome, Program};
 
 /// One glasshouse zone, as the application wants it.
 #[derive(Debug)]
@@ -57,8 +57,7 @@ fn main() {
             std::process::exit(1);
         }
     };
-    let arena = Arena::new();
-    let program = match parse(&arena, &source) {
+    let program = match Program::parse(&source) {
         Ok(p) => p,
         Err(e) => {
             // `FILE:LINE:COL: message`, the line, and a caret.
@@ -72,7 +71,7 @@ fn main() {
         eprintln!("no machine enabled in this build");
         std::process::exit(1);
     };
-    let report = machine.run(&program, &limits, &arena);
+    let report = machine.run(&program, &limits);
     let value = match report.outcome {
         Outcome::Value(v) => v,
         Outcome::Error(e) => {
@@ -95,7 +94,7 @@ fn main() {
             std::process::exit(1);
         }
     };
-    let zones: Vec<Zone> = match extract(value) {
+    let zones: Vec<Zone> = match value.extract() {
         Ok(z) => z,
         Err(e) => {
             eprintln!("{path}: the configuration is not a list of zones: {e}");

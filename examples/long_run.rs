@@ -9,12 +9,12 @@
 use std::sync::mpsc;
 use std::time::Duration;
 
-use orrery::{parse, print, Arena, Cancel, Limits, MachineKind, Outcome};
+use orrery::{parse, Arena, Cancel, Limits, MachineKind, Outcome};
 
 /// An outcome in a line: the value printed, or what stopped the run.
-fn describe(outcome: &Outcome<'_>) -> String {
+fn describe(outcome: &Outcome) -> String {
     match outcome {
-        Outcome::Value(v) => print(v),
+        Outcome::Value(v) => v.to_string(),
         Outcome::Error(e) => format!("error: {e}"),
         Outcome::OutOfFuel => "out of fuel".to_string(),
         Outcome::Limit(l) => format!("stopped: {l}"),
@@ -55,13 +55,13 @@ fn main() {
         };
         let mut pauses = 0;
         let paused_end = loop {
-            let report = run.resume(slice, &arena);
+            let report = run.resume(slice);
             if report.outcome != Outcome::OutOfFuel {
                 break report;
             }
             pauses += 1;
         };
-        let whole = kind.run(&program, &Limits::default(), &arena);
+        let whole = kind.run(&program, &Limits::default());
         println!(
             "{}, resumed {pauses} times: {} prime lots below {lots}, {} contractions (uninterrupted: {} in {})",
             kind.name(),
@@ -86,7 +86,7 @@ fn main() {
             parse(&arena, &PRIME_LOTS.replace("LOTS", "100000000")).expect("the example parses");
         let machine = MachineKind::fastest().expect("the example is built with a machine");
         let _ = started.send(());
-        let report = machine.run(&program, &limits, &arena);
+        let report = machine.run(&program, &limits);
         (
             machine.name(),
             describe(&report.outcome),

@@ -8,9 +8,7 @@
 
 use std::collections::HashMap;
 
-use orrery::{
-    parse_with, Arena, Datum, HostFunctions, IntoDatum, Limits, MachineKind, Outcome, Program,
-};
+use orrery::{Datum, HostFunctions, IntoDatum, Limits, MachineKind, Outcome, Program};
 
 /// A delivery request from the application's own order system.
 struct Request {
@@ -63,8 +61,7 @@ fn main() {
     let host = host_functions();
     let path = concat!(env!("CARGO_MANIFEST_DIR"), "/examples/courier_rules.orr");
     let source = std::fs::read_to_string(path).expect("the example's rules file is bundled");
-    let rules_arena = Arena::new();
-    let rules = match parse_with(&rules_arena, &source, &host) {
+    let rules = match Program::parse_with(&source, &host) {
         Ok(p) => p,
         Err(e) => {
             eprintln!("{}", e.render(path, &source));
@@ -73,7 +70,7 @@ fn main() {
     };
     let machine = MachineKind::fastest().expect("the example is built with a machine");
     // Evaluate the rules once: the result is the quoting function.
-    let setup = machine.run(&rules, &Limits::default().with_fuel(10_000), &rules_arena);
+    let setup = machine.run(&rules, &Limits::default().with_fuel(10_000));
     let Outcome::Value(quote) = setup.outcome else {
         eprintln!(
             "the rules did not evaluate to a function: {:?}",
@@ -81,6 +78,9 @@ fn main() {
         );
         std::process::exit(1);
     };
+    // The function, as a program of its own, validated once; each request
+    // applies it to data, which checks and copies only the data.
+    let quote = Program::from_value(&quote).expect("a value of a valid program is valid");
 
     let requests = [
         Request {
@@ -120,15 +120,15 @@ fn main() {
             fragile: false,
         },
     ];
-    // Each request: its own small arena and fresh, tight limits.
+    // Each request: fresh, tight limits.
     let limits = Limits::default().with_fuel(5_000).with_memory(1 << 20);
     for request in &requests {
-        let arena = Arena::new();
-        let program = Program::application(&arena, quote, &[request.to_datum()], &host)
-            .expect("a function value applied to data is a valid program");
-        let report = machine.run(&program, &limits, &arena);
+        let program = quote
+            .apply(&[request.to_datum()])
+            .expect("a request uses the rules' tags with their arities");
+        let report = machine.run(&program, &limits);
         let answer = match report.outcome {
-            Outcome::Value(v) => match Datum::from_term(v) {
+            Outcome::Value(v) => match v.to_datum() {
                 Ok(Datum::Con(c)) => match (c.tag(), c.fields()) {
                     ("Quote", [Datum::Int(cents), Datum::Str(note)]) => {
                         format!("quote {}.{:02} ({note})", cents / 100, cents % 100)

@@ -18,35 +18,34 @@
 //! application is a closure of its own only if it escapes (the `calls`
 //! submodule). Operands that are atoms (variables and literals) are
 //! evaluated in place, as in the atomic evaluation of Van Horn and Might
-//! ("Abstracting abstract machines", 2010).
+//! ("Abstracting abstract machines", 2010). A program applied to argument
+//! data runs as the term `root a₁ … aₙ`: the arguments wait under the root
+//! in frames that apply the value returned to them.
 //!
 //! Memory is enforced where it grows: a push that would reallocate a stack
 //! and every cell made (closure, constructor, string) is checked first
 //! against the limit, counting the stacks' capacities, the live cells and
-//! any tags a host made up (the program's image is the caller's and not
-//! counted).
+//! the tags the run made up (the program's image is the caller's). A paused
+//! run holds `Rc` cells, so it stays on its thread; the `detach` submodule
+//! turns its whole state into plain data that can move.
 
 mod calls;
+mod detach;
 #[cfg(test)]
 mod tests;
 
 use std::mem::size_of;
 use std::rc::Rc;
-use std::sync::Arc;
 
-use super::runtime::host::host_call;
+use super::runtime::host::{from_datum, host_call};
 use super::runtime::prims::{int_prim, int_test, prim_contraction};
 use super::runtime::readback::read_back;
 use super::runtime::value::{cut, recycle, Closure, ConCell, Meter, Value, Values};
-use crate::image::Tags;
 use crate::budget::{growth, reserve_within, Budget, Ended, Halt};
 use crate::error::Fault;
-use crate::image::{INode, Id, Image, Capture, NONE};
-use crate::vocabulary::{Build, Machine, Paused};
-use crate::{
-    Arena, Counts, EvalError, HostFunctions, Limits, Outcome, Prim,
-    Program, Report, Rule,
-};
+use crate::image::{Capture, INode, Id, Image, Tags, NONE};
+use crate::vocabulary::{Build, Detached, Machine, Paused};
+use crate::{Counts, Datum, EvalError, Limits, Outcome, Prim, Program, Report, Rule};
 
 /// A runtime value of this machine: a closure's code is its function's index
 /// in the image.
@@ -60,21 +59,22 @@ type Fun = Closure<u32>;
 /// path pays nothing for it.
 const WORK_AFTER: usize = 16;
 
-/// The CEK machine. It holds no program state of its own; [`Cek::start`]
-/// makes a [`CekRun`], the machine state of one run, which can pause when its
-/// fuel runs out and resume with more.
+/// The CEK machine. It holds no program state of its own, only the emptied
+/// stacks of its last run, so it is `Send`; [`Cek::start`] makes a
+/// [`CekRun`], the machine state of one run, which can pause when its fuel
+/// runs out and resume with more.
 ///
 /// # Examples
 ///
 /// ```
 /// use orrery::machines::cek::Cek;
-/// use orrery::{Arena, Limits, Machine, Outcome, Prim, Program};
+/// use orrery::{Arena, Limits, Machine, Prim, Program};
 /// let arena = Arena::new();
 /// // (λx. x * 2) 21
 /// let double = arena.lam(arena.prim(Prim::Mul, &[arena.var(0), arena.int(2)]));
 /// let program = Program::new(arena.app(double, arena.int(21))).unwrap();
-/// let report = Cek::new().run(&program, &Limits::default(), &arena);
-/// assert_eq!(report.outcome, Outcome::Value(arena.int(42)));
+/// let report = Cek::new().run(&program, &Limits::default());
+/// assert_eq!(report.outcome.value().and_then(|v| v.as_int()), Some(42));
 /// assert_eq!(report.counts.total(), 2); // beta, prim
 /// ```
 #[derive(Debug)]
@@ -97,18 +97,23 @@ impl Default for Cek {
     }
 }
 
-/// A run's stacks, emptied, kept for the next run (see [`recycle`]).
-#[derive(Default)]
-struct SpareStacks {
-    locals: Vec<Val>,
-    kont: Vec<ContinuationFrame>,
-    operands: Vec<Val>,
-}
+/// Plain words of a value's size: what an emptied locals or operand stack
+/// is kept as between runs.
+type ValueSlot = [usize; size_of::<Val>() / size_of::<usize>()];
 
-impl std::fmt::Debug for SpareStacks {
-    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
-        f.debug_struct("SpareStacks").finish_non_exhaustive()
-    }
+/// Plain words of a continuation frame's size: what an emptied continuation
+/// is kept as between runs.
+type FrameSlot = [usize; size_of::<ContinuationFrame>() / size_of::<usize>()];
+
+/// A run's stacks, emptied, kept for the next run. Values hold `Rc`s, which
+/// must not cross threads with the machine, so the stacks are kept as
+/// vectors of stand-ins of the same layout and [`recycle`]d: the allocation
+/// is reused, no value is kept.
+#[derive(Debug, Default)]
+struct SpareStacks {
+    locals: Vec<ValueSlot>,
+    kont: Vec<FrameSlot>,
+    operands: Vec<ValueSlot>,
 }
 
 impl Cek {
@@ -124,7 +129,8 @@ impl Cek {
     }
 
     /// The initial machine state for running `program` under `limits`:
-    /// nothing is evaluated until [`CekRun::resume`].
+    /// nothing is evaluated (and no argument converted) until
+    /// [`CekRun::resume`].
     ///
     /// # Examples
     ///
@@ -136,12 +142,12 @@ impl Cek {
     /// let sum = |a, b| arena.prim(Prim::Add, &[arena.int(a), arena.int(b)]);
     /// let program = Program::new(arena.prim(Prim::Mul, &[sum(1, 2), sum(3, 4)])).unwrap();
     /// let mut run = Cek::start(&program, &Limits::default().with_fuel(2));
-    /// assert_eq!(run.resume(0, &arena).outcome, Outcome::OutOfFuel);
-    /// let report = run.resume(1, &arena);
-    /// assert_eq!(report.outcome, Outcome::Value(arena.int(21)));
+    /// assert_eq!(run.resume(0).outcome, Outcome::OutOfFuel);
+    /// let report = run.resume(1);
+    /// assert_eq!(report.outcome.value().and_then(|v| v.as_int()), Some(21));
     /// assert_eq!(report.counts.total(), 3);
     /// ```
-    pub fn start<'h>(program: &Program<'h>, limits: &Limits) -> CekRun<'h> {
+    pub fn start(program: &Program, limits: &Limits) -> CekRun {
         CekRun::with_stacks(program, limits, SpareStacks::default(), true)
     }
 }
@@ -151,10 +157,10 @@ impl Machine for Cek {
         "cek"
     }
 
-    fn run<'o>(&mut self, program: &Program<'_>, limits: &Limits, out: &'o Arena) -> Report<'o> {
+    fn run(&mut self, program: &Program, limits: &Limits) -> Report {
         let scratch = std::mem::take(&mut self.scratch);
         let mut run = CekRun::with_stacks(program, limits, scratch, self.metered);
-        let report = run.resume(0, out);
+        let report = run.resume(0);
         self.peak = run.peak_bytes();
         self.scratch = run.into_stacks();
         report
@@ -164,7 +170,7 @@ impl Machine for Cek {
         self.peak
     }
 
-    fn start<'p>(&self, program: &Program<'p>, limits: &Limits) -> Option<Box<dyn Paused + 'p>> {
+    fn start(&self, program: &Program, limits: &Limits) -> Option<Box<dyn Paused>> {
         Some(Box::new(Cek::start(program, limits)))
     }
 }
@@ -182,9 +188,9 @@ impl Build for Cek {
     }
 }
 
-impl Paused for CekRun<'_> {
-    fn resume<'o>(&mut self, more_fuel: u64, out: &'o Arena) -> Report<'o> {
-        CekRun::resume(self, more_fuel, out)
+impl Paused for CekRun {
+    fn resume(&mut self, more_fuel: u64) -> Report {
+        CekRun::resume(self, more_fuel)
     }
 
     fn counts(&self) -> Counts {
@@ -202,14 +208,20 @@ impl Paused for CekRun<'_> {
     fn peak_bytes(&self) -> usize {
         CekRun::peak_bytes(self)
     }
+
+    fn detach(self: Box<Self>) -> Detached {
+        Detached::new(Box::new(detach::DetachedCek::new(*self)))
+    }
 }
 
 /// The environment of the control: the current function's locals,
 /// `locals[base .. base + depth]` (the innermost binder last), and its closure,
-/// whose first captured values are the function's free variables.
+/// whose first captured values are the function's free variables. `F` is how
+/// the closure is held: an `Rc` while the machine runs, a cell's number in a
+/// detached run.
 #[derive(Clone)]
-struct Environment {
-    closure: Option<Rc<Fun>>,
+struct Environment<F = Rc<Fun>> {
+    closure: Option<F>,
     base: usize,
     depth: u32,
 }
@@ -233,41 +245,50 @@ impl Environment {
 
 /// A continuation frame: what to do with the value of the current control.
 /// Frames that go on to evaluate a node keep the environment to evaluate it
-/// in, and `below`: how many locals the frames under them need.
-enum ContinuationFrame {
+/// in, and `below`: how many locals the frames under them need. `V` and `F`
+/// are how values and closures are held: runtime values and `Rc`s while the
+/// machine runs, plain data in a detached run.
+enum ContinuationFrame<V = Val, F = Rc<Fun>> {
     /// `□ t`: evaluate the argument next.
     Arg {
         argument: Id,
-        env: Environment,
+        env: Environment<F>,
         below: usize,
     },
     /// `v □`: apply `function` to the value.
-    Call { function: Val },
+    Call { function: V },
+    /// `□ v`: apply the value to `argument`, a value already (one of the
+    /// program's arguments, under its root).
+    Apply { argument: V },
     /// `c x₁ … xₐ □`, a curried call inside which no closure is made for the
     /// partial applications: `closure` (with `k` arguments of its own) has
     /// been given the `applied - k` arguments on top of the operand stack, each
     /// application contracted, and the value is its argument `applied + 1`
     /// (see [`calls`]).
-    Partial { closure: Rc<Fun>, applied: u32 },
+    Partial { closure: F, applied: u32 },
     /// `f v₁ … vᵢ □ aᵢ₊₂ … aₘ` for the spine `term` of a call whose head
     /// is bound to `closure`, which takes exactly `m` more arguments: the
     /// `index` values to the left are on the operand stack, each application
     /// contracted; the next arguments are evaluated in `env` (see [`calls`]).
     Spine {
-        closure: Rc<Fun>,
+        closure: F,
         term: Id,
         index: u32,
         m: u32,
-        env: Environment,
+        env: Environment<F>,
         below: usize,
     },
     /// `let □ in t`.
-    Let { body: Id, env: Environment, below: usize },
+    Let {
+        body: Id,
+        env: Environment<F>,
+        below: usize,
+    },
     /// `if □ then t else u`.
     If {
         yes: Id,
         no: Id,
-        env: Environment,
+        env: Environment<F>,
         below: usize,
     },
     /// `op(v…, □, t…)` or `K(v…, □, t…)` of the primitive or constructor
@@ -278,32 +299,39 @@ enum ContinuationFrame {
         start: u32,
         len: u32,
         index: u32,
-        env: Environment,
+        env: Environment<F>,
         below: usize,
     },
     /// `case □ of {…}`, the case's index in the image.
-    Case { case: u32, env: Environment, below: usize },
+    Case {
+        case: u32,
+        env: Environment<F>,
+        below: usize,
+    },
 }
 
-/// The control: a node to evaluate, or a value to hand to the continuation.
-enum Control {
+/// The control: a node to evaluate, or a value to hand to the continuation
+/// (`V` as in [`ContinuationFrame`]).
+enum Control<V = Val> {
     Eval(Id),
-    Return(Val),
+    Return(V),
 }
 
 /// How a run ended, kept so that a finished run reports the same outcome
 /// however often it is asked.
 enum End {
-    Value(Val),
+    /// The value, read back.
+    Value(crate::Value),
     Ended(Ended),
 }
 
 /// The state of one CEK run: control, environment, continuation, and the
-/// fuel, counts and memory accounting. Plain data: when the fuel runs out the
-/// run pauses just before the contraction it could not pay for, and
+/// fuel, counts and memory accounting. When the fuel runs out the run
+/// pauses just before the contraction it could not pay for, and
 /// [`CekRun::resume`] continues it with more fuel. A paused run and an
 /// uninterrupted one end with the same value and the same counts. It holds
-/// the program's image (shared, not borrowed) and its host functions.
+/// its program (shared, not borrowed), so it is `'static`; its cells are
+/// `Rc`s, so it stays on its thread ([`Paused::detach`] moves it).
 ///
 /// # Examples
 ///
@@ -316,14 +344,13 @@ enum End {
 /// let program = Program::new(arena.app(spin, arena.int(0))).unwrap();
 /// let mut run = Cek::start(&program, &Limits::default().with_fuel(0));
 /// for _ in 0..3 {
-///     assert_eq!(run.resume(1_000, &arena).outcome, Outcome::OutOfFuel);
+///     assert_eq!(run.resume(1_000).outcome, Outcome::OutOfFuel);
 /// }
 /// assert_eq!(run.counts().total(), 3_000);
 /// assert!(!run.is_finished());
 /// ```
-pub struct CekRun<'h> {
-    image: Arc<Image>,
-    host: &'h HostFunctions,
+pub struct CekRun {
+    program: Program,
     control: Option<Control>,
     env: Environment,
     /// Parameters, `let`-bound values and case fields of the active functions.
@@ -336,9 +363,10 @@ pub struct CekRun<'h> {
     /// locals here, reusing any above.
     floor: usize,
     budget: Budget,
-    /// The run's constructor tags (the image's, and any a host made up).
+    /// The run's constructor tags (the image's, and any a host or an
+    /// argument made up).
     tags: Tags,
-    /// Bytes held besides the stacks and cells: the tags a host made up.
+    /// Bytes held besides the stacks and cells: the tags made up.
     fixed: usize,
     /// The live cells of this run, while it runs.
     meter: Meter,
@@ -346,10 +374,13 @@ pub struct CekRun<'h> {
     metered: bool,
     /// Bytes of cells this run held when it last paused.
     cells: usize,
+    /// Whether the program's arguments are still to be converted and put
+    /// under the root (on the first resume).
+    args_pending: bool,
     end: Option<End>,
 }
 
-impl std::fmt::Debug for CekRun<'_> {
+impl std::fmt::Debug for CekRun {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         f.debug_struct("CekRun")
             .field("fuel_left", &self.budget.fuel_left())
@@ -360,15 +391,14 @@ impl std::fmt::Debug for CekRun<'_> {
     }
 }
 
-impl<'h> CekRun<'h> {
+impl CekRun {
     /// The initial state for `program`, with the (empty) stacks of `scratch`.
     fn with_stacks(
-        program: &Program<'h>,
+        program: &Program,
         limits: &Limits,
         scratch: SpareStacks,
         metered: bool,
     ) -> Self {
-        let image = program.image_arc();
         let budget = if metered {
             Budget::new(limits)
         } else {
@@ -381,9 +411,9 @@ impl<'h> CekRun<'h> {
         let tags = Tags::default();
         let fixed = tags.bytes();
         CekRun {
-            control: Some(Control::Eval(image.root)),
-            image,
-            host: program.host(),
+            control: Some(Control::Eval(program.image().root)),
+            args_pending: !program.args().is_empty(),
+            program: program.clone(),
             env: Environment::top(),
             locals: recycle(scratch.locals),
             kont: recycle(scratch.kont),
@@ -401,9 +431,7 @@ impl<'h> CekRun<'h> {
 
     /// This run's stacks, emptied, to keep for another run.
     fn into_stacks(mut self) -> SpareStacks {
-        self.control = None;
-        self.env = Environment::top();
-        self.end = None;
+        self.clear();
         SpareStacks {
             locals: recycle(std::mem::take(&mut self.locals)),
             kont: recycle(std::mem::take(&mut self.kont)),
@@ -411,11 +439,22 @@ impl<'h> CekRun<'h> {
         }
     }
 
+    /// Drop what the machine state holds (the stacks stay allocated, for
+    /// [`Cek::run`] to keep).
+    fn clear(&mut self) {
+        self.control = None;
+        self.env = Environment::top();
+        self.kont.clear();
+        self.locals.clear();
+        self.operands.clear();
+        self.floor = 0;
+    }
+
     /// Add `more_fuel` and run until a value, an error, a resource limit, or
     /// the end of the fuel. The report's counts are the run's totals so far.
     /// Once the run has finished, further calls report the same outcome and
-    /// do nothing else. The value is read back into `out` under the memory
-    /// limit (a value too big for it ends the run with the memory limit).
+    /// do nothing else. The value is read back under the memory limit (a
+    /// value too big for it ends the run with the memory limit).
     ///
     /// # Examples
     ///
@@ -429,16 +468,16 @@ impl<'h> CekRun<'h> {
     ///     arena.prim(Prim::Mul, &[arena.var(0), arena.var(0)]),
     /// );
     /// let program = Program::new(t).unwrap();
-    /// let whole = Cek::new().run(&program, &Limits::default(), &arena);
+    /// let whole = Cek::new().run(&program, &Limits::default());
     /// // One unit of fuel at a time ends the same way.
     /// let mut run = Cek::start(&program, &Limits::default().with_fuel(0));
-    /// let mut report = run.resume(0, &arena);
+    /// let mut report = run.resume(0);
     /// while report.outcome == Outcome::OutOfFuel {
-    ///     report = run.resume(1, &arena);
+    ///     report = run.resume(1);
     /// }
     /// assert_eq!(report, whole);
     /// ```
-    pub fn resume<'o>(&mut self, more_fuel: u64, out: &'o Arena) -> Report<'o> {
+    pub fn resume(&mut self, more_fuel: u64) -> Report {
         self.budget.add_fuel(more_fuel);
         self.meter = Meter::holding(self.cells);
         if self.end.is_none() {
@@ -447,44 +486,48 @@ impl<'h> CekRun<'h> {
             } else {
                 self.execute::<false>()
             };
-            let end = match result {
-                Ok(value) => Some(End::Value(value)),
-                Err(halt) => halt.ended(self.budget.memory).map(End::Ended),
+            self.end = match result {
+                Ok(value) => {
+                    self.clear();
+                    Some(self.read_back(value))
+                }
+                Err(halt) => halt.ended(self.budget.memory).map(|ended| {
+                    self.clear();
+                    End::Ended(ended)
+                }),
             };
-            if end.is_some() {
-                // The machine state is no longer needed; drop what it holds
-                // (the stacks stay allocated, for `Cek::run` to keep).
-                self.control = None;
-                self.env = Environment::top();
-                self.kont.clear();
-                self.locals.clear();
-                self.operands.clear();
-                self.floor = 0;
-            }
-            self.end = end;
         }
         let outcome = match &self.end {
             None => Outcome::OutOfFuel,
-            Some(End::Value(value)) => {
-                let held = self.held();
-                match read_back(value, &self.image, &self.tags, out, &mut self.budget, held) {
-                    Ok(term) => Outcome::Value(term),
-                    Err(halt) => {
-                        let ended = halt.ended(self.budget.memory).unwrap_or_else(|| {
-                            Ended::Fault(Fault::new("read-back asked for fuel"))
-                        });
-                        let outcome = ended.outcome();
-                        self.end = Some(End::Ended(ended));
-                        outcome
-                    }
-                }
-            }
+            Some(End::Value(value)) => Outcome::Value(value.clone()),
             Some(End::Ended(ended)) => ended.outcome(),
         };
         self.cells = self.meter.cells();
         Report {
             outcome,
             counts: self.budget.counts,
+        }
+    }
+
+    /// The end of a run whose value is `value`: the value read back under
+    /// the memory limit, or the limit.
+    fn read_back(&mut self, value: Val) -> End {
+        let held = self.held();
+        let program = &self.program;
+        let read = read_back(
+            &value,
+            program.image(),
+            &self.tags,
+            program.host(),
+            &mut self.budget,
+            held,
+        );
+        match read {
+            Ok(value) => End::Value(value),
+            Err(halt) => End::Ended(
+                halt.ended(self.budget.memory)
+                    .unwrap_or_else(|| Ended::Fault(Fault::new("read-back asked for fuel"))),
+            ),
         }
     }
 
@@ -529,7 +572,7 @@ impl<'h> CekRun<'h> {
     /// let arena = Arena::new();
     /// let mut run = Cek::start(&Program::new(arena.int(1)).unwrap(), &Limits::default());
     /// assert!(!run.is_finished());
-    /// run.resume(0, &arena);
+    /// run.resume(0);
     /// assert!(run.is_finished());
     /// ```
     pub fn is_finished(&self) -> bool {
@@ -537,10 +580,11 @@ impl<'h> CekRun<'h> {
     }
 
     /// The most memory this run has held at once, in bytes, as the memory
-    /// limit counts it (the program itself is the caller's, not counted): the capacity of the locals,
-    /// operand and continuation stacks, the cells it made and still holds
-    /// (closures, constructor cells, strings), and what its read-back built.
-    /// It is measured whenever any of these grows, so it is the quantity
+    /// limit counts it (the program itself is the caller's, not counted):
+    /// the capacity of the locals, operand and continuation stacks, the
+    /// cells it made and still holds (closures, constructor cells, strings,
+    /// its arguments), the tags it made up, and what its read-back built. It
+    /// is measured whenever any of these grows, so it is the quantity
     /// [`Limits::memory`] bounds.
     ///
     /// # Examples
@@ -551,7 +595,7 @@ impl<'h> CekRun<'h> {
     /// let arena = Arena::new();
     /// let program = Program::new(arena.int(1)).unwrap();
     /// let mut run = Cek::start(&program, &Limits::default());
-    /// run.resume(0, &arena);
+    /// run.resume(0);
     /// // Nothing was built.
     /// assert_eq!(run.peak_bytes(), 0);
     /// ```
@@ -830,17 +874,45 @@ impl<'h> CekRun<'h> {
         Ok(Value::Fun(Closure::new(func, 0, captured)))
     }
 
-    /// Capture the machine until a value, an error, a limit, or the end of the
+    /// The program's arguments `a₁ … aₙ` as values (their cells and the
+    /// tags they make up charged like any other), each under the root in a
+    /// frame that applies the value returned to it: `aₙ`'s frame at the
+    /// bottom, `a₁`'s on top, so the root's value meets `a₁` first. The
+    /// arguments are converted last first, as their frames are pushed.
+    fn load_args<const M: bool>(
+        &mut self,
+        image: &Image,
+        args: &[Datum<'static>],
+    ) -> Result<(), Halt> {
+        for arg in args.iter().rev() {
+            let (argument, new_tags) = from_datum(arg, image, &self.tags);
+            self.tags.append(new_tags);
+            self.fixed = self.tags.bytes();
+            if M {
+                let held = self.held();
+                self.budget.check_memory(held)?;
+            }
+            self.push_frame::<M>(ContinuationFrame::Apply { argument })?;
+        }
+        Ok(())
+    }
+
+    /// Run the machine until a value, an error, a limit, or the end of the
     /// fuel. On running out of fuel the control is saved (a value about to
     /// meet the top frame, or a node), so that execution can continue from
     /// there.
     fn execute<const M: bool>(&mut self) -> Result<Val, Halt> {
-        let image = Arc::clone(&self.image);
-        let image: &Image = &image;
+        // The run holds its program (a shared handle, so the image is not
+        // borrowed from the machine state the loop changes).
+        let program = self.program.clone();
+        let image = program.image();
         if M {
-            // The run holds its program, whatever it goes on to build.
             let held = self.held();
             self.budget.check_memory(held)?;
+        }
+        if self.args_pending {
+            self.args_pending = false;
+            self.load_args::<M>(image, program.args())?;
         }
         let Some(mut control) = self.control.take() else {
             return Err(Halt::OutOfFuel);
@@ -953,7 +1025,11 @@ impl<'h> CekRun<'h> {
                 None => Control::Return(Value::Tag(tag)),
             },
             INode::Case(scrutinee, case) => {
-                self.push_env_frame::<M>(|env, below| ContinuationFrame::Case { case, env, below })?;
+                self.push_env_frame::<M>(|env, below| ContinuationFrame::Case {
+                    case,
+                    env,
+                    below,
+                })?;
                 Control::Eval(scrutinee)
             }
         })
@@ -1110,6 +1186,14 @@ impl<'h> CekRun<'h> {
                 };
                 self.call::<M>(image, function, value)
             }
+            ContinuationFrame::Apply { .. } => {
+                let rule = call_rule(image, &value);
+                let value = self.take_at_frame::<M>(rule, value)?;
+                let Some(ContinuationFrame::Apply { argument }) = self.kont.pop() else {
+                    return Err(broken("the frame changed"));
+                };
+                self.call::<M>(image, value, argument)
+            }
             ContinuationFrame::Partial { .. } => {
                 let value = self.take_at_frame::<M>(Rule::Beta, value)?;
                 let Some(ContinuationFrame::Partial { closure, applied }) = self.kont.pop() else {
@@ -1262,7 +1346,7 @@ impl<'h> CekRun<'h> {
             Prim::Host(id) => {
                 let room = self.budget.room(held);
                 let value = host_call(
-                    self.host,
+                    self.program.host(),
                     id,
                     args,
                     image,

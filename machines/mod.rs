@@ -15,7 +15,7 @@
 //! `benches/report.py` and the feature builds of `.ci/run` all come from
 //! the table.
 
-use crate::{Arena, Limits, Program, Report};
+use crate::{Limits, Program, Report};
 
 pub use crate::vocabulary::{Build, Machine, Paused};
 
@@ -158,15 +158,14 @@ impl MachineKind {
     /// # Examples
     ///
     /// ```
-    /// use orrery::{parse, Arena, Limits, MachineKind, Outcome};
-    /// let arena = Arena::new();
-    /// let program = parse(&arena, "let rec pace n = pace (n + 1) in pace 0").unwrap();
+    /// use orrery::{Limits, MachineKind, Outcome, Program};
+    /// let program = Program::parse("let rec pace n = pace (n + 1) in pace 0").unwrap();
     /// for kind in MachineKind::enabled() {
-    ///     let report = kind.run(&program, &Limits::default().with_fuel(50), &arena);
+    ///     let report = kind.run(&program, &Limits::default().with_fuel(50));
     ///     assert_eq!((report.outcome, report.counts.total()), (Outcome::OutOfFuel, 50));
     /// }
     /// ```
-    pub fn run<'o>(self, program: &Program<'_>, limits: &Limits, out: &'o Arena) -> Report<'o> {
-        self.machine().run(program, limits, out)
+    pub fn run(self, program: &Program, limits: &Limits) -> Report {
+        self.machine().run(program, limits)
     }
 }

@@ -30,11 +30,10 @@ use crate::error::Fault;
 use crate::host::{host_step, HostStep, NO_HOST};
 use crate::image::{CaseInfo, INode, Id, Image, TagId, Tags, NONE};
 use crate::prim::{delta_polled, fuel_units, Stopped};
-use crate::vocabulary::{Build, Machine, Paused};
-use crate::{
-    Arena, Counts, EvalError, HostFunctions, HostId, Limits, Operand,
-    Outcome, Prim, PrimValue, Program, Report, Rule, Term,
-};
+use crate::error::Operand;
+use crate::prim::PrimValue;
+use crate::vocabulary::{Build, Detached, DetachedRun, Machine, Paused};
+use crate::{Arena, Counts, Datum, EvalError, HostFunctions, HostId, Limits, Outcome, Prim, Program, Report, Rule, Term};
 
 /// The heap is collected only once it has this many bytes of nodes and
 /// lists in use, so small runs never collect.
@@ -830,7 +829,7 @@ impl State {
             } else {
                 Ok(Vec::new())
             };
-            match host_step(host, id, args, fuel_left) {
+            match host_step(host, id, self.budget.context(), args, fuel_left) {
                 HostStep::OutOfFuel => return Err(Halt::OutOfFuel),
                 HostStep::TooLarge => return Err(Halt::Memory),
                 HostStep::Made { fuel, result } => {
@@ -855,6 +854,24 @@ impl State {
         } else {
             self.contracted(result);
         }
+        Ok(())
+    }
+
+    /// Put the program's term `root a1 … an` in the focus: each argument
+    /// made heap data (within the memory limit), applied in order.
+    fn load(&mut self, image: &Image, args: &[Datum<'static>]) -> Result<(), Halt> {
+        let mut term = image.root;
+        for arg in args {
+            let mut new = Vec::new();
+            let pieces = flatten(arg.clone(), image, &self.tags, &mut new);
+            let tag_bytes: usize = new.iter().map(|t| 2 * t.len() + 96).sum();
+            self.budget
+                .check_memory(self.held().saturating_add(tag_bytes))?;
+            self.tags.append(new);
+            let value = self.build_pieces(pieces)?;
+            term = self.node(INode::App(term, value), 0, false)?;
+        }
+        self.focus = term;
         Ok(())
     }
 
@@ -1026,18 +1043,19 @@ pub fn step<'r>(arena: &'r Arena, term: &'r Term<'r>) -> Step<'r> {
     let Some((rule, redex)) = seen else {
         return Step::Value;
     };
+    // After one contraction the run has a value (the focus, with no
+    // context left) or has paused before the next: either way the whole
+    // term is the next one.
     let next = match end {
-        Ok(value) => state.outcome(&image, Ok(value), arena),
-        Err(Halt::OutOfFuel) => match state.whole(&image, arena) {
-            Ok(t) => Outcome::Value(t),
-            Err(halt) => state.halted(halt),
-        },
-        Err(halt) => state.halted(halt),
+        Ok(_) | Err(Halt::OutOfFuel) => state.whole(&image, arena),
+        Err(halt) => Err(halt),
     };
     match next {
-        Outcome::Value(next) => Step::Contracted { rule, redex, next },
-        Outcome::Error(error) => Step::Stuck { rule, redex, error },
-        _ => Step::Value,
+        Ok(next) => Step::Contracted { rule, redex, next },
+        Err(halt) => match state.halted(halt) {
+            Outcome::Error(error) => Step::Stuck { rule, redex, error },
+            _ => Step::Value,
+        },
     }
 }
 
@@ -1053,35 +1071,51 @@ impl Stepper {
         Stepper::default()
     }
 
-    /// Capture like [`Machine::run`], calling `trace` with each contraction's rule
-    /// and redex as it is made (attempts that fail included).
+    /// Run `program` to its outcome (as [`Machine::run`]).
     ///
     /// # Examples
     ///
     /// ```
     /// use orrery::machines::stepper::Stepper;
-    /// use orrery::{parse, print, Arena, Limits, Rule};
-    /// let arena = Arena::new();
-    /// let program = parse(&arena, "if 1 < 2 then \"yes\" else \"no\"").unwrap();
+    /// use orrery::{Limits, Program};
+    /// let program = Program::parse("let half = \\n. n / 2 in half 84").unwrap();
+    /// let report = Stepper::new().run(&program, &Limits::default());
+    /// assert_eq!(report.outcome.value().and_then(|v| v.as_int()), Some(42));
+    /// ```
+    pub fn run(&mut self, program: &Program, limits: &Limits) -> Report {
+        let (report, peak) = run_with(program, limits, &mut None);
+        self.peak = peak;
+        report
+    }
+
+    /// Run like [`Stepper::run`], calling `trace` with each contraction's
+    /// rule and redex as it is made (attempts that fail included). The redex
+    /// is a term of the stepper's scratch arena, valid for the call.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::machines::stepper::Stepper;
+    /// use orrery::{print, Limits, Program, Rule};
+    /// let program = Program::parse("if 1 < 2 then \"yes\" else \"no\"").unwrap();
     /// let mut lines = Vec::new();
-    /// Stepper::new().run_traced(&program, &Limits::default(), &arena, &mut |rule, redex| {
+    /// Stepper::new().run_traced(&program, &Limits::default(), &mut |rule, redex| {
     ///     lines.push(format!("{rule}: {}", print(redex)));
     /// });
     /// assert_eq!(lines, ["prim: 1 < 2", "if: if true then \"yes\" else \"no\""]);
     /// ```
-    pub fn run_traced<'o>(
+    pub fn run_traced(
         &mut self,
-        program: &Program<'_>,
+        program: &Program,
         limits: &Limits,
-        out: &'o Arena,
         trace: &mut dyn FnMut(Rule, &Term<'_>),
-    ) -> Report<'o> {
+    ) -> Report {
         let (report, peak) = {
             let mut trace = Some(Trace {
                 scratch: &mut self.scratch,
                 sink: trace,
             });
-            run_with(program, limits, out, &mut trace)
+            run_with(program, limits, &mut trace)
         };
         self.peak = peak;
         // Keep a small scratch arena for the next run, not a big one.
@@ -1102,14 +1136,13 @@ impl Stepper {
     ///
     /// ```
     /// use orrery::machines::stepper::Stepper;
-    /// use orrery::{parse, Arena, Limits, Machine, Outcome};
-    /// let arena = Arena::new();
-    /// let program = parse(&arena, "let rec count n = if n == 0 then 7 else count (n - 1) in count 50").unwrap();
-    /// let whole = Stepper::new().run(&program, &Limits::default(), &arena);
-    /// let mut run = Stepper::start(&program, &Limits::default().with_fuel(0));
+    /// use orrery::{Limits, Outcome, Program};
+    /// let program = Program::parse("let rec count n = if n == 0 then 7 else count (n - 1) in count 50").unwrap();
+    /// let whole = Stepper::new().run(&program, &Limits::default());
+    /// let mut run = Stepper::new().start(&program, &Limits::default().with_fuel(0));
     /// let mut pauses = 0;
     /// let outcome = loop {
-    ///     match run.resume(10, &arena).outcome {
+    ///     match run.resume(10).outcome {
     ///         Outcome::OutOfFuel => pauses += 1,
     ///         other => break other,
     ///     }
@@ -1118,31 +1151,31 @@ impl Stepper {
     /// assert_eq!(run.counts(), whole.counts);
     /// assert_eq!(pauses as u64, whole.counts.total() / 10);
     /// ```
-    pub fn start<'p>(program: &Program<'p>, limits: &Limits) -> StepperRun<'p> {
-        let image = program.image_arc();
-        let state = State::new(&image, limits);
+    pub fn start(&self, program: &Program, limits: &Limits) -> StepperRun {
         StepperRun {
-            image,
-            host: program.host(),
-            state,
+            state: State::new(program.image(), limits),
+            program: program.clone(),
+            loaded: false,
             end: None,
         }
     }
 }
 
-/// An uninterrupted run of `program`.
-/// Capture `program` to its end, with a tracer if given: the report and the
+/// Run `program` to its end, with a tracer if given: the report and the
 /// run's peak bytes.
-fn run_with<'o>(
-    program: &Program<'_>,
+fn run_with(
+    program: &Program,
     limits: &Limits,
-    out: &'o Arena,
     trace: &mut Option<Trace<'_>>,
-) -> (Report<'o>, usize) {
+) -> (Report, usize) {
     let image = program.image();
+    let host = program.host();
     let mut state = State::new(image, limits);
-    let end = state.reduce(image, program.host(), trace);
-    let outcome = state.outcome(image, end, out);
+    let end = match state.load(image, program.args()) {
+        Ok(()) => state.reduce(image, host, trace),
+        Err(halt) => Err(halt),
+    };
+    let outcome = state.outcome(image, host, end);
     let report = Report {
         outcome,
         counts: state.budget.counts,
@@ -1153,38 +1186,39 @@ fn run_with<'o>(
 /// How a [`StepperRun`] ended.
 #[derive(Debug)]
 enum End {
-    /// With a value: the state's focus, all the heap still holds.
-    Value,
+    /// With a value, read back.
+    Value(crate::Value),
     Ended(Ended),
 }
 
 /// A stepper run that pauses when its fuel runs out (see [`Stepper::start`]).
-/// It owns its state between resumes — the program image (shared with the
-/// program), its heap and its context — and copies nothing into the arenas
-/// it is given but its value, once it has one. When paused, a heap that has
+/// It owns its state between resumes — its program (shared), its heap and
+/// its context — so it is `'static` and `Send`. When paused, a heap that has
 /// grown past twice what its last collection kept is collected first, so a
-/// paused run holds its live state and little more.
-#[derive(Debug)]
+/// paused run holds its live state and little more; once ended, it holds
+/// only its value.
 ///
 /// # Examples
 ///
 /// ```
 /// use orrery::machines::stepper::Stepper;
-/// use orrery::{parse, Arena, Limits, Outcome};
-/// let arena = Arena::new();
-/// let program = parse(&arena, "let stock = 40 in stock - 15").unwrap();
-/// let mut run = Stepper::start(&program, &Limits::default().with_fuel(1));
-/// assert_eq!(run.resume(0, &arena).outcome, Outcome::OutOfFuel);
-/// assert_eq!(run.resume(1, &arena).outcome, Outcome::Value(arena.int(25)));
+/// use orrery::{Limits, Outcome, Program};
+/// let program = Program::parse("let stock = 40 in stock - 15").unwrap();
+/// let mut run = Stepper::new().start(&program, &Limits::default().with_fuel(1));
+/// assert_eq!(run.resume(0).outcome, Outcome::OutOfFuel);
+/// assert_eq!(run.resume(1).outcome.value().and_then(|v| v.as_int()), Some(25));
 /// ```
-pub struct StepperRun<'p> {
-    image: Arc<Image>,
-    host: &'p HostFunctions,
+#[derive(Debug)]
+pub struct StepperRun {
+    program: Program,
     state: State,
+    /// Whether the term `root a1 … an` is in the heap yet (it is put there
+    /// by the first resume).
+    loaded: bool,
     end: Option<End>,
 }
 
-impl StepperRun<'_> {
+impl StepperRun {
     /// Add `more_fuel` and run on until the program ends or the fuel runs out
     /// again. Once the run has ended, every resume reports the same end.
     ///
@@ -1192,20 +1226,28 @@ impl StepperRun<'_> {
     ///
     /// ```
     /// use orrery::machines::stepper::Stepper;
-    /// use orrery::{parse, Arena, Limits, Outcome};
-    /// let arena = Arena::new();
-    /// let program = parse(&arena, "(1 + 2) * (3 + 4)").unwrap();
-    /// let mut run = Stepper::start(&program, &Limits::default().with_fuel(2));
-    /// assert_eq!(run.resume(0, &arena).outcome, Outcome::OutOfFuel);
-    /// assert_eq!(run.resume(1, &arena).outcome, Outcome::Value(arena.int(21)));
+    /// use orrery::{Limits, Outcome, Program};
+    /// let program = Program::parse("(1 + 2) * (3 + 4)").unwrap();
+    /// let mut run = Stepper::new().start(&program, &Limits::default().with_fuel(2));
+    /// assert_eq!(run.resume(0).outcome, Outcome::OutOfFuel);
+    /// assert_eq!(run.resume(1).outcome.value().and_then(|v| v.as_int()), Some(21));
     /// assert_eq!(run.counts().total(), 3);
     /// ```
-    pub fn resume<'o>(&mut self, more_fuel: u64, out: &'o Arena) -> Report<'o> {
-        let image: &Image = &self.image;
-        let state = &mut self.state;
+    pub fn resume(&mut self, more_fuel: u64) -> Report {
         if self.end.is_none() {
+            let image = self.program.image();
+            let state = &mut self.state;
             state.budget.add_fuel(more_fuel);
-            let end = state.reduce(image, self.host, &mut None);
+            let loaded = if self.loaded {
+                Ok(())
+            } else {
+                self.loaded = true;
+                state.load(image, self.program.args())
+            };
+            let end = match loaded {
+                Ok(()) => state.reduce(image, self.program.host(), &mut None),
+                Err(halt) => Err(halt),
+            };
             match end {
                 Err(Halt::OutOfFuel) => match state.pause(image) {
                     Ok(()) => {
@@ -1222,8 +1264,11 @@ impl StepperRun<'_> {
                     state.values = Vec::new();
                     state.jobs = Vec::new();
                     state.done = Vec::new();
-                    self.end = Some(match state.collect(image) {
-                        Ok(()) => End::Value,
+                    self.end = Some(match state.read_back(image, self.program.host(), value) {
+                        Ok(v) => {
+                            state.heap = Heap::default();
+                            End::Value(v)
+                        }
                         Err(halt) => state.ended(halt),
                     });
                 }
@@ -1231,16 +1276,13 @@ impl StepperRun<'_> {
             }
         }
         let outcome = match &self.end {
-            Some(End::Value) => {
-                let value = state.focus;
-                state.outcome(image, Ok(value), out)
-            }
+            Some(End::Value(value)) => Outcome::Value(value.clone()),
             Some(End::Ended(ended)) => ended.outcome(),
             None => Outcome::OutOfFuel,
         };
         Report {
             outcome,
-            counts: state.budget.counts,
+            counts: self.state.budget.counts,
         }
     }
 
@@ -1250,11 +1292,10 @@ impl StepperRun<'_> {
     ///
     /// ```
     /// use orrery::machines::stepper::Stepper;
-    /// use orrery::{parse, Arena, Limits, Rule};
-    /// let arena = Arena::new();
-    /// let program = parse(&arena, "(1 + 2) * (3 + 4)").unwrap();
-    /// let mut run = Stepper::start(&program, &Limits::default().with_fuel(2));
-    /// run.resume(0, &arena);
+    /// use orrery::{Limits, Program, Rule};
+    /// let program = Program::parse("(1 + 2) * (3 + 4)").unwrap();
+    /// let mut run = Stepper::new().start(&program, &Limits::default().with_fuel(2));
+    /// run.resume(0);
     /// assert_eq!(run.counts().get(Rule::Prim), 2);
     /// ```
     pub fn counts(&self) -> Counts {
@@ -1267,11 +1308,10 @@ impl StepperRun<'_> {
     ///
     /// ```
     /// use orrery::machines::stepper::Stepper;
-    /// use orrery::{parse, Arena, Limits};
-    /// let arena = Arena::new();
-    /// let program = parse(&arena, "(1 + 2) * (3 + 4)").unwrap();
-    /// let mut run = Stepper::start(&program, &Limits::default().with_fuel(10));
-    /// run.resume(0, &arena);
+    /// use orrery::{Limits, Program};
+    /// let program = Program::parse("(1 + 2) * (3 + 4)").unwrap();
+    /// let mut run = Stepper::new().start(&program, &Limits::default().with_fuel(10));
+    /// run.resume(0);
     /// assert_eq!(run.fuel_left(), 10 - 3);
     /// ```
     pub fn fuel_left(&self) -> u64 {
@@ -1284,17 +1324,32 @@ impl StepperRun<'_> {
     ///
     /// ```
     /// use orrery::machines::stepper::Stepper;
-    /// use orrery::{parse, Arena, Limits};
-    /// let arena = Arena::new();
-    /// let program = parse(&arena, "if 2 < 3 then 1 else 0").unwrap();
-    /// let mut run = Stepper::start(&program, &Limits::default().with_fuel(1));
-    /// run.resume(0, &arena);
+    /// use orrery::{Limits, Program};
+    /// let program = Program::parse("if 2 < 3 then 1 else 0").unwrap();
+    /// let mut run = Stepper::new().start(&program, &Limits::default().with_fuel(1));
+    /// run.resume(0);
     /// assert!(!run.is_finished());
-    /// run.resume(1, &arena);
+    /// run.resume(1);
     /// assert!(run.is_finished());
     /// ```
     pub fn is_finished(&self) -> bool {
         self.end.is_some()
+    }
+
+    /// The most bytes the run has held at once.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::machines::stepper::Stepper;
+    /// use orrery::{Limits, Program};
+    /// let program = Program::parse("Pair(1 + 2, \"dock\")").unwrap();
+    /// let mut run = Stepper::new().start(&program, &Limits::default());
+    /// run.resume(0);
+    /// assert!(run.peak_bytes() <= Limits::default().memory);
+    /// ```
+    pub fn peak_bytes(&self) -> usize {
+        self.state.budget.peak
     }
 }
 
@@ -1344,18 +1399,16 @@ impl Machine for Stepper {
         "stepper"
     }
 
-    fn run<'o>(&mut self, program: &Program<'_>, limits: &Limits, out: &'o Arena) -> Report<'o> {
-        let (report, peak) = run_with(program, limits, out, &mut None);
-        self.peak = peak;
-        report
+    fn run(&mut self, program: &Program, limits: &Limits) -> Report {
+        Stepper::run(self, program, limits)
     }
 
     fn peak_bytes(&self) -> usize {
         self.peak
     }
 
-    fn start<'p>(&self, program: &Program<'p>, limits: &Limits) -> Option<Box<dyn Paused + 'p>> {
-        Some(Box::new(Stepper::start(program, limits)))
+    fn start(&self, program: &Program, limits: &Limits) -> Option<Box<dyn Paused>> {
+        Some(Box::new(Stepper::start(self, program, limits)))
     }
 }
 
@@ -1365,9 +1418,9 @@ impl Build for Stepper {
     }
 }
 
-impl Paused for StepperRun<'_> {
-    fn resume<'o>(&mut self, more_fuel: u64, out: &'o Arena) -> Report<'o> {
-        StepperRun::resume(self, more_fuel, out)
+impl Paused for StepperRun {
+    fn resume(&mut self, more_fuel: u64) -> Report {
+        StepperRun::resume(self, more_fuel)
     }
 
     fn counts(&self) -> Counts {
@@ -1383,6 +1436,17 @@ impl Paused for StepperRun<'_> {
     }
 
     fn peak_bytes(&self) -> usize {
-        self.state.budget.peak
+        StepperRun::peak_bytes(self)
+    }
+
+    /// The run itself: it owns all its state and is `Send` already.
+    fn detach(self: Box<Self>) -> Detached {
+        Detached::new(self)
+    }
+}
+
+impl DetachedRun for StepperRun {
+    fn attach(self: Box<Self>) -> Box<dyn Paused> {
+        self
     }
 }

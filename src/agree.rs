@@ -20,7 +20,7 @@ use crate::vocabulary::{Outcome, Report};
 /// assert!(disagreement(&a, &a).is_none());
 /// assert!(disagreement(&a, &b).is_some());
 /// ```
-pub fn disagreement(a: &Report<'_>, b: &Report<'_>) -> Option<String> {
+pub fn disagreement(a: &Report, b: &Report) -> Option<String> {
     disagreement_within(a, b, usize::MAX).unwrap_or(None)
 }
 
@@ -49,14 +49,16 @@ pub fn disagreement(a: &Report<'_>, b: &Report<'_>) -> Option<String> {
 /// assert!(disagreement_within(&a, &b, 1 << 10).is_err());
 /// ```
 pub fn disagreement_within(
-    a: &Report<'_>,
-    b: &Report<'_>,
+    a: &Report,
+    b: &Report,
     max_bytes: usize,
 ) -> Result<Option<String>, LimitError> {
     Ok(match (&a.outcome, &b.outcome) {
         (Outcome::Fault(f), _) | (_, Outcome::Fault(f)) => Some(f.to_string()),
         (Outcome::Limit(_), _) | (_, Outcome::Limit(_)) => return Ok(None),
         (Outcome::Value(x), Outcome::Value(y)) => {
+            let arena = crate::term::Arena::new();
+            let (x, y) = (x.to_term(&arena), y.to_term(&arena));
             match terms_equal_within(x, y, max_bytes) {
                 Some(true) => {}
                 Some(false) => return Ok(Some("different values".to_string())),
@@ -81,6 +83,6 @@ pub fn disagreement_within(
 
 /// Why the counts of two reports differ, if they do (the extra fuel
 /// included).
-fn counts(a: &Report<'_>, b: &Report<'_>) -> Option<String> {
+fn counts(a: &Report, b: &Report) -> Option<String> {
     (a.counts != b.counts).then(|| format!("different counts: {} and {}", a.counts, b.counts))
 }

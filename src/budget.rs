@@ -26,7 +26,8 @@
 )]
 
 use crate::error::{EvalError, Fault, LimitError};
-use crate::vocabulary::{Cancel, Counts, Limits, Outcome, Rule, CANCEL_POLL_INTERVAL};
+use crate::host::Context;
+use crate::vocabulary::{Cancel, Counts, Limits, Outcome, Rule, RunContext, CANCEL_POLL_INTERVAL};
 
 /// Units of fuel-free work between two looks at the cancellation flag.
 pub(crate) const POLL_WORK: i64 = 1 << 16;
@@ -73,7 +74,7 @@ impl Halt {
     }
 
     /// The outcome this halt is for a run whose memory limit is `memory`.
-    pub(crate) fn outcome<'o>(self, memory: usize) -> Outcome<'o> {
+    pub(crate) fn outcome(self, memory: usize) -> Outcome {
         self.ended(memory)
             .map_or(Outcome::OutOfFuel, |e| e.outcome())
     }
@@ -89,7 +90,7 @@ pub(crate) enum Ended {
 
 impl Ended {
     /// The outcome it is.
-    pub(crate) fn outcome<'o>(&self) -> Outcome<'o> {
+    pub(crate) fn outcome(&self) -> Outcome {
         match self {
             Ended::Error(e) => Outcome::Error(e.clone()),
             Ended::Limit(l) => Outcome::Limit(l.clone()),
@@ -182,6 +183,8 @@ pub(crate) struct Budget {
     pub(crate) tank: Tank,
     pub(crate) counts: Counts,
     cancel: Option<Cancel>,
+    /// What the run's host functions are handed.
+    context: Option<RunContext>,
     /// Units of fuel-free work until the next look at the cancellation flag.
     until_poll: i64,
     /// The memory limit, in bytes.
@@ -197,10 +200,16 @@ impl Budget {
             tank: Tank::new(limits.fuel),
             counts: Counts::default(),
             cancel: limits.cancel.clone(),
+            context: limits.context.clone(),
             until_poll: 0,
             memory: limits.memory,
             peak: 0,
         }
+    }
+
+    /// The context the run's host functions are handed.
+    pub(crate) fn context(&self) -> Context<'_> {
+        self.context.as_ref().map(RunContext::get)
     }
 
     /// Pay one unit for a contraction under `rule`.

@@ -3,6 +3,7 @@
 //! and to and from Rust types ([`FromDatum`], [`IntoDatum`]). Every walk here
 //! is iterative, so a million-long list converts and drops without recursion.
 
+use std::borrow::Cow;
 use std::fmt;
 
 use crate::term::{Arena, Node, Term};
@@ -19,7 +20,7 @@ use crate::term::{Arena, Node, Term};
 /// use orrery::{parse, Arena, Datum, Limits, MachineKind, Outcome};
 /// let arena = Arena::new();
 /// let program = parse(&arena, r#"Visit("fern", 3)"#).unwrap();
-/// let report = MachineKind::fastest().unwrap().run(&program, &Limits::default(), &arena);
+/// let report = MachineKind::fastest().unwrap().run(&program, &Limits::default());
 /// let Outcome::Value(value) = report.outcome else { panic!() };
 /// let datum = Datum::from_term(value).unwrap();
 /// assert_eq!(datum, Datum::con("Visit", vec![Datum::Str("fern".into()), Datum::Int(3)]));
@@ -47,7 +48,7 @@ pub enum Datum<'t> {
 /// assert_eq!(pair.fields().len(), 2);
 /// ```
 pub struct Con<'t> {
-    tag: &'t str,
+    tag: Cow<'t, str>,
     fields: Vec<Datum<'t>>,
 }
 
@@ -61,8 +62,11 @@ impl<'t> Con<'t> {
     /// let crate_ = Con::new("Crate", vec![Datum::Str("pears".into()), Datum::Int(40)]);
     /// assert_eq!(Datum::Con(crate_).describe(), "the constructor Crate");
     /// ```
-    pub fn new(tag: &'t str, fields: Vec<Datum<'t>>) -> Self {
-        Con { tag, fields }
+    pub fn new(tag: impl Into<Cow<'t, str>>, fields: Vec<Datum<'t>>) -> Self {
+        Con {
+            tag: tag.into(),
+            fields,
+        }
     }
 
     /// The tag.
@@ -73,8 +77,8 @@ impl<'t> Con<'t> {
     /// let berth = orrery::Con::new("Berth", vec![orrery::Datum::Int(7)]);
     /// assert_eq!(berth.tag(), "Berth");
     /// ```
-    pub fn tag(&self) -> &'t str {
-        self.tag
+    pub fn tag(&self) -> &str {
+        &self.tag
     }
 
     /// The fields, field 1 first.
@@ -98,8 +102,9 @@ impl<'t> Con<'t> {
     /// let (tag, fields) = orrery::Con::new("Nil", vec![]).into_parts();
     /// assert_eq!((tag, fields.len()), ("Nil", 0));
     /// ```
-    pub fn into_parts(mut self) -> (&'t str, Vec<Datum<'t>>) {
-        (self.tag, std::mem::take(&mut self.fields))
+    pub fn into_parts(mut self) -> (Cow<'t, str>, Vec<Datum<'t>>) {
+        let fields = std::mem::take(&mut self.fields);
+        (std::mem::take(&mut self.tag), fields)
     }
 }
 
@@ -131,7 +136,7 @@ impl<'t> Datum<'t> {
     /// let none = Datum::con("Nothing", vec![]);
     /// assert_eq!(none.describe(), "the constructor Nothing");
     /// ```
-    pub fn con(tag: &'t str, fields: Vec<Datum<'t>>) -> Self {
+    pub fn con(tag: impl Into<Cow<'t, str>>, fields: Vec<Datum<'t>>) -> Self {
         Datum::Con(Con::new(tag, fields))
     }
 
@@ -214,6 +219,34 @@ impl<'t> Datum<'t> {
         builder.finish()
     }
 
+    /// This datum with tags of its own, tied to nothing.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::Datum;
+    /// let owned: Datum<'static> = {
+    ///     let tag = String::from("Berth");
+    ///     Datum::con(tag.as_str(), vec![Datum::Int(7)]).into_owned()
+    /// };
+    /// assert_eq!(owned, Datum::con("Berth", vec![Datum::Int(7)]));
+    /// ```
+    pub fn into_owned(self) -> Datum<'static> {
+        let mut built: Vec<Datum<'static>> = Vec::new();
+        self.fold(
+            |datum, fields: &mut Vec<Datum<'static>>| match datum {
+                Datum::Int(n) => Datum::Int(*n),
+                Datum::Bool(b) => Datum::Bool(*b),
+                Datum::Str(s) => Datum::Str(s.clone()),
+                Datum::Con(c) => {
+                    let at = fields.len().saturating_sub(c.fields.len());
+                    Datum::con(c.tag.to_string(), fields.split_off(at))
+                }
+            },
+            &mut built,
+        )
+    }
+
     /// Build this datum as a term in `arena`.
     ///
     /// # Examples
@@ -233,7 +266,7 @@ impl<'t> Datum<'t> {
                 Datum::Str(s) => arena.string(s),
                 Datum::Con(c) => {
                     let start = fields.len() - c.fields.len();
-                    let term = arena.con(c.tag, &fields[start..]);
+                    let term = arena.con(&c.tag, &fields[start..]);
                     fields.truncate(start);
                     term
                 }
@@ -308,6 +341,20 @@ pub(crate) enum NotData {
     NotAValue,
     /// It would take more bytes than allowed.
     TooLarge,
+}
+
+impl NotData {
+    /// The conversion error this is, for a bound of `max_bytes`.
+    pub(crate) fn explain(self, max_bytes: usize) -> ConvertError {
+        match self {
+            NotData::Function => ConvertError::new("data", "a function"),
+            NotData::NotAValue => ConvertError::new("a value", "a term that is not a value"),
+            NotData::TooLarge => ConvertError::new(
+                format!("a value of at most {max_bytes} bytes"),
+                "a larger one",
+            ),
+        }
+    }
 }
 
 /// Builds a datum tree from a pre-order stream of leaves and constructor heads.
@@ -423,7 +470,7 @@ impl Clone for Datum<'_> {
                 Datum::Str(s) => Datum::Str(s.clone()),
                 Datum::Con(c) => {
                     let start = fields.len() - c.fields.len();
-                    Datum::con(c.tag, fields.split_off(start))
+                    Datum::con(c.tag.clone(), fields.split_off(start))
                 }
             },
             &mut stack,
@@ -433,7 +480,10 @@ impl Clone for Datum<'_> {
 
 impl Clone for Con<'_> {
     fn clone(&self) -> Self {
-        Con::new(self.tag, self.fields.iter().map(Datum::clone).collect())
+        Con::new(
+            self.tag.clone(),
+            self.fields.iter().map(Datum::clone).collect(),
+        )
     }
 }
 
@@ -482,7 +532,7 @@ impl fmt::Debug for Datum<'_> {
                 Piece::Datum(Datum::Bool(b)) => write!(f, "{b}")?,
                 Piece::Datum(Datum::Str(s)) => write!(f, "{s:?}")?,
                 Piece::Datum(Datum::Con(c)) => {
-                    f.write_str(c.tag)?;
+                    f.write_str(&c.tag)?;
                     if !c.fields.is_empty() {
                         f.write_str("(")?;
                         pending.push(Piece::Text(")"));
@@ -782,7 +832,7 @@ tuple!("Quad", 4, A 0, B 1, C 2, D 3);
 /// use orrery::{extract, parse, Arena, Limits, MachineKind, Outcome};
 /// let arena = Arena::new();
 /// let program = parse(&arena, "Cons(Pair(\"moss\", 2), Cons(Pair(\"ivy\", 5), Nil))").unwrap();
-/// let report = MachineKind::fastest().unwrap().run(&program, &Limits::default(), &arena);
+/// let report = MachineKind::fastest().unwrap().run(&program, &Limits::default());
 /// let Outcome::Value(v) = report.outcome else { panic!() };
 /// let beds: Vec<(String, i64)> = extract(v).unwrap();
 /// assert_eq!(beds, vec![("moss".to_string(), 2), ("ivy".to_string(), 5)]);

@@ -158,7 +158,7 @@ impl EvalError {
     /// let arena = Arena::new();
     /// let program = parse(&arena, "let crates = 0 in 120 / crates").unwrap();
     /// for kind in MachineKind::enabled() {
-    ///     let Outcome::Error(e) = kind.run(&program, &Limits::default(), &arena).outcome else { panic!() };
+    ///     let Outcome::Error(e) = kind.run(&program, &Limits::default()).outcome else { panic!() };
     ///     assert_eq!(e.kind(), ErrorKind::DivisionByZero);
     /// }
     /// ```
@@ -442,6 +442,16 @@ pub enum ValidationError {
         /// The function's index in the table it came from.
         index: usize,
     },
+    /// A call made with another table of host functions than the one the
+    /// program is made with: the function it names there may not be this
+    /// one, whatever its arity (build the call with the program's table).
+    #[error(
+        "host function #{index} comes from another table of host functions than the program's"
+    )]
+    ForeignHost {
+        /// The function's index in the table it came from.
+        index: usize,
+    },
     /// The program, once its shared open subterms are unfolded, would have
     /// more than this many nodes (see [`crate::MAX_NODES`]).
     #[error(
@@ -462,6 +472,9 @@ pub enum ValidationError {
         /// The most allowed.
         max: usize,
     },
+    /// A term given as a value is not one (it has a redex).
+    #[error("the term is not a value")]
+    NotAValue,
     /// A broken invariant inside orrery itself (a bug, never the program's
     /// fault).
     #[error("internal error in orrery (please report it): {0}")]

@@ -10,6 +10,7 @@
     allow(dead_code)
 )]
 
+use std::any::Any;
 use std::fmt;
 use std::panic::{catch_unwind, AssertUnwindSafe};
 use std::sync::Arc;
@@ -20,11 +21,17 @@ use crate::prim::{HostId, Prim};
 use crate::term::{Arena, Term};
 
 /// The signature every host function has once its arguments are data.
-type DataFn = dyn for<'t> Fn(&[Datum<'t>]) -> Result<Datum<'t>, String> + Send + Sync;
+type DataFn =
+    dyn for<'t, 'c> Fn(Context<'c>, &[Datum<'t>]) -> Result<Datum<'t>, String> + Send + Sync;
+
+/// What a run hands its host functions: the context the caller put in its
+/// [`crate::Limits`] (see [`crate::Limits::with_context`]), if any.
+pub(crate) type Context<'c> = Option<&'c (dyn Any + Send + Sync)>;
 
 /// The signature of a fuel cost.
-type CostFn = dyn for<'t> Fn(&[Datum<'t>]) -> u64 + Send + Sync;
+type CostFn = dyn for<'t, 'c> Fn(Context<'c>, &[Datum<'t>]) -> u64 + Send + Sync;
 
+#[derive(Clone)]
 struct Entry {
     name: Box<str>,
     id: HostId,
@@ -44,13 +51,31 @@ struct Entry {
 /// host.register("shout", |s: String| Ok::<_, String>(s.to_uppercase())).unwrap();
 /// let arena = Arena::new();
 /// let program = parse_with(&arena, r#"shout "quiet please""#, &host).unwrap();
-/// let report = MachineKind::fastest().unwrap().run(&program, &Limits::default(), &arena);
+/// let report = MachineKind::fastest().unwrap().run(&program, &Limits::default());
 /// let Outcome::Value(v) = report.outcome else { panic!("{:?}", report.outcome) };
 /// assert_eq!(extract::<String>(v).unwrap(), "QUIET PLEASE");
 /// ```
-#[derive(Default)]
+#[derive(Clone, Default)]
 pub struct HostFunctions {
+    /// The functions, shared by the programs made with this table (`None`:
+    /// none registered yet).
+    table: Option<Arc<Table>>,
+}
+
+/// A table's functions and its identity: programs check that the calls they
+/// were built with come from the table they run with.
+#[derive(Clone)]
+struct Table {
+    id: u32,
     entries: Vec<Entry>,
+}
+
+/// Identities of tables, never reused in a process.
+static NEXT_TABLE: std::sync::atomic::AtomicU32 = std::sync::atomic::AtomicU32::new(1);
+
+/// A fresh table identity.
+fn fresh_table_id() -> u32 {
+    NEXT_TABLE.fetch_add(1, std::sync::atomic::Ordering::Relaxed)
 }
 
 /// The most arguments a host function may take.
@@ -89,7 +114,13 @@ pub enum HostDefinitionError {
     /// Too many arguments.
     #[error("a host function takes at most {MAX_HOST_ARITY} arguments, `{0}` takes {1}")]
     Arity(String, usize),
+    /// The table is full.
+    #[error("a table holds at most {0} host functions")]
+    TooMany(usize),
 }
+
+/// The most functions one table may hold.
+const MAX_HOST_FUNCTIONS: usize = 1 << 24;
 
 /// Words the text syntax reserves, and the built-in function names.
 const RESERVED: &[&str] = &[
@@ -166,6 +197,66 @@ impl HostFunctions {
     where
         F: for<'t> Fn(&[Datum<'t>]) -> Result<Datum<'t>, String> + Send + Sync + 'static,
     {
+        self.register_entry(
+            name,
+            arity,
+            Arc::new(move |_: Context<'_>, args: &[Datum<'_>]| function(args)),
+        )
+    }
+
+    /// Register a typed Rust function that also reads the run's context: a
+    /// value of type `C` the caller hands each run with
+    /// [`crate::Limits::with_context`] (a tenant, a request id, a deadline).
+    /// A run without a context of that type makes the call a `host_error`.
+    ///
+    /// # Errors
+    ///
+    /// As [`HostFunctions::register`].
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{HostFunctions, Limits, MachineKind, Program};
+    /// struct Tenant { discount_percent: i64 }
+    /// let mut host = HostFunctions::new();
+    /// host.register_with_context("discounted", |t: &Tenant, cents: i64| {
+    ///     Ok::<_, String>(cents * (100 - t.discount_percent) / 100)
+    /// }).unwrap();
+    /// let program = Program::parse_with("discounted 2000", &host).unwrap();
+    /// let limits = Limits::default().with_context(Tenant { discount_percent: 15 });
+    /// let report = MachineKind::fastest().unwrap().run(&program);
+    /// assert_eq!(report.outcome.value().unwrap().as_int(), Some(1700));
+    /// ```
+    pub fn register_with_context<C, Args, F>(
+        &mut self,
+        name: &str,
+        function: F,
+    ) -> Result<HostId, HostDefinitionError>
+    where
+        C: Any + Send + Sync,
+        F: HostFnWith<C, Args>,
+    {
+        let arity = F::ARITY;
+        let wanted = std::any::type_name::<C>();
+        self.register_entry(
+            name,
+            arity,
+            Arc::new(move |context: Context<'_>, args: &[Datum<'_>]| {
+                match context.and_then(|c| c.downcast_ref::<C>()) {
+                    Some(c) => function.call(c, args),
+                    None => Err(format!("needs a run context of type {wanted}")),
+                }
+            }),
+        )
+    }
+
+    /// Register `function` under `name` with `arity`, checking both.
+    fn register_entry(
+        &mut self,
+        name: &str,
+        arity: usize,
+        function: Arc<DataFn>,
+    ) -> Result<HostId, HostDefinitionError> {
         let well_formed = name
             .bytes()
             .next()
@@ -182,17 +273,57 @@ impl HostFunctions {
         if arity > MAX_HOST_ARITY {
             return Err(HostDefinitionError::Arity(name.to_string(), arity));
         }
-        let id = HostId::new(
-            u32::try_from(self.entries.len()).unwrap_or(u32::MAX),
-            arity as u32,
-        );
-        self.entries.push(Entry {
+        if self.entries().len() >= MAX_HOST_FUNCTIONS {
+            return Err(HostDefinitionError::TooMany(MAX_HOST_FUNCTIONS));
+        }
+        let table = self.table_mut();
+        let id = HostId::new(table.id, table.entries.len() as u32, arity as u32);
+        table.entries.push(Entry {
             name: name.into(),
             id,
-            function: Arc::new(function),
+            function,
             cost: None,
         });
         Ok(id)
+    }
+
+    /// The functions, in registration order.
+    fn entries(&self) -> &[Entry] {
+        self.table.as_deref().map_or(&[], |t| &t.entries)
+    }
+
+    /// This table's functions to change: its own if no program shares them,
+    /// else a copy, which is a new table (with an identity of its own, so
+    /// that a program made with the old one cannot run with the new).
+    fn table_mut(&mut self) -> &mut Table {
+        let shared = match &mut self.table {
+            Some(table) => Arc::get_mut(table).is_none(),
+            None => true,
+        };
+        if shared {
+            let id = fresh_table_id();
+            let entries = self
+                .entries()
+                .iter()
+                .map(|e| Entry {
+                    id: HostId::new(id, e.id.index() as u32, e.id.arity() as u32),
+                    ..e.clone()
+                })
+                .collect();
+            self.table = Some(Arc::new(Table { id, entries }));
+        }
+        let table = self.table.get_or_insert_with(|| {
+            Arc::new(Table {
+                id: fresh_table_id(),
+                entries: Vec::new(),
+            })
+        });
+        Arc::make_mut(table)
+    }
+
+    /// This table's identity (0 for a table with no functions).
+    pub(crate) fn table_id(&self) -> u32 {
+        self.table.as_ref().map_or(0, |t| t.id)
     }
 
     /// Give a host function a fuel cost beyond the one unit every contraction
@@ -219,7 +350,39 @@ impl HostFunctions {
         F: for<'t> Fn(&[Datum<'t>]) -> u64 + Send + Sync + 'static,
     {
         if let Some(entry) = self.entry_mut(id) {
-            entry.cost = Some(Arc::new(cost));
+            entry.cost = Some(Arc::new(move |_: Context<'_>, args: &[Datum<'_>]| {
+                cost(args)
+            }));
+        }
+    }
+
+    /// [`HostFunctions::set_cost`] with a cost that also reads the run's
+    /// context of type `C` (no context of that type: no extra cost; the call
+    /// itself then fails if it needs one).
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Datum, HostFunctions};
+    /// struct Plan { units_per_item: u64 }
+    /// let mut host = HostFunctions::new();
+    /// let id = host.register("pack", |n: i64| Ok::<_, String>(n)).unwrap();
+    /// host.set_cost_with_context(id, |plan: &Plan, args| match &args[0] {
+    ///     Datum::Int(n) => plan.units_per_item.saturating_mul(*n as u64),
+    ///     _ => 0,
+    /// });
+    /// ```
+    pub fn set_cost_with_context<C, F>(&mut self, id: HostId, cost: F)
+    where
+        C: Any + Send + Sync,
+        F: for<'t> Fn(&C, &[Datum<'t>]) -> u64 + Send + Sync + 'static,
+    {
+        if let Some(entry) = self.entry_mut(id) {
+            entry.cost = Some(Arc::new(move |context: Context<'_>, args: &[Datum<'_>]| {
+                context
+                    .and_then(|c| c.downcast_ref::<C>())
+                    .map_or(0, |c| cost(c, args))
+            }));
         }
     }
 
@@ -234,7 +397,10 @@ impl HostFunctions {
     /// assert_eq!(host.id("bus_fare"), None);
     /// ```
     pub fn id(&self, name: &str) -> Option<HostId> {
-        self.entries.iter().find(|e| &*e.name == name).map(|e| e.id)
+        self.entries()
+            .iter()
+            .find(|e| &*e.name == name)
+            .map(|e| e.id)
     }
 
     /// The name of a function of this table.
@@ -262,7 +428,7 @@ impl HostFunctions {
     /// assert_eq!(names, ["moult", "roost"]);
     /// ```
     pub fn iter(&self) -> impl Iterator<Item = (&str, HostId)> {
-        self.entries.iter().map(|e| (&*e.name, e.id))
+        self.entries().iter().map(|e| (&*e.name, e.id))
     }
 
     /// Whether `id` names a function of this table (with the same arity).
@@ -304,26 +470,38 @@ impl HostFunctions {
     }
 
     fn entry(&self, id: HostId) -> Option<&Entry> {
-        self.entries.get(id.index()).filter(|e| e.id == id)
+        self.entries().get(id.index()).filter(|e| e.id == id)
     }
 
     fn entry_mut(&mut self, id: HostId) -> Option<&mut Entry> {
-        self.entries.get_mut(id.index()).filter(|e| e.id == id)
+        if self.entry(id).is_none() {
+            return None;
+        }
+        let table = self.table_mut();
+        let at = id.index();
+        table.entries.get_mut(at)
     }
 
     /// Fuel a call of `id` on `args` takes: one unit, plus its declared cost.
-    pub(crate) fn fuel(&self, id: HostId, args: &[Datum<'_>]) -> u64 {
+    pub(crate) fn fuel(&self, id: HostId, context: Context<'_>, args: &[Datum<'_>]) -> u64 {
         let extra = self
             .entry(id)
             .and_then(|e| e.cost.as_ref())
-            .map_or(Ok(0), |cost| catch_unwind(AssertUnwindSafe(|| cost(args))));
+            .map_or(Ok(0), |cost| {
+                catch_unwind(AssertUnwindSafe(|| cost(context, args)))
+            });
         // A panicking cost function makes the call cost nothing extra; the
         // call itself then reports the failure if it panics too.
         1u64.saturating_add(extra.unwrap_or(0))
     }
 
     /// Call `id` on `args`. Failures and panics are `host_error`s.
-    pub(crate) fn call<'t>(&self, id: HostId, args: &[Datum<'t>]) -> Result<Datum<'t>, EvalError> {
+    pub(crate) fn call<'t>(
+        &self,
+        id: HostId,
+        context: Context<'_>,
+        args: &[Datum<'t>],
+    ) -> Result<Datum<'t>, EvalError> {
         let Some(entry) = self.entry(id) else {
             return Err(host_error(format!(
                 "host function #{} is not in this program's table",
@@ -331,7 +509,7 @@ impl HostFunctions {
             )));
         };
         let function = &entry.function;
-        match catch_unwind(AssertUnwindSafe(|| function(args))) {
+        match catch_unwind(AssertUnwindSafe(|| function(context, args))) {
             Ok(Ok(datum)) => Ok(datum),
             Ok(Err(message)) => Err(host_error(format!("{}: {message}", entry.name))),
             Err(payload) => {
@@ -385,6 +563,7 @@ pub(crate) enum HostStep<'t> {
 pub(crate) fn host_step<'t>(
     host: &HostFunctions,
     id: HostId,
+    context: Context<'_>,
     args: Result<Vec<Datum<'t>>, crate::datum::NotData>,
     fuel_left: u64,
 ) -> HostStep<'t> {
@@ -408,20 +587,18 @@ pub(crate) fn host_step<'t>(
             }
         }
     };
-    let fuel = host.fuel(id, &args);
+    let fuel = host.fuel(id, context, &args);
     if fuel > fuel_left {
         return HostStep::OutOfFuel;
     }
     HostStep::Made {
         fuel,
-        result: host.call(id, &args),
+        result: host.call(id, context, &args),
     }
 }
 
 /// The table shared by programs built without host functions.
-pub(crate) static NO_HOST: HostFunctions = HostFunctions {
-    entries: Vec::new(),
-};
+pub(crate) static NO_HOST: HostFunctions = HostFunctions { table: None };
 
 fn host_error(message: String) -> EvalError {
     EvalError::new(ErrorKind::HostError, message)
@@ -431,7 +608,7 @@ impl fmt::Debug for HostFunctions {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         f.debug_list()
             .entries(
-                self.entries
+                self.entries()
                     .iter()
                     .map(|e| format!("{}/{}", e.name, e.id.arity())),
             )
@@ -490,6 +667,55 @@ macro_rules! host_fn {
     };
 }
 
+/// A Rust closure usable as a typed host function that reads the run's
+/// context: `Fn(&C, A, B, …) -> Result<R, E>`, for up to six arguments.
+/// Implemented automatically.
+pub trait HostFnWith<C, Args>: Send + Sync + 'static {
+    /// The number of arguments (the context aside).
+    const ARITY: usize;
+    /// Convert the arguments, call with the context, convert the result.
+    ///
+    /// # Errors
+    ///
+    /// The message for a `host_error`: a conversion failure or the function's
+    /// own error.
+    fn call<'t>(&self, context: &C, args: &[Datum<'t>]) -> Result<Datum<'t>, String>;
+}
+
+macro_rules! host_fn_with {
+    ($n:literal $(, $t:ident $v:ident $i:tt)*) => {
+        impl<Ctx, F, R, E $(, $t)*> HostFnWith<Ctx, ($($t,)*)> for F
+        where
+            F: Fn(&Ctx $(, $t)*) -> Result<R, E> + Send + Sync + 'static,
+            R: IntoDatum,
+            E: fmt::Display,
+            $($t: FromDatum,)*
+        {
+            const ARITY: usize = $n;
+            #[allow(unused_variables)]
+            fn call<'t>(&self, context: &Ctx, args: &[Datum<'t>]) -> Result<Datum<'t>, String> {
+                if args.len() != $n {
+                    return Err(format!("expects {} argument(s), got {}", $n, args.len()));
+                }
+                $(let $v = $t::from_datum(&args[$i])
+                    .map_err(|e| format!("argument {}: {e}", $i + 1))?;)*
+                match self(context $(, $v)*) {
+                    Ok(result) => Ok(result.into_datum()),
+                    Err(message) => Err(message.to_string()),
+                }
+            }
+        }
+    };
+}
+
+host_fn_with!(0);
+host_fn_with!(1, A a 0);
+host_fn_with!(2, A a 0, B b 1);
+host_fn_with!(3, A a 0, B b 1, C c 2);
+host_fn_with!(4, A a 0, B b 1, C c 2, D d 3);
+host_fn_with!(5, A a 0, B b 1, C c 2, D d 3, G g 4);
+host_fn_with!(6, A a 0, B b 1, C c 2, D d 3, G g 4, H h 5);
+
 host_fn!(0);
 host_fn!(1, A a 0);
 host_fn!(2, A a 0, B b 1);
@@ -513,12 +739,12 @@ mod tests {
                 Err("damp fuse".into())
             })
             .unwrap();
-        let e = host.call(boom, &[Datum::Int(3)]).unwrap_err();
+        let e = host.call(boom, None, &[Datum::Int(3)]).unwrap_err();
         assert_eq!(e.kind(), ErrorKind::HostError);
         assert_eq!(e.message(), "boom panicked: fuse 3 lit");
-        let e = host.call(boom, &[Datum::Int(0)]).unwrap_err();
+        let e = host.call(boom, None, &[Datum::Int(0)]).unwrap_err();
         assert_eq!(e.message(), "boom: damp fuse");
-        let e = host.call(boom, &[Datum::Bool(true)]).unwrap_err();
+        let e = host.call(boom, None, &[Datum::Bool(true)]).unwrap_err();
         assert_eq!(
             e.message(),
             "boom: argument 1: expected an integer, found a boolean"
@@ -547,13 +773,13 @@ mod tests {
         let id = host
             .register("pad", |s: String| Ok::<_, String>(s))
             .unwrap();
-        assert_eq!(host.fuel(id, &[Datum::Str("abc".into())]), 1);
+        assert_eq!(host.fuel(id, None, &[Datum::Str("abc".into())]), 1);
         host.set_cost(id, |args| match &args[0] {
             Datum::Str(s) => s.len() as u64,
             _ => 0,
         });
-        assert_eq!(host.fuel(id, &[Datum::Str("abc".into())]), 4);
+        assert_eq!(host.fuel(id, None, &[Datum::Str("abc".into())]), 4);
         host.set_cost(id, |_| u64::MAX);
-        assert_eq!(host.fuel(id, &[Datum::Str("abc".into())]), u64::MAX);
+        assert_eq!(host.fuel(id, None, &[Datum::Str("abc".into())]), u64::MAX);
     }
 }

@@ -16,6 +16,7 @@
 #![cfg_attr(not(any(feature = "env", feature = "cek")), allow(dead_code))]
 
 pub(crate) mod analysis;
+mod store;
 
 use std::sync::Arc;
 
@@ -320,6 +321,44 @@ impl Image {
     }
 }
 
+/// Call `visit` with each child of `node` (first first) and the binder depth
+/// it sits at, `depth` being the node's own.
+pub(crate) fn children(image: &Image, node: INode, depth: u32, mut visit: impl FnMut(Id, u32)) {
+    match node {
+        INode::Var { .. } | INode::Int(_) | INode::Bool(_) | INode::Str(_) => {}
+        INode::Lam { body, .. } => visit(body, depth + 1),
+        INode::RecLam { body, .. } => visit(body, depth + 2),
+        INode::App(a, b) => {
+            visit(a, depth);
+            visit(b, depth);
+        }
+        INode::Let(a, b) => {
+            visit(a, depth);
+            visit(b, depth + 1);
+        }
+        INode::If(a, b, c) => {
+            visit(a, depth);
+            visit(b, depth);
+            visit(c, depth);
+        }
+        INode::Prim(op, start) => image
+            .operands(op, start)
+            .iter()
+            .for_each(|&c| visit(c, depth)),
+        INode::Con(_, start, len) => image.list(start, len).iter().for_each(|&c| visit(c, depth)),
+        INode::Case(s, c) => {
+            let case = image.cases[c as usize];
+            visit(s, depth);
+            for arm in image.case_arms(&case) {
+                visit(arm.body, depth + arm.arity);
+            }
+            if case.default != NONE {
+                visit(case.default, depth);
+            }
+        }
+    }
+}
+
 /// How many nodes the image of `root` may unfold to: every node of a tree
 /// once, and sharing of open subterms (which only the builder API makes)
 /// up to sixteen times the distinct nodes, within [`MAX_NODES`].
@@ -452,6 +491,9 @@ impl<'h, 't> ImageBuilder<'h, 't> {
                 expected: op.arity(),
                 given: args.len(),
             }),
+            Node::Prim(Prim::Host(id), _) if id.table() != self.host.table_id() => {
+                Err(ValidationError::ForeignHost { index: id.index() })
+            }
             Node::Prim(Prim::Host(id), _) if !self.host.contains(id) => {
                 Err(ValidationError::UnknownHost { index: id.index() })
             }

@@ -22,8 +22,8 @@
 //!     shipping 1240
 //! "#).expect("valid program");
 //! let machine = MachineKind::fastest().expect("a machine is enabled");
-//! let report = machine.run(&program, &Limits::default().with_fuel(1_000), &arena);
-//! assert_eq!(report.outcome, Outcome::Value(arena.int(390 + 7 * 85)));
+//! let report = machine.run(&program, &Limits::default().with_fuel(1_000));
+//! assert_eq!(report.outcome, Outcome::Value(crate::Value::from_term(arena.int(390 + 7 * 85)).unwrap()));
 //! ```
 //!
 //! Terms can be built without text: by index with [`Arena`]'s constructors,
@@ -72,7 +72,7 @@
 //! let arena = Arena::new();
 //! let program = parse_with(&arena, "Pair(kiln_minutes 4 true, kiln_minutes 4 false)", &host).unwrap();
 //! let machine = MachineKind::fastest().unwrap();
-//! let Outcome::Value(v) = machine.run(&program, &Limits::default(), &arena).outcome else { panic!() };
+//! let Outcome::Value(v) = machine.run(&program, &Limits::default()).outcome else { panic!() };
 //! assert_eq!(extract::<(i64, i64)>(v).unwrap(), (66, 54));
 //! ```
 //!
@@ -115,11 +115,12 @@ mod error;
 mod host;
 mod image;
 mod prim;
+mod program;
 mod scope;
 mod subst;
 pub mod syntax;
 mod term;
-mod validate;
+mod value;
 mod vocabulary;
 
 // The machines live in the top-level `machines/` folder, apart from the
@@ -132,24 +133,49 @@ pub use agree::{disagreement, disagreement_within};
 pub use datum::{
     extract, extract_within, Con, ConvertError, Datum, FromDatum, IntoDatum, MAX_DATUM_BYTES,
 };
-pub use equal::terms_equal;
-pub use error::{ErrorKind, EvalError, Fault, LimitError, LimitKind, Operand, ValidationError};
-pub use host::{HostDefinitionError, HostFn, HostFunctions, MAX_HOST_ARITY};
+pub use error::{ErrorKind, EvalError, Fault, LimitError, LimitKind, ValidationError};
+pub use host::{HostDefinitionError, HostFn, HostFnWith, HostFunctions, MAX_HOST_ARITY};
 pub use image::{MAX_ARMS, MAX_FIELDS, MAX_NODES};
 pub use machines::{Machine, MachineKind, Paused};
-pub use prim::{delta, fuel_units, HostId, Prim, PrimValue, STRING_UNIT};
+pub use prim::{HostId, Prim, STRING_UNIT};
+pub use program::{validate, validate_with, Program};
 pub use scope::{Built, Scope, UnboundName};
-pub use subst::{instantiate, shift, subst, IndexOutOfRange};
 pub use syntax::{
     parse, parse_bytes, parse_term, parse_with, print, print_limited, print_with, Printed,
     SyntaxError, PRINT_LIMIT,
 };
 pub use term::{Arena, Arm, Children, Node, Term};
-pub use validate::{validate, validate_with, Program};
+pub use value::Value;
+pub use vocabulary::Detached;
 pub use vocabulary::{
-    Cancel, Counts, Limits, Outcome, Report, Rule, CANCEL_POLL_INTERVAL, DEFAULT_FUEL,
+    Cancel, Counts, Limits, Outcome, Report, Rule, RunContext, CANCEL_POLL_INTERVAL, DEFAULT_FUEL,
     DEFAULT_MEMORY,
 };
+
+/// The open-term toolkit, for tools built on the calculus rather than for
+/// embedding: shifting and substitution on any term (Pierce, *Types and
+/// Programming Languages*, 2002, §6.2), structural equality, and the
+/// primitives' δ-rules and fuel units as the machines apply them.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::toolkit::{instantiate, shift, terms_equal};
+/// use orrery::Arena;
+/// let arena = Arena::new();
+/// // (λ. #0 #1) applied to λ. #0, in a context with one free variable.
+/// let body = arena.app(arena.var(0), arena.var(1));
+/// let id = arena.lam(arena.var(0));
+/// let reduced = instantiate(&arena, body, &[id]).unwrap();
+/// assert!(terms_equal(reduced, arena.app(id, arena.var(0))));
+/// assert!(terms_equal(shift(&arena, arena.var(0), 2, 0).unwrap(), arena.var(2)));
+/// ```
+pub mod toolkit {
+    pub use crate::equal::terms_equal;
+    pub use crate::error::Operand;
+    pub use crate::prim::{delta, fuel_units, PrimValue};
+    pub use crate::subst::{instantiate, shift, subst, IndexOutOfRange};
+}
 
 /// The README's examples, compiled and run as doctests so they cannot rot.
 #[cfg(doctest)]

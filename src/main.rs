@@ -152,7 +152,7 @@ fn json_string(s: &str) -> String {
 }
 
 /// One JSON line for a machine's report (SEMANTICS §6).
-fn json_line(machine: &str, report: &Report<'_>) -> String {
+fn json_line(machine: &str, report: &Report) -> String {
     let mut line = format!(
         "{{\"machine\":{},\"outcome\":\"{}\"",
         json_string(machine),
@@ -160,7 +160,7 @@ fn json_line(machine: &str, report: &Report<'_>) -> String {
     );
     match &report.outcome {
         Outcome::Value(v) => {
-            let printed = print_limited(v, VALUE_PRINT_LIMIT);
+            let printed = v.print_limited(VALUE_PRINT_LIMIT);
             line.push_str(&format!(",\"value\":{}", json_string(&printed.text)));
         }
         Outcome::Error(e) => line.push_str(&format!(
@@ -192,12 +192,12 @@ fn json_line(machine: &str, report: &Report<'_>) -> String {
 /// The human-readable report: the value on stdout, the rest on stderr.
 fn text_report(
     machine: &str,
-    report: &Report<'_>,
+    report: &Report,
     stdout: &mut impl Write,
     stderr: &mut impl Write,
 ) -> std::io::Result<()> {
     match &report.outcome {
-        Outcome::Value(v) => writeln!(stdout, "{}", print_limited(v, VALUE_PRINT_LIMIT).text)?,
+        Outcome::Value(v) => writeln!(stdout, "{}", v.print_limited(VALUE_PRINT_LIMIT).text)?,
         Outcome::Error(e) => writeln!(
             stderr,
             "{machine}: error {}: {}",
@@ -220,7 +220,7 @@ fn text_report(
     writeln!(stderr, "{machine}: {}", report.counts)
 }
 
-fn outcome_status(outcome: &Outcome<'_>) -> u8 {
+fn outcome_status(outcome: &Outcome) -> u8 {
     match outcome {
         Outcome::Value(_) => status::VALUE,
         Outcome::Error(_) => status::ERROR,
@@ -257,8 +257,11 @@ fn run(request: &Request) -> std::io::Result<u8> {
     let Some(&first) = machines.next() else {
         return Ok(status::USAGE);
     };
-    let first_out = Arena::new();
-    let reference = run_one(first, &program, &request.limits, &first_out, request.trace);
+    let reference = run_one(first, &program, &request.limits, request.trace);
+    let kept = match &reference.outcome {
+        Outcome::Value(v) => v.bytes(),
+        _ => 0,
+    };
     emit(
         request.json,
         first.name(),
@@ -269,10 +272,9 @@ fn run(request: &Request) -> std::io::Result<u8> {
     let mut code = outcome_status(&reference.outcome);
     let mut limited = matches!(reference.outcome, Outcome::Limit(_)).then_some(code);
     for &machine in machines {
-        let out = Arena::new();
         let mut limits = request.limits.clone();
-        limits.memory = limits.memory.saturating_sub(first_out.used_bytes());
-        let report = run_one(machine, &program, &limits, &out, request.trace);
+        limits.memory = limits.memory.saturating_sub(kept);
+        let report = run_one(machine, &program, &limits, request.trace);
         emit(
             request.json,
             machine.name(),
@@ -283,7 +285,11 @@ fn run(request: &Request) -> std::io::Result<u8> {
         if matches!(report.outcome, Outcome::Limit(_)) {
             limited.get_or_insert(status::LIMIT);
         }
-        let room = limits.memory.saturating_sub(out.used_bytes());
+        let made = match &report.outcome {
+            Outcome::Value(v) => v.bytes(),
+            _ => 0,
+        };
+        let room = limits.memory.saturating_sub(made);
         match disagreement_within(&reference, &report, room) {
             Ok(None) => {}
             Ok(Some(why)) => {
@@ -319,7 +325,7 @@ fn run(request: &Request) -> std::io::Result<u8> {
 fn emit(
     json: bool,
     machine: &str,
-    report: &Report<'_>,
+    report: &Report,
     stdout: &mut impl Write,
     stderr: &mut impl Write,
 ) -> std::io::Result<()> {
@@ -332,13 +338,7 @@ fn emit(
 
 /// Run `program` on one machine, tracing the stepper's contractions on
 /// stderr if asked.
-fn run_one<'o>(
-    machine: MachineKind,
-    program: &Program<'o>,
-    limits: &Limits,
-    out: &'o Arena,
-    trace: bool,
-) -> Report<'o> {
+fn run_one(machine: MachineKind, program: &Program, limits: &Limits, trace: bool) -> Report {
     #[cfg(feature = "stepper")]
     if trace && machine == MachineKind::Stepper {
         let mut n = 0u64;
@@ -346,7 +346,6 @@ fn run_one<'o>(
         return orrery::machines::stepper::Stepper::new().run_traced(
             program,
             limits,
-            out,
             &mut |rule, redex| {
                 n += 1;
                 let printed = print_limited(redex, TRACE_PRINT_LIMIT);
@@ -356,7 +355,7 @@ fn run_one<'o>(
         );
     }
     let _ = trace;
-    machine.run(program, limits, out)
+    machine.run(program, limits)
 }
 
 fn main() -> ExitCode {

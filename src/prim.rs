@@ -163,14 +163,25 @@ impl fmt::Display for Prim {
 /// ```
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
 pub struct HostId {
-    index: u32,
-    arity: u32,
+    /// The identity of the table the function belongs to.
+    table: u32,
+    /// Its index in the table (high 24 bits) and its arity (low 8).
+    slot: u32,
 }
 
 impl HostId {
-    /// The id of function `index` of a table, of `arity` arguments.
-    pub(crate) fn new(index: u32, arity: u32) -> HostId {
-        HostId { index, arity }
+    /// The id of function `index` of table `table`, of `arity` arguments
+    /// (`index` below 2²⁴, `arity` at most [`crate::MAX_HOST_ARITY`]).
+    pub(crate) fn new(table: u32, index: u32, arity: u32) -> HostId {
+        HostId {
+            table,
+            slot: index << 8 | (arity & 0xff),
+        }
+    }
+
+    /// The identity of its table.
+    pub(crate) fn table(self) -> u32 {
+        self.table
     }
 
     /// The number of arguments the function takes.
@@ -183,7 +194,7 @@ impl HostId {
     /// assert_eq!(id.arity(), 2);
     /// ```
     pub fn arity(self) -> usize {
-        self.arity as usize
+        (self.slot & 0xff) as usize
     }
 
     /// Its position in its table (registration order, from 0).
@@ -197,7 +208,7 @@ impl HostId {
     /// assert_eq!((sow.index(), reap.index()), (0, 1));
     /// ```
     pub fn index(self) -> usize {
-        self.index as usize
+        (self.slot >> 8) as usize
     }
 }
 

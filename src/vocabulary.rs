@@ -2,11 +2,13 @@
 //! their contraction counts, outcomes, error and limit kinds, and the trait and
 //! enum through which a caller picks a machine.
 
+use std::any::Any;
 use std::fmt;
+use std::sync::Arc;
 
 use crate::error::{EvalError, Fault, LimitError};
-use crate::term::{Arena, Term};
-use crate::validate::Program;
+use crate::program::Program;
+use crate::value::Value;
 
 /// Default fuel: one hundred million contractions (a few seconds on the fast
 /// machines).
@@ -59,6 +61,9 @@ pub struct Limits {
     pub memory: usize,
     /// A handle another thread may cancel the run through.
     pub cancel: Option<Cancel>,
+    /// What the run's host functions are handed: a tenant, a request id, a
+    /// deadline (see [`crate::HostFunctions::register_with_context`]).
+    pub context: Option<RunContext>,
 }
 
 impl Default for Limits {
@@ -67,6 +72,7 @@ impl Default for Limits {
             fuel: DEFAULT_FUEL,
             memory: DEFAULT_MEMORY,
             cancel: None,
+            context: None,
         }
     }
 }
@@ -111,6 +117,22 @@ impl Limits {
         self
     }
 
+    /// These limits with a context for the run's host functions: any
+    /// `Send + Sync` value, shared (not copied) by every run these limits
+    /// govern.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// struct Tenant(u32);
+    /// let limits = orrery::Limits::default().with_context(Tenant(7));
+    /// assert!(limits.context.is_some());
+    /// ```
+    pub fn with_context<C: Any + Send + Sync>(mut self, context: C) -> Self {
+        self.context = Some(RunContext(Arc::new(context)));
+        self
+    }
+
     /// Whether the run these limits govern has been cancelled.
     #[inline]
     ///
@@ -143,12 +165,39 @@ impl Limits {
 /// cancel.cancel();
 /// let limits = Limits::default().with_cancel(cancel);
 /// for kind in MachineKind::enabled() {
-///     let report = kind.run(&program, &limits, &arena);
+///     let report = kind.run(&program, &limits);
 ///     assert!(matches!(report.outcome, Outcome::Limit(_)));
 ///     assert!(report.counts.total() <= CANCEL_POLL_INTERVAL);
 /// }
 /// ```
 pub const CANCEL_POLL_INTERVAL: u64 = 1024;
+
+/// A run's context for its host functions, made by
+/// [`Limits::with_context`]. Clones share the one value; two contexts are
+/// equal when they are the same value.
+#[derive(Clone)]
+pub struct RunContext(Arc<dyn Any + Send + Sync>);
+
+impl RunContext {
+    /// The context as host functions see it.
+    pub(crate) fn get(&self) -> &(dyn Any + Send + Sync) {
+        &*self.0
+    }
+}
+
+impl PartialEq for RunContext {
+    fn eq(&self, other: &Self) -> bool {
+        Arc::ptr_eq(&self.0, &other.0)
+    }
+}
+
+impl Eq for RunContext {}
+
+impl fmt::Debug for RunContext {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str("RunContext")
+    }
+}
 
 /// A cancellation handle: cheap to clone, shared between threads. Cancelling
 /// it stops every run whose [`Limits`] hold a clone of it, with the
@@ -165,7 +214,7 @@ pub const CANCEL_POLL_INTERVAL: u64 = 1024;
 /// let limits = Limits::default().with_fuel(u64::MAX).with_cancel(cancel.clone());
 /// let stopper = std::thread::spawn(move || cancel.cancel());
 /// stopper.join().unwrap();
-/// let report = MachineKind::fastest().unwrap().run(&program, &limits, &arena);
+/// let report = MachineKind::fastest().unwrap().run(&program, &limits);
 /// assert!(matches!(report.outcome, Outcome::Limit(ref e) if e.kind() == LimitKind::Cancelled));
 /// ```
 #[derive(Clone, Debug, Default)]
@@ -469,20 +518,21 @@ impl fmt::Display for Counts {
 /// # Examples
 ///
 /// ```
-/// use orrery::{Arena, Outcome};
-/// let arena = Arena::new();
-/// let o = Outcome::Value(arena.int(3));
-/// assert_eq!(o.name(), "value");
+/// use orrery::{Limits, MachineKind, Outcome, Program};
+/// let program = Program::parse("2 + 1").unwrap();
+/// let report = MachineKind::fastest().unwrap().run(&program, &Limits::default());
+/// assert_eq!(report.outcome.name(), "value");
+/// assert_eq!(report.outcome.value().and_then(|v| v.as_int()), Some(3));
 /// ```
 #[derive(Clone, Debug, PartialEq)]
-pub enum Outcome<'o> {
-    /// The program reduced to this value (a closed term).
-    Value(&'o Term<'o>),
+pub enum Outcome {
+    /// The program reduced to this value.
+    Value(Value),
     /// The program got stuck.
     Error(EvalError),
-    /// The fuel ran out: exactly `fuel` contractions were made (or, with host
-    /// functions that declare a cost, the next contraction needed more fuel
-    /// than was left; see [`Counts::fuel`]).
+    /// The fuel ran out: the next contraction needed more fuel than was left
+    /// (one unit, or a data-sized primitive's or host function's units; see
+    /// [`Counts::fuel`]).
     OutOfFuel,
     /// A resource limit stopped the run.
     Limit(LimitError),
@@ -492,18 +542,17 @@ pub enum Outcome<'o> {
     Fault(Fault),
 }
 
-impl Outcome<'_> {
+impl Outcome {
     /// `value`, `error`, `out_of_fuel`, `limit` or `fault`, as in the JSON
     /// output.
     ///
     /// # Examples
     ///
     /// ```
-    /// use orrery::{parse, Arena, Limits, MachineKind};
-    /// let arena = Arena::new();
-    /// let program = parse(&arena, "let rec pace n = pace (n + 1) in pace 0").unwrap();
+    /// use orrery::{Limits, MachineKind, Program};
+    /// let program = Program::parse("let rec pace n = pace (n + 1) in pace 0").unwrap();
     /// for kind in MachineKind::enabled() {
-    ///     let report = kind.run(&program, &Limits::default().with_fuel(25), &arena);
+    ///     let report = kind.run(&program, &Limits::default().with_fuel(25));
     ///     assert_eq!(report.outcome.name(), "out_of_fuel");
     /// }
     /// ```
@@ -516,6 +565,23 @@ impl Outcome<'_> {
             Outcome::Fault(_) => "fault",
         }
     }
+
+    /// The value, if the run ended with one.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Limits, MachineKind, Program};
+    /// let program = Program::parse("\"pier\" ++ \" 4\"").unwrap();
+    /// let report = MachineKind::fastest().unwrap().run(&program, &Limits::default());
+    /// assert_eq!(report.outcome.value().and_then(|v| v.as_str()), Some("pier 4"));
+    /// ```
+    pub fn value(&self) -> Option<&Value> {
+        match self {
+            Outcome::Value(v) => Some(v),
+            _ => None,
+        }
+    }
 }
 
 /// A finished run: the outcome and the contractions made, per rule.
@@ -524,46 +590,45 @@ impl Outcome<'_> {
 ///
 /// ```
 /// # #[cfg(feature = "stepper")] {
-/// use orrery::{parse, Arena, Limits, MachineKind, Outcome, Rule};
-/// let arena = Arena::new();
-/// let program = parse(&arena, "(\\x. x + 1) 41").unwrap();
-/// let report = MachineKind::Stepper.run(&program, &Limits::default(), &arena);
-/// assert!(matches!(report.outcome, Outcome::Value(v) if v == arena.int(42)));
+/// use orrery::{Limits, MachineKind, Program, Rule};
+/// let program = Program::parse("(\\x. x + 1) 41").unwrap();
+/// let report = MachineKind::Stepper.run(&program, &Limits::default());
+/// assert_eq!(report.outcome.value().unwrap().as_int(), Some(42));
 /// assert_eq!(report.counts.get(Rule::Beta), 1);
 /// assert_eq!(report.counts.total(), 2);
 /// # }
 /// ```
 #[derive(Clone, Debug, PartialEq)]
-pub struct Report<'o> {
+pub struct Report {
     /// How the run ended.
-    pub outcome: Outcome<'o>,
+    pub outcome: Outcome,
     /// Contractions made, per rule.
     pub counts: Counts,
 }
 
 /// An evaluator: one of the machines of SEMANTICS §4. A machine value holds
-/// only reusable scratch state; the program and the limits come with each
-/// run, and a run's result is read back into the caller's `out` arena.
+/// only reusable scratch state (nothing of any program), so it is `Send`:
+/// keep one per worker thread. The program and the limits come with each
+/// run.
 ///
 /// # Examples
 ///
 /// ```
-/// use orrery::{parse, Arena, Limits, MachineKind, Outcome};
-/// let arena = Arena::new();
-/// let program = parse(&arena, "let tiles = 6 in tiles * 7").unwrap();
+/// use orrery::{Limits, MachineKind, Program};
+/// let program = Program::parse("let tiles = 6 in tiles * 7").unwrap();
 /// for kind in MachineKind::enabled() {
 ///     let mut machine = kind.machine();
-///     let report = machine.run(&program, &Limits::default(), &arena);
-///     assert_eq!(report.outcome, Outcome::Value(arena.int(42)));
+///     let report = machine.run(&program, &Limits::default());
+///     assert_eq!(report.outcome.value().unwrap().as_int(), Some(42));
 ///     assert!(machine.peak_bytes() <= Limits::default().memory);
 /// }
 /// ```
-pub trait Machine {
+pub trait Machine: Send {
     /// The machine's name (its row in the table).
     fn name(&self) -> &'static str;
 
-    /// Run a closed program to its outcome, reading its value back into `out`.
-    fn run<'o>(&mut self, program: &Program<'_>, limits: &Limits, out: &'o Arena) -> Report<'o>;
+    /// Run a program to its outcome.
+    fn run(&mut self, program: &Program, limits: &Limits) -> Report;
 
     /// The most bytes the last run held at once, as the memory limit counts
     /// them.
@@ -572,30 +637,30 @@ pub trait Machine {
     /// Start a run that stops when its fuel runs out and resumes with more,
     /// ending exactly as an uninterrupted run would; `None` for a machine
     /// that cannot pause. Nothing is evaluated until the first resume.
-    fn start<'p>(&self, program: &Program<'p>, limits: &Limits) -> Option<Box<dyn Paused + 'p>> {
+    fn start(&self, program: &Program, limits: &Limits) -> Option<Box<dyn Paused>> {
         let _ = (program, limits);
         None
     }
 }
 
 /// A run that pauses when its fuel runs out (see [`Machine::start`]). It
-/// owns its state between resumes: nothing is kept in an `out` arena but the
-/// value read back when the run ends.
+/// owns its state between resumes (and holds its program), so it is
+/// `'static`; [`Paused::detach`] makes it [`Detached`], which is `Send`, to
+/// move it to another thread.
 ///
 /// # Examples
 ///
 /// ```
-/// use orrery::{parse, Arena, Limits, MachineKind, Outcome};
-/// let arena = Arena::new();
-/// let program = parse(&arena, "let rec count n = if n == 0 then 7 else count (n - 1) in count 50").unwrap();
+/// use orrery::{Limits, MachineKind, Outcome, Program};
+/// let program = Program::parse("let rec count n = if n == 0 then 7 else count (n - 1) in count 50").unwrap();
 /// for kind in MachineKind::enabled() {
-///     let whole = kind.run(&program, &Limits::default(), &arena);
+///     let whole = kind.run(&program, &Limits::default());
 ///     let Some(mut run) = kind.machine().start(&program, &Limits::default().with_fuel(0)) else {
 ///         continue; // this machine cannot pause
 ///     };
-///     let mut report = run.resume(0, &arena);
+///     let mut report = run.resume(0);
 ///     while report.outcome == Outcome::OutOfFuel {
-///         report = run.resume(10, &arena);
+///         report = run.resume(10);
 ///     }
 ///     assert_eq!(report, whole);
 ///     assert!(run.is_finished());
@@ -605,7 +670,7 @@ pub trait Paused {
     /// Add `more_fuel` and run until a value, an error, a resource limit, or
     /// the end of the fuel; the report's counts are the run's totals so far.
     /// Once the run has ended, every resume reports the same end.
-    fn resume<'o>(&mut self, more_fuel: u64, out: &'o Arena) -> Report<'o>;
+    fn resume(&mut self, more_fuel: u64) -> Report;
 
     /// The contractions made so far.
     fn counts(&self) -> Counts;
@@ -618,6 +683,56 @@ pub trait Paused {
 
     /// The most bytes the run has held at once.
     fn peak_bytes(&self) -> usize;
+
+    /// This run in a form that can move to another thread, in time
+    /// proportional to its state; [`Detached::attach`] gives it back.
+    fn detach(self: Box<Self>) -> Detached;
+}
+
+/// A paused run on its way to another thread (see [`Paused::detach`]):
+/// `Send`, holding the run's whole state in a form tied to no thread.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{Limits, MachineKind, Outcome, Program};
+/// let program = Program::parse("let rec count n = if n == 0 then 7 else count (n - 1) in count 50").unwrap();
+/// for kind in MachineKind::enabled() {
+///     let Some(mut run) = kind.machine().start(&program, &Limits::default().with_fuel(30)) else {
+///         continue;
+///     };
+///     assert_eq!(run.resume(0).outcome, Outcome::OutOfFuel);
+///     let moved = run.detach();
+///     let report = std::thread::spawn(move || moved.attach().resume(1_000)).join().unwrap();
+///     assert_eq!(report.outcome.value().unwrap().as_int(), Some(7));
+/// }
+/// ```
+pub struct Detached {
+    run: Box<dyn DetachedRun>,
+}
+
+impl Detached {
+    /// Wrap a machine's detached state.
+    pub(crate) fn new(run: Box<dyn DetachedRun>) -> Detached {
+        Detached { run }
+    }
+
+    /// The run again, on this thread, exactly where it paused.
+    pub fn attach(self) -> Box<dyn Paused> {
+        self.run.attach()
+    }
+}
+
+impl std::fmt::Debug for Detached {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str("Detached")
+    }
+}
+
+/// A machine's paused state in a form that can cross threads.
+pub(crate) trait DetachedRun: Send {
+    /// The run again, on the calling thread.
+    fn attach(self: Box<Self>) -> Box<dyn Paused>;
 }
 
 /// How the machine table makes a machine.

@@ -18,8 +18,7 @@ use std::sync::atomic::{AtomicUsize, Ordering};
 use std::sync::Mutex;
 
 use orrery::{
-    extract_within, parse_with, Arena, HostFunctions, LimitKind, Limits, MachineKind, Outcome,
-    Program, Report,
+    parse_with, Arena, HostFunctions, LimitKind, Limits, MachineKind, Outcome, Program, Report,
 };
 
 /// What a case must end with.
@@ -244,10 +243,9 @@ fn child(name: &str, machine: &str) {
     let (outcome, detail) = match name {
         "pauses-with-big-string" => pauses(kind, &program, &limits),
         "extract-shared-string" => {
-            let out = Arena::new();
-            let report = kind.run(&program, &limits, &out);
+            let report = kind.run(&program, &limits);
             let detail = match &report.outcome {
-                Outcome::Value(v) => match extract_within::<Vec<String>>(v, case.limit) {
+                Outcome::Value(v) => match v.extract_within::<Vec<String>>(case.limit) {
                     Ok(_) => "extracted".to_string(),
                     Err(_) => "refused".to_string(),
                 },
@@ -256,10 +254,9 @@ fn child(name: &str, machine: &str) {
             (describe(&report), detail)
         }
         _ => {
-            let out = Arena::new();
-            let report = kind.run(&program, &limits, &out);
+            let report = kind.run(&program, &limits);
             let detail = match &report.outcome {
-                Outcome::Value(v) => orrery::print_limited(v, 64).text.replace(' ', "_"),
+                Outcome::Value(v) => v.print_limited(64).text.replace(' ', "_"),
                 _ => format!("{}", report.counts.total()),
             };
             (describe(&report), detail)
@@ -271,25 +268,24 @@ fn child(name: &str, machine: &str) {
 
 /// Run in slices of 10 units of fuel, resuming 300 times into one output
 /// arena (machines that cannot pause run whole).
-fn pauses(kind: MachineKind, program: &Program<'_>, limits: &Limits) -> (String, String) {
-    let out = Arena::new();
-    let report: Report<'_> = match kind.machine().start(program, &limits.clone().with_fuel(0)) {
+fn pauses(kind: MachineKind, program: &Program, limits: &Limits) -> (String, String) {
+    let report: Report = match kind.machine().start(program, &limits.clone().with_fuel(0)) {
         Some(mut run) => {
             for _ in 0..300 {
-                run.resume(10, &out);
+                run.resume(10);
             }
-            run.resume(u64::MAX / 2, &out)
+            run.resume(u64::MAX / 2)
         }
-        None => kind.run(program, limits, &out),
+        None => kind.run(program, limits),
     };
     let detail = match &report.outcome {
-        Outcome::Value(v) => orrery::print(v),
+        Outcome::Value(v) => v.to_string(),
         _ => String::from("-"),
     };
     (describe(&report), detail)
 }
 
-fn describe(report: &Report<'_>) -> String {
+fn describe(report: &Report) -> String {
     match &report.outcome {
         Outcome::Limit(l) if l.kind() == LimitKind::Memory => "memory".to_string(),
         Outcome::Limit(l) => l.kind().name().to_string(),

@@ -51,7 +51,7 @@ fn run_program(h: &mut Harness, name: &str, source: &str) {
     let skip: Vec<&str> = header.skip.iter().map(String::as_str).collect();
     let machines = machines_but(&skip);
     let limits = &header.limits;
-    let whole = h.run_on(&machines, name, &program, limits, &arena);
+    let whole = h.run_on(&machines, name, &program, limits);
     h.expect_ending(&whole, header.ending.as_deref().unwrap_or(""));
     if let Some(steps) = header.steps {
         h.expect(&whole, &format!("{steps} steps"), |r| {
@@ -67,13 +67,7 @@ fn run_program(h: &mut Harness, name: &str, source: &str) {
         });
     }
     for (fuel, ending, steps) in &header.cuts {
-        let cut = h.run_on(
-            &machines,
-            name,
-            &program,
-            &limits.clone().with_fuel(*fuel),
-            &arena,
-        );
+        let cut = h.run_on(&machines, name, &program, &limits.clone().with_fuel(*fuel));
         h.expect_ending(&cut, ending);
         if let Some(steps) = *steps {
             h.expect(&cut, &format!("{steps} steps"), |r| {
@@ -93,16 +87,10 @@ fn run_program(h: &mut Harness, name: &str, source: &str) {
         return; // a resource limit may trip anywhere: no bound to check
     }
     if used <= EVERY_BOUND_UP_TO {
-        h.every_bound_on(&machines, name, &program, limits, &arena, |_, _, _| {});
+        h.every_bound_on(&machines, name, &program, limits, |_, _, _| {});
     } else {
         for fuel in [0, 1, used / 2, used - 1] {
-            let at = h.run_on(
-                &machines,
-                name,
-                &program,
-                &limits.clone().with_fuel(fuel),
-                &arena,
-            );
+            let at = h.run_on(&machines, name, &program, &limits.clone().with_fuel(fuel));
             h.expect(&at, "out of fuel", |r| {
                 r.outcome == orrery::Outcome::OutOfFuel
             });
@@ -114,7 +102,7 @@ fn run_program(h: &mut Harness, name: &str, source: &str) {
         &[997]
     };
     for &slice in slices {
-        h.pauses(&whole, &program, slice, &arena);
+        h.pauses(&whole, &program, slice);
     }
 }
 
@@ -149,28 +137,22 @@ fn run_shape(h: &mut Harness, name: &str, shape: &Shape) {
     };
     let total = shape.trace.chars().count();
     let trace = &shape.trace;
-    let whole = h.every_bound(
-        name,
-        &program,
-        &Limits::default(),
-        &arena,
-        |h, bound, at| {
-            let n = usize::try_from(bound).unwrap_or(usize::MAX).min(total);
-            match trace_counts(trace, n) {
-                Ok(want) => h.expect(
-                    at,
-                    &format!("the counts of {n} letters of the trace"),
-                    |r| r.counts == want,
-                ),
-                Err(why) => h.fail(name, "the trace", bound, why),
-            }
-        },
-    );
+    let whole = h.every_bound(name, &program, &Limits::default(), |h, bound, at| {
+        let n = usize::try_from(bound).unwrap_or(usize::MAX).min(total);
+        match trace_counts(trace, n) {
+            Ok(want) => h.expect(
+                at,
+                &format!("the counts of {n} letters of the trace"),
+                |r| r.counts == want,
+            ),
+            Err(why) => h.fail(name, "the trace", bound, why),
+        }
+    });
     h.expect_ending(&whole, &shape.ending);
     h.expect(&whole, &format!("{total} contractions"), |r| {
         r.counts.total() == total as u64
     });
-    h.pauses(&whole, &program, 1, &arena);
+    h.pauses(&whole, &program, 1);
 }
 
 #[test]

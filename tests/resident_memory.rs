@@ -54,7 +54,7 @@ fn child(machine: &str, bomb: &str) {
     let program = parse(&arena, source).expect("the bombs parse");
     let limits = Limits::default().with_fuel(u64::MAX).with_memory(LIMIT);
     let baseline = status_bytes("VmRSS:").unwrap_or(0);
-    let report = kind.run(&program, &limits, &arena);
+    let report = kind.run(&program, &limits);
     let peak = status_bytes("VmHWM:").unwrap_or(usize::MAX);
     let outcome = match report.outcome {
         Outcome::Limit(l) if l.kind() == LimitKind::Memory => "memory".to_string(),

@@ -10,7 +10,7 @@ use std::rc::Rc;
 
 use criterion::measurement::WallTime;
 use criterion::{black_box, Bencher, BenchmarkGroup, BenchmarkId, Criterion, SamplingMode};
-use orrery::{parse, print, Arena, Limits, Machine, MachineKind, Outcome, Program};
+use orrery::{parse, Arena, Limits, Machine, MachineKind, Outcome, Program};
 
 /// Naive doubly recursive Fibonacci: call-heavy, two calls per call.
 pub const FIB: &str = "let rec fib n = if n < 2 then n else fib (n - 1) + fib (n - 2) in fib ";
@@ -259,23 +259,17 @@ pub fn unlimited() -> Limits {
 
 /// Parse a workload's source; a benchmark program that does not parse is a
 /// broken benchmark.
-pub fn program<'a>(arena: &'a Arena, source: &str) -> Program<'a> {
+pub fn program<'a>(arena: &'a Arena, source: &str) -> Program {
     parse(arena, source).unwrap_or_else(|e| panic!("benchmark program: {e}"))
 }
 
 /// Run `program` once outside any timing, check that it gives the value the
 /// plain Rust twin printed as `expected`, and return its contractions.
-pub fn check(
-    machine: &mut dyn Machine,
-    program: &Program<'_>,
-    limits: &Limits,
-    expected: &str,
-) -> u64 {
-    let out = Arena::new();
-    let report = machine.run(program, limits, &out);
+pub fn check(machine: &mut dyn Machine, program: &Program, limits: &Limits, expected: &str) -> u64 {
+    let report = machine.run(program, limits);
     match report.outcome {
         Outcome::Value(v) => assert_eq!(
-            print(v),
+            v.to_string(),
             expected,
             "{} disagrees with plain Rust",
             machine.name()
@@ -324,7 +318,7 @@ impl<'c> Workload<'c> {
         &mut self,
         id: &str,
         machine: &mut dyn Machine,
-        program: &Program<'_>,
+        program: &Program,
         limits: &Limits,
         runs: u64,
         expected: &str,
@@ -337,9 +331,8 @@ impl<'c> Workload<'c> {
                 record_contractions(&full_id, contractions);
             }
             b.iter(|| {
-                let out = Arena::new();
                 for _ in 0..runs {
-                    let report = machine.run(program, limits, &out);
+                    let report = machine.run(program, limits);
                     assert!(matches!(report.outcome, Outcome::Value(_)));
                     black_box(report);
                 }
@@ -355,13 +348,7 @@ impl<'c> Workload<'c> {
 
     /// Time `program` on every enabled machine but those named in `skip`,
     /// as in [`Workload::machine`].
-    pub fn every_machine(
-        &mut self,
-        program: &Program<'_>,
-        runs: u64,
-        expected: &str,
-        skip: &[&str],
-    ) {
+    pub fn every_machine(&mut self, program: &Program, runs: u64, expected: &str, skip: &[&str]) {
         for &kind in MachineKind::enabled() {
             if skip.contains(&kind.name()) {
                 continue;

@@ -11,7 +11,10 @@
 use std::rc::Rc;
 
 
-use super::{broken, closure_bytes, closure_rule, int_pair, CekRun, Control, Environment, ContinuationFrame, Fun, Val};
+use super::{
+    broken, closure_bytes, closure_rule, int_pair, CekRun, ContinuationFrame, Control, Environment,
+    Fun, Val,
+};
 use crate::budget::Halt;
 use crate::image::analysis::MAX_CHAIN;
 use crate::image::{Func, INode, Id, Image};
@@ -30,7 +33,7 @@ enum Taken {
     Lead(usize),
 }
 
-impl CekRun<'_> {
+impl CekRun {
     /// Contract the application of `function` to `argument`, its fuel
     /// already paid: enter the body, with the callee's locals where the
     /// continuation's end (so a tail call reuses the caller's), or make the

@@ -47,10 +47,11 @@ mod run;
 use compile::{Compiled, Workspace};
 use run::{Interpreter, Stacks};
 
+use std::sync::Arc;
+
 use crate::budget::{Budget, Halt};
-use crate::term::Term;
 use crate::vocabulary::{Build, Machine};
-use crate::{Arena, Counts, Limits, Outcome, Program, Report};
+use crate::{Counts, Limits, Outcome, Program, Report};
 
 /// The environment-based evaluator. Holds no program state between runs:
 /// it keeps its emptied stacks and code vectors for the next run (so a small
@@ -67,8 +68,8 @@ use crate::{Arena, Counts, Limits, Outcome, Program, Report};
 /// let add = arena.lam(arena.lam(arena.prim(Prim::Add, &[arena.var(1), arena.var(0)])));
 /// let call = arena.app(arena.app(arena.var(0), arena.int(40)), arena.int(2));
 /// let program = Program::new(arena.let_in(add, call)).unwrap();
-/// let report = Env::new().run(&program, &Limits::default(), &arena);
-/// assert_eq!(report.outcome, Outcome::Value(arena.int(42)));
+/// let report = Env::new().run(&program, &Limits::default());
+/// assert_eq!(report.outcome, Outcome::Value(crate::Value::from_term(arena.int(42)).unwrap()));
 /// assert_eq!(report.counts.total(), 4); // let, beta, beta, prim
 /// ```
 #[derive(Debug)]
@@ -94,7 +95,6 @@ impl Default for Env {
 #[derive(Debug, Default)]
 struct Scratch {
     stacks: Stacks,
-    compiled: Compiled,
     workspace: Workspace,
 }
 
@@ -133,7 +133,7 @@ impl Machine for Env {
         self.peak
     }
 
-    fn run<'o>(&mut self, program: &Program<'_>, limits: &Limits, out: &'o Arena) -> Report<'o> {
+    fn run(&mut self, program: &Program, limits: &Limits) -> Report {
         let mut budget = if self.metered {
             Budget::new(limits)
         } else {
@@ -143,10 +143,10 @@ impl Machine for Env {
                     .with_memory(usize::MAX),
             )
         };
-        let result = self.evaluate(program, &mut budget, out);
+        let result = self.evaluate(program, &mut budget);
         self.peak = budget.peak;
         let outcome = match result {
-            Ok(term) => Outcome::Value(term),
+            Ok(value) => Outcome::Value(value),
             Err(halt) => halt.outcome(limits.memory),
         };
         let counts: Counts = budget.counts;
@@ -155,41 +155,29 @@ impl Machine for Env {
 }
 
 impl Env {
-    /// Compile and run `program` under `budget`, reading its value back
-    /// into `out`.
-    fn evaluate<'o>(
-        &mut self,
-        program: &Program<'_>,
-        budget: &mut Budget,
-        out: &'o Arena,
-    ) -> Result<&'o Term<'o>, Halt> {
-        // The image is the program's, prepared once and held by the caller:
-        // not this run's memory.
+    /// Compile `program` (once: the code is kept with the program, for every
+    /// run and thread) and run it under `budget`, reading its value back.
+    fn evaluate(&mut self, program: &Program, budget: &mut Budget) -> Result<crate::Value, Halt> {
+        // The image and the code are the program's, prepared once and held
+        // by the caller: not this run's memory, except while this run
+        // compiles (its budget then bounds the code and the compiler's work).
         let image = program.image();
         let scratch = &mut self.scratch;
-        let compiled = compile::compile(
-            image,
-            &mut scratch.compiled,
-            &mut scratch.workspace,
-            budget,
-            0,
-        );
-        scratch.workspace.trim();
-        if let Err(halt) = compiled {
-            scratch.compiled.trim();
-            return Err(halt);
-        }
-        let fixed = scratch.compiled.bytes() + scratch.workspace.bytes();
-        let code = &scratch.compiled;
+        let code: Arc<Compiled> = program.prepared(|| {
+            let mut code = Compiled::default();
+            let compiled = compile::compile(image, &mut code, &mut scratch.workspace, budget, 0);
+            scratch.workspace.trim();
+            compiled.map(|()| code)
+        })?;
+        let fixed = scratch.workspace.bytes();
         let host = program.host();
+        let args = program.args();
         let stacks = &mut scratch.stacks;
-        let result = if self.metered {
-            Interpreter::<true>::evaluate(code, image, host, budget, fixed, stacks, out)
+        if self.metered {
+            Interpreter::<true>::evaluate(&code, image, host, args, budget, fixed, stacks)
         } else {
-            Interpreter::<false>::evaluate(code, image, host, budget, fixed, stacks, out)
-        };
-        scratch.compiled.trim();
-        result
+            Interpreter::<false>::evaluate(&code, image, host, args, budget, fixed, stacks)
+        }
     }
 }
 
@@ -198,7 +186,8 @@ mod tests {
     use super::compile::{compile, Fetch, Instr};
     use super::*;
     use crate::image::{INode, LOCAL, NONE};
-    use crate::{parse, LimitError, Prim, Rule};
+    use crate::{parse, Arena, LimitError, Prim, Rule};
+    use std::sync::Arc;
 
     /// A budget with no limits but `memory`, and a cancel handle.
     fn budget(memory: usize, cancel: Option<crate::Cancel>) -> Budget {
@@ -208,7 +197,7 @@ mod tests {
     }
 
     /// `program`'s image compiled without limits.
-    fn compiled(program: &Program<'_>) -> Compiled {
+    fn compiled(program: &Program) -> Compiled {
         let mut c = Compiled::default();
         let mut w = Workspace::default();
         compile(
@@ -250,9 +239,9 @@ mod tests {
         );
         assert_eq!(c.frame, 64);
         // Read back, the closure has x₀ substituted.
-        let report = Env::new().run(&program, &Limits::default(), &arena);
+        let report = Env::new().run(&program, &Limits::default());
         let expected = arena.lam(arena.prim(Prim::Add, &[arena.var(0), arena.int(0)]));
-        assert_eq!(report.outcome, Outcome::Value(expected));
+        assert_eq!(report.outcome, Outcome::Value(crate::Value::from_term(expected).unwrap()));
         assert_eq!(report.counts.get(Rule::Let), 64);
     }
 
@@ -276,8 +265,8 @@ mod tests {
             .filter(|i| matches!(i, Instr::AppN { .. }))
             .count();
         assert_eq!(spines, 2);
-        let report = Env::new().run(&program, &Limits::default(), &arena);
-        assert_eq!(report.outcome, Outcome::Value(arena.int(6 + 27)));
+        let report = Env::new().run(&program, &Limits::default());
+        assert_eq!(report.outcome, Outcome::Value(crate::Value::from_term(arena.int(6 + 27)).unwrap()));
     }
 
     #[test]
@@ -353,14 +342,16 @@ mod tests {
         let program = Program::new(spin(&arena)).unwrap();
         let limits = Limits::default().with_fuel(1_000);
         let mut env = Env::new();
-        let first = env.run(&program, &limits, &arena);
+        let first = env.run(&program, &limits);
         assert!(env.scratch.stacks.stack.capacity() > 0);
         let kept = env.scratch.stacks.stack.as_ptr();
-        let code = env.scratch.compiled.code.as_ptr();
-        let second = env.run(&program, &limits, &arena);
+        let code = Arc::as_ptr(&program.prepared(|| Err::<Compiled, ()>(())).unwrap());
+        let second = env.run(&program, &limits);
         assert_eq!(first, second);
         assert_eq!(env.scratch.stacks.stack.as_ptr(), kept);
-        assert_eq!(env.scratch.compiled.code.as_ptr(), code);
+        // The program keeps its compiled code: the second run compiled nothing.
+        let again = program.prepared(|| Err::<Compiled, ()>(())).unwrap();
+        assert_eq!(Arc::as_ptr(&again), code);
     }
 
     #[test]
@@ -370,7 +361,7 @@ mod tests {
         // Frames pushed call after call.
         let program = parse(&arena, "let rec deep n = 1 + deep (n + 1) in deep 0").unwrap();
         let mut env = Env::new();
-        let report = env.run(&program, &Limits::default().with_memory(limit), &arena);
+        let report = env.run(&program, &Limits::default().with_memory(limit));
         assert_eq!(report.outcome, Outcome::Limit(LimitError::memory(limit)));
         assert!(report.counts.get(Rule::BetaRec) > 2_000);
         // The peak is the growth refused, barely past the limit.
@@ -385,12 +376,15 @@ mod tests {
         );
         let source = format!("(\\x. case {nested} of {{ _ => 0 }}) 1");
         let program = parse(&arena, &source).unwrap();
-        let report = env.run(&program, &Limits::default(), &arena);
-        assert_eq!(report.outcome, Outcome::Value(arena.int(0)));
+        let report = env.run(&program, &Limits::default());
+        assert_eq!(report.outcome, Outcome::Value(crate::Value::from_term(arena.int(0)).unwrap()));
         assert_eq!(report.counts.total(), 2);
+        // The program keeps its compiled code, so a second run's peak is the
+        // run's alone.
+        env.run(&program, &Limits::default());
         let need = env.peak_bytes();
         let limit = need - 1;
-        let report = env.run(&program, &Limits::default().with_memory(limit), &arena);
+        let report = env.run(&program, &Limits::default().with_memory(limit));
         assert_eq!(report.outcome, Outcome::Limit(LimitError::memory(limit)));
         assert_eq!(report.counts.total(), 1);
     }
@@ -420,10 +414,10 @@ mod tests {
         assert!(c.fetches.len() <= 2 * c.funs.len());
         let mut env = Env::new();
         let limits = Limits::default().with_memory(16 << 20);
-        let report = env.run(&program, &limits.clone().with_fuel(0), &arena);
+        let report = env.run(&program, &limits.clone().with_fuel(0));
         assert_eq!(report.outcome, Outcome::OutOfFuel);
-        let report = env.run(&program, &limits, &arena);
-        assert_eq!(report.outcome, Outcome::Value(arena.int(4_000 * 4_001 / 2)));
+        let report = env.run(&program, &limits);
+        assert_eq!(report.outcome, Outcome::Value(crate::Value::from_term(arena.int(4_000 * 4_001 / 2)).unwrap()));
         assert_eq!(report.counts.get(Rule::Beta), 4_000);
     }
 
@@ -436,7 +430,7 @@ mod tests {
         let limit = 4 << 10;
         let result = compile(program.image(), &mut c, &mut w, &mut budget(limit, None), 0);
         assert!(matches!(result, Err(Halt::Memory)));
-        let report = Env::new().run(&program, &Limits::default().with_memory(limit), &arena);
+        let report = Env::new().run(&program, &Limits::default().with_memory(limit));
         assert_eq!(report.outcome, Outcome::Limit(LimitError::memory(limit)));
         let cancel = crate::Cancel::new();
         cancel.cancel();
@@ -471,9 +465,9 @@ mod tests {
             .filter(|i| matches!(i, Instr::Closure { .. }))
             .count();
         assert_eq!(closures, 2);
-        let report = Env::new().run(&program, &Limits::default(), &arena);
-        let want = parse(&arena, "Four(-1, -1, 100, 100)").unwrap().term();
-        assert_eq!(report.outcome, Outcome::Value(want));
+        let report = Env::new().run(&program, &Limits::default());
+        let want = crate::parse_term(&arena, "Four(-1, -1, 100, 100)").unwrap();
+        assert!(matches!(&report.outcome, Outcome::Value(v) if *v == want));
         assert_eq!(report.counts.to_array(), [4, 0, 2, 0, 4, 0]);
     }
 

@@ -25,7 +25,7 @@ use crate::machines::runtime::value::{
     cut, recycle, Closure, Code, ConCell, Meter, Value, Values, KEEP_STACK_BYTES,
 };
 use crate::prim::Prim;
-use crate::term::{Arena, Term};
+
 use crate::{HostFunctions, Limits};
 
 impl Code for &Function {
@@ -79,6 +79,8 @@ impl Task {
     /// `Instr::AppN`: argument `index` is on top; contract its application
     /// and go on with the next.
     const SPINE_ARG: u64 = 10;
+    /// Push argument `code` of the program (see `Program::apply`).
+    const PUSH_ARG: u64 = 11;
 
     #[inline(always)]
     fn new(kind: u64, code: CodeId) -> Task {
@@ -147,9 +149,12 @@ pub(super) struct Interpreter<'c, 'h, const METERED: bool> {
     tags: Tags,
     /// Bytes of tags host functions made up.
     tag_bytes: usize,
-    /// Bytes of the image and the code.
+    /// Bytes the run holds besides its stacks and cells (its compiler's
+    /// scratch, when it compiled).
     fixed: usize,
     meter: Meter,
+    /// The data the program is applied to, as values.
+    args: Vec<Val<'c>>,
 }
 
 impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
@@ -157,15 +162,15 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
     /// of `stacks` (emptied and kept again afterwards). The run holds
     /// `fixed` bytes of compiled code besides its own (the image is the
     /// caller's and not counted).
-    pub(super) fn evaluate<'o>(
+    pub(super) fn evaluate(
         code: &'c Compiled,
         image: &'c Image,
         host: &'h HostFunctions,
+        args: &[crate::Datum<'static>],
         budget: &mut Budget,
         fixed: usize,
         stacks: &mut Stacks,
-        out: &'o Arena,
-    ) -> Result<&'o Term<'o>, Halt> {
+    ) -> Result<crate::Value, Halt> {
         let kept = std::mem::take(stacks);
         let mut run = Interpreter::<METERED> {
             code,
@@ -182,11 +187,12 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
             tag_bytes: 0,
             fixed,
             meter: Meter::holding(0),
+            args: Vec::new(),
         };
         run.tasks.clear();
-        let result = run.execute().and_then(|value| {
+        let result = run.take_args(args).and_then(|()| run.execute()).and_then(|value| {
             let held = run.held();
-            read_back(&value, image, &run.tags, out, &mut run.budget, held)
+            read_back(&value, image, &run.tags, host, &mut run.budget, held)
         });
         *budget = std::mem::replace(&mut run.budget, Budget::new(&Limits::default()));
         let mut by_rule = budget.counts.to_array();
@@ -198,6 +204,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
         budget.counts.add_extra_fuel(extra);
         // Drop what the run still holds before its stacks are kept.
         run.closure = None;
+        run.args.clear();
         run.stack.clear();
         run.callers.clear();
         run.tasks.clear();
@@ -210,6 +217,20 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
             callers: recycle(run.callers),
         };
         result
+    }
+
+    /// The program's argument data as values, their cells charged like any
+    /// other (and their size counted as work).
+    fn take_args(&mut self, args: &[crate::Datum<'static>]) -> Result<(), Halt> {
+        for arg in args {
+            let (value, new_tags) = crate::machines::runtime::host::from_datum(arg, self.image, &self.tags);
+            self.tags.append(new_tags);
+            self.tag_bytes = self.tags.bytes();
+            self.args.push(value);
+            let held = self.held();
+            self.budget.check_memory(held)?;
+        }
+        Ok(())
     }
 
     /// Bytes held now: image and code, stacks by capacity, live cells and
@@ -893,6 +914,12 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
         self.reserve(frame)?;
         self.budget.work(frame as u64)?;
         self.pad(frame);
+        // The program applied to its arguments: once the root is a value,
+        // push the first argument and call, then the next.
+        for k in (0..self.args.len()).rev() {
+            self.tasks.push(Task::new(Task::CALL, 0));
+            self.tasks.push(Task::new(Task::PUSH_ARG, k as CodeId));
+        }
         let mut pc = code.root;
         'eval: loop {
             // Evaluate `pc` down its leftmost spine, leaving work for later.
@@ -1059,6 +1086,11 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                         if pc != PUSHED {
                             continue 'eval;
                         }
+                        continue;
+                    }
+                    Task::PUSH_ARG => {
+                        let value = self.args.get(at as usize).cloned().ok_or_else(broken)?;
+                        self.push(value)?;
                         continue;
                     }
                     Task::CALL_ATOM => {

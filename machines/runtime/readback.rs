@@ -1,57 +1,53 @@
 //! Read-back: a runtime value as the closed de Bruijn term the substitution
 //! stepper would hold (Plotkin's `Real` map from closures to terms,
-//! "Call-by-name, call-by-value and the λ-calculus", 1975). A constructor is
-//! read field by field; a closure as its function's `λ` (or, partly applied,
-//! the `λ` of its next parameter) with its captured and bound values
-//! substituted. Iterative, memoised on cells held more than once and on the
-//! program's closed subterms, and under the run's memory limit and
-//! cancellation: the bytes it builds count against the limit.
+//! "Call-by-name, call-by-value and the λ-calculus", 1975), built into an
+//! owned [`crate::Value`]. A constructor is read field by field; a closure as
+//! its function's `λ` (or, partly applied, the `λ` of its next parameter)
+//! with its captured and bound values substituted. Iterative, memoised on
+//! cells held more than once and on the program's closed subterms, and under
+//! the run's memory limit and cancellation: the bytes it builds count
+//! against the limit.
 
 use std::rc::Rc;
 
 use hashbrown::HashMap;
 
 use super::value::{Code, Value};
-use crate::budget::Budget;
-use crate::budget::Halt;
-use crate::image::Tags;
-use crate::image::{INode, Id, Image, NONE};
-use crate::term::{Arena, Arm, Node, Term};
+use crate::budget::{Budget, Halt};
+use crate::host::HostFunctions;
+use crate::image::{children, INode, Id, Image, TagId, Tags, NONE};
 
 /// Bytes a memo entry costs the read-back's accounting (key, value, control
 /// byte and the table's spare room).
 const MEMO_ENTRY: usize = 48;
 
-/// Read `root` back into `out`. The run holds `held` bytes besides what the
-/// read-back builds; their sum stays under the limit of `budget`.
+/// Read `root` back into a value. The run holds `held` bytes besides what
+/// the read-back builds; their sum stays under the limit of `budget`.
 ///
 /// # Errors
 ///
 /// [`Halt::Memory`] when the term would pass the limit, [`Halt::Cancelled`]
 /// when the run is cancelled meanwhile.
-pub(crate) fn read_back<'o, C: Code>(
+pub(crate) fn read_back<C: Code>(
     root: &Value<C>,
     image: &Image,
     tags: &Tags,
-    out: &'o Arena,
+    host: &HostFunctions,
     budget: &mut Budget,
     held: usize,
-) -> Result<&'o Term<'o>, Halt> {
-    match root {
-        Value::Int(n) => return Ok(out.int(*n)),
-        Value::Bool(b) => return Ok(out.boolean(*b)),
-        _ => {}
-    }
+) -> Result<crate::Value, Halt> {
     let mut r = ValueReader {
         image,
         tags,
-        out,
-        start: out.used_bytes(),
+        store: Image::default(),
+        strings: 0,
         held,
         cells: HashMap::new(),
         closed: HashMap::new(),
+        tag_ids: HashMap::new(),
     };
-    r.value(root, budget)
+    let root = r.value(root, budget)?;
+    Ok(crate::Value::new(r.store, root, host))
 }
 
 enum ValueJob<'v, C: Code> {
@@ -59,57 +55,78 @@ enum ValueJob<'v, C: Code> {
     Build(&'v Value<C>),
 }
 
-struct ValueReader<'o, 'i> {
+struct ValueReader<'i> {
     image: &'i Image,
     tags: &'i Tags,
-    out: &'o Arena,
-    /// `out`'s bytes when the read-back began.
-    start: usize,
+    /// What is built.
+    store: Image,
+    /// Bytes of the strings copied into the store.
+    strings: usize,
     held: usize,
-    /// Terms of cells held more than once, by address.
-    cells: HashMap<*const (), &'o Term<'o>>,
-    /// Terms of the program's closed subterms, by node.
-    closed: HashMap<Id, &'o Term<'o>>,
+    /// Nodes of cells held more than once, by address.
+    cells: HashMap<*const (), Id>,
+    /// Nodes of the program's closed subterms, by node.
+    closed: HashMap<Id, Id>,
+    /// The store's ids of the run's tags.
+    tag_ids: HashMap<TagId, TagId>,
 }
 
-impl<'o> ValueReader<'o, '_> {
+impl ValueReader<'_> {
     /// Account for one more node built; `Err` past the limit or once
     /// cancelled.
     #[inline]
     fn spend(&self, budget: &mut Budget) -> Result<(), Halt> {
         budget.work(1)?;
-        let built = self.out.used_bytes().saturating_sub(self.start)
-            + (self.cells.len() + self.closed.len()) * MEMO_ENTRY;
+        let built = self.store.building_bytes()
+            + self.strings
+            + (self.cells.len() + self.closed.len() + self.tag_ids.len()) * MEMO_ENTRY;
         budget.check_memory(self.held.saturating_add(built))
     }
 
-    fn value<C: Code>(
-        &mut self,
-        root: &Value<C>,
-        budget: &mut Budget,
-    ) -> Result<&'o Term<'o>, Halt> {
+    /// Refuse a string of `len` bytes that would pass the limit, before it
+    /// is copied.
+    fn room_for_string(&mut self, len: usize, budget: &mut Budget) -> Result<(), Halt> {
+        self.strings = self.strings.saturating_add(len);
+        self.spend(budget)
+    }
+
+    /// The store's id of run tag `tag`.
+    fn tag(&mut self, tag: TagId) -> TagId {
+        if let Some(&t) = self.tag_ids.get(&tag) {
+            return t;
+        }
+        let t = self.store.tag_of(self.tags.name(self.image, tag));
+        self.tag_ids.insert(tag, t);
+        t
+    }
+
+    fn value<C: Code>(&mut self, root: &Value<C>, budget: &mut Budget) -> Result<Id, Halt> {
         let mut jobs: Vec<ValueJob<'_, C>> = vec![ValueJob::Visit(root)];
-        let mut done: Vec<&'o Term<'o>> = Vec::new();
+        let mut done: Vec<Id> = Vec::new();
         while let Some(job) = jobs.pop() {
             match job {
                 ValueJob::Visit(value) => {
                     let (key, children, shared): (*const (), &[Value<C>], bool) = match value {
                         Value::Int(n) => {
-                            done.push(self.out.int(*n));
+                            self.spend(budget)?;
+                            done.push(self.store.push_int(*n));
                             continue;
                         }
                         Value::Bool(b) => {
-                            done.push(self.out.boolean(*b));
+                            self.spend(budget)?;
+                            done.push(self.store.push_bool(*b));
                             continue;
                         }
                         Value::Tag(t) => {
                             self.spend(budget)?;
-                            done.push(self.out.con(self.tags.name(self.image, *t), &[]));
+                            let tag = self.tag(*t);
+                            done.push(self.store.push_con(tag, &[]));
                             continue;
                         }
                         Value::Lit(s) => {
-                            self.spend(budget)?;
-                            done.push(self.out.string(self.image.string(*s)));
+                            let text = &self.image.strings[*s as usize];
+                            self.room_for_string(text.len(), budget)?;
+                            done.push(self.store.push_shared_string(std::sync::Arc::clone(text)));
                             continue;
                         }
                         Value::Str(s) => (Rc::as_ptr(s).cast(), &[], Rc::strong_count(s) > 1),
@@ -119,8 +136,8 @@ impl<'o> ValueReader<'o, '_> {
                         }
                     };
                     if shared {
-                        if let Some(&term) = self.cells.get(&key) {
-                            done.push(term);
+                        if let Some(&id) = self.cells.get(&key) {
+                            done.push(id);
                             continue;
                         }
                     }
@@ -129,43 +146,38 @@ impl<'o> ValueReader<'o, '_> {
                 }
                 ValueJob::Build(value) => {
                     self.spend(budget)?;
-                    let (key, term, shared): (*const (), &'o Term<'o>, bool) = match value {
+                    let (key, id, shared): (*const (), Id, bool) = match value {
                         Value::Str(s) => {
-                            // Refuse a string that would pass the limit
-                            // before copying it.
-                            self.held = self.held.saturating_add(s.text.len());
-                            self.spend(budget)?;
-                            self.held -= s.text.len();
-                            (
-                                Rc::as_ptr(s).cast(),
-                                self.out.string(&s.text),
-                                Rc::strong_count(s) > 1,
-                            )
+                            self.room_for_string(s.text.len(), budget)?;
+                            let id = self.store.push_string(&s.text);
+                            (Rc::as_ptr(s).cast(), id, Rc::strong_count(s) > 1)
                         }
                         Value::Con(c) => {
                             let at = done.len().saturating_sub(c.fields.len());
-                            let fields = self.out.terms(&done[at..]);
+                            let tag = self.tag(c.tag);
+                            let id = self.store.push_con(tag, &done[at..]);
                             done.truncate(at);
-                            let tag = self.tags.name(self.image, c.tag);
-                            let term = self.out.term(Node::Con(self.out.tag(tag), fields));
-                            (Rc::as_ptr(c).cast(), term, Rc::strong_count(c) > 1)
+                            (Rc::as_ptr(c).cast(), id, Rc::strong_count(c) > 1)
                         }
                         Value::Fun(f) => {
                             let at = done.len().saturating_sub(f.captured.len());
-                            let values: Vec<&'o Term<'o>> = done.drain(at..).collect();
-                            let term = self.closure(f.code.func(), f.applied, &values, budget)?;
-                            (Rc::as_ptr(f).cast(), term, Rc::strong_count(f) > 1)
+                            let values: Vec<Id> = done.drain(at..).collect();
+                            let id = self.closure(f.code.func(), f.applied, &values, budget)?;
+                            (Rc::as_ptr(f).cast(), id, Rc::strong_count(f) > 1)
                         }
                         _ => continue,
                     };
                     if shared {
-                        self.cells.insert(key, term);
+                        self.cells.insert(key, id);
                     }
-                    done.push(term);
+                    done.push(id);
                 }
             }
         }
-        Ok(done.pop().unwrap_or_else(|| self.out.int(0)))
+        match done.pop() {
+            Some(id) => Ok(id),
+            None => Err(Halt::fault("read-back built nothing")),
+        }
     }
 
     /// The term of a closure of function `func` with `applied` parameters
@@ -174,11 +186,11 @@ impl<'o> ValueReader<'o, '_> {
         &mut self,
         func: u32,
         applied: u32,
-        values: &[&'o Term<'o>],
+        values: &[Id],
         budget: &mut Budget,
-    ) -> Result<&'o Term<'o>, Halt> {
+    ) -> Result<Id, Halt> {
         let Some(f) = self.image.funcs.get(func as usize).copied() else {
-            return Ok(self.out.int(0));
+            return Err(Halt::fault("a closure of no function"));
         };
         let node = self.image.chain_node(&f, applied);
         // Binders between the head's outside and `node`: none for an
@@ -194,7 +206,7 @@ impl<'o> ValueReader<'o, '_> {
         let mut free = self.free_indices(node, bound, budget)?;
         free.sort_unstable_by(|a, b| b.cmp(a));
         free.dedup();
-        let lookup = |j: u32| -> Option<&'o Term<'o>> {
+        let lookup = |j: u32| -> Option<Id> {
             if j < bound {
                 // Index 0 is the last parameter given; `bound - 1` the first
                 // binder (a μλ's self, or the first parameter).
@@ -225,30 +237,31 @@ impl<'o> ValueReader<'o, '_> {
             }
             budget.work(1)?;
             match image.node(id) {
-                INode::Var { index, .. } => out.push(index - depth - bound),
+                INode::Var { index, .. } => {
+                    out.push(index.saturating_sub(depth).saturating_sub(bound))
+                }
                 other => children(image, other, depth, |c, d| stack.push((c, d))),
             }
         }
         Ok(out)
     }
 
-    /// `node` as a term in `out`, with each variable reaching past it
-    /// (`#(depth + j)` under `depth` binders) replaced by `lookup(j)`, a
-    /// closed term.
+    /// `node` in the store, with each variable reaching past it (`#(depth +
+    /// j)` under `depth` binders) replaced by `lookup(j)`, a closed value in
+    /// the store.
     fn instantiate(
         &mut self,
         node: Id,
-        lookup: &dyn Fn(u32) -> Option<&'o Term<'o>>,
+        lookup: &dyn Fn(u32) -> Option<Id>,
         budget: &mut Budget,
-    ) -> Result<&'o Term<'o>, Halt> {
+    ) -> Result<Id, Halt> {
         enum Walk {
             Visit(Id, u32),
             Build(Id),
         }
         let image = self.image;
-        let out = self.out;
         let mut steps = vec![Walk::Visit(node, 0)];
-        let mut done: Vec<&'o Term<'o>> = Vec::new();
+        let mut done: Vec<Id> = Vec::new();
         while let Some(step) = steps.pop() {
             match step {
                 Walk::Visit(id, depth) => {
@@ -262,10 +275,12 @@ impl<'o> ValueReader<'o, '_> {
                     self.spend(budget)?;
                     match image.node(id) {
                         INode::Var { index, .. } => {
-                            let t = if index < depth {
-                                out.var(index)
-                            } else {
-                                lookup(index - depth).unwrap_or_else(|| out.var(index))
+                            let t = match index.checked_sub(depth) {
+                                Some(j) => match lookup(j) {
+                                    Some(v) => v,
+                                    None => return Err(Halt::fault("a closure lost a value")),
+                                },
+                                None => self.store.push_var(index),
                             };
                             done.push(t);
                         }
@@ -278,16 +293,17 @@ impl<'o> ValueReader<'o, '_> {
                     }
                 }
                 Walk::Build(id) => {
-                    let t = self.build(id, &mut done);
+                    let t = self.build(id, &mut done)?;
                     done.push(t);
                 }
             }
         }
-        Ok(done.pop().unwrap_or_else(|| out.int(0)))
+        done.pop()
+            .ok_or_else(|| Halt::fault("read-back of a closure built nothing"))
     }
 
-    /// The program's closed-in-context subterm `id` as a term, memoised.
-    fn program_term(&mut self, id: Id, budget: &mut Budget) -> Result<&'o Term<'o>, Halt> {
+    /// The program's closed-in-context subterm `id` in the store, memoised.
+    fn program_term(&mut self, id: Id, budget: &mut Budget) -> Result<Id, Halt> {
         if let Some(&t) = self.closed.get(&id) {
             return Ok(t);
         }
@@ -297,7 +313,7 @@ impl<'o> ValueReader<'o, '_> {
         }
         let image = self.image;
         let mut steps = vec![Walk::Visit(id)];
-        let mut done: Vec<&'o Term<'o>> = Vec::new();
+        let mut done: Vec<Id> = Vec::new();
         while let Some(step) = steps.pop() {
             match step {
                 Walk::Visit(x) => {
@@ -308,7 +324,7 @@ impl<'o> ValueReader<'o, '_> {
                     self.spend(budget)?;
                     let node = image.node(x);
                     if let INode::Var { index, .. } = node {
-                        done.push(self.out.var(index));
+                        done.push(self.store.push_var(index));
                         continue;
                     }
                     steps.push(Walk::Build(x));
@@ -317,7 +333,7 @@ impl<'o> ValueReader<'o, '_> {
                     steps.extend(kids.into_iter().rev());
                 }
                 Walk::Build(x) => {
-                    let t = self.build(x, &mut done);
+                    let t = self.build(x, &mut done)?;
                     if image.is_shared(x) || x == id {
                         self.closed.insert(x, t);
                     }
@@ -325,116 +341,72 @@ impl<'o> ValueReader<'o, '_> {
                 }
             }
         }
-        Ok(done.pop().unwrap_or_else(|| self.out.int(0)))
+        done.pop()
+            .ok_or_else(|| Halt::fault("read-back of a program term built nothing"))
     }
 
-    /// Node `id` as a term, from its children's terms on top of `done`.
-    fn build(&self, id: Id, done: &mut Vec<&'o Term<'o>>) -> &'o Term<'o> {
+    /// Node `id` of the program in the store, from its children's nodes on
+    /// top of `done`.
+    fn build(&mut self, id: Id, done: &mut Vec<Id>) -> Result<Id, Halt> {
         let image = self.image;
-        let out = self.out;
-        let zero = out.int(0);
-        match image.node(id) {
-            INode::Var { index, .. } => out.var(index),
-            INode::Int(n) => out.int(n),
-            INode::Bool(b) => out.boolean(b),
-            INode::Str(s) => out.string(image.string(s)),
+        let mut take = |n: usize| -> Result<Vec<Id>, Halt> {
+            let at = done
+                .len()
+                .checked_sub(n)
+                .ok_or_else(|| Halt::fault("read-back lost a subterm"))?;
+            Ok(done.drain(at..).collect())
+        };
+        let store = &mut self.store;
+        Ok(match image.node(id) {
+            INode::Var { index, .. } => store.push_var(index),
+            INode::Int(n) => store.push_int(n),
+            INode::Bool(b) => store.push_bool(b),
+            INode::Str(s) => {
+                self.strings = self.strings.saturating_add(image.string(s).len());
+                store.push_shared_string(std::sync::Arc::clone(&image.strings[s as usize]))
+            }
             INode::Lam { .. } => {
-                let [body] = take(done, zero);
-                out.lam(body)
+                let k = take(1)?;
+                store.push_lam(k[0])
             }
             INode::RecLam { .. } => {
-                let [body] = take(done, zero);
-                out.rec_lam(body)
+                let k = take(1)?;
+                store.push_rec_lam(k[0])
             }
             INode::App(..) => {
-                let [f, a] = take(done, zero);
-                out.app(f, a)
+                let k = take(2)?;
+                store.push_app(k[0], k[1])
             }
             INode::Let(..) => {
-                let [a, b] = take(done, zero);
-                out.let_in(a, b)
+                let k = take(2)?;
+                store.push_let(k[0], k[1])
             }
             INode::If(..) => {
-                let [c, y, n] = take(done, zero);
-                out.if_then_else(c, y, n)
+                let k = take(3)?;
+                store.push_if(k[0], k[1], k[2])
             }
             INode::Prim(op, _) => {
-                let k = take_vec(done, op.arity());
-                out.prim(op, &k)
+                let k = take(op.arity())?;
+                store.push_prim(op, &k)
             }
             INode::Con(tag, _, len) => {
-                let k = take_vec(done, len as usize);
-                out.con(image.tag(tag), &k)
+                let k = take(len as usize)?;
+                let tag = store.tag_of(image.tag(tag));
+                store.push_con(tag, &k)
             }
             INode::Case(_, c) => {
                 let case = image.cases[c as usize];
                 let n = 1 + case.len as usize + usize::from(case.default != NONE);
-                let k = take_vec(done, n);
-                let at = |i: usize| k.get(i).copied().unwrap_or(zero);
-                let arms: Vec<Arm<'o>> = image
+                let k = take(n)?;
+                let arms: Vec<(TagId, u32, Id)> = image
                     .case_arms(&case)
                     .iter()
                     .enumerate()
-                    .map(|(i, arm)| Arm::new(out.tag(image.tag(arm.tag)), arm.arity, at(1 + i)))
+                    .map(|(i, arm)| (store.tag_of(image.tag(arm.tag)), arm.arity, k[1 + i]))
                     .collect();
-                let default = (case.default != NONE).then(|| at(n - 1));
-                out.case(at(0), &arms, default)
+                let default = (case.default != NONE).then(|| k[n - 1]);
+                store.push_case(k[0], &arms, default)
             }
-        }
-    }
-}
-
-/// The top `N` terms of `done`, first first (padded with `zero` should the
-/// stack be short, which the walks that fill it never leave it).
-fn take<'o, const N: usize>(done: &mut Vec<&'o Term<'o>>, zero: &'o Term<'o>) -> [&'o Term<'o>; N] {
-    let mut out = [zero; N];
-    let at = done.len().saturating_sub(N);
-    for (slot, t) in out.iter_mut().zip(done.drain(at..)) {
-        *slot = t;
-    }
-    out
-}
-
-/// The top `n` terms of `done`, first first.
-fn take_vec<'o>(done: &mut Vec<&'o Term<'o>>, n: usize) -> Vec<&'o Term<'o>> {
-    let at = done.len().saturating_sub(n);
-    done.drain(at..).collect()
-}
-
-/// Call `visit` with each child of `node` (first first) and the binder depth
-/// it sits at, `depth` being the node's own.
-pub(crate) fn children(image: &Image, node: INode, depth: u32, mut visit: impl FnMut(Id, u32)) {
-    match node {
-        INode::Var { .. } | INode::Int(_) | INode::Bool(_) | INode::Str(_) => {}
-        INode::Lam { body, .. } => visit(body, depth + 1),
-        INode::RecLam { body, .. } => visit(body, depth + 2),
-        INode::App(a, b) => {
-            visit(a, depth);
-            visit(b, depth);
-        }
-        INode::Let(a, b) => {
-            visit(a, depth);
-            visit(b, depth + 1);
-        }
-        INode::If(a, b, c) => {
-            visit(a, depth);
-            visit(b, depth);
-            visit(c, depth);
-        }
-        INode::Prim(op, start) => image
-            .operands(op, start)
-            .iter()
-            .for_each(|&c| visit(c, depth)),
-        INode::Con(_, start, len) => image.list(start, len).iter().for_each(|&c| visit(c, depth)),
-        INode::Case(s, c) => {
-            let case = image.cases[c as usize];
-            visit(s, depth);
-            for arm in image.case_arms(&case) {
-                visit(arm.body, depth + arm.arity);
-            }
-            if case.default != NONE {
-                visit(case.default, depth);
-            }
-        }
+        })
     }
 }

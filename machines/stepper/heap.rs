@@ -113,6 +113,19 @@ impl Heap {
         }
     }
 
+    /// The handle of the text of string node `id` whose index is `index`.
+    pub(super) fn shared_string(&self, image: &Image, id: Id, index: u32) -> Arc<str> {
+        let strings = if self.is_heap(id) {
+            &self.strings
+        } else {
+            &image.strings
+        };
+        strings
+            .get(index as usize)
+            .cloned()
+            .unwrap_or_else(|| Arc::from(""))
+    }
+
     /// The image case and the absolute position of the arm bodies (or
     /// [`NONE`]: the image case's own) of case node `id` with payload `x`.
     #[inline]

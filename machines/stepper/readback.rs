@@ -1,20 +1,22 @@
-//! Read-back for the stepper: image and heap nodes as terms of an arena
-//! (the result, each traced redex, a single step's next term), iterative and
-//! memoised on shared nodes, so a value that is a graph of exponential tree
-//! size reads back in linear size, under the memory limit and cancellation;
-//! and values as host data ([`Datum`]) and back.
+//! Read-back for the stepper: image and heap nodes built node by node into
+//! a store (the small image an owned [`crate::Value`] keeps), for the
+//! result, each traced redex and a single step's next term (those two then
+//! made arena terms); iterative and memoised on every node read, so a value
+//! that is a graph of exponential tree size reads back in linear size, under
+//! the memory limit and cancellation. Also values as host data ([`Datum`])
+//! and host data as nodes.
 
 use std::sync::Arc;
 
 use hashbrown::HashMap;
 
 use super::heap::Heap;
-use crate::image::Tags;
 use super::{ContextFrame, State, Trace};
 use crate::budget::{Budget, Halt};
 use crate::datum::{Builder, NotData, DATUM_NODE_BYTES};
-use crate::image::{INode, Id, Image, TagId};
-use crate::term::{Arena, Arm, Node, Term};
+use crate::host::HostFunctions;
+use crate::image::{INode, Id, Image, TagId, Tags, NONE};
+use crate::term::{Arena, Term};
 use crate::Datum;
 use crate::{Outcome, Rule};
 
@@ -22,30 +24,43 @@ use crate::{Outcome, Rule};
 /// the table's spare room).
 const MEMO_ENTRY: usize = 48;
 
+/// Bytes [`Image::to_term`] takes per store node, as the accounting
+/// estimates them before it runs: the term, its memo entry, its walk's
+/// entries, and its share of the child lists.
+const TERM_NODE: usize = std::mem::size_of::<Term<'static>>() + MEMO_ENTRY + 48;
+
 enum ReadJob {
     Visit(Id),
     Build(Id),
 }
 
-/// Reads nodes into `out`, remembering the terms of shared nodes.
-pub(super) struct TermReader<'o> {
-    out: &'o Arena,
-    /// `out`'s bytes in use when the reader began.
-    start: usize,
-    /// Bytes the run holds besides what the reader builds.
-    held: usize,
-    memo: HashMap<Id, &'o Term<'o>>,
-    tags: HashMap<TagId, &'o str>,
-    jobs: Vec<ReadJob>,
-    done: Vec<&'o Term<'o>>,
+/// What read-back needs of a run: its image, heap and tags.
+#[derive(Clone, Copy)]
+pub(super) struct View<'a> {
+    pub(super) image: &'a Image,
+    pub(super) heap: &'a Heap,
+    pub(super) tags: &'a Tags,
 }
 
-impl<'o> TermReader<'o> {
-    /// A reader into `out` for a run holding `held` bytes.
-    pub(super) fn new(out: &'o Arena, held: usize) -> Self {
-        TermReader {
-            out,
-            start: out.used_bytes(),
+/// Reads image and heap nodes into a store, remembering the store node of
+/// every node it has read (the read-back of a node depends on the node
+/// alone: de Bruijn terms need no context).
+pub(super) struct StoreReader {
+    store: Image,
+    /// Bytes the run holds besides what the reader builds.
+    held: usize,
+    memo: HashMap<Id, Id>,
+    /// The store's ids of the run's tags.
+    tags: HashMap<TagId, TagId>,
+    jobs: Vec<ReadJob>,
+    done: Vec<Id>,
+}
+
+impl StoreReader {
+    /// A reader for a run holding `held` bytes.
+    pub(super) fn new(held: usize) -> Self {
+        StoreReader {
+            store: Image::default(),
             held,
             memo: HashMap::new(),
             tags: HashMap::new(),
@@ -54,47 +69,44 @@ impl<'o> TermReader<'o> {
         }
     }
 
-    /// The arena terms are built in.
-    pub(super) fn out(&self) -> &'o Arena {
-        self.out
-    }
-
-    /// Account for one more node built, with `extra` bytes about to be
-    /// taken; `Err` past the limit or once cancelled.
-    #[inline]
-    fn spend(&self, budget: &mut Budget, extra: usize) -> Result<(), Halt> {
-        budget.work(1)?;
-        let built = self.out.used_bytes().saturating_sub(self.start)
+    /// Bytes the reader holds.
+    fn bytes(&self) -> usize {
+        self.store.building_bytes()
             + (self.memo.len() + self.tags.len()) * MEMO_ENTRY
             + self.jobs.capacity() * std::mem::size_of::<ReadJob>()
-            + self.done.capacity() * std::mem::size_of::<&Term<'_>>();
-        budget.check_memory(self.held.saturating_add(built).saturating_add(extra))
+            + self.done.capacity() * std::mem::size_of::<Id>()
     }
 
-    /// Tag `tag`'s name in `out`, copied once per read-back.
-    pub(super) fn tag(&mut self, image: &Image, tags: &Tags, tag: TagId) -> &'o str {
-        let out = self.out;
-        self.tags
-            .entry(tag)
-            .or_insert_with(|| out.tag(tags.name(image, tag)))
+    /// Account for one more node about to be built; `Err` past the limit or
+    /// once cancelled.
+    #[inline]
+    fn spend(&self, budget: &mut Budget) -> Result<(), Halt> {
+        budget.work(1)?;
+        budget.check_memory(self.held.saturating_add(self.bytes()))
     }
 
-    /// Node `id` (open or closed) as a term.
-    pub(super) fn term(
-        &mut self,
-        image: &Image,
-        heap: &Heap,
-        tags: &Tags,
-        id: Id,
-        budget: &mut Budget,
-    ) -> Result<&'o Term<'o>, Halt> {
-        let out = self.out;
-        // A number or a truth value is a term of constant size: read back
-        // without a look at the limit (as a run that builds nothing needs).
-        match heap.node(image, id) {
-            INode::Int(n) => return Ok(out.int(n)),
-            INode::Bool(b) => return Ok(out.boolean(b)),
-            _ => {}
+    /// The store's id of run tag `tag`.
+    fn tag(&mut self, view: View<'_>, tag: TagId) -> TagId {
+        if let Some(&t) = self.tags.get(&tag) {
+            return t;
+        }
+        let t = self.store.tag_of(view.tags.name(view.image, tag));
+        self.tags.insert(tag, t);
+        t
+    }
+
+    /// Node `id` (open or closed) in the store.
+    pub(super) fn term(&mut self, view: View<'_>, id: Id, budget: &mut Budget) -> Result<Id, Halt> {
+        let (image, heap) = (view.image, view.heap);
+        // A number or a truth value alone is a value of constant size: read
+        // back without a look at the limit (as a run that builds nothing
+        // needs).
+        if self.store.nodes.is_empty() {
+            match heap.node(image, id) {
+                INode::Int(n) => return Ok(self.store.push_int(n)),
+                INode::Bool(b) => return Ok(self.store.push_bool(b)),
+                _ => {}
+            }
         }
         self.jobs.clear();
         self.done.clear();
@@ -107,113 +119,240 @@ impl<'o> TermReader<'o> {
                         continue;
                     }
                     let node = heap.node(image, id);
-                    let leaf = match node {
-                        INode::Var { index, .. } => Some(out.var(index)),
-                        INode::Int(n) => Some(out.int(n)),
-                        INode::Bool(b) => Some(out.boolean(b)),
-                        INode::Str(i) => {
-                            let s = heap.string(image, id, i);
-                            // Refuse a string that would pass the limit
-                            // before copying it; copy it once however often
-                            // the value holds it.
-                            self.spend(budget, s.len())?;
-                            let t = out.string(s);
-                            self.memo.insert(id, t);
-                            Some(t)
+                    let t = match node {
+                        INode::Var { index, .. } => {
+                            self.spend(budget)?;
+                            self.store.push_var(index)
                         }
-                        _ => None,
+                        INode::Int(n) => {
+                            self.spend(budget)?;
+                            self.store.push_int(n)
+                        }
+                        INode::Bool(b) => {
+                            self.spend(budget)?;
+                            self.store.push_bool(b)
+                        }
+                        INode::Str(i) => {
+                            // Shared by handle, never copied.
+                            self.spend(budget)?;
+                            let t = self.store.push_shared_string(heap.shared_string(image, id, i));
+                            self.memo.insert(id, t);
+                            t
+                        }
+                        _ => {
+                            self.jobs.push(ReadJob::Build(id));
+                            let at = self.jobs.len();
+                            children(image, heap, id, node, |c| self.jobs.push(ReadJob::Visit(c)));
+                            self.jobs[at..].reverse();
+                            continue;
+                        }
                     };
-                    if let Some(t) = leaf {
-                        self.spend(budget, 0)?;
-                        self.done.push(t);
-                        continue;
-                    }
-                    self.jobs.push(ReadJob::Build(id));
-                    let at = self.jobs.len();
-                    children(image, heap, id, node, |c| self.jobs.push(ReadJob::Visit(c)));
-                    self.jobs[at..].reverse();
+                    self.done.push(t);
                 }
                 ReadJob::Build(id) => {
-                    self.spend(budget, 0)?;
-                    let t = self.build(image, heap, tags, id);
-                    if heap.is_heap(id) || image.is_shared(id) {
-                        self.memo.insert(id, t);
-                    }
+                    self.spend(budget)?;
+                    let t = self.build(view, id)?;
+                    self.memo.insert(id, t);
                     self.done.push(t);
                 }
             }
         }
-        Ok(self.done.pop().unwrap_or_else(|| out.int(0)))
+        self.done
+            .pop()
+            .ok_or_else(|| Halt::fault("the stepper's read-back built nothing"))
     }
 
-    /// Node `id` from its children's terms on top of `done`.
-    fn build(&mut self, image: &Image, heap: &Heap, tags: &Tags, id: Id) -> &'o Term<'o> {
-        let out = self.out;
-        let zero = out.int(0);
+    /// The top `n` nodes built, which `done` loses.
+    fn take(&mut self, n: usize) -> Result<smallvec::SmallVec<[Id; 4]>, Halt> {
+        let at = self
+            .done
+            .len()
+            .checked_sub(n)
+            .ok_or_else(|| Halt::fault("the stepper's read-back lost a subterm"))?;
+        Ok(self.done.drain(at..).collect())
+    }
+
+    /// Node `id` from its children's store nodes on top of `done`.
+    fn build(&mut self, view: View<'_>, id: Id) -> Result<Id, Halt> {
+        let (image, heap) = (view.image, view.heap);
         let node = heap.node(image, id);
-        let n = match node {
-            INode::Lam { .. } | INode::RecLam { .. } => 1,
-            INode::App(..) | INode::Let(..) => 2,
-            INode::If(..) => 3,
-            INode::Prim(op, _) => op.arity(),
-            INode::Con(_, _, len) => len as usize,
+        Ok(match node {
+            INode::Lam { .. } => {
+                let k = self.take(1)?;
+                self.store.push_lam(k[0])
+            }
+            INode::RecLam { .. } => {
+                let k = self.take(1)?;
+                self.store.push_rec_lam(k[0])
+            }
+            INode::App(..) => {
+                let k = self.take(2)?;
+                self.store.push_app(k[0], k[1])
+            }
+            INode::Let(..) => {
+                let k = self.take(2)?;
+                self.store.push_let(k[0], k[1])
+            }
+            INode::If(..) => {
+                let k = self.take(3)?;
+                self.store.push_if(k[0], k[1], k[2])
+            }
+            INode::Prim(op, _) => {
+                let k = self.take(op.arity())?;
+                self.store.push_prim(op, &k)
+            }
+            INode::Con(tag, _, len) => {
+                let k = self.take(len as usize)?;
+                let tag = self.tag(view, tag);
+                self.store.push_con(tag, &k)
+            }
             INode::Case(_, x) => {
                 let (ic, _) = heap.case_of(image, id, x);
-                image.cases.get(ic as usize).map_or(1, |c| {
-                    1 + c.len as usize + usize::from(c.default != crate::image::NONE)
-                })
+                let n = image
+                    .cases
+                    .get(ic as usize)
+                    .map_or(0, |c| c.len as usize + usize::from(c.default != NONE));
+                let k = self.take(1 + n)?;
+                self.case(view, ic, k[0], &k[1..])?
             }
-            _ => 0,
-        };
-        let at = self.done.len().saturating_sub(n);
-        let kids: smallvec::SmallVec<[&'o Term<'o>; 4]> = self.done.drain(at..).collect();
-        let kid = |i: usize| kids.get(i).copied().unwrap_or(zero);
-        match node {
-            INode::Lam { .. } => out.lam(kid(0)),
-            INode::RecLam { .. } => out.rec_lam(kid(0)),
-            INode::App(..) => out.app(kid(0), kid(1)),
-            INode::Let(..) => out.let_in(kid(0), kid(1)),
-            INode::If(..) => out.if_then_else(kid(0), kid(1), kid(2)),
-            INode::Prim(op, _) => out.prim(op, &kids),
-            INode::Con(tag, _, _) => {
-                let tag = self.tag(image, tags, tag);
-                out.term(Node::Con(tag, out.terms(&kids)))
+            INode::Var { .. } | INode::Int(_) | INode::Bool(_) | INode::Str(_) => {
+                return Err(Halt::fault("the stepper's read-back rebuilt a leaf"))
             }
-            INode::Case(_, x) => {
-                let (ic, _) = heap.case_of(image, id, x);
-                self.case(image, tags, ic, kid(0), &kids[1.min(kids.len())..])
-            }
-            _ => zero,
-        }
+        })
     }
 
     /// A case of image case `ic` on `scrutinee`, with these arm bodies (and
     /// then the default arm).
-    pub(super) fn case(
-        &mut self,
-        image: &Image,
-        tags: &Tags,
-        ic: u32,
-        scrutinee: &'o Term<'o>,
-        bodies: &[&'o Term<'o>],
-    ) -> &'o Term<'o> {
-        let out = self.out;
-        let Some(case) = image.cases.get(ic as usize).copied() else {
-            return out.int(0);
+    fn case(&mut self, view: View<'_>, ic: u32, scrutinee: Id, bodies: &[Id]) -> Result<Id, Halt> {
+        let image = view.image;
+        let case = image
+            .cases
+            .get(ic as usize)
+            .copied()
+            .ok_or_else(|| Halt::fault("the stepper read back a case the image lacks"))?;
+        let lost = || Halt::fault("the stepper's read-back lost an arm");
+        let mut arms: smallvec::SmallVec<[(TagId, u32, Id); 4]> = smallvec::SmallVec::new();
+        for (i, arm) in image.case_arms(&case).iter().enumerate() {
+            let body = *bodies.get(i).ok_or_else(lost)?;
+            arms.push((self.tag(view, arm.tag), arm.arity, body));
+        }
+        let default = match case.default {
+            NONE => None,
+            _ => Some(*bodies.get(case.len as usize).ok_or_else(lost)?),
         };
-        let zero = out.int(0);
-        let arms: Vec<Arm<'o>> = image
-            .case_arms(&case)
-            .iter()
-            .enumerate()
-            .map(|(i, arm)| {
-                let tag = self.tag(image, tags, arm.tag);
-                Arm::new(tag, arm.arity, bodies.get(i).copied().unwrap_or(zero))
-            })
-            .collect();
-        let default = (case.default != crate::image::NONE)
-            .then(|| bodies.get(case.len as usize).copied().unwrap_or(zero));
-        out.case(scrutinee, &arms, default)
+        Ok(self.store.push_case(scrutinee, &arms, default))
+    }
+
+    /// `frame` with `hole` in its hole, in the store; the frame's values are
+    /// the ones just below `below` on `stack` (and `below` moves under them).
+    pub(super) fn plug(
+        &mut self,
+        view: View<'_>,
+        frame: ContextFrame,
+        hole: Id,
+        stack: &[Id],
+        below: &mut usize,
+        budget: &mut Budget,
+    ) -> Result<Id, Halt> {
+        self.spend(budget)?;
+        Ok(match frame {
+            ContextFrame::AppFunction(a) => {
+                let a = self.term(view, a, budget)?;
+                self.store.push_app(hole, a)
+            }
+            ContextFrame::AppArgument(f) => {
+                let f = self.term(view, f, budget)?;
+                self.store.push_app(f, hole)
+            }
+            ContextFrame::LetBound(body) => {
+                let body = self.term(view, body, budget)?;
+                self.store.push_let(hole, body)
+            }
+            ContextFrame::IfCondition(y, n) => {
+                let y = self.term(view, y, budget)?;
+                let n = self.term(view, n, budget)?;
+                self.store.push_if(hole, y, n)
+            }
+            ContextFrame::Operand { op, next, left } => {
+                let args =
+                    self.spread(view, op.arity() as u32, next, left, hole, stack, below, budget)?;
+                self.store.push_prim(op, &args)
+            }
+            ContextFrame::Field {
+                tag,
+                arity,
+                next,
+                left,
+            } => {
+                let args = self.spread(view, arity, next, left, hole, stack, below, budget)?;
+                let tag = self.tag(view, tag);
+                self.store.push_con(tag, &args)
+            }
+            ContextFrame::Scrutinee { case, bodies } => {
+                let Some(info) = view.image.cases.get(case as usize).copied() else {
+                    return Err(Halt::fault("the stepper read back a case the image lacks"));
+                };
+                let mut arms: Vec<Id> = Vec::new();
+                for i in 0..info.len {
+                    let body = view.heap.arm_body(view.image, &info, bodies, i);
+                    arms.push(self.term(view, body, budget)?);
+                }
+                if let Some(d) = view.heap.default_body(view.image, &info, bodies) {
+                    arms.push(self.term(view, d, budget)?);
+                }
+                self.case(view, case, hole, &arms)?
+            }
+        })
+    }
+
+    /// The operands or fields of a frame of `arity`: its values from the
+    /// stack, the hole, and the `left` still to evaluate from `next`.
+    #[allow(clippy::too_many_arguments)]
+    fn spread(
+        &mut self,
+        view: View<'_>,
+        arity: u32,
+        next: u32,
+        left: u32,
+        hole: Id,
+        stack: &[Id],
+        below: &mut usize,
+        budget: &mut Budget,
+    ) -> Result<Vec<Id>, Halt> {
+        let evaluated = arity.saturating_sub(left + 1) as usize;
+        let from = below.saturating_sub(evaluated);
+        let mut args = Vec::with_capacity(arity as usize);
+        for &v in stack.get(from..*below).unwrap_or(&[]) {
+            args.push(self.term(view, v, budget)?);
+        }
+        *below = from;
+        args.push(hole);
+        for k in 0..left {
+            args.push(self.term(view, view.heap.list(view.image, next + k), budget)?);
+        }
+        Ok(args)
+    }
+
+    /// Store node `root` as an owned value calling `host`'s functions.
+    pub(super) fn into_value(self, root: Id, host: &HostFunctions) -> crate::Value {
+        crate::Value::new(self.store, root, host)
+    }
+
+    /// Store node `root` as a term in `out`, once the accounting has room
+    /// for the estimate of what that takes ([`TERM_NODE`] a node, and the
+    /// strings copied) besides the store.
+    pub(super) fn into_term<'o>(
+        self,
+        root: Id,
+        out: &'o Arena,
+        budget: &mut Budget,
+    ) -> Result<&'o Term<'o>, Halt> {
+        let nodes = self.store.nodes.len();
+        let strings: usize = self.store.strings.iter().map(|s| s.len()).sum();
+        let terms = nodes.saturating_mul(TERM_NODE).saturating_add(strings);
+        budget.work(nodes as u64)?;
+        budget.check_memory(self.held.saturating_add(self.bytes()).saturating_add(terms))?;
+        Ok(self.store.to_term(root, out))
     }
 }
 
@@ -319,7 +458,7 @@ pub(super) fn flatten(
             Ok(Datum::Str(s)) => pieces.push(Fragment::Str(s)),
             Ok(Datum::Con(c)) => {
                 let (name, fields) = c.into_parts();
-                let tag = tags.id_or_new(image, name, new);
+                let tag = tags.id_or_new(image, &name, new);
                 pending.push(Err((tag, fields.len() as u32)));
                 pending.extend(fields.into_iter().rev().map(Ok));
             }
@@ -330,7 +469,8 @@ pub(super) fn flatten(
 
 impl State {
     /// Show the tracer the redex about to be contracted under `rule`: the
-    /// focus plugged into the innermost frame, or (`alone`) the focus itself.
+    /// focus plugged into the innermost frame, or (`alone`) the focus itself,
+    /// read back into a store and made a term of the trace's scratch arena.
     pub(super) fn traced(
         &mut self,
         image: &Image,
@@ -341,27 +481,22 @@ impl State {
         let Some(trace) = trace else { return Ok(()) };
         trace.scratch.reset();
         let held = self.held().saturating_add(trace.scratch.allocated_bytes());
-        let mut reader = TermReader::new(trace.scratch, held);
+        let mut reader = StoreReader::new(held);
         let view = View {
             image,
             heap: &self.heap,
             tags: &self.tags,
         };
-        let hole = view.term(&mut reader, self.focus, &mut self.budget)?;
+        let budget = &mut self.budget;
+        let hole = reader.term(view, self.focus, budget)?;
         let redex = match self.ctx.last().copied() {
             Some(frame) if !alone => {
                 let mut below = self.values.len();
-                view.plug(
-                    &mut reader,
-                    frame,
-                    hole,
-                    &self.values,
-                    &mut below,
-                    &mut self.budget,
-                )?
+                reader.plug(view, frame, hole, &self.values, &mut below, budget)?
             }
             _ => hole,
         };
+        let redex = reader.into_term(redex, trace.scratch, budget)?;
         (trace.sink)(rule, redex);
         Ok(())
     }
@@ -372,154 +507,53 @@ impl State {
         image: &Image,
         out: &'o Arena,
     ) -> Result<&'o Term<'o>, Halt> {
-        let mut reader = TermReader::new(out, self.held());
+        let mut reader = StoreReader::new(self.held());
         let view = View {
             image,
             heap: &self.heap,
             tags: &self.tags,
         };
-        let mut term = view.term(&mut reader, self.focus, &mut self.budget)?;
+        let budget = &mut self.budget;
+        let mut term = reader.term(view, self.focus, budget)?;
         let mut below = self.values.len();
         for &frame in self.ctx.iter().rev() {
-            term = view.plug(
-                &mut reader,
-                frame,
-                term,
-                &self.values,
-                &mut below,
-                &mut self.budget,
-            )?;
+            term = reader.plug(view, frame, term, &self.values, &mut below, budget)?;
         }
-        Ok(term)
+        reader.into_term(term, out, budget)
     }
 
-    /// The outcome of a run that ended with `end`, its value read back into
-    /// `out` under the memory limit.
-    pub(super) fn outcome<'o>(
+    /// Value `v` read back into an owned value under the memory limit.
+    pub(super) fn read_back(
         &mut self,
         image: &Image,
+        host: &HostFunctions,
+        v: Id,
+    ) -> Result<crate::Value, Halt> {
+        let mut reader = StoreReader::new(self.held());
+        let view = View {
+            image,
+            heap: &self.heap,
+            tags: &self.tags,
+        };
+        let root = reader.term(view, v, &mut self.budget)?;
+        Ok(reader.into_value(root, host))
+    }
+
+    /// The outcome of a run that ended with `end`, its value read back.
+    pub(super) fn outcome(
+        &mut self,
+        image: &Image,
+        host: &HostFunctions,
         end: Result<Id, Halt>,
-        out: &'o Arena,
-    ) -> Outcome<'o> {
-        let value = end.and_then(|v| {
-            let mut reader = TermReader::new(out, self.held());
-            let view = View {
-                image,
-                heap: &self.heap,
-                tags: &self.tags,
-            };
-            view.term(&mut reader, v, &mut self.budget)
-        });
-        match value {
+    ) -> Outcome {
+        match end.and_then(|v| self.read_back(image, host, v)) {
             Ok(v) => Outcome::Value(v),
             Err(halt) => self.halted(halt),
         }
     }
 
     /// The outcome a halt stands for.
-    pub(super) fn halted<'o>(&self, halt: Halt) -> Outcome<'o> {
+    pub(super) fn halted(&self, halt: Halt) -> Outcome {
         halt.outcome(self.budget.memory)
-    }
-}
-
-/// What read-back needs of a run: its image, heap and tags.
-#[derive(Clone, Copy)]
-pub(super) struct View<'a> {
-    image: &'a Image,
-    heap: &'a Heap,
-    tags: &'a Tags,
-}
-
-impl View<'_> {
-    fn term<'o>(
-        &self,
-        r: &mut TermReader<'o>,
-        id: Id,
-        budget: &mut Budget,
-    ) -> Result<&'o Term<'o>, Halt> {
-        r.term(self.image, self.heap, self.tags, id, budget)
-    }
-
-    /// `frame` with `hole` in its hole, as a term; the frame's values are
-    /// the ones just below `below` on `stack` (and `below` moves under them).
-    fn plug<'o>(
-        &self,
-        r: &mut TermReader<'o>,
-        frame: ContextFrame,
-        hole: &'o Term<'o>,
-        stack: &[Id],
-        below: &mut usize,
-        budget: &mut Budget,
-    ) -> Result<&'o Term<'o>, Halt> {
-        let out = r.out();
-        Ok(match frame {
-            ContextFrame::AppFunction(a) => out.app(hole, self.term(r, a, budget)?),
-            ContextFrame::AppArgument(f) => out.app(self.term(r, f, budget)?, hole),
-            ContextFrame::LetBound(body) => out.let_in(hole, self.term(r, body, budget)?),
-            ContextFrame::IfCondition(y, n) => {
-                let y = self.term(r, y, budget)?;
-                out.if_then_else(hole, y, self.term(r, n, budget)?)
-            }
-            ContextFrame::Operand { op, next, left } => {
-                let args =
-                    self.spread(r, op.arity() as u32, next, left, hole, stack, below, budget)?;
-                out.prim(op, &args)
-            }
-            ContextFrame::Field {
-                tag,
-                arity,
-                next,
-                left,
-            } => {
-                let args = self.spread(r, arity, next, left, hole, stack, below, budget)?;
-                let tag = r.tag(self.image, self.tags, tag);
-                out.term(crate::Node::Con(tag, out.terms(&args)))
-            }
-            ContextFrame::Scrutinee { case, bodies } => {
-                let Some(info) = self.image.cases.get(case as usize).copied() else {
-                    return Ok(hole);
-                };
-                let mut arms: Vec<&'o Term<'o>> = Vec::new();
-                for i in 0..info.len {
-                    arms.push(self.term(
-                        r,
-                        self.heap.arm_body(self.image, &info, bodies, i),
-                        budget,
-                    )?);
-                }
-                if let Some(d) = self.heap.default_body(self.image, &info, bodies) {
-                    arms.push(self.term(r, d, budget)?);
-                }
-                r.case(self.image, self.tags, case, hole, &arms)
-            }
-        })
-    }
-
-    /// The operands or fields of a frame of `arity`: its values from the
-    /// stack, the hole, and the `left` still to evaluate from `next`.
-    #[allow(clippy::too_many_arguments)]
-    fn spread<'o>(
-        &self,
-        r: &mut TermReader<'o>,
-        arity: u32,
-        next: u32,
-        left: u32,
-        hole: &'o Term<'o>,
-        stack: &[Id],
-        below: &mut usize,
-        budget: &mut Budget,
-    ) -> Result<Vec<&'o Term<'o>>, Halt> {
-        let evaluated = arity.saturating_sub(left + 1) as usize;
-        let from = below.saturating_sub(evaluated);
-        let mut args = Vec::with_capacity(arity as usize);
-        for &v in stack.get(from..*below).unwrap_or(&[]) {
-            args.push(self.term(r, v, budget)?);
-        }
-        *below = from;
-        args.push(hole);
-        for k in 0..left {
-            args.push(self.term(r, self.heap.list(self.image, next + k), budget)?);
-        }
-        Ok(args)
     }
 }

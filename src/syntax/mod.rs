@@ -59,8 +59,8 @@ use std::fmt::Write as _;
 
 use crate::host::{HostFunctions, NO_HOST};
 use crate::prim::Prim;
+use crate::program::Program;
 use crate::term::{Arena, Term};
-use crate::validate::Program;
 
 /// A syntax or name error, with the 1-based line and column where it was found.
 ///
@@ -310,10 +310,10 @@ pub struct Printed {
 /// use orrery::{parse, Arena};
 /// let arena = Arena::new();
 /// let program = parse(&arena, "let double x = x * 2 in double 21").unwrap();
-/// assert!(program.term().is_closed());
+/// assert!(program.host_names().is_empty());
 /// assert!(parse(&arena, "double 21").is_err());
 /// ```
-pub fn parse<'a>(arena: &'a Arena, source: &str) -> Result<Program<'a>, SyntaxError> {
+pub fn parse(arena: &Arena, source: &str) -> Result<Program, SyntaxError> {
     parse_with(arena, source, &NO_HOST)
 }
 
@@ -335,21 +335,36 @@ pub fn parse<'a>(arena: &'a Arena, source: &str) -> Result<Program<'a>, SyntaxEr
 /// assert!(parse_with(&arena, "if frost_risk 1 4 then \"cover\" else \"open\"", &host).is_ok());
 /// assert!(parse_with(&arena, "frost_risk", &HostFunctions::new()).is_err());
 /// ```
-pub fn parse_with<'a>(
-    arena: &'a Arena,
+pub fn parse_with(
+    arena: &Arena,
     source: &str,
-    host: &'a HostFunctions,
-) -> Result<Program<'a>, SyntaxError> {
-    let term = parser::Parser::new(arena, source, Functions::with_host(host))
-        .parse()
-        .map_err(|failure| failure.locate(source.as_bytes()))?;
+    host: &HostFunctions,
+) -> Result<Program, SyntaxError> {
+    let term = parse_term_with(arena, source, host)?;
     // The parser establishes every invariant `Program::with_host` checks; a
     // failure here would be a parser bug, reported rather than panicked on.
-    Program::with_host(term, host).map_err(|error| SyntaxError {
+    Program::with_host(term, host).map_err(invalid_parse)
+}
+
+/// The error for a parsed term that is not a valid program (a parser bug).
+fn invalid_parse(error: crate::ValidationError) -> SyntaxError {
+    SyntaxError {
         line: 1,
         column: 1,
         message: format!("internal error: the parsed term is invalid: {error}"),
-    })
+    }
+}
+
+/// Parse a whole program that may call `host`'s functions, returning its
+/// term (in `arena`).
+fn parse_term_with<'a>(
+    arena: &'a Arena,
+    source: &str,
+    host: &HostFunctions,
+) -> Result<&'a Term<'a>, SyntaxError> {
+    parser::Parser::new(arena, source, Functions::with_host(host))
+        .parse()
+        .map_err(|failure| failure.locate(source.as_bytes()))
 }
 
 /// Parse and validate a whole program, returning its term.
@@ -367,7 +382,9 @@ pub fn parse_with<'a>(
 /// assert!(t == arena.lam(arena.var(0)));
 /// ```
 pub fn parse_term<'a>(arena: &'a Arena, source: &str) -> Result<&'a Term<'a>, SyntaxError> {
-    parse(arena, source).map(|program| program.term())
+    let term = parse_term_with(arena, source, &NO_HOST)?;
+    crate::validate(term).map_err(invalid_parse)?;
+    Ok(term)
 }
 
 /// Parse and validate a program given as bytes, which must be UTF-8.
@@ -386,7 +403,7 @@ pub fn parse_term<'a>(arena: &'a Arena, source: &str) -> Result<&'a Term<'a>, Sy
 /// let err = parse_bytes(&arena, b"1 +\n \xff").unwrap_err();
 /// assert_eq!((err.line, err.column), (2, 2));
 /// ```
-pub fn parse_bytes<'a>(arena: &'a Arena, source: &[u8]) -> Result<Program<'a>, SyntaxError> {
+pub fn parse_bytes(arena: &Arena, source: &[u8]) -> Result<Program, SyntaxError> {
     match std::str::from_utf8(source) {
         Ok(text) => parse(arena, text),
         Err(error) => {

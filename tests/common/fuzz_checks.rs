@@ -33,7 +33,7 @@ pub const TEXT_MARKER: u8 = b'#';
 pub fn check_parse(bytes: &[u8]) {
     let arena = Arena::new();
     match parse_bytes(&arena, bytes) {
-        Ok(program) => round_trip(&arena, program.term(), usize::MAX),
+        Ok(program) => round_trip(&arena, program.to_term(&arena), usize::MAX),
         Err(err) => {
             assert!(
                 !err.message.is_empty() && !err.message.starts_with("internal error"),
@@ -80,7 +80,7 @@ fn round_trip(arena: &Arena, term: &Term<'_>, max_bytes: usize) {
         return;
     }
     let again = match parse(arena, &printed.text) {
-        Ok(p) => p.term(),
+        Ok(p) => p.to_term(arena),
         Err(e) => panic!("the printed program does not parse: {e}\n{}", printed.text),
     };
     assert!(
@@ -106,7 +106,7 @@ pub fn check_agree(bytes: &[u8]) {
             .ok()
             .and_then(|text| parse(&arena, text).ok())
         {
-            Some(program) => program.term(),
+            Some(program) => program.to_term(&arena),
             // Inputs that do not parse are the parse target's business.
             None => return,
         },
@@ -120,7 +120,7 @@ pub fn check_agree(bytes: &[u8]) {
     let limits = Limits::default().with_fuel(FUEL).with_memory(MEMORY);
     let mut h = Harness::new();
     let name = "the input";
-    let whole = h.run(name, &program, &limits, &arena);
+    let whole = h.run(name, &program, &limits);
     let Some(used) = whole
         .runs
         .iter()
@@ -129,9 +129,9 @@ pub fn check_agree(bytes: &[u8]) {
     else {
         return h.finish();
     };
-    h.pauses(&whole, &program, 1 + bytes.len() as u64 % 7, &arena);
+    h.pauses(&whole, &program, 1 + bytes.len() as u64 % 7);
     if used > 0 {
-        let shorter = h.run(name, &program, &limits.clone().with_fuel(used - 1), &arena);
+        let shorter = h.run(name, &program, &limits.clone().with_fuel(used - 1));
         h.expect(
             &shorter,
             "out of fuel or a resource limit, one unit short",

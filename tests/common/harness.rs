@@ -9,8 +9,8 @@
 //! (through `fuzz_checks.rs`).
 
 use orrery::{
-    disagreement, parse_term, print_limited, Arena, Counts, LimitKind, Limits, MachineKind,
-    Outcome, Program, Report, Rule,
+    disagreement, parse_term, Arena, Counts, LimitKind, Limits, MachineKind, Outcome, Program,
+    Report, Rule,
 };
 
 /// How much of a value a failure message shows.
@@ -33,38 +33,38 @@ pub fn machines_but(skip: &[&str]) -> Vec<MachineKind> {
 }
 
 /// One machine's run: its report and the most bytes it held.
-pub struct Run<'a> {
+pub struct Run {
     /// The machine.
     pub kind: MachineKind,
     /// What it reported.
-    pub report: Report<'a>,
+    pub report: Report,
     /// [`orrery::Machine::peak_bytes`] after the run.
     pub peak: usize,
 }
 
 /// A program's runs on several machines under one set of limits.
-pub struct Runs<'a> {
+pub struct Runs {
     /// The program's name in failure messages.
     pub name: String,
     /// The limits every run had.
     pub limits: Limits,
     /// One run per machine, in the table's order.
-    pub runs: Vec<Run<'a>>,
+    pub runs: Vec<Run>,
     /// Which run is the reference.
     reference: usize,
 }
 
-impl<'a> Runs<'a> {
+impl Runs {
     /// The report every other was compared with: the reference machine's
     /// (see [`reference`]), or when it was left out or stopped at a resource
     /// limit, the first machine's that was not. A program run on no machine
     /// has none.
-    pub fn reference(&self) -> Option<&Report<'a>> {
+    pub fn reference(&self) -> Option<&Report> {
         self.runs.get(self.reference).map(|r| &r.report)
     }
 
     /// The run of `kind`, if it ran.
-    pub fn of(&self, kind: MachineKind) -> Option<&Run<'a>> {
+    pub fn of(&self, kind: MachineKind) -> Option<&Run> {
         self.runs.iter().find(|r| r.kind == kind)
     }
 }
@@ -114,32 +114,25 @@ impl Harness {
     }
 
     /// Run `program` on every machine of the table under `limits`.
-    pub fn run<'a>(
-        &mut self,
-        name: &str,
-        program: &Program<'_>,
-        limits: &Limits,
-        out: &'a Arena,
-    ) -> Runs<'a> {
-        self.run_on(MachineKind::enabled(), name, program, limits, out)
+    pub fn run(&mut self, name: &str, program: &Program, limits: &Limits) -> Runs {
+        self.run_on(MachineKind::enabled(), name, program, limits)
     }
 
     /// Run `program` on `machines` under `limits`, each on a fresh machine:
     /// check every report against the limits and compare every machine
     /// with the reference.
-    pub fn run_on<'a>(
+    pub fn run_on(
         &mut self,
         machines: &[MachineKind],
         name: &str,
-        program: &Program<'_>,
+        program: &Program,
         limits: &Limits,
-        out: &'a Arena,
-    ) -> Runs<'a> {
-        let runs: Vec<Run<'a>> = machines
+    ) -> Runs {
+        let runs: Vec<Run> = machines
             .iter()
             .map(|&kind| {
                 let mut machine = kind.machine();
-                let report = machine.run(program, limits, out);
+                let report = machine.run(program, limits);
                 Run {
                     kind,
                     report,
@@ -150,7 +143,7 @@ impl Harness {
         self.runs += runs.len() as u64;
         // The reference, or when a resource limit stopped it (limits are
         // never compared), the first run that ended otherwise.
-        let limited = |run: &Run<'_>| matches!(run.report.outcome, Outcome::Limit(_));
+        let limited = |run: &Run| matches!(run.report.outcome, Outcome::Limit(_));
         let reference = reference()
             .and_then(|r| runs.iter().position(|run| run.kind == r))
             .filter(|&i| !limited(&runs[i]))
@@ -179,7 +172,7 @@ impl Harness {
 
     /// Compare `run` with the reference run `reference` of the same
     /// program under the same limits.
-    fn compare(&mut self, name: &str, reference: &Run<'_>, run: &Run<'_>, fuel: u64) {
+    fn compare(&mut self, name: &str, reference: &Run, run: &Run, fuel: u64) {
         let machine = format!("{} (against {})", run.kind.name(), reference.kind.name());
         if let Err(why) = same(&reference.report, &run.report) {
             self.fail(name, &machine, fuel, why);
@@ -189,7 +182,7 @@ impl Harness {
     /// Compare a report a test obtained some other way (a reused machine, a
     /// resumed run, an unaccounted build) with the reference run of `runs`;
     /// `machine` names where it came from.
-    pub fn agrees(&mut self, runs: &Runs<'_>, machine: &str, report: &Report<'_>) {
+    pub fn agrees(&mut self, runs: &Runs, machine: &str, report: &Report) {
         let Some(reference) = runs.reference() else {
             return;
         };
@@ -203,7 +196,7 @@ impl Harness {
 
     /// Record a failure for every run of `runs` whose report does not
     /// satisfy `want`; `what` says what was wanted.
-    pub fn expect<'a>(&mut self, runs: &Runs<'a>, what: &str, want: impl Fn(&Report<'a>) -> bool) {
+    pub fn expect(&mut self, runs: &Runs, what: &str, want: impl Fn(&Report) -> bool) {
         for run in &runs.runs {
             if !want(&run.report) {
                 let got = describe(&run.report);
@@ -220,7 +213,7 @@ impl Harness {
     /// Every run ends as `ending` says: `value TEXT` (the value in the text
     /// syntax, compared as a de Bruijn term), `error KIND`, `out_of_fuel`,
     /// `limit KIND` or `fault`.
-    pub fn expect_ending(&mut self, runs: &Runs<'_>, ending: &str) {
+    pub fn expect_ending(&mut self, runs: &Runs, ending: &str) {
         for run in &runs.runs {
             if let Err(why) = ends_as(&run.report, ending) {
                 self.fail(&runs.name, run.kind.name(), runs.limits.fuel, why);
@@ -229,7 +222,7 @@ impl Harness {
     }
 
     /// Every run made `n` contractions under `rule`.
-    pub fn expect_count(&mut self, runs: &Runs<'_>, rule: Rule, n: u64) {
+    pub fn expect_count(&mut self, runs: &Runs, rule: Rule, n: u64) {
         self.expect(runs, &format!("{rule} {n}"), |r| r.counts.get(rule) == n);
     }
 
@@ -241,39 +234,31 @@ impl Harness {
     /// unit) and made no more of any rule than the whole run; from there
     /// on, it is the whole run. `each` may check more of every bound's runs.
     /// Returns the runs under `limits`.
-    pub fn every_bound<'a>(
+    pub fn every_bound(
         &mut self,
         name: &str,
-        program: &Program<'_>,
+        program: &Program,
         limits: &Limits,
-        out: &'a Arena,
-        each: impl FnMut(&mut Self, u64, &Runs<'a>),
-    ) -> Runs<'a> {
-        self.every_bound_on(MachineKind::enabled(), name, program, limits, out, each)
+        each: impl FnMut(&mut Self, u64, &Runs),
+    ) -> Runs {
+        self.every_bound_on(MachineKind::enabled(), name, program, limits, each)
     }
 
     /// [`Harness::every_bound`] on `machines`.
-    pub fn every_bound_on<'a>(
+    pub fn every_bound_on(
         &mut self,
         machines: &[MachineKind],
         name: &str,
-        program: &Program<'_>,
+        program: &Program,
         limits: &Limits,
-        out: &'a Arena,
-        mut each: impl FnMut(&mut Self, u64, &Runs<'a>),
-    ) -> Runs<'a> {
-        let whole = self.run_on(machines, name, program, limits, out);
+        mut each: impl FnMut(&mut Self, u64, &Runs),
+    ) -> Runs {
+        let whole = self.run_on(machines, name, program, limits);
         let Some(used) = whole.reference().map(|r| r.counts.fuel()) else {
             return whole;
         };
         for bound in 0..=used.saturating_add(1).min(limits.fuel) {
-            let at = self.run_on(
-                machines,
-                name,
-                program,
-                &limits.clone().with_fuel(bound),
-                out,
-            );
+            let at = self.run_on(machines, name, program, &limits.clone().with_fuel(bound));
             for (run, full) in at.runs.iter().zip(&whole.runs) {
                 let (report, counts) = (&run.report, &full.report.counts);
                 let machine = run.kind.name();
@@ -314,13 +299,7 @@ impl Harness {
     /// far (when no contraction needs more than one unit), so that it paused
     /// `⌈total / slice⌉ - 1` times; that it then says it is finished; and
     /// that resuming an ended run reports the same end.
-    pub fn pauses<'a>(
-        &mut self,
-        whole: &Runs<'a>,
-        program: &Program<'_>,
-        slice: u64,
-        out: &'a Arena,
-    ) {
+    pub fn pauses(&mut self, whole: &Runs, program: &Program, slice: u64) {
         let limits = &whole.limits;
         let name = format!("{} paused every {slice} units", whole.name);
         for full in &whole.runs {
@@ -337,7 +316,7 @@ impl Harness {
             }
             let exact = full.report.counts.extra_fuel() == 0;
             let (mut given, mut pauses) = (0u64, 0u64);
-            let mut end = run.resume(0, out);
+            let mut end = run.resume(0);
             self.check(
                 end.outcome == Outcome::OutOfFuel || full.report.counts.fuel() == 0,
                 &name,
@@ -348,7 +327,7 @@ impl Harness {
             while end.outcome == Outcome::OutOfFuel && given < limits.fuel {
                 let more = slice.min(limits.fuel - given);
                 given += more;
-                end = run.resume(more, out);
+                end = run.resume(more);
                 if end.outcome == Outcome::OutOfFuel && given < limits.fuel {
                     pauses += 1;
                     self.check(
@@ -394,7 +373,7 @@ impl Harness {
                     given,
                     "not finished at its end",
                 );
-                let again = run.resume(5, out);
+                let again = run.resume(5);
                 self.check(
                     again == end,
                     &name,
@@ -410,13 +389,7 @@ impl Harness {
     /// pause: start `program` with that bound and insist that it pauses
     /// where the cut run stopped, then ends, given all the fuel it wants,
     /// as that machine's run in `whole` did, and reports that end again.
-    pub fn pauses_at<'a>(
-        &mut self,
-        at: &Runs<'a>,
-        whole: &Runs<'a>,
-        program: &Program<'_>,
-        out: &'a Arena,
-    ) {
+    pub fn pauses_at(&mut self, at: &Runs, whole: &Runs, program: &Program) {
         let bound = at.limits.fuel;
         let name = format!("{} paused at its bound", at.name);
         for (cut, full) in at.runs.iter().zip(&whole.runs) {
@@ -424,7 +397,7 @@ impl Harness {
                 continue;
             };
             let machine = cut.kind.name();
-            let paused = run.resume(0, out);
+            let paused = run.resume(0);
             self.check(
                 paused == cut.report,
                 &name,
@@ -437,8 +410,8 @@ impl Harness {
                 ),
             );
             let more = whole.limits.fuel.saturating_sub(bound);
-            let end = run.resume(more, out);
-            let again = run.resume(5, out);
+            let end = run.resume(more);
+            let again = run.resume(5);
             let limited = matches!(full.report.outcome, Outcome::Limit(_));
             self.check(
                 limited || (end == full.report && again == end),
@@ -492,11 +465,11 @@ fn summary(failures: &[String], runs: u64) -> String {
 }
 
 /// Whether a report is one a run under `limits` may give, having held at
-/// most `peak` bytes (0 when unknown): a closed value, an error after at
+/// most `peak` bytes (0 when unknown): a value, an error after at
 /// least one attempted contraction, no more fuel used than given, a
 /// cancellation only with a handle, no more bytes held than allowed unless
 /// the memory limit stopped it, and never a fault.
-pub fn within_limits(report: &Report<'_>, limits: &Limits, peak: usize) -> Result<(), String> {
+pub fn within_limits(report: &Report, limits: &Limits, peak: usize) -> Result<(), String> {
     let counts = &report.counts;
     if counts.fuel() > limits.fuel {
         return Err(format!(
@@ -506,9 +479,6 @@ pub fn within_limits(report: &Report<'_>, limits: &Limits, peak: usize) -> Resul
         ));
     }
     match &report.outcome {
-        Outcome::Value(v) if !(v.is_value() && v.is_closed()) => {
-            return Err(format!("not a closed value: {}", shown(v)));
-        }
         Outcome::Error(e) if counts.total() == 0 => {
             return Err(format!("{} after no contraction", e.kind().name()));
         }
@@ -532,7 +502,7 @@ pub fn within_limits(report: &Report<'_>, limits: &Limits, peak: usize) -> Resul
 /// Why two reports of one program under one set of limits differ: as
 /// [`orrery::disagreement`] says, and besides (though SEMANTICS §3 does not
 /// promise it) when two errors of one kind have different messages.
-pub fn same(a: &Report<'_>, b: &Report<'_>) -> Result<(), String> {
+pub fn same(a: &Report, b: &Report) -> Result<(), String> {
     if let Some(why) = disagreement(a, b) {
         return Err(format!("{why}: {} and {}", describe(a), describe(b)));
     }
@@ -549,13 +519,13 @@ pub fn same(a: &Report<'_>, b: &Report<'_>) -> Result<(), String> {
 }
 
 /// A report as failure messages show it: its ending and its counts.
-pub fn describe(report: &Report<'_>) -> String {
+pub fn describe(report: &Report) -> String {
     format!("{} after {}", ending(report), report.counts)
 }
 
 /// How a report ended, as corpus files write it: `value TEXT`, `error
 /// KIND`, `out_of_fuel`, `limit KIND`, `fault MESSAGE`.
-pub fn ending(report: &Report<'_>) -> String {
+pub fn ending(report: &Report) -> String {
     match &report.outcome {
         Outcome::Value(v) => format!("value {}", shown(v)),
         Outcome::Error(e) => format!("error {}", e.kind().name()),
@@ -565,19 +535,19 @@ pub fn ending(report: &Report<'_>) -> String {
     }
 }
 
-fn shown(v: &orrery::Term<'_>) -> String {
-    print_limited(v, SHOWN).text
+fn shown(v: &orrery::Value) -> String {
+    v.print_limited(SHOWN).text
 }
 
 /// Whether `report` ends as `ending` says (see [`Harness::expect_ending`]).
-pub fn ends_as(report: &Report<'_>, ending: &str) -> Result<(), String> {
+pub fn ends_as(report: &Report, ending: &str) -> Result<(), String> {
     let (kind, rest) = ending.split_once(' ').unwrap_or((ending, ""));
     let ok = match (kind, &report.outcome) {
         ("value", Outcome::Value(v)) => {
             let arena = Arena::new();
             let want = parse_term(&arena, rest)
                 .map_err(|e| format!("bad expected value `{rest}`: {e}"))?;
-            want == *v
+            *v == want
         }
         ("value", _) => false,
         _ => self::ending(report) == ending,

@@ -6,8 +6,8 @@
 //! through the harness, which compares each machine with the stepper.
 
 use orrery::{
-    extract, parse, parse_with, print, print_with, Arena, Datum, ErrorKind, HostFunctions,
-    IntoDatum, Limits, MachineKind, Outcome, Program, Rule, ValidationError,
+    parse, parse_with, print_with, Arena, Datum, ErrorKind, HostFunctions, IntoDatum, Limits,
+    MachineKind, Outcome, Program, Rule, ValidationError,
 };
 
 use crate::common::harness::{describe, Harness, Runs};
@@ -77,12 +77,12 @@ fn run_with_host<'a>(
     host: &'a HostFunctions,
     source: &str,
     limits: &Limits,
-) -> Runs<'a> {
+) -> Runs {
     let program = match parse_with(arena, source, host) {
         Ok(p) => p,
         Err(e) => panic!("{}", e.render("<test>", source)),
     };
-    h.run(source, &program, limits, arena)
+    h.run(source, &program, limits)
 }
 
 #[test]
@@ -104,12 +104,12 @@ fn partial_calls_are_functions_and_print_back_by_name() {
     let host = orchard();
     let arena = Arena::new();
     let program = parse_with(&arena, "let per_tree = litres_for 1 in per_tree 5", &host).unwrap();
-    let printed = print_with(program.term(), &host);
+    let printed = print_with(program.to_term(&arena), &host);
     assert!(printed.contains("litres_for"), "{printed}");
     let reparsed = parse_with(&arena, &printed, &host).unwrap();
-    assert!(reparsed.term() == program.term());
+    assert!(reparsed.to_term(&arena) == program.to_term(&arena));
     let mut h = Harness::new();
-    let runs = h.run("partial", &program, &Limits::default(), &arena);
+    let runs = h.run("partial", &program, &Limits::default());
     h.expect_ending(&runs, "value 60");
     h.finish();
 }
@@ -181,25 +181,19 @@ fn a_declared_cost_is_charged_and_stops_the_run_at_the_same_fuel_everywhere() {
     let mut h = Harness::new();
     let source = r#"length (banner "ab" 5) + 1"#;
     let program = parse_with(&arena, source, &host).unwrap();
-    let whole = h.every_bound(
-        source,
-        &program,
-        &Limits::default(),
-        &arena,
-        |h, fuel, at| {
-            let name = format!("{source} with fuel {fuel}");
-            if fuel < 11 {
-                // Not enough for the banner call: nothing is made.
-                h.expect(at, &format!("{name}: out of fuel, nothing used"), |r| {
-                    r.outcome == Outcome::OutOfFuel && r.counts.fuel() == 0
-                });
-            } else if fuel < 13 {
-                h.expect(at, &format!("{name}: out of fuel, all used"), |r| {
-                    r.outcome == Outcome::OutOfFuel && r.counts.fuel() == fuel
-                });
-            }
-        },
-    );
+    let whole = h.every_bound(source, &program, &Limits::default(), |h, fuel, at| {
+        let name = format!("{source} with fuel {fuel}");
+        if fuel < 11 {
+            // Not enough for the banner call: nothing is made.
+            h.expect(at, &format!("{name}: out of fuel, nothing used"), |r| {
+                r.outcome == Outcome::OutOfFuel && r.counts.fuel() == 0
+            });
+        } else if fuel < 13 {
+            h.expect(at, &format!("{name}: out of fuel, all used"), |r| {
+                r.outcome == Outcome::OutOfFuel && r.counts.fuel() == fuel
+            });
+        }
+    });
     h.expect_ending(&whole, "value 11");
     // banner: 1 + 10 units; length: 1; +: 1.
     h.expect(&whole, "3 contractions and 10 extra units", |r| {
@@ -215,11 +209,11 @@ fn host_calls_pay_their_cost_and_make_their_tags() {
     let mut h = Harness::new();
     let source = r#"pad "ab" 5"#;
     let call = parse_with(&arena, source, &host).unwrap();
-    let runs = h.run(source, &call, &Limits::default().with_fuel(5), &arena);
+    let runs = h.run(source, &call, &Limits::default().with_fuel(5));
     h.expect(&runs, "out of fuel before the call", |r| {
         r.outcome == Outcome::OutOfFuel && r.counts.total() == 0
     });
-    let whole = h.run(source, &call, &Limits::default().with_fuel(6), &arena);
+    let whole = h.run(source, &call, &Limits::default().with_fuel(6));
     h.expect_ending(&whole, r#"value "ababababab""#);
     h.expect(&whole, "one prim and 5 extra units", |r| {
         (r.counts.get(Rule::Prim), r.counts.extra_fuel()) == (1, 5)
@@ -233,9 +227,9 @@ fn host_calls_pay_their_cost_and_make_their_tags() {
         else {
             continue;
         };
-        let first = paused.resume(0, &arena);
+        let first = paused.resume(0);
         let left = paused.fuel_left();
-        let end = paused.resume(3, &arena);
+        let end = paused.resume(3);
         h.check(
             first.outcome == Outcome::OutOfFuel && left == 3 && end == run.report,
             source,
@@ -263,7 +257,7 @@ fn host_calls_pay_their_cost_and_make_their_tags() {
         h.expect(
             &runs,
             &format!("the value {value}"),
-            |r| matches!(r.outcome, Outcome::Value(v) if print(v) == value),
+            |r| matches!(&r.outcome, Outcome::Value(v) if v.to_string() == value),
         );
     }
     h.finish();
@@ -278,12 +272,12 @@ fn paused_runs_resume_across_a_costly_host_call() {
     let program = parse_with(&arena, source, &host).unwrap();
     // Every pausing machine, paused at each bound, pauses where the run cut
     // there stopped, and resumes to the whole run's end.
-    let whole = h.run(source, &program, &Limits::default(), &arena);
-    h.every_bound(source, &program, &Limits::default(), &arena, |h, _, at| {
-        h.pauses_at(at, &whole, &program, &arena);
+    let whole = h.run(source, &program, &Limits::default());
+    h.every_bound(source, &program, &Limits::default(), |h, _, at| {
+        h.pauses_at(at, &whole, &program);
     });
     h.expect_ending(&whole, "value 24");
-    h.pauses(&whole, &program, 1, &arena);
+    h.pauses(&whole, &program, 1);
     h.finish();
 }
 
@@ -300,27 +294,28 @@ fn the_builder_api_calls_host_functions_too() {
         .is_none());
     assert!(matches!(
         Program::new(call),
-        Err(ValidationError::UnknownHost { .. })
+        Err(ValidationError::ForeignHost { .. })
     ));
     let program = Program::with_host(call, &host).unwrap();
-    let runs = h.run("builder", &program, &Limits::default(), &arena);
+    let runs = h.run("builder", &program, &Limits::default());
     h.expect_ending(&runs, "value 48");
-    // A table without the function is refused; one registered the same way
-    // (same names, order and arities) is accepted: a host id is a position.
+    // A host call belongs to the table it was made with: another table is
+    // refused, even one registered the same way (same names, order and
+    // arities), and so is a table without the function; a clone of the
+    // table is the same table.
     let other = orchard();
     assert!(Program::with_host(call, &HostFunctions::new()).is_err());
-    assert!(Program::with_host(call, &other).is_ok());
+    assert!(matches!(
+        Program::with_host(call, &other),
+        Err(ValidationError::ForeignHost { .. })
+    ));
+    assert!(Program::with_host(call, &host.clone()).is_ok());
     // A call under a binder gets its argument as data: (λx. litres_for x 6) 7.
     let call = host
         .call_term(&arena, "litres_for", &[arena.var(0), arena.int(6)])
         .unwrap();
     let program = Program::with_host(arena.app(arena.lam(call), arena.int(7)), &host).unwrap();
-    let runs = h.run(
-        "builder under a binder",
-        &program,
-        &Limits::default(),
-        &arena,
-    );
+    let runs = h.run("builder under a binder", &program, &Limits::default());
     h.expect_ending(&runs, &format!("value {}", 7 * 6 * 12));
     h.expect(&runs, "one beta and one prim", |r| {
         r.counts.to_array() == [1, 0, 0, 0, 1, 0]
@@ -360,14 +355,14 @@ fn results_convert_to_rust_types_with_clear_errors() {
     )
     .unwrap();
     let mut h = Harness::new();
-    let runs = h.run("orchard rows", &program, &Limits::default(), &arena);
+    let runs = h.run("orchard rows", &program, &Limits::default());
     for run in &runs.runs {
         let name = run.kind.name();
-        let Outcome::Value(v) = run.report.outcome else {
+        let Outcome::Value(v) = &run.report.outcome else {
             h.fail("orchard rows", name, u64::MAX, describe(&run.report));
             continue;
         };
-        let trees: Result<Vec<(String, i64, bool)>, _> = extract(v);
+        let trees: Result<Vec<(String, i64, bool)>, _> = v.extract();
         h.check(
             trees.is_ok_and(|t| t == [("pear".into(), 4, true), ("plum".into(), 0, false)]),
             "orchard rows",
@@ -375,7 +370,9 @@ fn results_convert_to_rust_types_with_clear_errors() {
             u64::MAX,
             "not the rows as Rust values",
         );
-        let wrong = extract::<Vec<(String, bool, bool)>>(v).map_err(|e| e.to_string());
+        let wrong = v
+            .extract::<Vec<(String, bool, bool)>>()
+            .map_err(|e| e.to_string());
         h.check(
             wrong == Err("expected a boolean, found an integer".to_string()),
             "orchard rows",
@@ -383,7 +380,7 @@ fn results_convert_to_rust_types_with_clear_errors() {
             u64::MAX,
             format!("{wrong:?}"),
         );
-        let wrong = extract::<i64>(v).map_err(|e| e.found().to_string());
+        let wrong = v.extract::<i64>().map_err(|e| e.found().to_string());
         h.check(
             wrong == Err("the constructor Cons".to_string()),
             "orchard rows",
@@ -405,28 +402,25 @@ fn a_function_value_is_called_per_request_under_fresh_limits() {
     )
     .unwrap();
     let mut h = Harness::new();
-    let runs = h.run("pricing", &config, &Limits::default(), &arena);
+    let runs = h.run("pricing", &config, &Limits::default());
     for run in &runs.runs {
         // The function each machine made, called on every machine.
-        let Outcome::Value(price) = run.report.outcome else {
+        let Outcome::Value(price) = &run.report.outcome else {
             h.fail("pricing", run.kind.name(), u64::MAX, describe(&run.report));
             continue;
         };
+        let price = Program::from_value(price).unwrap();
         for (kg, expected) in [(0i64, 40i64), (7, 61), (250, 340)] {
-            let request = Arena::new();
-            let call = request.app(request.copy_term(price), kg.into_datum().to_term(&request));
-            let program = Program::new(call).unwrap();
+            let program = price.apply(&[kg.into_datum()]).unwrap();
             let name = format!("{}'s pricing of {kg} kg", run.kind.name());
             let limits = Limits::default().with_fuel(50);
-            let priced = h.run(&name, &program, &limits, &request);
+            let priced = h.run(&name, &program, &limits);
             h.expect_ending(&priced, &format!("value {expected}"));
         }
         // Fresh, tight limits hold for the call alone.
-        let request = Arena::new();
-        let call = request.app(request.copy_term(price), request.int(3));
-        let program = Program::new(call).unwrap();
+        let program = price.apply(&[3i64.into_datum()]).unwrap();
         let name = format!("{}'s pricing with 2 units", run.kind.name());
-        let tight = h.run(&name, &program, &Limits::default().with_fuel(2), &request);
+        let tight = h.run(&name, &program, &Limits::default().with_fuel(2));
         h.expect_ending(&tight, "out_of_fuel");
     }
     h.finish();
@@ -451,12 +445,7 @@ fn one_program_runs_on_many_threads_at_once() {
     let expected: Vec<String> = fuels
         .iter()
         .map(|&fuel| {
-            let runs = h.run(
-                "total",
-                &program,
-                &Limits::default().with_fuel(fuel),
-                &arena,
-            );
+            let runs = h.run("total", &program, &Limits::default().with_fuel(fuel));
             runs.reference().map(describe).unwrap_or_default()
         })
         .collect();
@@ -469,10 +458,9 @@ fn one_program_runs_on_many_threads_at_once() {
             .flat_map(|i| MachineKind::enabled().iter().map(move |&m| (i, m)))
             .map(|(i, machine)| {
                 scope.spawn(move || {
-                    let out = Arena::new();
                     // Each run has its own limits: the odd ones too little fuel.
                     let fuel = fuels[i % 2];
-                    let report = machine.run(program, &Limits::default().with_fuel(fuel), &out);
+                    let report = machine.run(program, &Limits::default().with_fuel(fuel));
                     (i, machine, describe(&report))
                 })
             })
@@ -496,7 +484,7 @@ fn every_fuel_bound_agrees_with_costed_host_calls_in_a_loop() {
                        else length (banner "ab" n) + litres_for n 1 + go (n - 1) in
         Pair(go 4, case rows 2 of { Cons(h, t) => h; Nil => "none" })"#;
     let program = parse_with(&arena, source, &host).unwrap();
-    let whole = h.every_bound("go 4", &program, &Limits::default(), &arena, |_, _, _| {});
+    let whole = h.every_bound("go 4", &program, &Limits::default(), |_, _, _| {});
     h.expect(&whole, "a value", |r| {
         matches!(r.outcome, Outcome::Value(_))
     });
@@ -505,7 +493,7 @@ fn every_fuel_bound_agrees_with_costed_host_calls_in_a_loop() {
     // Paused in slices of 1, 2 and 3 units, every pausing machine ends as
     // its uninterrupted run.
     for slice in 1..=3 {
-        h.pauses(&whole, &program, slice, &arena);
+        h.pauses(&whole, &program, slice);
     }
     h.finish();
 }

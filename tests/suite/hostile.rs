@@ -24,22 +24,22 @@ fn deep_limits() -> Limits {
 }
 
 /// Whether `outcome` is the integer `n`.
-fn is_int(outcome: &Outcome<'_>, n: usize) -> bool {
-    matches!(outcome, Outcome::Value(v) if matches!(v.node(), Node::Int(m) if *m as usize == n))
+fn is_int(outcome: &Outcome, n: usize) -> bool {
+    matches!(outcome, Outcome::Value(v) if v.as_int().is_some_and(|m| m as usize == n))
 }
 
 /// Whether `outcome` is the boolean `b`.
-fn is_bool(outcome: &Outcome<'_>, b: bool) -> bool {
-    matches!(outcome, Outcome::Value(v) if matches!(v.node(), Node::Bool(x) if *x == b))
+fn is_bool(outcome: &Outcome, b: bool) -> bool {
+    matches!(outcome, Outcome::Value(v) if v.as_bool() == Some(b))
 }
 
 /// Whether `outcome` is the string `s`.
-fn is_str(outcome: &Outcome<'_>, s: &str) -> bool {
-    matches!(outcome, Outcome::Value(v) if matches!(v.node(), Node::Str(x) if *x == s))
+fn is_str(outcome: &Outcome, s: &str) -> bool {
+    matches!(outcome, Outcome::Value(v) if v.as_str() == Some(s))
 }
 
 /// Whether `outcome` is the memory limit.
-fn is_memory_limit(outcome: &Outcome<'_>) -> bool {
+fn is_memory_limit(outcome: &Outcome) -> bool {
     matches!(outcome, Outcome::Limit(l) if l.kind() == LimitKind::Memory)
 }
 
@@ -59,7 +59,7 @@ fn run_deep(
     source: impl Fn(usize) -> String,
     limits: Limits,
     also_within: &[usize],
-    check: fn(usize, &Report<'_>) -> bool,
+    check: fn(usize, &Report) -> bool,
 ) {
     let text = source(DEEP);
     let also_within = also_within.to_vec();
@@ -71,12 +71,12 @@ fn run_deep(
         };
         let mut h = Harness::new();
         let name = format!("{}…", text.chars().take(40).collect::<String>());
-        let runs = h.run(&name, &program, &limits, &arena);
+        let runs = h.run(&name, &program, &limits);
         h.expect(&runs, "the expected end", |r| check(DEEP, r));
         for memory in also_within {
             let within = limits.clone().with_memory(memory);
             for run in runs.runs.iter().filter(|r| r.peak <= memory) {
-                let again = h.run_on(&[run.kind], &name, &program, &within, &arena);
+                let again = h.run_on(&[run.kind], &name, &program, &within);
                 let same = again.reference().is_some_and(|r| *r == run.report);
                 let why = again.reference().map(describe).unwrap_or_default();
                 h.check(
@@ -96,9 +96,9 @@ fn run_deep(
 }
 
 /// Parse `source` and run it on every machine through `h`.
-fn parse_and_run<'a>(h: &mut Harness, arena: &'a Arena, source: &str, limits: &Limits) -> Runs<'a> {
+fn parse_and_run<'a>(h: &mut Harness, arena: &'a Arena, source: &str, limits: &Limits) -> Runs {
     let program = parse(arena, source).unwrap_or_else(|e| panic!("{e}"));
-    h.run(source, &program, limits, arena)
+    h.run(source, &program, limits)
 }
 
 #[test]
@@ -152,16 +152,16 @@ fn a_deep_built_term_validates_prints_compares_copies_and_reads_back() {
         let mut h = Harness::new();
         for (name, t) in [("λ… #0 + 1", plus), ("λ… #(n-1)", outermost)] {
             let program = Program::new(t).expect("closed and valid");
-            let printed = print_limited(program.term(), 1 << 20);
+            let printed = print_limited(program.to_term(&arena), 1 << 20);
             assert!(printed.truncated);
             let other = Arena::new();
             let copy = other.copy_term(t);
             assert_eq!(copy, t);
-            let runs = h.run(name, &program, &Limits::default(), &arena);
+            let runs = h.run(name, &program, &Limits::default());
             h.expect(
                 &runs,
                 "the term itself",
-                |r| matches!(r.outcome, Outcome::Value(v) if v == t),
+                |r| matches!(&r.outcome, Outcome::Value(v) if *v == t),
             );
         }
         h.finish();
@@ -190,9 +190,11 @@ fn a_deep_list_value_reads_back_prints_and_drops() {
         )
     };
     run_deep(build, deep_limits(), &[orrery::DEFAULT_MEMORY], |n, r| {
-        let Outcome::Value(list) = r.outcome else {
+        let Outcome::Value(list) = &r.outcome else {
             return false;
         };
+        let arena = Arena::new();
+        let list = list.to_term(&arena);
         let printed = print_limited(list, 4096);
         printed.truncated && printed.text.starts_with("Cons(1, Cons(2, ") && is_list_up_to(list, n)
     });
@@ -219,7 +221,7 @@ fn a_million_applications_nested_left_and_right_run() {
         Limits::default(),
         &[],
         |n, r| {
-            matches!(r.outcome, Outcome::Value(v) if matches!(v.node(), Node::RecLam(_)))
+            matches!(&r.outcome, Outcome::Value(v) if matches!(v.to_term(&Arena::new()).node(), Node::RecLam(_)))
                 && made(&r.counts, Rule::BetaRec, n)
         },
     );
@@ -297,7 +299,7 @@ fn a_million_nested_cases_run() {
         Limits::default(),
         &[],
         |n, r| {
-            matches!(r.outcome, Outcome::Value(v) if matches!(v.node(), Node::Con("Z", [])))
+            matches!(&r.outcome, Outcome::Value(v) if matches!(v.to_term(&Arena::new()).node(), Node::Con("Z", [])))
                 && made(&r.counts, Rule::Case, n)
         },
     );
@@ -318,9 +320,11 @@ fn a_million_nested_constructors_evaluate_read_back_and_print() {
         Limits::default(),
         &[],
         |n, r| {
-            let Outcome::Value(mut v) = r.outcome else {
+            let Outcome::Value(value) = &r.outcome else {
                 return false;
             };
+            let arena = Arena::new();
+            let mut v = value.to_term(&arena);
             let printed = print_limited(v, 64);
             let mut depth = 0;
             while let Node::Con("S", [inner]) = v.node() {
@@ -502,13 +506,13 @@ fn a_term_of_tree_size_two_to_the_sixty_validates_compares_prints_copies_and_run
     // here on an allocation failure).
     let mut h = Harness::new();
     let limits = Limits::default().with_memory(16 << 20);
-    let runs = h.run("2^60 pairs", &program, &limits, &arena);
+    let runs = h.run("2^60 pairs", &program, &limits);
     h.expect(&runs, "the term itself or the memory limit", |r| {
-        matches!(r.outcome, Outcome::Value(v) if v == t) || is_memory_limit(&r.outcome)
+        matches!(&r.outcome, Outcome::Value(v) if *v == t) || is_memory_limit(&r.outcome)
     });
     if let Some(stepper) = MachineKind::from_name("stepper").and_then(|k| runs.of(k)) {
         h.check(
-            matches!(stepper.report.outcome, Outcome::Value(v) if v == t),
+            matches!(&stepper.report.outcome, Outcome::Value(v) if *v == t),
             "2^60 pairs",
             "stepper",
             limits.fuel,
@@ -523,7 +527,7 @@ fn a_term_of_tree_size_two_to_the_sixty_validates_compares_prints_copies_and_run
     );
     let program = Program::new(work).expect("valid");
     let limits = Limits::default().with_fuel(100_000).with_memory(16 << 20);
-    let runs = h.run("2^60 additions", &program, &limits, &arena);
+    let runs = h.run("2^60 additions", &program, &limits);
     h.expect(&runs, "out of fuel or the memory limit", |r| {
         r.outcome == Outcome::OutOfFuel || is_memory_limit(&r.outcome)
     });
@@ -542,22 +546,22 @@ fn a_value_of_tree_size_two_to_the_sixty_is_built_by_sharing_and_read_back() {
     h.expect(
         &runs,
         "the shared pairs",
-        |r| matches!(r.outcome, Outcome::Value(v) if v == expected),
+        |r| matches!(&r.outcome, Outcome::Value(v) if *v == expected),
     );
     // Read back in linear size: each level one term, reached twice.
     let program = parse(&arena, &source).unwrap();
     for &kind in MachineKind::enabled() {
-        let out = Arena::new();
         let runs = h.run_on(
             &[kind],
             "grow 60 1, read back",
             &program,
             &Limits::default(),
-            &out,
         );
-        let Some(Outcome::Value(mut v)) = runs.reference().map(|r| r.outcome.clone()) else {
+        let Some(Outcome::Value(value)) = runs.reference().map(|r| r.outcome.clone()) else {
             continue; // the harness has said what it ended with
         };
+        let out = Arena::new();
+        let mut v = value.to_term(&out);
         let mut depth = 0;
         let mut shared = true;
         while let Node::Con("Pair", [l, r]) = v.node() {
@@ -566,7 +570,7 @@ fn a_value_of_tree_size_two_to_the_sixty_is_built_by_sharing_and_read_back() {
             depth += 1;
         }
         h.check(
-            shared && depth == 60 && out.allocated_bytes() < 1 << 20,
+            shared && depth == 60 && value.bytes() < 1 << 16 && out.allocated_bytes() < 1 << 20,
             "grow 60 1, read back",
             kind.name(),
             u64::MAX,

@@ -14,9 +14,9 @@ use crate::common::harness::Harness;
 /// Run `program` on every machine under `limits` through the harness: the
 /// machines that end without a resource limit agree with the stepper, and
 /// each report holds to the limits.
-fn check(program: &Program<'_>, limits: &Limits, arena: &Arena) -> Result<(), TestCaseError> {
+fn check(program: &Program, limits: &Limits) -> Result<(), TestCaseError> {
     let mut h = Harness::new();
-    h.run("the shape", program, limits, arena);
+    h.run("the shape", program, limits);
     h.into_result().map_err(TestCaseError::fail)
 }
 
@@ -91,14 +91,14 @@ proptest! {
     fn deep_spines(depth in 1usize..40_000, calls in 1u32..4, memory in 1usize << 16..1 << 26) {
         let arena = Arena::new();
         let program = parse(&arena, &spine(depth, calls)).unwrap();
-        check(&program, &limits(memory), &arena)?;
+        check(&program, &limits(memory))?;
     }
 
     #[test]
     fn wide_constructors_and_arms(arms in 1usize..3_000, fields in 0usize..300, pick in 0usize..3_000, memory in 1usize << 12..1 << 24) {
         let arena = Arena::new();
         let program = Program::new(wide(&arena, arms, fields, pick)).unwrap();
-        check(&program, &limits(memory), &arena)?;
+        check(&program, &limits(memory))?;
     }
 
     #[test]
@@ -110,19 +110,19 @@ proptest! {
             arena.int(3)
         };
         let program = Program::new(shared(&arena, levels, leaf)).unwrap();
-        check(&program, &limits(memory).with_fuel(100_000), &arena)?;
+        check(&program, &limits(memory).with_fuel(100_000))?;
     }
 
     #[test]
     fn big_strings(k in 0u32..22, rounds in 0u32..6, memory in 1usize << 16..1 << 28) {
         let arena = Arena::new();
         let program = parse(&arena, &strings(k, rounds)).unwrap();
-        check(&program, &limits(memory), &arena)?;
+        check(&program, &limits(memory))?;
         // Enough of everything: every machine finishes, paying for the sizes.
         if k <= 16 {
             let roomy = Limits::default().with_memory(1 << 28);
             let mut h = Harness::new();
-            let runs = h.run("big strings, roomy", &program, &roomy, &arena);
+            let runs = h.run("big strings, roomy", &program, &roomy);
             h.expect(&runs, "a value", |r| matches!(r.outcome, Outcome::Value(_)));
             // Each doubling of a string of n bytes pays 1 + 2n/1024; so does
             // each round's ++, and its < and length pay for n bytes.
@@ -136,7 +136,7 @@ proptest! {
     fn many_bindings(lets in 1usize..6_000, closures in 1u32..800, memory in 1usize << 16..1 << 24) {
         let arena = Arena::new();
         let program = parse(&arena, &bindings(lets, closures)).unwrap();
-        check(&program, &limits(memory), &arena)?;
+        check(&program, &limits(memory))?;
     }
 }
 
@@ -147,12 +147,7 @@ fn closures_under_many_bindings_fit_a_small_limit() {
     let arena = Arena::new();
     let program = parse(&arena, &bindings(20_000, 2_000)).unwrap();
     let mut h = Harness::new();
-    let runs = h.run(
-        "closures under many lets",
-        &program,
-        &limits(8 << 20),
-        &arena,
-    );
+    let runs = h.run("closures under many lets", &program, &limits(8 << 20));
     h.expect_ending(&runs, "value 1");
     h.finish();
 }

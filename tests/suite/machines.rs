@@ -25,7 +25,7 @@ fn count_down(n: u64) -> String {
     format!("let rec count n = if n == 0 then 0 else count (n - 1) in count {n}")
 }
 
-fn is_cancelled(report: &Report<'_>) -> bool {
+fn is_cancelled(report: &Report) -> bool {
     report.outcome == Outcome::Limit(LimitError::cancelled())
 }
 
@@ -39,13 +39,13 @@ fn a_cancelled_handle_stops_every_machine_before_its_first_contraction() {
         .with_cancel(cancel.clone());
     let mut h = Harness::new();
     // Not cancelled: the fuel ends it, on the exact contraction.
-    let runs = h.run("spin", &program, &limits.clone().with_fuel(5_000), &arena);
+    let runs = h.run("spin", &program, &limits.clone().with_fuel(5_000));
     h.expect(&runs, "out of fuel after 5,000", |r| {
         r.outcome == Outcome::OutOfFuel && r.counts.total() == 5_000
     });
     // Cancelled: polled before the first contraction.
     cancel.cancel();
-    let runs = h.run("spin", &program, &limits, &arena);
+    let runs = h.run("spin", &program, &limits);
     h.expect(&runs, "cancelled after no contraction", |r| {
         is_cancelled(r) && r.counts.total() == 0
     });
@@ -74,7 +74,7 @@ fn a_handle_cancelled_from_another_thread_stops_a_running_loop() {
             let arena = Arena::new();
             let source = "let rec spin n = let u = started n in spin (n + 1) in spin 0";
             let program = parse_with(&arena, source, &host).expect("the program parses");
-            let report = kind.run(&program, &limits, &arena);
+            let report = kind.run(&program, &limits);
             (
                 is_cancelled(&report),
                 describe(&report),
@@ -115,7 +115,7 @@ fn a_paused_run_that_is_cancelled_reports_it_on_resume() {
             continue;
         };
         let name = "count 1000000";
-        let first = run.resume(5_000, &arena);
+        let first = run.resume(5_000);
         h.check(
             first.outcome == Outcome::OutOfFuel && run.counts().total() == 5_000,
             name,
@@ -124,7 +124,7 @@ fn a_paused_run_that_is_cancelled_reports_it_on_resume() {
             format!("expected out of fuel after 5,000, got {}", describe(&first)),
         );
         cancel.cancel();
-        let report = run.resume(5_000, &arena);
+        let report = run.resume(5_000);
         h.check(
             is_cancelled(&report) && report.counts.total() == 5_000 && run.is_finished(),
             name,
@@ -207,7 +207,7 @@ fn varied() -> Vec<Varied> {
 fn a_reused_machine_reports_what_a_fresh_one_does() {
     let arena = Arena::new();
     let varied = varied();
-    let programs: Vec<(&Varied, Program<'_>)> = varied
+    let programs: Vec<(&Varied, Program)> = varied
         .iter()
         .map(|v| (v, parse(&arena, v.source).unwrap()))
         .collect();
@@ -215,7 +215,7 @@ fn a_reused_machine_reports_what_a_fresh_one_does() {
     let fresh: Vec<_> = programs
         .iter()
         .map(|(v, program)| {
-            let runs = h.run(v.name, program, &v.limits, &arena);
+            let runs = h.run(v.name, program, &v.limits);
             h.expect_ending(&runs, &v.ending);
             runs
         })
@@ -226,7 +226,7 @@ fn a_reused_machine_reports_what_a_fresh_one_does() {
         for round in 0..2 {
             for ((v, program), runs) in programs.iter().zip(&fresh) {
                 let limits = &v.limits;
-                let report = machine.run(program, limits, &arena);
+                let report = machine.run(program, limits);
                 let label = format!("{} reused, round {round}", kind.name());
                 h.agrees(runs, &label, &report);
                 if let Some(first) = runs.of(kind) {
@@ -267,14 +267,14 @@ fn a_machine_without_accounting_gives_the_same_reports() {
     let mut unaccounted_builds = 0;
     for (source, ending) in &programs {
         let program = parse(&arena, source).unwrap();
-        let runs = h.run(source, &program, &Limits::default(), &arena);
+        let runs = h.run(source, &program, &Limits::default());
         h.expect_ending(&runs, ending);
         for &kind in MachineKind::enabled() {
             let Some(mut bare) = kind.unaccounted() else {
                 continue;
             };
             unaccounted_builds += 1;
-            let report = bare.run(&program, &Limits::default(), &arena);
+            let report = bare.run(&program, &Limits::default());
             let label = format!("{} without accounting", kind.name());
             h.agrees(&runs, &label, &report);
             if let Some(metered) = runs.of(kind) {
@@ -332,9 +332,9 @@ fn every_fuel_bound_pauses_and_resumes_to_the_uninterrupted_end() {
     let limits = Limits::default();
     // Paused at each bound, then resumed with the rest at once: the pause
     // is the run cut at the bound, the end the whole run.
-    let whole = h.run("mixed", &program, &limits, &arena);
-    h.every_bound("mixed", &program, &limits, &arena, |h, _, at| {
-        h.pauses_at(at, &whole, &program, &arena);
+    let whole = h.run("mixed", &program, &limits);
+    h.every_bound("mixed", &program, &limits, |h, _, at| {
+        h.pauses_at(at, &whole, &program);
     });
     h.expect_ending(
         &whole,
@@ -342,7 +342,7 @@ fn every_fuel_bound_pauses_and_resumes_to_the_uninterrupted_end() {
     );
     h.expect(&whole, "extra fuel 3", |r| r.counts.extra_fuel() == 3);
     for slice in [1, 2, 3] {
-        h.pauses(&whole, &program, slice, &arena);
+        h.pauses(&whole, &program, slice);
     }
     h.finish();
 }
@@ -360,7 +360,7 @@ fn a_paused_run_holds_nothing_of_the_arenas_it_was_given() {
             continue;
         };
         let out = Arena::new();
-        let paused = (0..1000).all(|_| run.resume(7, &out).outcome == Outcome::OutOfFuel);
+        let paused = (0..1000).all(|_| run.resume(7).outcome == Outcome::OutOfFuel);
         h.check(
             paused,
             "count 2000",
@@ -378,7 +378,7 @@ fn a_paused_run_holds_nothing_of_the_arenas_it_was_given() {
                 out.allocated_bytes()
             ),
         );
-        let end = run.resume(u64::MAX / 2, &out);
+        let end = run.resume(u64::MAX / 2);
         h.check(
             matches!(end.outcome, Outcome::Value(_)),
             "count 2000",
@@ -396,11 +396,11 @@ fn paused_runs_of_tak_end_as_uninterrupted_ones_at_any_slice() {
     let source = "let rec tak x y z = if y < x then tak (tak (x - 1) y z) (tak (y - 1) z x) (tak (z - 1) x y) else z in tak 12 8 4";
     let program = parse(&arena, source).unwrap();
     let mut h = Harness::new();
-    let whole = h.run("tak 12 8 4", &program, &Limits::default(), &arena);
+    let whole = h.run("tak 12 8 4", &program, &Limits::default());
     h.expect_ending(&whole, "value 5");
     let total = whole.reference().map_or(2, |r| r.counts.total());
     for slice in [1, 7, 1000, total - 1] {
-        h.pauses(&whole, &program, slice, &arena);
+        h.pauses(&whole, &program, slice);
     }
     h.finish();
 }
@@ -426,8 +426,8 @@ fn tail_calls_run_in_constant_space() {
         let arena = Arena::new();
         let short = parse(&arena, &head.replace('N', "100000")).unwrap();
         let long = parse(&arena, &head.replace('N', "1000000")).unwrap();
-        let before = h.run(name, &short, &limits, &arena);
-        let after = h.run(name, &long, &limits, &arena);
+        let before = h.run(name, &short, &limits);
+        let after = h.run(name, &long, &limits);
         h.expect_ending(&after, ending);
         h.expect_count(&after, Rule::BetaRec, 1_000_001);
         for (a, b) in before.runs.iter().zip(&after.runs) {
@@ -467,12 +467,7 @@ fn a_growing_run_stops_at_the_memory_limit_barely_past_it() {
         let arena = Arena::new();
         let program = parse(&arena, source).unwrap();
         for limit in [256 << 10, 1 << 20] {
-            let runs = h.run(
-                name,
-                &program,
-                &Limits::default().with_memory(limit),
-                &arena,
-            );
+            let runs = h.run(name, &program, &Limits::default().with_memory(limit));
             h.expect(&runs, "the memory limit, soon", |r| {
                 r.outcome == Outcome::Limit(LimitError::memory(limit))
                     && r.counts.total() < 1_000_000

@@ -4,7 +4,8 @@
 //! running programs (tak, Ackermann, Fibonacci, Church numerals, queens,
 //! division) are corpus files under `tests/corpus/`, each with its source.
 
-use orrery::{instantiate, shift, subst, Arena};
+use orrery::toolkit::{instantiate, shift, subst};
+use orrery::Arena;
 
 #[test]
 fn shifting_of_exercise_6_2_2() {
