@@ -5,8 +5,8 @@
 use std::time::Duration;
 
 use criterion::{criterion_group, criterion_main, Criterion};
+use orrery::Machine;
 use orrery::MachineKind;
-use orrery::{Arena, Machine};
 
 // Each bench target uses a part of the shared workloads.
 #[allow(dead_code)]
@@ -16,8 +16,7 @@ use workloads::*;
 /// Bench `source` on env and cek with and without their accounting, as
 /// `accounting NAME/env`, `accounting NAME/env unaccounted`, and so for cek.
 fn overhead(c: &mut Criterion, name: &str, source: &str, expected: i64) {
-    let arena = Arena::new();
-    let program = program(&arena, source);
+    let program = program(source);
     let expected = expected.to_string();
     let mut workload = Workload::new(c, &format!("accounting {name}"));
     workload.group().sample_size(10);

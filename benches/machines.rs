@@ -5,7 +5,7 @@
 use std::time::Duration;
 
 use criterion::{black_box, criterion_group, criterion_main, Criterion, Throughput};
-use orrery::{parse, Arena};
+use orrery::{parse, Arena, Datum, Limits, MachineKind, Outcome, Program};
 
 mod workloads;
 use workloads::*;
@@ -27,8 +27,7 @@ fn int_workload(
     stepper: Stepper,
     mut twin: impl FnMut() -> i64,
 ) {
-    let arena = Arena::new();
-    let program = program(&arena, source);
+    let program = program(source);
     let expected = twin().to_string();
     let mut workload = Workload::new(c, name);
     workload.group().sample_size(10);
@@ -47,8 +46,7 @@ const CONFIG_RUNS: u64 = 10_000;
 /// The per-run overhead: a small configuration-sized program run
 /// [`CONFIG_RUNS`] times per iteration; criterion reports runs per second.
 fn config(c: &mut Criterion) {
-    let arena = Arena::new();
-    let program = program(&arena, WATERING);
+    let program = program(WATERING);
     let expected = watering(4, 31).printed();
     let mut workload = Workload::new(c, "watering plan x10^4");
     workload.group().sample_size(20);
@@ -83,6 +81,81 @@ fn parsing(c: &mut Criterion) {
     group.finish();
 }
 
+/// Per-request cost as the rule set grows: the schedule is evaluated once
+/// (on the fastest machine) to a function, made a program of its own, and
+/// each iteration applies it to one request and runs it on the machine
+/// under test. With the program's preparation shared, a request that
+/// touches one rule costs the same whatever the size of the rule set.
+fn requests(c: &mut Criterion) {
+    for rules in [10, 1000] {
+        let source = locker_schedule(rules);
+        let rule_set = program(&source);
+        let setup = MachineKind::fastest()
+            .expect("a machine is enabled")
+            .run(&rule_set, &unlimited());
+        let Outcome::Value(schedule) = &setup.outcome else {
+            panic!("the schedule did not evaluate: {:?}", setup.outcome);
+        };
+        let schedule = Program::from_value(schedule).expect("a value is a valid program");
+        let expected = locker_fee(rules, 0);
+        let mut group = c.benchmark_group(format!("request {rules} rules"));
+        group.sample_size(20);
+        for &kind in MachineKind::enabled() {
+            let mut machine = kind.machine();
+            let limits = Limits::default().with_fuel(1_000).with_memory(1 << 20);
+            group.bench_function(kind.name(), |b| {
+                b.iter(|| {
+                    let request = schedule
+                        .apply(&[Datum::Int(black_box(0))])
+                        .expect("a size class is data");
+                    let report = machine.run(&request, &limits);
+                    assert_eq!(
+                        report.outcome.value().and_then(|v| v.as_int()),
+                        Some(expected)
+                    );
+                    black_box(report)
+                })
+            });
+        }
+        group.finish();
+    }
+}
+
+/// Iterations of the loop a request runs in [`request_loop`].
+const REQUEST_LOOP: i64 = 1_000_000;
+
+/// The other per-request shape: a function whose body defines a loop and
+/// runs it, applied to its request (the loop is a closure made per call).
+/// Its rows decide [`MachineKind::fastest`].
+fn request_loop(c: &mut Criterion) {
+    let source = "\\n. let rec count i acc = if i == 0 then acc else count (i - 1) (acc + i % 7) in count n 0";
+    let function = program(source);
+    let expected = (1..=REQUEST_LOOP).map(|i| i % 7).sum::<i64>();
+    let mut group = c.benchmark_group("request loop 10^6");
+    group.sample_size(10);
+    group.bench_function("rust", |b| {
+        b.iter(|| (1..=black_box(REQUEST_LOOP)).map(|i| i % 7).sum::<i64>())
+    });
+    for &kind in MachineKind::enabled() {
+        if kind.name() == "stepper" {
+            continue;
+        }
+        let mut machine = kind.machine();
+        group.bench_function(kind.name(), |b| {
+            b.iter(|| {
+                let request = function.apply(&[Datum::Int(REQUEST_LOOP)]).expect("data");
+                let report = machine.run(&request, &unlimited());
+                assert_eq!(
+                    report.outcome.value().and_then(|v| v.as_int()),
+                    Some(expected)
+                );
+                black_box(report)
+            })
+        });
+    }
+    group.finish();
+}
+
 fn benches(c: &mut Criterion) {
     use Stepper::{Run, Skip};
     int_workload(c, "fib 25", &format!("{FIB}25"), Run, || fib(black_box(25)));
@@ -104,6 +177,8 @@ fn benches(c: &mut Criterion) {
         tail(black_box(1_000_000))
     });
     config(c);
+    requests(c);
+    request_loop(c);
     parsing(c);
 }
 

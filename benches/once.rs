@@ -5,7 +5,7 @@
 
 use std::process::ExitCode;
 
-use orrery::{Arena, Machine, MachineKind, Outcome};
+use orrery::{Machine, MachineKind, Outcome};
 
 // Each bench target uses a part of the shared workloads.
 #[allow(dead_code)]
@@ -64,8 +64,7 @@ fn main() -> ExitCode {
         eprintln!("no machine {machine} in this build");
         return ExitCode::FAILURE;
     };
-    let arena = Arena::new();
-    let program = program(&arena, &source);
+    let program = program(&source);
     let report = runner.run(&program, &unlimited());
     match report.outcome {
         Outcome::Value(v) if v.to_string() == expected => {

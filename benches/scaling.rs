@@ -5,7 +5,7 @@
 use std::time::Duration;
 
 use criterion::{criterion_group, criterion_main, Criterion};
-use orrery::{Arena, MachineKind};
+use orrery::MachineKind;
 
 // Each bench target uses a part of the shared workloads.
 #[allow(dead_code)]
@@ -29,8 +29,7 @@ fn sized(
     expected: i64,
     memory: usize,
 ) {
-    let arena = Arena::new();
-    let program = program(&arena, source);
+    let program = program(source);
     let mut machine = kind.machine();
     workload.machine(
         &format!("{}/{size}", kind.name()),

@@ -5,7 +5,7 @@
 use std::process::{Command, ExitCode};
 use std::time::Instant;
 
-use orrery::{Arena, MachineKind, Outcome};
+use orrery::{MachineKind, Outcome};
 
 // Each bench target uses a part of the shared workloads.
 #[allow(dead_code)]
@@ -35,8 +35,7 @@ fn child(name: &str) -> ExitCode {
         eprintln!("no machine named {name} in this build");
         return ExitCode::FAILURE;
     };
-    let arena = Arena::new();
-    let program = program(&arena, &tail_loop(ITERATIONS));
+    let program = program(&tail_loop(ITERATIONS));
     let expected = tail(ITERATIONS as i64).to_string();
     let baseline = status_bytes("VmRSS:").unwrap_or(0);
     let started = Instant::now();

@@ -1,7 +1,9 @@
 //! A rule engine: the rules are parsed and evaluated once, to a function
 //! value; the application then calls that function once per request, each
-//! call under fresh limits, and the rules call back into the application
-//! through host functions. Scenario: quotes for an imaginary bicycle courier
+//! call under fresh limits and with its own context (the dispatch desk's
+//! state when the request came in), and the rules call back into the
+//! application through host functions, one of which reads that context.
+//! Scenario: quotes for an imaginary bicycle courier
 //! (`examples/courier_rules.orr`).
 //!
 //! Run with `cargo run --example rule_engine`.
@@ -16,6 +18,14 @@ struct Request {
     kilograms: i64,
     hour: i64,
     fragile: bool,
+    /// Riders free at the desk when the request came in.
+    riders_free: i64,
+}
+
+/// What each run's host functions may read: the dispatch desk at the time
+/// of one request.
+struct Dispatch {
+    riders_free: i64,
 }
 
 impl Request {
@@ -43,15 +53,18 @@ fn host_functions() -> HostFunctions {
         Ok::<_, String>(zones.get(postcode.as_str()).copied().unwrap_or(0))
     })
     .expect("a fresh table takes a lower-case name");
-    host.register("surge", |hour: i64| {
+    // The surge reads the run's context: with few riders free, every hour
+    // costs 15% more.
+    host.register_with_context("surge", |desk: &Dispatch, hour: i64| {
         if !(0..24).contains(&hour) {
             return Err(format!("no hour {hour} in a day"));
         }
-        Ok(match hour {
+        let by_hour = match hour {
             7..=9 | 16..=18 => 25,
             22..=23 | 0..=5 => 40,
             _ => 0,
-        })
+        };
+        Ok(by_hour + if desk.riders_free < 2 { 15 } else { 0 })
     })
     .expect("a fresh table takes a lower-case name");
     host
@@ -88,41 +101,52 @@ fn main() {
             kilograms: 1,
             hour: 11,
             fragile: false,
+            riders_free: 3,
         },
         Request {
             postcode: "MK7",
             kilograms: 6,
             hour: 8,
             fragile: true,
+            riders_free: 1,
         },
         Request {
             postcode: "TQ9",
             kilograms: 3,
             hour: 23,
             fragile: false,
+            riders_free: 4,
         },
         Request {
             postcode: "ZZ0",
             kilograms: 2,
             hour: 12,
             fragile: false,
+            riders_free: 2,
         },
         Request {
             postcode: "RV2",
             kilograms: 45,
             hour: 12,
             fragile: false,
+            riders_free: 5,
         },
         Request {
             postcode: "RV2",
             kilograms: 4,
             hour: 25,
             fragile: false,
+            riders_free: 0,
         },
     ];
-    // Each request: fresh, tight limits.
-    let limits = Limits::default().with_fuel(5_000).with_memory(1 << 20);
     for request in &requests {
+        // Each request: fresh, tight limits, and its own context.
+        let limits = Limits::default()
+            .with_fuel(5_000)
+            .with_memory(1 << 20)
+            .with_context(Dispatch {
+                riders_free: request.riders_free,
+            });
         let program = quote
             .apply(&[request.to_datum()])
             .expect("a request uses the rules' tags with their arities");

@@ -8,8 +8,9 @@
 //! Terms are the program image's nodes, never copied, and the nodes a run
 //! builds by substitution (`subst`) in its own heap (`heap`), which a
 //! copying collector keeps proportional to the live term. The context is a
-//! stack of small frames that hold only what is still to be done. Results,
-//! traced redexes and single steps are read back into arenas (`readback`).
+//! stack of small frames that hold only what is still to be done. Results
+//! are read back into owned values, and traced redexes and single steps into
+//! arenas (`readback`).
 
 mod heap;
 mod readback;
@@ -27,13 +28,16 @@ use subst::{Binds, SubstJob};
 
 use crate::budget::{growth, Budget, Ended, Halt};
 use crate::error::Fault;
+use crate::error::Operand;
 use crate::host::{host_step, HostStep, NO_HOST};
 use crate::image::{CaseInfo, INode, Id, Image, TagId, Tags, NONE};
-use crate::prim::{delta_polled, fuel_units, Stopped};
-use crate::error::Operand;
 use crate::prim::PrimValue;
+use crate::prim::{delta_polled, fuel_units, Stopped};
 use crate::vocabulary::{Build, Detached, DetachedRun, Machine, Paused};
-use crate::{Arena, Counts, Datum, EvalError, HostFunctions, HostId, Limits, Outcome, Prim, Program, Report, Rule, Term};
+use crate::{
+    Arena, Counts, Datum, EvalError, HostFunctions, HostId, Limits, Outcome, Prim, Program, Report,
+    Rule, Term,
+};
 
 /// The heap is collected only once it has this many bytes of nodes and
 /// lists in use, so small runs never collect.
@@ -61,11 +65,11 @@ const STRING_RATIO: usize = 2;
 ///
 /// ```
 /// use orrery::machines::stepper::Stepper;
-/// use orrery::{parse, Arena, Limits, Machine, Outcome};
+/// use orrery::{parse, Arena, Limits, Machine, Outcome, Value};
 /// let arena = Arena::new();
 /// let program = parse(&arena, "let double = \\n. n * 2 in double 21").unwrap();
-/// let report = Stepper::new().run(&program, &Limits::default(), &arena);
-/// assert_eq!(report.outcome, Outcome::Value(arena.int(42)));
+/// let report = Stepper::new().run(&program, &Limits::default());
+/// assert_eq!(report.outcome, Outcome::Value(Value::from_term(arena.int(42)).unwrap()));
 /// assert_eq!(report.counts.total(), 3); // let, beta, prim
 /// ```
 #[derive(Debug, Default)]
@@ -117,7 +121,7 @@ enum ContextFrame {
 /// let program = parse(&arena, "let fee = 3 in fee + 1").unwrap();
 /// let mut rules = Vec::new();
 /// let tracer: &mut Tracer<'_> = &mut |rule, _redex| rules.push(rule);
-/// Stepper::new().run_traced(&program, &Limits::default(), &arena, tracer);
+/// Stepper::new().run_traced(&program, &Limits::default(), tracer);
 /// assert_eq!(rules, [Rule::Let, Rule::Prim]);
 /// ```
 pub type Tracer<'t> = dyn FnMut(Rule, &Term<'_>) + 't;
@@ -407,14 +411,17 @@ impl State {
         for frame in &mut self.ctx {
             budget.work(1)?;
             match frame {
-                ContextFrame::AppFunction(t) | ContextFrame::AppArgument(t) | ContextFrame::LetBound(t) => {
+                ContextFrame::AppFunction(t)
+                | ContextFrame::AppArgument(t)
+                | ContextFrame::LetBound(t) => {
                     *t = c.forward(*t, budget)?;
                 }
                 ContextFrame::IfCondition(y, n) => {
                     *y = c.forward(*y, budget)?;
                     *n = c.forward(*n, budget)?;
                 }
-                ContextFrame::Operand { next, left, .. } | ContextFrame::Field { next, left, .. } => {
+                ContextFrame::Operand { next, left, .. }
+                | ContextFrame::Field { next, left, .. } => {
                     *next = c.list(*next, *left, budget)?;
                 }
                 ContextFrame::Scrutinee { case, bodies } => {
@@ -478,12 +485,15 @@ impl State {
                     self.focus = argument;
                     continue;
                 }
-                ContextFrame::Operand { left, .. } | ContextFrame::Field { left, .. } if left > 0 => {
+                ContextFrame::Operand { left, .. } | ContextFrame::Field { left, .. }
+                    if left > 0 =>
+                {
                     // (A collection may move the frame's list: read it after.)
                     self.push_focus(image)?;
                     let last = self.ctx.len() - 1;
                     match &mut self.ctx[last] {
-                        ContextFrame::Operand { next, left, .. } | ContextFrame::Field { next, left, .. } => {
+                        ContextFrame::Operand { next, left, .. }
+                        | ContextFrame::Field { next, left, .. } => {
                             self.focus = self.heap.list(image, *next);
                             *next += 1;
                             *left -= 1;
@@ -501,7 +511,9 @@ impl State {
                 ContextFrame::LetBound(body) => self.let_in(image, body, trace)?,
                 ContextFrame::IfCondition(yes, no) => self.if_then_else(image, yes, no, trace)?,
                 ContextFrame::Operand { op, .. } => self.prim(image, host, op, trace)?,
-                ContextFrame::Scrutinee { case, bodies } => self.case(image, case, bodies, trace)?,
+                ContextFrame::Scrutinee { case, bodies } => {
+                    self.case(image, case, bodies, trace)?
+                }
             }
             if self.heap.used() >= self.gc_at || self.due {
                 self.collect(image)?;
@@ -1163,11 +1175,7 @@ impl Stepper {
 
 /// Run `program` to its end, with a tracer if given: the report and the
 /// run's peak bytes.
-fn run_with(
-    program: &Program,
-    limits: &Limits,
-    trace: &mut Option<Trace<'_>>,
-) -> (Report, usize) {
+fn run_with(program: &Program, limits: &Limits, trace: &mut Option<Trace<'_>>) -> (Report, usize) {
     let image = program.image();
     let host = program.host();
     let mut state = State::new(image, limits);
@@ -1388,9 +1396,10 @@ impl State {
         self.jobs = Vec::new();
         self.done = Vec::new();
         // Out of fuel is no end: a paused run resumes from it.
-        End::Ended(halt.ended(self.budget.memory).unwrap_or_else(|| {
-            Ended::Fault(Fault::new("the stepper ended a run out of fuel"))
-        }))
+        End::Ended(
+            halt.ended(self.budget.memory)
+                .unwrap_or_else(|| Ended::Fault(Fault::new("the stepper ended a run out of fuel"))),
+        )
     }
 }
 

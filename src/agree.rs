@@ -13,10 +13,12 @@ use crate::vocabulary::{Outcome, Report};
 /// # Examples
 ///
 /// ```
-/// use orrery::{disagreement, Arena, Counts, Outcome, Report};
+/// use orrery::{disagreement, Arena, Counts, Outcome, Report, Value};
 /// let arena = Arena::new();
-/// let a = Report { outcome: Outcome::Value(arena.int(1)), counts: Counts::default() };
-/// let b = Report { outcome: Outcome::Value(arena.int(2)), counts: Counts::default() };
+/// let one = Value::from_term(arena.int(1)).unwrap();
+/// let two = Value::from_term(arena.int(2)).unwrap();
+/// let a = Report { outcome: Outcome::Value(one), counts: Counts::default() };
+/// let b = Report { outcome: Outcome::Value(two), counts: Counts::default() };
 /// assert!(disagreement(&a, &a).is_none());
 /// assert!(disagreement(&a, &b).is_some());
 /// ```
@@ -26,7 +28,9 @@ pub fn disagreement(a: &Report, b: &Report) -> Option<String> {
 
 /// [`disagreement`], comparing values with at most about `max_bytes` of
 /// working memory (the comparison of two large values needs a memo of the
-/// pairs of nodes it has compared).
+/// pairs of nodes it has compared). The two values are first made terms,
+/// each the size of the value (its sharing kept), which that bound does not
+/// count.
 ///
 /// # Errors
 ///
@@ -35,7 +39,7 @@ pub fn disagreement(a: &Report, b: &Report) -> Option<String> {
 /// # Examples
 ///
 /// ```
-/// use orrery::{disagreement_within, Arena, Counts, Outcome, Report};
+/// use orrery::{disagreement_within, Arena, Counts, Outcome, Report, Value};
 /// let arena = Arena::new();
 /// let mut list = arena.con("Nil", &[]);
 /// for i in 0..10_000 {
@@ -43,6 +47,7 @@ pub fn disagreement(a: &Report, b: &Report) -> Option<String> {
 /// }
 /// let copy = Arena::new();
 /// let other = copy.copy_term(list);
+/// let (list, other) = (Value::from_term(list).unwrap(), Value::from_term(other).unwrap());
 /// let a = Report { outcome: Outcome::Value(list), counts: Counts::default() };
 /// let b = Report { outcome: Outcome::Value(other), counts: Counts::default() };
 /// assert_eq!(disagreement_within(&a, &b, 1 << 24), Ok(None));

@@ -11,18 +11,20 @@ use crate::term::{Arena, Node, Term};
 /// A first-order value outside the machines: what host functions receive and
 /// return, and what a program's result converts through on its way to Rust.
 ///
-/// Constructor tags borrow for `'t`: from the program (or the output arena)
-/// when a datum is read from a value, or `'static` when Rust code makes one.
+/// Constructor tags borrow for `'t` from what the datum was read from (a
+/// [`Value`](crate::Value) by [`Value::to_datum`](crate::Value::to_datum), a
+/// term by [`Datum::from_term`], the arguments a run hands a host function),
+/// or are `'static` when Rust code makes the datum; [`Datum::into_owned`]
+/// cuts the tie.
 ///
 /// # Examples
 ///
 /// ```
-/// use orrery::{parse, Arena, Datum, Limits, MachineKind, Outcome};
-/// let arena = Arena::new();
-/// let program = parse(&arena, r#"Visit("fern", 3)"#).unwrap();
+/// use orrery::{Datum, Limits, MachineKind, Outcome, Program};
+/// let program = Program::parse(r#"Visit("fern", 3)"#).unwrap();
 /// let report = MachineKind::fastest().unwrap().run(&program, &Limits::default());
 /// let Outcome::Value(value) = report.outcome else { panic!() };
-/// let datum = Datum::from_term(value).unwrap();
+/// let datum = value.to_datum().unwrap();
 /// assert_eq!(datum, Datum::con("Visit", vec![Datum::Str("fern".into()), Datum::Int(3)]));
 /// ```
 pub enum Datum<'t> {
@@ -100,7 +102,7 @@ impl<'t> Con<'t> {
     ///
     /// ```
     /// let (tag, fields) = orrery::Con::new("Nil", vec![]).into_parts();
-    /// assert_eq!((tag, fields.len()), ("Nil", 0));
+    /// assert_eq!((tag.as_ref(), fields.len()), ("Nil", 0));
     /// ```
     pub fn into_parts(mut self) -> (Cow<'t, str>, Vec<Datum<'t>>) {
         let fields = std::mem::take(&mut self.fields);
@@ -306,10 +308,12 @@ impl<'t> Datum<'t> {
     }
 }
 
-/// The most bytes [`Datum::from_term`] and [`extract`] build (the default
-/// memory limit): beyond it a value is refused rather than unfolded (a value
-/// can share a subterm exponentially often). Each datum node counts its own
-/// size, and each string its bytes once per copy.
+/// The most bytes [`Datum::from_term`], [`extract`],
+/// [`Value::to_datum`](crate::Value::to_datum) and
+/// [`Value::extract`](crate::Value::extract) build (the default memory
+/// limit): beyond it a value is refused rather than unfolded (a value can
+/// share a subterm exponentially often). Each datum node counts its own size,
+/// and each string its bytes once per copy.
 ///
 /// # Examples
 ///
@@ -819,7 +823,9 @@ tuple!("Pair", 2, A 0, B 1);
 tuple!("Triple", 3, A 0, B 1, C 2);
 tuple!("Quad", 4, A 0, B 1, C 2, D 3);
 
-/// Convert a program's result (a value term) into a Rust type.
+/// Convert a value term (built in an arena, or a run's result as a term)
+/// into a Rust type. A run's result itself, a [`Value`](crate::Value), converts
+/// the same way with [`Value::extract`](crate::Value::extract).
 ///
 /// # Errors
 ///
@@ -834,8 +840,9 @@ tuple!("Quad", 4, A 0, B 1, C 2, D 3);
 /// let program = parse(&arena, "Cons(Pair(\"moss\", 2), Cons(Pair(\"ivy\", 5), Nil))").unwrap();
 /// let report = MachineKind::fastest().unwrap().run(&program, &Limits::default());
 /// let Outcome::Value(v) = report.outcome else { panic!() };
-/// let beds: Vec<(String, i64)> = extract(v).unwrap();
+/// let beds: Vec<(String, i64)> = extract(v.to_term(&arena)).unwrap();
 /// assert_eq!(beds, vec![("moss".to_string(), 2), ("ivy".to_string(), 5)]);
+/// assert_eq!(v.extract::<Vec<(String, i64)>>().unwrap(), beds);
 /// ```
 pub fn extract<T: FromDatum>(value: &Term<'_>) -> Result<T, ConvertError> {
     T::from_datum(&Datum::from_term(value)?)

@@ -23,7 +23,8 @@ impl PartialEq for Term<'_> {
 /// # Examples
 ///
 /// ```
-/// use orrery::{terms_equal, Arena};
+/// use orrery::toolkit::terms_equal;
+/// use orrery::Arena;
 /// let a = Arena::new();
 /// let b = Arena::new();
 /// // λx. x and λy. y are one de Bruijn term.

@@ -104,7 +104,8 @@ impl EvalError {
     /// # Examples
     ///
     /// ```
-    /// use orrery::{ErrorKind, EvalError, Operand};
+    /// use orrery::toolkit::Operand;
+    /// use orrery::{ErrorKind, EvalError};
     /// let e = EvalError::not_a_function(Operand::Int(3));
     /// assert_eq!(e.kind(), ErrorKind::NotAFunction);
     /// ```
@@ -120,7 +121,8 @@ impl EvalError {
     /// # Examples
     ///
     /// ```
-    /// use orrery::{ErrorKind, EvalError, Operand};
+    /// use orrery::toolkit::Operand;
+    /// use orrery::{ErrorKind, EvalError};
     /// let e = EvalError::not_a_boolean(Operand::Str("yes"));
     /// assert_eq!(e.kind(), ErrorKind::NotABoolean);
     /// assert_eq!(e.message(), "the condition of an if is a string");
@@ -137,7 +139,8 @@ impl EvalError {
     /// # Examples
     ///
     /// ```
-    /// use orrery::{ErrorKind, EvalError, Operand};
+    /// use orrery::toolkit::Operand;
+    /// use orrery::{ErrorKind, EvalError};
     /// let e = EvalError::no_matching_case(Operand::Con("Drizzle"));
     /// assert_eq!(e.kind(), ErrorKind::NoMatchingCase);
     /// assert!(e.message().contains("the constructor Drizzle"));
@@ -349,12 +352,13 @@ impl Fault {
 }
 
 /// What a primitive sees of one operand: machines translate their own value
-/// representation into this view before calling [`delta`](crate::delta).
+/// representation into this view before calling [`delta`](crate::toolkit::delta).
 ///
 /// # Examples
 ///
 /// ```
-/// use orrery::{delta, Operand, Prim, PrimValue};
+/// use orrery::toolkit::{delta, Operand, PrimValue};
+/// use orrery::Prim;
 /// let r = delta(Prim::Add, &[Operand::Int(2), Operand::Int(3)]);
 /// assert_eq!(r, Ok(PrimValue::Int(5)));
 /// ```
@@ -378,7 +382,7 @@ impl Operand<'_> {
     /// # Examples
     ///
     /// ```
-    /// assert_eq!(orrery::Operand::Int(3).describe(), "an integer");
+    /// assert_eq!(orrery::toolkit::Operand::Int(3).describe(), "an integer");
     /// ```
     pub fn describe(&self) -> String {
         match self {

@@ -39,21 +39,30 @@ struct Entry {
     cost: Option<Arc<CostFn>>,
 }
 
-/// A table of host functions. Build it once, then lend it to programs
-/// ([`crate::Program::with_host`], [`crate::parse_with`]); it is `Send + Sync`,
-/// so the programs can run on many threads.
+/// A table of host functions. Build it once, then give it to programs
+/// ([`crate::Program::parse_with`], [`crate::Program::with_host`],
+/// [`crate::parse_with`]): each program keeps a handle to the table (shared,
+/// not copied) and always runs with it. The table is `Send + Sync`, so the
+/// programs can run on many threads.
+///
+/// A host call belongs to the table it was made with: a program refuses a
+/// call made with another table ([`crate::ValidationError::ForeignHost`]),
+/// even one with the same functions registered the same way. Registering a
+/// function or setting a cost on a table that programs (or clones) share
+/// makes it a new table, so the programs keep the functions they were made
+/// with.
 ///
 /// # Examples
 ///
 /// ```
-/// use orrery::{parse_with, Arena, Datum, HostFunctions, Limits, MachineKind, Outcome, extract};
+/// use orrery::{parse_with, Arena, HostFunctions, Limits, MachineKind, Outcome};
 /// let mut host = HostFunctions::new();
 /// host.register("shout", |s: String| Ok::<_, String>(s.to_uppercase())).unwrap();
 /// let arena = Arena::new();
 /// let program = parse_with(&arena, r#"shout "quiet please""#, &host).unwrap();
 /// let report = MachineKind::fastest().unwrap().run(&program, &Limits::default());
 /// let Outcome::Value(v) = report.outcome else { panic!("{:?}", report.outcome) };
-/// assert_eq!(extract::<String>(v).unwrap(), "QUIET PLEASE");
+/// assert_eq!(v.extract::<String>().unwrap(), "QUIET PLEASE");
 /// ```
 #[derive(Clone, Default)]
 pub struct HostFunctions {
@@ -224,7 +233,7 @@ impl HostFunctions {
     /// }).unwrap();
     /// let program = Program::parse_with("discounted 2000", &host).unwrap();
     /// let limits = Limits::default().with_context(Tenant { discount_percent: 15 });
-    /// let report = MachineKind::fastest().unwrap().run(&program);
+    /// let report = MachineKind::fastest().unwrap().run(&program, &limits);
     /// assert_eq!(report.outcome.value().unwrap().as_int(), Some(1700));
     /// ```
     pub fn register_with_context<C, Args, F>(
@@ -474,9 +483,7 @@ impl HostFunctions {
     }
 
     fn entry_mut(&mut self, id: HostId) -> Option<&mut Entry> {
-        if self.entry(id).is_none() {
-            return None;
-        }
+        self.entry(id)?;
         let table = self.table_mut();
         let at = id.index();
         table.entries.get_mut(at)

@@ -1,6 +1,7 @@
 //! orrery is an evaluation kernel to embed: a call-by-value lambda calculus
-//! with integers, booleans, strings, constructors and `case`, held as de Bruijn
-//! terms in a bump [`Arena`], and run by machines that agree exactly on every
+//! with integers, booleans, strings, constructors and `case`, built as de
+//! Bruijn terms in a bump [`Arena`] (or parsed from text), kept as an owned,
+//! validated [`Program`], and run by machines that agree exactly on every
 //! outcome and every contraction count.
 //!
 //! # When to use it
@@ -14,20 +15,20 @@
 //! # A first example
 //!
 //! ```
-//! use orrery::{parse, Arena, Limits, MachineKind, Outcome};
+//! use orrery::{Limits, MachineKind, Program};
 //!
-//! let arena = Arena::new();
-//! let program = parse(&arena, r#"
+//! let program = Program::parse(r#"
 //!     let shipping weight = if weight <= 500 then 390 else 390 + (weight - 500) / 100 * 85 in
 //!     shipping 1240
 //! "#).expect("valid program");
 //! let machine = MachineKind::fastest().expect("a machine is enabled");
 //! let report = machine.run(&program, &Limits::default().with_fuel(1_000));
-//! assert_eq!(report.outcome, Outcome::Value(crate::Value::from_term(arena.int(390 + 7 * 85)).unwrap()));
+//! assert_eq!(report.outcome.value().and_then(|v| v.as_int()), Some(390 + 7 * 85));
 //! ```
 //!
 //! Terms can be built without text: by index with [`Arena`]'s constructors,
-//! or with names through a [`Scope`]. [`Program::new`] checks them.
+//! or with names through a [`Scope`]. [`Program::new`] checks them and keeps
+//! what it needs, so the arena can go. A run's value is an owned [`Value`].
 //!
 //! # The machines
 //!
@@ -59,11 +60,14 @@
 //! them like built-ins ([`parse_with`], or [`HostFunctions::call_term`] in
 //! the builder API) once [`Program::with_host`] has checked them. Their
 //! arguments and results cross as [`Datum`]s, converted to and from Rust types
-//! by [`FromDatum`] and [`IntoDatum`]; [`extract`] converts a program's
-//! result.
+//! by [`FromDatum`] and [`IntoDatum`]; [`Value::extract`] converts a run's
+//! result. A call belongs to the table it was made with: another table,
+//! however alike, refuses the program. Host functions may read a per-run
+//! context passed in the limits ([`Limits::with_context`],
+//! [`HostFunctions::register_with_context`]).
 //!
 //! ```
-//! use orrery::{extract, parse_with, Arena, HostFunctions, Limits, MachineKind, Outcome};
+//! use orrery::{parse_with, Arena, HostFunctions, Limits, MachineKind, Outcome};
 //!
 //! let mut host = HostFunctions::new();
 //! host.register("kiln_minutes", |kg: i64, glaze: bool| {
@@ -73,7 +77,7 @@
 //! let program = parse_with(&arena, "Pair(kiln_minutes 4 true, kiln_minutes 4 false)", &host).unwrap();
 //! let machine = MachineKind::fastest().unwrap();
 //! let Outcome::Value(v) = machine.run(&program, &Limits::default()).outcome else { panic!() };
-//! assert_eq!(extract::<(i64, i64)>(v).unwrap(), (66, 54));
+//! assert_eq!(v.extract::<(i64, i64)>().unwrap(), (66, 54));
 //! ```
 //!
 //! A host function's `Err` or panic is the `host_error` evaluation error. A
@@ -83,14 +87,19 @@
 //!
 //! # Compile once, run many; pause and resume
 //!
-//! A [`Program`] is `Copy + Send + Sync`: parse it once and run it on many
-//! threads, each run with its own [`Limits`]; each machine value keeps its
-//! scratch space for the next run. A program that evaluates to a function (a
-//! configuration, a rule set) is called per request with
-//! [`Program::application`]. The stepper ([`machines::stepper::Stepper::start`])
-//! and the CEK machine (`machines::cek::Cek::start`) return runs that pause
-//! when their fuel runs out and resume with more, ending exactly as an
-//! uninterrupted run; the env machine cannot pause.
+//! A [`Program`] is `Clone + Send + Sync + 'static`, and a clone is one
+//! reference count: keep it in a `static` or an `Arc`, run it on many
+//! threads, each run with its own [`Limits`]. Each machine prepares a
+//! program once (env compiles it on first use) and every run and thread
+//! shares that. A program that evaluates to a function (a configuration, a
+//! rule set) becomes a program of its own with [`Program::from_value`], and
+//! each request applies it to data with [`Program::apply`], which checks
+//! only the data. Machines are `Send`; [`Machine::start`] gives a run that
+//! pauses when its fuel runs out (the stepper and cek; env cannot pause) and
+//! resumes with more, ending exactly as an uninterrupted run, and
+//! [`Paused::detach`] turns it into a `Send` [`Detached`] to move it to
+//! another thread. The open-term toolkit (shift, substitution, equality,
+//! the δ-rules) is [`toolkit`], apart from this embedding API.
 //!
 //! # Untrusted code
 //!

@@ -217,7 +217,8 @@ impl HostId {
 /// # Examples
 ///
 /// ```
-/// use orrery::{delta, Operand, Prim, PrimValue};
+/// use orrery::toolkit::{delta, Operand, PrimValue};
+/// use orrery::Prim;
 /// let r = delta(Prim::Decimal, &[Operand::Int(-12)]);
 /// assert_eq!(r, Ok(PrimValue::Str("-12".to_string())));
 /// ```
@@ -242,7 +243,8 @@ pub enum PrimValue {
 /// # Examples
 ///
 /// ```
-/// use orrery::{delta, ErrorKind, Operand, Prim, PrimValue};
+/// use orrery::toolkit::{delta, Operand, PrimValue};
+/// use orrery::{ErrorKind, Prim};
 /// // Truncation toward zero (ISO C99 §6.5.5).
 /// assert_eq!(delta(Prim::Div, &[Operand::Int(-7), Operand::Int(2)]), Ok(PrimValue::Int(-3)));
 /// let e = delta(Prim::Div, &[Operand::Int(1), Operand::Int(0)]).unwrap_err();
@@ -345,7 +347,8 @@ pub const STRING_UNIT: usize = 1024;
 /// # Examples
 ///
 /// ```
-/// use orrery::{fuel_units, Operand, Prim};
+/// use orrery::toolkit::{fuel_units, Operand};
+/// use orrery::Prim;
 /// let long = "x".repeat(5000);
 /// assert_eq!(fuel_units(Prim::Concat, &[Operand::Str(&long), Operand::Str("yz")]), 1 + 5002 / 1024);
 /// assert_eq!(fuel_units(Prim::Lt, &[Operand::Str(&long), Operand::Str("yz")]), 1);

@@ -12,7 +12,8 @@ use crate::term::{node_with_children, Arena, Node, Term};
 /// # Examples
 ///
 /// ```
-/// use orrery::{shift, Arena, IndexOutOfRange};
+/// use orrery::toolkit::{shift, IndexOutOfRange};
+/// use orrery::Arena;
 /// let arena = Arena::new();
 /// assert_eq!(shift(&arena, arena.var(u32::MAX), 1, 0), Err(IndexOutOfRange));
 /// assert_eq!(shift(&arena, arena.var(0), -1, 0), Err(IndexOutOfRange));
@@ -32,7 +33,8 @@ pub struct IndexOutOfRange;
 /// # Examples
 ///
 /// ```
-/// use orrery::{shift, Arena};
+/// use orrery::toolkit::shift;
+/// use orrery::Arena;
 /// let arena = Arena::new();
 /// // Pierce, TAPL, exercise 6.2.2(1): ↑²(λ.λ. 1 (0 2)) = λ.λ. 1 (0 4).
 /// let t = arena.lam(arena.lam(arena.app(arena.var(1), arena.app(arena.var(0), arena.var(2)))));
@@ -69,7 +71,8 @@ pub fn shift<'a>(
 /// # Examples
 ///
 /// ```
-/// use orrery::{subst, Arena};
+/// use orrery::toolkit::subst;
+/// use orrery::Arena;
 /// let arena = Arena::new();
 /// // Pierce, TAPL, exercise 6.2.5(1), context a, b: [0 ↦ 1](0 (λ.λ. 2)) = 1 (λ.λ. 3).
 /// let t = arena.app(arena.var(0), arena.lam(arena.lam(arena.var(2))));
@@ -106,7 +109,8 @@ pub fn subst<'a>(
 /// # Examples
 ///
 /// ```
-/// use orrery::{instantiate, Arena};
+/// use orrery::toolkit::instantiate;
+/// use orrery::Arena;
 /// let arena = Arena::new();
 /// // Pierce, TAPL §6.3: (λ. 1 0 2) applied to v, in a context with two free
 /// // variables, gives ↑⁻¹([0 ↦ ↑¹ v] (1 0 2)) = 0 v 1.

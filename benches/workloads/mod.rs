@@ -10,7 +10,7 @@ use std::rc::Rc;
 
 use criterion::measurement::WallTime;
 use criterion::{black_box, Bencher, BenchmarkGroup, BenchmarkId, Criterion, SamplingMode};
-use orrery::{parse, Arena, Limits, Machine, MachineKind, Outcome, Program};
+use orrery::{Limits, Machine, MachineKind, Outcome, Program};
 
 /// Naive doubly recursive Fibonacci: call-heavy, two calls per call.
 pub const FIB: &str = "let rec fib n = if n < 2 then n else fib (n - 1) + fib (n - 2) in fib ";
@@ -257,10 +257,33 @@ pub fn unlimited() -> Limits {
     Limits::default().with_fuel(u64::MAX)
 }
 
+/// A parcel-locker fee schedule of `rules` rules, each a size class with
+/// its fee, tried in order; a request is a parcel's size class. The rule
+/// set evaluates to the schedule, a function made of one closure per rule,
+/// each falling through to the next: the way an embedder's compiler lowers
+/// an ordered rule list. A request for class 0 touches the first rule.
+pub fn locker_schedule(rules: usize) -> String {
+    let mut chain = String::from("\\size. 0");
+    for class in (0..rules).rev() {
+        chain = format!("rule {class} {} ({chain})", 150 + 5 * class);
+    }
+    format!("let rule = \\class fee next size. if size == class then fee else next size in {chain}")
+}
+
+/// The fee [`locker_schedule`] charges for a parcel of `class`, in plain
+/// Rust (a class past the schedule is free).
+pub fn locker_fee(rules: usize, class: i64) -> i64 {
+    if (0..rules as i64).contains(&class) {
+        150 + 5 * class
+    } else {
+        0
+    }
+}
+
 /// Parse a workload's source; a benchmark program that does not parse is a
 /// broken benchmark.
-pub fn program<'a>(arena: &'a Arena, source: &str) -> Program {
-    parse(arena, source).unwrap_or_else(|e| panic!("benchmark program: {e}"))
+pub fn program(source: &str) -> Program {
+    Program::parse(source).unwrap_or_else(|e| panic!("benchmark program: {e}"))
 }
 
 /// Run `program` once outside any timing, check that it gives the value the

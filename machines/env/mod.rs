@@ -10,8 +10,10 @@
 //! | `compile.rs` | the program image to code: variables resolved to frame slots and captured values, each function compiled once |
 //! | `run.rs` | the interpreter: value, task and caller stacks, calls and partial applications, the memory checks |
 //!
-//! Each run compiles the program's image once, in time and space linear in
-//! the image, from the image's analysis of functions and free variables.
+//! A program's image is compiled once, by the first env run of it, in time
+//! and space linear in the image, from the image's analysis of functions and
+//! free variables; the code is kept with the program and shared by every
+//! later run of it, of its applications, and on every thread.
 //! A function's frame holds self (of a `μλ`), its parameters, then its
 //! `let`-bound values and case fields; its closure captures exactly its free
 //! variables, gathered by one range copy per capture run. A call in tail
@@ -36,10 +38,11 @@
 //! **Limits.** Fuel and cancellation go through the run's budget; the
 //! compiler polls cancellation per node. The compiler and the interpreter
 //! grow every vector only within the memory limit (checked when a push
-//! would reallocate), which counts the code, the stacks by capacity,
-//! the live cells and the read-back; near the limit a stack grows
-//! by an eighth rather than doubling. The env machine does not pause: out of
-//! fuel ends the run.
+//! would reallocate), which counts the code while it is being compiled, the
+//! compiler's work lists, the stacks by capacity, the live cells and the
+//! read-back (the image and the finished code are the program's); near the
+//! limit a stack grows by an eighth rather than doubling. The env machine
+//! does not pause: out of fuel ends the run.
 
 mod compile;
 mod run;
@@ -54,22 +57,22 @@ use crate::vocabulary::{Build, Machine};
 use crate::{Counts, Limits, Outcome, Program, Report};
 
 /// The environment-based evaluator. Holds no program state between runs:
-/// it keeps its emptied stacks and code vectors for the next run (so a small
-/// program run many times allocates little) and records the peak memory of
-/// its last run. It cannot pause: a run out of fuel is over.
+/// it keeps its emptied stacks and the compiler's work lists for the next
+/// run (so a small program run many times allocates little) and records the
+/// peak memory of its last run. It cannot pause: a run out of fuel is over.
 ///
 /// # Examples
 ///
 /// ```
 /// use orrery::machines::env::Env;
-/// use orrery::{Arena, Limits, Machine, Outcome, Prim, Program};
+/// use orrery::{Arena, Limits, Machine, Outcome, Prim, Program, Value};
 /// let arena = Arena::new();
 /// // let add = λx. λy. x + y in add 40 2
 /// let add = arena.lam(arena.lam(arena.prim(Prim::Add, &[arena.var(1), arena.var(0)])));
 /// let call = arena.app(arena.app(arena.var(0), arena.int(40)), arena.int(2));
 /// let program = Program::new(arena.let_in(add, call)).unwrap();
 /// let report = Env::new().run(&program, &Limits::default());
-/// assert_eq!(report.outcome, Outcome::Value(crate::Value::from_term(arena.int(42)).unwrap()));
+/// assert_eq!(report.outcome, Outcome::Value(Value::from_term(arena.int(42)).unwrap()));
 /// assert_eq!(report.counts.total(), 4); // let, beta, beta, prim
 /// ```
 #[derive(Debug)]
@@ -91,7 +94,7 @@ impl Default for Env {
     }
 }
 
-/// What a run leaves for the next: emptied stacks and code vectors.
+/// What a run leaves for the next: emptied stacks and compiler work lists.
 #[derive(Debug, Default)]
 struct Scratch {
     stacks: Stacks,
@@ -241,7 +244,10 @@ mod tests {
         // Read back, the closure has x₀ substituted.
         let report = Env::new().run(&program, &Limits::default());
         let expected = arena.lam(arena.prim(Prim::Add, &[arena.var(0), arena.int(0)]));
-        assert_eq!(report.outcome, Outcome::Value(crate::Value::from_term(expected).unwrap()));
+        assert_eq!(
+            report.outcome,
+            Outcome::Value(crate::Value::from_term(expected).unwrap())
+        );
         assert_eq!(report.counts.get(Rule::Let), 64);
     }
 
@@ -266,7 +272,10 @@ mod tests {
             .count();
         assert_eq!(spines, 2);
         let report = Env::new().run(&program, &Limits::default());
-        assert_eq!(report.outcome, Outcome::Value(crate::Value::from_term(arena.int(6 + 27)).unwrap()));
+        assert_eq!(
+            report.outcome,
+            Outcome::Value(crate::Value::from_term(arena.int(6 + 27)).unwrap())
+        );
     }
 
     #[test]
@@ -377,7 +386,10 @@ mod tests {
         let source = format!("(\\x. case {nested} of {{ _ => 0 }}) 1");
         let program = parse(&arena, &source).unwrap();
         let report = env.run(&program, &Limits::default());
-        assert_eq!(report.outcome, Outcome::Value(crate::Value::from_term(arena.int(0)).unwrap()));
+        assert_eq!(
+            report.outcome,
+            Outcome::Value(crate::Value::from_term(arena.int(0)).unwrap())
+        );
         assert_eq!(report.counts.total(), 2);
         // The program keeps its compiled code, so a second run's peak is the
         // run's alone.
@@ -417,7 +429,10 @@ mod tests {
         let report = env.run(&program, &limits.clone().with_fuel(0));
         assert_eq!(report.outcome, Outcome::OutOfFuel);
         let report = env.run(&program, &limits);
-        assert_eq!(report.outcome, Outcome::Value(crate::Value::from_term(arena.int(4_000 * 4_001 / 2)).unwrap()));
+        assert_eq!(
+            report.outcome,
+            Outcome::Value(crate::Value::from_term(arena.int(4_000 * 4_001 / 2)).unwrap())
+        );
         assert_eq!(report.counts.get(Rule::Beta), 4_000);
     }
 
@@ -470,5 +485,4 @@ mod tests {
         assert!(matches!(&report.outcome, Outcome::Value(v) if *v == want));
         assert_eq!(report.counts.to_array(), [4, 0, 2, 0, 4, 0]);
     }
-
 }

@@ -158,10 +158,10 @@ pub(super) struct Interpreter<'c, 'h, const METERED: bool> {
 }
 
 impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
-    /// Run `code` to its value and read it back into `out`, with the stacks
-    /// of `stacks` (emptied and kept again afterwards). The run holds
-    /// `fixed` bytes of compiled code besides its own (the image is the
-    /// caller's and not counted).
+    /// Run `code` to its value and read it back as an owned value, with the
+    /// stacks of `stacks` (emptied and kept again afterwards). The run holds
+    /// `fixed` bytes besides its own (the compiler's work lists; the image
+    /// and the compiled code are the program's and not counted).
     pub(super) fn evaluate(
         code: &'c Compiled,
         image: &'c Image,
@@ -233,7 +233,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
         Ok(())
     }
 
-    /// Bytes held now: image and code, stacks by capacity, live cells and
+    /// Bytes held now: the fixed bytes, stacks by capacity, live cells and
     /// made-up tags.
     #[inline]
     fn held(&self) -> usize {

@@ -9,7 +9,7 @@ use super::*;
 use crate::budget::POLL_WORK;
 use crate::{parse, parse_with, print, Cancel, Datum, LimitKind};
 
-fn program<'a>(arena: &'a Arena, source: &str) -> Program {
+fn program(arena: &Arena, source: &str) -> Program {
     parse(arena, source).expect("the test programs parse")
 }
 

@@ -297,6 +297,8 @@ pub struct Printed {
 ///
 /// Names are resolved to de Bruijn indices as they are read, so the program is
 /// closed by construction; constructor arities and case arms are checked too.
+/// The term is built in `arena` on the way; the program owns everything it
+/// needs and does not borrow the arena ([`Program::parse`] needs none).
 ///
 /// # Errors
 ///
@@ -469,7 +471,7 @@ pub fn print_limited(term: &Term<'_>, max_bytes: usize) -> Printed {
 /// host.register("shade", |hour: i64| Ok::<_, String>(hour > 11)).unwrap();
 /// let arena = Arena::new();
 /// let program = parse_with(&arena, "\\h. shade (h + 1)", &host).unwrap();
-/// assert_eq!(print_with(program.term(), &host), "\\a. shade (a + 1)");
+/// assert_eq!(print_with(program.to_term(&arena), &host), "\\a. shade (a + 1)");
 /// ```
 pub fn print_with(term: &Term<'_>, host: &HostFunctions) -> String {
     print_limited_with(term, PRINT_LIMIT, host).text

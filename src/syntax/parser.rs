@@ -236,7 +236,14 @@ pub(super) struct Parser<'s, 'a> {
     arm_tags: HashSet<(u32, &'a str)>,
     tags: HashMap<&'s str, TagUse<'a>>,
     scope: Bindings<'s>,
+    /// Each name found unbound, once, with where it was first used; the
+    /// parse goes on past them so that all are reported together.
+    unbound: Vec<(&'s str, usize)>,
+    unbound_seen: HashSet<&'s str>,
 }
+
+/// At most this many unbound names are named in the error's message.
+const UNBOUND_SHOWN: usize = 32;
 
 fn expected(what: &str, token: &Token<'_>) -> Failure {
     let message = match token.tok {
@@ -295,11 +302,28 @@ impl<'s, 'a> Parser<'s, 'a> {
             arm_tags: HashSet::new(),
             tags: HashMap::new(),
             scope: Bindings::default(),
+            unbound: Vec::new(),
+            unbound_seen: HashSet::new(),
         }
     }
 
     /// Parse the whole source as one term.
+    /// The whole source as one term. Unbound names are collected as the
+    /// parse goes; the error is the one that comes first in the source: an
+    /// unbound name (naming every unbound name found), or the malformed
+    /// syntax that stopped the parse.
     pub(super) fn parse(mut self) -> Parsed<&'a Term<'a>> {
+        let parsed = self.parse_all();
+        match self.unbound.first() {
+            Some(&(_, at)) => match parsed {
+                Err(failure) if failure.offset < at => Err(failure),
+                _ => Err(Failure::new(at, self.unbound_message())),
+            },
+            _ => parsed,
+        }
+    }
+
+    fn parse_all(&mut self) -> Parsed<&'a Term<'a>> {
         self.advance()?;
         self.push_frame(Kind::Top);
         loop {
@@ -526,6 +550,29 @@ impl<'s, 'a> Parser<'s, 'a> {
         }
     }
 
+    /// The message for the unbound names found: `unbound name `x`` for one;
+    /// for more, each with its line and column, the first
+    /// [`UNBOUND_SHOWN`] of them.
+    fn unbound_message(&self) -> String {
+        match self.unbound.as_slice() {
+            [(name, _)] => format!("unbound name `{name}`"),
+            all => {
+                let shown: Vec<String> = all
+                    .iter()
+                    .take(UNBOUND_SHOWN)
+                    .map(|&(name, at)| format!("`{name}` ({})", place(self.text, at)))
+                    .collect();
+                let more = all.len().saturating_sub(UNBOUND_SHOWN);
+                let tail = if more > 0 {
+                    format!(" and {more} more")
+                } else {
+                    String::new()
+                };
+                format!("{} unbound names: {}{tail}", all.len(), shown.join(", "))
+            }
+        }
+    }
+
     fn push_prefix(&mut self, kind: OpKind, at: usize) {
         self.operators.push(Operator {
             kind,
@@ -540,7 +587,12 @@ impl<'s, 'a> Parser<'s, 'a> {
             return self.deliver(self.arena.var(index));
         }
         let Some(function) = self.functions.lookup(name) else {
-            return Err(Failure::new(at, format!("unbound name `{name}`")));
+            // Noted, and parsed on as an integer, so that every unbound
+            // name is found in one parse.
+            if self.unbound_seen.insert(name) {
+                self.unbound.push((name, at));
+            }
+            return self.deliver(self.arena.int(0));
         };
         if function.arity == 0 {
             return self.deliver(self.arena.prim(function.prim, &[]));

@@ -497,3 +497,37 @@ fn every_fuel_bound_agrees_with_costed_host_calls_in_a_loop() {
     }
     h.finish();
 }
+
+/// What a server needs to hold and move, checked by the compiler: programs
+/// and values in shared state, machines and detached runs across threads.
+#[test]
+fn the_embedding_types_are_send_and_sync_where_servers_need_them() {
+    fn shared<T: Clone + Send + Sync + 'static>() {}
+    fn movable<T: Send + 'static>() {}
+    shared::<orrery::Program>();
+    shared::<orrery::Value>();
+    shared::<orrery::HostFunctions>();
+    shared::<orrery::Limits>();
+    shared::<orrery::Report>();
+    shared::<orrery::Datum<'static>>();
+    movable::<Box<dyn orrery::Machine>>();
+    movable::<orrery::Detached>();
+    // A program in a `static`, built on first use and run from any thread.
+    static RULES: std::sync::OnceLock<Program> = std::sync::OnceLock::new();
+    let rules = RULES.get_or_init(|| Program::parse("\\crates. crates * 12 + 5").unwrap());
+    let answers: Vec<Option<i64>> = std::thread::scope(|scope| {
+        let handles: Vec<_> = (1..=3i64)
+            .map(|n| {
+                scope.spawn(move || {
+                    let request = rules.apply(&[Datum::Int(n)]).unwrap();
+                    let report = MachineKind::fastest()?.run(&request, &Limits::default());
+                    report.outcome.value().and_then(|v| v.as_int())
+                })
+            })
+            .collect();
+        handles.into_iter().map(|h| h.join().unwrap()).collect()
+    });
+    if MachineKind::fastest().is_some() {
+        assert_eq!(answers, [Some(17), Some(29), Some(41)]);
+    }
+}

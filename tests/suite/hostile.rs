@@ -96,7 +96,7 @@ fn run_deep(
 }
 
 /// Parse `source` and run it on every machine through `h`.
-fn parse_and_run<'a>(h: &mut Harness, arena: &'a Arena, source: &str, limits: &Limits) -> Runs {
+fn parse_and_run(h: &mut Harness, arena: &Arena, source: &str, limits: &Limits) -> Runs {
     let program = parse(arena, source).unwrap_or_else(|e| panic!("{e}"));
     h.run(source, &program, limits)
 }

@@ -1276,3 +1276,28 @@ proptest! {
         }
     }
 }
+
+#[test]
+fn every_unbound_name_is_reported_once_with_where_it_is_first_used() {
+    let arena = Arena::new();
+    let source = "let fee = rate 3 in\n  fee + surcharge (rate 4) + levy";
+    let err = parse(&arena, source).unwrap_err();
+    assert_eq!((err.line, err.column), (1, 11));
+    assert_eq!(
+        err.message,
+        "3 unbound names: `rate` (1:11), `surcharge` (2:9), `levy` (2:30)"
+    );
+    // One name alone keeps the short message.
+    let err = parse(&arena, "1 + levy").unwrap_err();
+    assert_eq!(err.to_string(), "1:5: unbound name `levy`");
+    // Thousands of them: the message names the first few and counts the rest.
+    let many: String = (0..5_000).map(|i| format!("n{i} + ")).collect::<String>() + "0";
+    let err = parse(&arena, &many).unwrap_err();
+    assert!(
+        err.message
+            .starts_with("5000 unbound names: `n0` (1:1), `n1` (1:6)"),
+        "{}",
+        err.message
+    );
+    assert!(err.message.ends_with("and 4968 more"), "{}", err.message);
+}
