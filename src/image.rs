@@ -185,6 +185,10 @@ pub(crate) struct Image {
 
 const VALUE_BIT: u32 = 1 << 31;
 
+/// A store of at most this many tags finds them by a scan and keeps no map
+/// (a run's result usually has one or two).
+pub(crate) const FEW_TAGS: usize = 8;
+
 impl Image {
     /// The node `id`.
     #[inline(always)]
@@ -246,6 +250,14 @@ impl Image {
 
     /// The id of tag `name`, if the program uses it.
     pub(crate) fn tag_id(&self, name: &str) -> Option<TagId> {
+        if self.tag_ids.is_empty() && self.tags.len() <= FEW_TAGS {
+            // A store of a few tags (see `Image::tag_of`) keeps no map.
+            return self
+                .tags
+                .iter()
+                .position(|t| &**t == name)
+                .map(|k| k as TagId);
+        }
         self.tag_ids.get(name).copied()
     }
 
@@ -677,6 +689,16 @@ impl Tags {
     /// Bytes this table holds.
     pub(crate) fn bytes(&self) -> usize {
         self.extra.iter().map(|t| 2 * t.len() + 96).sum()
+    }
+
+    /// The name of `tag`, as the `Arc` the image or this table holds.
+    pub(crate) fn shared_name<'i>(&'i self, image: &'i Image, tag: TagId) -> Option<&'i Arc<str>> {
+        let own = image.tags.len() as u32;
+        if tag < own {
+            image.tags.get(tag as usize)
+        } else {
+            self.extra.get((tag - own) as usize)
+        }
     }
 
     /// The name of `tag`.

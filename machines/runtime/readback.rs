@@ -11,11 +11,12 @@
 use std::rc::Rc;
 
 use hashbrown::HashMap;
+use smallvec::SmallVec;
 
 use super::value::{Code, Value};
 use crate::budget::{Budget, Halt};
 use crate::host::HostFunctions;
-use crate::image::{children, INode, Id, Image, TagId, Tags, NONE};
+use crate::image::{children, INode, Id, Image, TagId, Tags, FEW_TAGS, NONE};
 
 /// Bytes a memo entry costs the read-back's accounting (key, value, control
 /// byte and the table's spare room).
@@ -44,6 +45,7 @@ pub(crate) fn read_back<C: Code>(
         held,
         cells: HashMap::new(),
         closed: HashMap::new(),
+        few_tags: SmallVec::new(),
         tag_ids: HashMap::new(),
     };
     let root = r.value(root, budget)?;
@@ -67,7 +69,10 @@ struct ValueReader<'i> {
     cells: HashMap<*const (), Id>,
     /// Nodes of the program's closed subterms, by node.
     closed: HashMap<Id, Id>,
-    /// The store's ids of the run's tags.
+    /// The store's ids of the run's tags: the first few as pairs (a value
+    /// usually has one or two tags, and a map would cost more than the
+    /// scan), the rest in a map.
+    few_tags: SmallVec<[(TagId, TagId); FEW_TAGS]>,
     tag_ids: HashMap<TagId, TagId>,
 }
 
@@ -79,7 +84,8 @@ impl ValueReader<'_> {
         budget.work(1)?;
         let built = self.store.building_bytes()
             + self.strings
-            + (self.cells.len() + self.closed.len() + self.tag_ids.len()) * MEMO_ENTRY;
+            + (self.cells.len() + self.closed.len() + self.few_tags.len() + self.tag_ids.len())
+                * MEMO_ENTRY;
         budget.check_memory(self.held.saturating_add(built))
     }
 
@@ -92,17 +98,29 @@ impl ValueReader<'_> {
 
     /// The store's id of run tag `tag`.
     fn tag(&mut self, tag: TagId) -> TagId {
+        if let Some(&(_, t)) = self.few_tags.iter().find(|(run, _)| *run == tag) {
+            return t;
+        }
         if let Some(&t) = self.tag_ids.get(&tag) {
             return t;
         }
-        let t = self.store.tag_of(self.tags.name(self.image, tag));
-        self.tag_ids.insert(tag, t);
+        let t = match self.tags.shared_name(self.image, tag) {
+            Some(name) => self.store.tag_of_shared(name),
+            None => self.store.tag_of("?"),
+        };
+        if self.few_tags.len() < FEW_TAGS {
+            self.few_tags.push((tag, t));
+        } else {
+            self.tag_ids.insert(tag, t);
+        }
         t
     }
 
     fn value<C: Code>(&mut self, root: &Value<C>, budget: &mut Budget) -> Result<Id, Halt> {
-        let mut jobs: Vec<ValueJob<'_, C>> = vec![ValueJob::Visit(root)];
-        let mut done: Vec<Id> = Vec::new();
+        // Small values (the usual result) are read without allocating work
+        // lists.
+        let mut jobs: SmallVec<[ValueJob<'_, C>; 16]> = smallvec::smallvec![ValueJob::Visit(root)];
+        let mut done: SmallVec<[Id; 16]> = SmallVec::new();
         while let Some(job) = jobs.pop() {
             match job {
                 ValueJob::Visit(value) => {
@@ -142,7 +160,9 @@ impl ValueReader<'_> {
                         }
                     }
                     jobs.push(ValueJob::Build(value));
-                    jobs.extend(children.iter().rev().map(ValueJob::Visit));
+                    for child in children.iter().rev() {
+                        jobs.push(ValueJob::Visit(child));
+                    }
                 }
                 ValueJob::Build(value) => {
                     self.spend(budget)?;

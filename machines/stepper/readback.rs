@@ -15,7 +15,7 @@ use super::{ContextFrame, State, Trace};
 use crate::budget::{Budget, Halt};
 use crate::datum::{Builder, NotData, DATUM_NODE_BYTES};
 use crate::host::HostFunctions;
-use crate::image::{INode, Id, Image, TagId, Tags, NONE};
+use crate::image::{INode, Id, Image, TagId, Tags, FEW_TAGS, NONE};
 use crate::term::{Arena, Term};
 use crate::Datum;
 use crate::{Outcome, Rule};
@@ -50,7 +50,9 @@ pub(super) struct StoreReader {
     /// Bytes the run holds besides what the reader builds.
     held: usize,
     memo: HashMap<Id, Id>,
-    /// The store's ids of the run's tags.
+    /// The store's ids of the run's tags: the first few as pairs, the rest
+    /// in a map.
+    few_tags: smallvec::SmallVec<[(TagId, TagId); FEW_TAGS]>,
     tags: HashMap<TagId, TagId>,
     jobs: Vec<ReadJob>,
     done: Vec<Id>,
@@ -63,6 +65,7 @@ impl StoreReader {
             store: Image::default(),
             held,
             memo: HashMap::new(),
+            few_tags: smallvec::SmallVec::new(),
             tags: HashMap::new(),
             jobs: Vec::new(),
             done: Vec::new(),
@@ -72,7 +75,7 @@ impl StoreReader {
     /// Bytes the reader holds.
     fn bytes(&self) -> usize {
         self.store.building_bytes()
-            + (self.memo.len() + self.tags.len()) * MEMO_ENTRY
+            + (self.memo.len() + self.few_tags.len() + self.tags.len()) * MEMO_ENTRY
             + self.jobs.capacity() * std::mem::size_of::<ReadJob>()
             + self.done.capacity() * std::mem::size_of::<Id>()
     }
@@ -87,11 +90,21 @@ impl StoreReader {
 
     /// The store's id of run tag `tag`.
     fn tag(&mut self, view: View<'_>, tag: TagId) -> TagId {
+        if let Some(&(_, t)) = self.few_tags.iter().find(|(run, _)| *run == tag) {
+            return t;
+        }
         if let Some(&t) = self.tags.get(&tag) {
             return t;
         }
-        let t = self.store.tag_of(view.tags.name(view.image, tag));
-        self.tags.insert(tag, t);
+        let t = match view.tags.shared_name(view.image, tag) {
+            Some(name) => self.store.tag_of_shared(name),
+            None => self.store.tag_of("?"),
+        };
+        if self.few_tags.len() < FEW_TAGS {
+            self.few_tags.push((tag, t));
+        } else {
+            self.tags.insert(tag, t);
+        }
         t
     }
 
@@ -133,11 +146,10 @@ impl StoreReader {
                             self.store.push_bool(b)
                         }
                         INode::Str(i) => {
-                            // Shared by handle, never copied.
+                            // Shared by handle, never copied (so not
+                            // worth a memo entry either).
                             self.spend(budget)?;
-                            let t = self.store.push_shared_string(heap.shared_string(image, id, i));
-                            self.memo.insert(id, t);
-                            t
+                            self.store.push_shared_string(heap.shared_string(image, id, i))
                         }
                         _ => {
                             self.jobs.push(ReadJob::Build(id));

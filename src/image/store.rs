@@ -6,6 +6,8 @@
 
 use hashbrown::HashMap;
 
+use super::FEW_TAGS;
+
 use super::{ArmInfo, CaseInfo, INode, Id, Image, TagId, LOCAL, NONE};
 use crate::prim::Prim;
 use crate::term::{Arena, Arm, Term};
@@ -15,14 +17,39 @@ impl Image {
     /// value may hold one tag with two arities, as a host function can make
     /// it; only programs insist on one).
     pub(crate) fn tag_of(&mut self, name: &str) -> TagId {
-        if let Some(&id) = self.tag_ids.get(name) {
-            return id;
+        match self.tag_id(name) {
+            Some(id) => id,
+            None => self.add_tag(std::sync::Arc::from(name)),
         }
+    }
+
+    /// [`Image::tag_of`] for a tag held in an `Arc` already (a program's or
+    /// a run's), which the store then shares rather than copies.
+    pub(crate) fn tag_of_shared(&mut self, name: &std::sync::Arc<str>) -> TagId {
+        match self.tag_id(name) {
+            Some(id) => id,
+            None => self.add_tag(std::sync::Arc::clone(name)),
+        }
+    }
+
+    /// Add a tag the store does not have. A store of a few tags finds them
+    /// by a scan (see [`Image::tag_id`]); past [`FEW_TAGS`] they go in the
+    /// map too, all of them at once.
+    fn add_tag(&mut self, name: std::sync::Arc<str>) -> TagId {
         let id = self.tags.len() as TagId;
-        let name: std::sync::Arc<str> = std::sync::Arc::from(name);
-        self.tags.push(std::sync::Arc::clone(&name));
-        self.tag_arity.push(NONE);
-        self.tag_ids.insert(name, id);
+        // A store's tags carry no arity: only a program's image is checked
+        // for one arity per tag.
+        self.tags.push(name);
+        if self.tags.len() > FEW_TAGS {
+            if self.tag_ids.is_empty() {
+                let all = self.tags.iter().enumerate();
+                self.tag_ids
+                    .extend(all.map(|(k, t)| (std::sync::Arc::clone(t), k as TagId)));
+            } else {
+                self.tag_ids
+                    .insert(std::sync::Arc::clone(&self.tags[id as usize]), id);
+            }
+        }
         id
     }
 

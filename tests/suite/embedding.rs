@@ -531,3 +531,46 @@ fn the_embedding_types_are_send_and_sync_where_servers_need_them() {
         assert_eq!(answers, [Some(17), Some(29), Some(41)]);
     }
 }
+
+/// A helper that owns everything it used returns owned data; a host function
+/// returns a constructor whose tag it made up at run time, which every
+/// machine hands back, reads by `case` (no arm knows it: the default), and
+/// reports in its value.
+#[test]
+fn data_and_tags_made_at_run_time_are_owned() {
+    fn crate_label(n: i64) -> Datum<'static> {
+        let program = Program::parse(&format!("Label({n}, \"bay\")")).unwrap();
+        let report = MachineKind::fastest()
+            .unwrap()
+            .run(&program, &Limits::default());
+        report
+            .outcome
+            .value()
+            .unwrap()
+            .to_datum()
+            .unwrap()
+            .into_owned()
+    }
+    if MachineKind::fastest().is_none() {
+        return;
+    }
+    assert_eq!(
+        crate_label(4),
+        Datum::con("Label", vec![Datum::Int(4), Datum::Str("bay".into())])
+    );
+    let mut host = HostFunctions::new();
+    host.register_data("shelf", 1, |args| match args {
+        [Datum::Int(n)] => Ok(Datum::con(format!("Shelf{n}"), vec![Datum::Int(n * 10)])),
+        _ => Err("a shelf number".to_string()),
+    })
+    .unwrap();
+    let mut h = Harness::new();
+    let program = Program::parse_with(
+        "Pair(shelf 3, case shelf 7 of { Shelf3(x) => x; _ => 0 - 1 })",
+        &host,
+    )
+    .unwrap();
+    let runs = h.run("made-up tags", &program, &Limits::default());
+    h.expect_ending(&runs, "value Pair(Shelf3(30), -1)");
+    h.finish();
+}
