@@ -906,10 +906,76 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
         Ok(())
     }
 
+    /// The branch a condition's value takes, or `not_a_boolean`.
+    #[inline(always)]
+    fn branch(&self, condition: Val<'c>, yes: CodeId, no: CodeId) -> Result<CodeId, Halt> {
+        match condition {
+            Value::Bool(b) => Ok(if b { yes } else { no }),
+            other => {
+                let operand = other.operand(self.image, &self.tags);
+                Err(Halt::error(EvalError::not_a_boolean(operand)))
+            }
+        }
+    }
+
+    /// Apply primitive `op` to the `arity` values on top of the stack,
+    /// leaving its result there (the integer fast path is the caller's).
+    #[inline(always)]
+    fn apply_prim(&mut self, op: Prim, arity: u32) -> Result<(), Halt> {
+        let from = self.top(arity)?;
+        let v = if let Prim::Host(id) = op {
+            self.host_call(id, from)?
+        } else {
+            let held = self.held();
+            let args = self.stack.get(from..).unwrap_or(&[]);
+            prim_contraction(op, args, self.image, &self.tags, &mut self.budget, held)?
+        };
+        cut(&mut self.stack, from);
+        self.push(v)
+    }
+
+    /// Build a constructor of `tag` from the `arity` values on top of the
+    /// stack. A constructor of values is a value: building it is free.
+    #[inline(always)]
+    fn build_con(&mut self, tag: crate::image::TagId, arity: u32) -> Result<(), Halt> {
+        let from = self.top(arity)?;
+        if arity as usize > LARGE {
+            self.before_large_cell(arity as usize)?;
+        }
+        let fields: Values<&'c Function> = self.stack.drain(from..).collect();
+        self.stack.push(Value::Con(ConCell::new(tag, fields)));
+        self.check_memory()
+    }
+
+    /// Match the value on top against case `case` (its contraction paid):
+    /// its fields bound from slot `slot` on, the body of its arm (of those
+    /// from `bodies`) or the default, or `no_matching_case`.
+    #[inline(always)]
+    fn match_case(&mut self, case: u32, bodies: u32, default: CodeId, slot: u32) -> Result<CodeId, Halt> {
+        let (code, image) = (self.code, self.image);
+        let value = self.pop()?;
+        let info = image.cases.get(case as usize).ok_or_else(broken)?;
+        if let Some((tag, fields)) = value.constructor() {
+            if let Some(k) = arm_of(image, info, tag, fields.len()) {
+                if fields.len() > LARGE {
+                    self.budget.work(fields.len() as u64)?;
+                }
+                for (i, field) in fields.iter().enumerate() {
+                    self.set_local(slot + i as u32, field.clone())?;
+                }
+                return code.bodies.get(bodies as usize + k).copied().ok_or_else(broken);
+            }
+        }
+        if default != crate::image::NONE {
+            return Ok(default);
+        }
+        let operand = value.operand(image, &self.tags);
+        Err(Halt::error(EvalError::no_matching_case(operand)))
+    }
+
     /// Evaluate the program to a value.
     fn execute(&mut self) -> Result<Val<'c>, Halt> {
         let code = self.code;
-        let image = self.image;
         let frame = code.frame as usize;
         self.reserve(frame)?;
         self.budget.work(frame as u64)?;
@@ -1005,13 +1071,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                         }
                         let condition = self.prim2(op, a, b)?;
                         self.take(Rule::If)?;
-                        match condition {
-                            Value::Bool(b) => pc = if b { yes } else { no },
-                            other => {
-                                let operand = other.operand(image, &self.tags);
-                                return Err(Halt::error(EvalError::not_a_boolean(operand)));
-                            }
-                        }
+                        pc = self.branch(condition, yes, no)?;
                     }
                     Instr::Prim1 { op, a } => {
                         let a = self.atom(a).ok_or_else(broken)?;
@@ -1041,13 +1101,13 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                         pc = condition;
                     }
                     Instr::Prim { operands: list, .. } | Instr::Con { fields: list, .. } => {
-                        // Evaluate the operands (fields) left to right, then
-                        // apply the primitive (build the constructor).
                         let then = if matches!(instr, Instr::Prim { .. }) {
                             Task::PRIM
                         } else {
                             Task::BUILD
                         };
+                        // Evaluate the operands (fields) left to right, then
+                        // apply the primitive (build the constructor).
                         let list = code.lists.get(list.range()).ok_or_else(broken)?;
                         if METERED && self.tasks.capacity() - self.tasks.len() < list.len() + 1 {
                             self.grow_tasks(list.len() + 1)?;
@@ -1137,16 +1197,9 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                     }
                     Instr::If { yes, no, .. } => {
                         self.take(Rule::If)?;
-                        match self.pop()? {
-                            Value::Bool(b) => {
-                                pc = if b { yes } else { no };
-                                continue 'eval;
-                            }
-                            other => {
-                                let operand = other.operand(image, &self.tags);
-                                return Err(Halt::error(EvalError::not_a_boolean(operand)));
-                            }
-                        }
+                        let condition = self.pop()?;
+                        pc = self.branch(condition, yes, no)?;
+                        continue 'eval;
                     }
                     Instr::Prim { op, operands } => {
                         if operands.len == 2 {
@@ -1159,27 +1212,9 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                                 continue;
                             }
                         }
-                        let from = self.top(operands.len)?;
-                        let v = if let Prim::Host(id) = op {
-                            self.host_call(id, from)?
-                        } else {
-                            let held = self.held();
-                            let args = self.stack.get(from..).unwrap_or(&[]);
-                            prim_contraction(op, args, image, &self.tags, &mut self.budget, held)?
-                        };
-                        cut(&mut self.stack, from);
-                        self.push(v)?;
+                        self.apply_prim(op, operands.len)?;
                     }
-                    Instr::Con { tag, fields } => {
-                        // A constructor of values is a value: building it is free.
-                        let from = self.top(fields.len)?;
-                        if fields.len as usize > LARGE {
-                            self.before_large_cell(fields.len as usize)?;
-                        }
-                        let fields: Values<&'c Function> = self.stack.drain(from..).collect();
-                        self.stack.push(Value::Con(ConCell::new(tag, fields)));
-                        self.check_memory()?;
-                    }
+                    Instr::Con { tag, fields } => self.build_con(tag, fields.len)?,
                     Instr::Case {
                         case,
                         bodies,
@@ -1188,26 +1223,8 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                         ..
                     } => {
                         self.take(Rule::Case)?;
-                        let value = self.pop()?;
-                        let info = image.cases.get(case as usize).ok_or_else(broken)?;
-                        if let Some((tag, fields)) = value.constructor() {
-                            if let Some(k) = arm_of(image, info, tag, fields.len()) {
-                                if fields.len() > LARGE {
-                                    self.budget.work(fields.len() as u64)?;
-                                }
-                                for (i, field) in fields.iter().enumerate() {
-                                    self.set_local(slot + i as u32, field.clone())?;
-                                }
-                                pc = *code.bodies.get(bodies as usize + k).ok_or_else(broken)?;
-                                continue 'eval;
-                            }
-                        }
-                        if default != crate::image::NONE {
-                            pc = default;
-                            continue 'eval;
-                        }
-                        let operand = value.operand(image, &self.tags);
-                        return Err(Halt::error(EvalError::no_matching_case(operand)));
+                        pc = self.match_case(case, bodies, default, slot)?;
+                        continue 'eval;
                     }
                     _ => return Err(broken()),
                 }
