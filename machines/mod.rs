@@ -131,10 +131,10 @@ impl MachineKind {
     /// the first of the table, whose order is measured. For the shape an
     /// embedder runs per request, env is fastest: in one run of
     /// `cargo bench --bench machines` (medians), `request 1000 rules` took
-    /// env 347 ns, cek 374 ns and the stepper 511 ns, and `request loop
-    /// 10^6` (a function whose body defines a loop and runs it) env 70.3 ms
-    /// and cek 161.9 ms; on the call-heavy workloads env and cek are within
-    /// 10% of each other (`benches/README.md`).
+    /// env 328 ns, cek 376 ns and the stepper 519 ns, and `request loop
+    /// 10^6` (a function whose body defines a loop and runs it) env 69 ms
+    /// and cek 161 ms; env is also fastest on every other workload there
+    /// (`benches/README.md`).
     ///
     /// # Examples
     ///
