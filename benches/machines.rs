@@ -87,8 +87,22 @@ fn parsing(c: &mut Criterion) {
 /// under test. With the program's preparation shared, a request that
 /// touches one rule costs the same whatever the size of the rule set.
 fn requests(c: &mut Criterion) {
+    request_shape(c, "", locker_schedule, Datum::Int(0));
+    let parcel = Datum::con("Parcel", vec![Datum::Int(0), Datum::Int(1)]);
+    request_shape(c, " (branches)", locker_branches, parcel.clone());
+    request_shape(c, " (table)", locker_table, parcel);
+}
+
+/// The `request N rules{shape}` groups for the schedule `source(N)`, each
+/// request `request`.
+fn request_shape(
+    c: &mut Criterion,
+    shape: &str,
+    source: fn(usize) -> String,
+    request: Datum<'static>,
+) {
     for rules in [10, 1000] {
-        let source = locker_schedule(rules);
+        let source = source(rules);
         let rule_set = program(&source);
         let setup = MachineKind::fastest()
             .expect("a machine is enabled")
@@ -98,7 +112,7 @@ fn requests(c: &mut Criterion) {
         };
         let schedule = Program::from_value(schedule).expect("a value is a valid program");
         let expected = locker_fee(rules, 0);
-        let mut group = c.benchmark_group(format!("request {rules} rules"));
+        let mut group = c.benchmark_group(format!("request {rules} rules{shape}"));
         group.sample_size(20);
         for &kind in MachineKind::enabled() {
             let mut machine = kind.machine();
@@ -106,8 +120,8 @@ fn requests(c: &mut Criterion) {
             group.bench_function(kind.name(), |b| {
                 b.iter(|| {
                     let request = schedule
-                        .apply(&[Datum::Int(black_box(0))])
-                        .expect("a size class is data");
+                        .apply(std::slice::from_ref(black_box(&request)))
+                        .expect("a request is data");
                     let report = machine.run(&request, &limits);
                     assert_eq!(
                         report.outcome.value().and_then(|v| v.as_int()),

@@ -40,7 +40,7 @@ use std::rc::Rc;
 use super::runtime::host::{from_datum, host_call};
 use super::runtime::prims::{int_prim, int_test, prim_contraction};
 use super::runtime::readback::read_back;
-use super::runtime::value::{cut, recycle, Closure, ConCell, Meter, Value, Values};
+use super::runtime::value::{cut, data_field, recycle, Closure, ConCell, Meter, Value, Values};
 use crate::budget::{growth, reserve_within, Budget, Ended, Halt};
 use crate::error::Fault;
 use crate::image::{Capture, INode, Id, Image, Tags, NONE};
@@ -1010,6 +1010,7 @@ impl CekRun {
                     }
                 }
             }
+            INode::Con(..) if image.is_data(id) => Control::Return(Value::Data(id)),
             INode::Con(tag, start, len) => match image.list(start, len).first() {
                 Some(&first) => {
                     self.push_env_frame::<M>(|env, below| ContinuationFrame::Operand {
@@ -1407,6 +1408,19 @@ impl CekRun {
                 self.locals.extend(fields.iter().cloned());
                 self.env.depth += arm.arity;
                 return Ok(Control::Eval(arm.body));
+            }
+        }
+        if let Value::Data(d) = &value {
+            if let INode::Con(tag, start, len) = image.node(*d) {
+                if let Some(arm) = image.find_arm(&info, tag, len as usize) {
+                    // The program's own data: its fields read in place.
+                    let fields = image.list(start, len);
+                    self.reserve_locals::<M>(fields.len())?;
+                    self.work::<M>(fields.len())?;
+                    self.locals.extend(fields.iter().map(|&f| data_field(image, f)));
+                    self.env.depth += arm.arity;
+                    return Ok(Control::Eval(arm.body));
+                }
             }
         }
         if info.default != NONE {

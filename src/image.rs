@@ -180,6 +180,10 @@ pub(crate) struct Image {
     pub(crate) runs: Vec<Capture>,
     /// Whether a node has more than one parent (only closed nodes do).
     shared: Vec<bool>,
+    /// Per node: whether it is closed constructor data (a constructor with
+    /// fields, all integers, booleans, strings or such data again), which
+    /// the environment machines read in place rather than build per run.
+    data: Vec<bool>,
     pub(crate) root: Id,
 }
 
@@ -200,6 +204,34 @@ impl Image {
     #[inline(always)]
     pub(crate) fn scope(&self, id: Id) -> u32 {
         self.meta[id as usize] & !VALUE_BIT
+    }
+
+    /// Whether node `id` is closed constructor data (see [`Image::data`]).
+    #[inline(always)]
+    pub(crate) fn is_data(&self, id: Id) -> bool {
+        self.data.get(id as usize).copied().unwrap_or(false)
+    }
+
+    /// Mark the closed constructor data of the image, children first.
+    pub(crate) fn mark_data(&mut self) {
+        let mut data = vec![false; self.nodes.len()];
+        for id in 0..self.nodes.len() {
+            if let INode::Con(_, start, len) = self.nodes[id] {
+                data[id] = len > 0
+                    && self
+                        .list(start, len)
+                        .iter()
+                        .all(|&f| match self.nodes[f as usize] {
+                            INode::Int(_)
+                            | INode::Bool(_)
+                            | INode::Str(_)
+                            | INode::Con(_, _, 0) => true,
+                            INode::Con(..) => data[f as usize],
+                            _ => false,
+                        });
+            }
+        }
+        self.data = data;
     }
 
     /// Whether node `id` is a value.
@@ -299,6 +331,7 @@ impl Image {
         }
         let mut image = ImageBuilder::new(host, allowed_nodes(root)).run(root)?;
         analysis::analyse(&mut image);
+        image.mark_data();
         Ok(image)
     }
 

@@ -270,6 +270,37 @@ pub fn locker_schedule(rules: usize) -> String {
     format!("let rule = \\class fee next size. if size == class then fee else next size in {chain}")
 }
 
+/// The same schedule lowered as one function whose body tests the rules in
+/// turn (`if size == 0 && kg < 10 then 150 else if …`) after matching the
+/// request: the shape of a compiler that inlines its rules.
+pub fn locker_branches(rules: usize) -> String {
+    let mut body = String::from("0");
+    for class in (0..rules).rev() {
+        body = format!(
+            "if size == {class} && kg < {} then {} else ({body})",
+            10 + class,
+            150 + 5 * class
+        );
+    }
+    format!("\\parcel. case parcel of {{ Parcel(size, kg) => {body} }}")
+}
+
+/// The same schedule held as data, a list of `Rule(class, fee)` that the
+/// function captures and searches: the shape of a compiler that keeps its
+/// rules as a table.
+pub fn locker_table(rules: usize) -> String {
+    let mut list = String::from("Nil");
+    for class in (0..rules).rev() {
+        list = format!("Cons(Rule({class}, {}), {list})", 150 + 5 * class);
+    }
+    format!(
+        "let rules = {list} in \
+         let rec first rs size = case rs of {{ Nil => 0; Cons(r, t) => \
+           case r of {{ Rule(class, fee) => if class == size then fee else first t size }} }} in \
+         \\parcel. case parcel of {{ Parcel(size, kg) => first rules size }}"
+    )
+}
+
 /// The fee [`locker_schedule`] charges for a parcel of `class`, in plain
 /// Rust (a class past the schedule is free).
 pub fn locker_fee(rules: usize, class: i64) -> i64 {

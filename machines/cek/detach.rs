@@ -13,7 +13,7 @@ use hashbrown::HashMap;
 use super::{broken, CekRun, ContinuationFrame, Control, End, Environment, Fun, Val};
 use crate::budget::{Budget, Ended, Halt};
 use crate::error::Fault;
-use crate::image::{TagId, Tags};
+use crate::image::{Id, TagId, Tags};
 use crate::machines::runtime::value::{Closure, ConCell, Meter, Text, Value, Values};
 use crate::vocabulary::{DetachedRun, Paused};
 use crate::Program;
@@ -24,6 +24,7 @@ enum Plain {
     Int(i64),
     Bool(bool),
     Tag(TagId),
+    Data(Id),
     Lit(u32),
     Cell(usize),
 }
@@ -422,6 +423,7 @@ impl<'a> Detacher<'a> {
                         Value::Int(n) => Some(Plain::Int(*n)),
                         Value::Bool(b) => Some(Plain::Bool(*b)),
                         Value::Tag(t) => Some(Plain::Tag(*t)),
+                        Value::Data(d) => Some(Plain::Data(*d)),
                         Value::Lit(s) => Some(Plain::Lit(*s)),
                         Value::Str(s) => self.visit(CellRef::Str(s)),
                         Value::Con(c) => self.visit(CellRef::Con(c)),
@@ -561,6 +563,7 @@ impl Attacher {
             Plain::Int(n) => Value::Int(n),
             Plain::Bool(b) => Value::Bool(b),
             Plain::Tag(t) => Value::Tag(t),
+            Plain::Data(d) => Value::Data(d),
             Plain::Lit(s) => Value::Lit(s),
             Plain::Cell(n) => match self.made.get(n) {
                 Some(value) => value.clone(),

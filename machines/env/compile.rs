@@ -58,6 +58,9 @@ pub(super) enum Atom {
     Lit(u32),
     /// A constructor with no fields.
     Tag(u32),
+    /// Closed constructor data of the program, read in place: its image
+    /// node.
+    Data(u32),
 }
 
 /// One instruction of compiled code. Everything mirrors the image except
@@ -519,6 +522,7 @@ impl Compiler<'_, '_> {
             INode::Bool(b) => Atom::Bool(b),
             INode::Str(s) => Atom::Lit(s),
             INode::Con(tag, _, 0) => Atom::Tag(tag),
+            INode::Con(..) if image.is_data(id) => Atom::Data(id),
             INode::Lam { func, pos: 0, .. } | INode::RecLam { func, .. } => {
                 let code = self.closure(func, depth)?;
                 return self.done(CompileItem::Code(code));

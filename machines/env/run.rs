@@ -17,12 +17,12 @@ use crate::error::EvalError;
 use crate::vocabulary::{Counts, Rule};
 use crate::budget::{Budget, Halt};
 use crate::prim::HostId;
-use crate::image::{Image, Tags};
+use crate::image::{INode, Image, Tags};
 use crate::machines::runtime::host::host_call;
 use crate::machines::runtime::prims::{int_prim, int_test, prim_contraction};
 use crate::machines::runtime::readback::read_back;
 use crate::machines::runtime::value::{
-    cut, recycle, Closure, Code, ConCell, Meter, Value, Values, KEEP_STACK_BYTES,
+    cut, data_field, recycle, Closure, Code, ConCell, Meter, Value, Values, KEEP_STACK_BYTES,
 };
 use crate::prim::Prim;
 
@@ -389,6 +389,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
             Atom::Bool(b) => Some(Value::Bool(b)),
             Atom::Lit(s) => Some(Value::Lit(s)),
             Atom::Tag(t) => Some(Value::Tag(t)),
+            Atom::Data(d) => Some(Value::Data(d)),
         }
     }
 
@@ -964,6 +965,20 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                     self.set_local(slot + i as u32, field.clone())?;
                 }
                 return code.bodies.get(bodies as usize + k).copied().ok_or_else(broken);
+            }
+        }
+        if let Value::Data(d) = value {
+            if let INode::Con(tag, start, len) = image.node(d) {
+                if let Some(k) = arm_of(image, info, tag, len as usize) {
+                    // The program's own data: its fields read in place.
+                    if len as usize > LARGE {
+                        self.budget.work(u64::from(len))?;
+                    }
+                    for (i, &field) in image.list(start, len).iter().enumerate() {
+                        self.set_local(slot + i as u32, data_field(image, field))?;
+                    }
+                    return code.bodies.get(bodies as usize + k).copied().ok_or_else(broken);
+                }
             }
         }
         if default != crate::image::NONE {

@@ -10,8 +10,7 @@ use super::value::{Code, ConCell, Text, Value, Values};
 use crate::budget::{Budget, Halt};
 use crate::datum::{Builder, NotData};
 use crate::host::{host_step, HostStep};
-use crate::image::Image;
-use crate::image::Tags;
+use crate::image::{INode, Id, Image, Tags};
 use crate::prim::HostId;
 use crate::{Datum, HostFunctions, Rule};
 
@@ -97,6 +96,7 @@ pub(crate) fn to_datum<'v, C: Code>(
             }
             Value::Fun(_) => return Err(NotData::Function),
             Value::Tag(t) => builder.open(tags.name(image, *t), 0)?,
+            Value::Data(d) => data_to_datum(*d, image, &mut builder)?,
             Value::Con(c) => {
                 builder.open(tags.name(image, c.tag), c.fields.len())?;
                 pending.extend(c.fields.iter().rev());
@@ -104,6 +104,30 @@ pub(crate) fn to_datum<'v, C: Code>(
         }
     }
     builder.finish()
+}
+
+/// Closed constructor data `id` of the program, added to `builder`.
+fn data_to_datum<'v>(id: Id, image: &'v Image, builder: &mut Builder<'v>) -> Result<(), NotData> {
+    let mut pending = vec![id];
+    while let Some(id) = pending.pop() {
+        match image.node(id) {
+            INode::Int(n) => builder.leaf(Datum::Int(n))?,
+            INode::Bool(b) => builder.leaf(Datum::Bool(b))?,
+            INode::Str(s) => {
+                let text = image.string(s);
+                if !builder.fits(text.len()) {
+                    return Err(NotData::TooLarge);
+                }
+                builder.leaf(Datum::Str(text.to_string()))?
+            }
+            INode::Con(tag, start, len) => {
+                builder.open(image.tag(tag), len as usize)?;
+                pending.extend(image.list(start, len).iter().rev());
+            }
+            _ => return Err(NotData::NotAValue),
+        }
+    }
+    Ok(())
 }
 
 /// A host function's result as a value, and the tags it makes up (to be

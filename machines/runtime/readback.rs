@@ -141,6 +141,12 @@ impl ValueReader<'_> {
                             done.push(self.store.push_con(tag, &[]));
                             continue;
                         }
+                        Value::Data(d) => {
+                            // The program's own closed data, copied as its
+                            // subterm (shared nodes once).
+                            done.push(self.program_term(*d, budget)?);
+                            continue;
+                        }
                         Value::Lit(s) => {
                             let text = &self.image.strings[*s as usize];
                             self.room_for_string(text.len(), budget)?;

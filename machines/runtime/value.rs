@@ -24,7 +24,7 @@ use std::rc::Rc;
 use smallvec::SmallVec;
 
 use crate::error::Operand;
-use crate::image::{Image, TagId, Tags};
+use crate::image::{INode, Id, Image, TagId, Tags};
 
 /// Bytes of an `Rc` allocation's header (the strong and weak counts), plus
 /// what the system allocator adds to each allocation (see the module
@@ -91,6 +91,10 @@ pub(crate) enum Value<C: Code> {
     Bool(bool),
     /// A constructor with no fields.
     Tag(TagId),
+    /// Closed constructor data of the program, read in place: its image
+    /// node (see [`Image::is_data`]). Evaluating it builds nothing, so a
+    /// program that holds a large table does not rebuild it every run.
+    Data(Id),
     /// A string literal of the program: an index into [`Image::strings`].
     Lit(u32),
     /// A string made at run time.
@@ -101,6 +105,28 @@ pub(crate) enum Value<C: Code> {
     Fun(Rc<Closure<C>>),
 }
 
+/// The tag of closed constructor data `id`.
+#[inline]
+pub(crate) fn data_tag(image: &Image, id: Id) -> TagId {
+    match image.node(id) {
+        INode::Con(tag, ..) => tag,
+        _ => TagId::MAX,
+    }
+}
+
+/// The value of field `id` of closed constructor data: a leaf as itself,
+/// a constructor with fields as data again.
+#[inline]
+pub(crate) fn data_field<C: Code>(image: &Image, id: Id) -> Value<C> {
+    match image.node(id) {
+        INode::Int(n) => Value::Int(n),
+        INode::Bool(b) => Value::Bool(b),
+        INode::Str(s) => Value::Lit(s),
+        INode::Con(tag, _, 0) => Value::Tag(tag),
+        _ => Value::Data(id),
+    }
+}
+
 impl<C: Code> Clone for Value<C> {
     #[inline]
     fn clone(&self) -> Self {
@@ -108,6 +134,7 @@ impl<C: Code> Clone for Value<C> {
             Value::Int(n) => Value::Int(*n),
             Value::Bool(b) => Value::Bool(*b),
             Value::Tag(t) => Value::Tag(*t),
+            Value::Data(d) => Value::Data(*d),
             Value::Lit(s) => Value::Lit(*s),
             Value::Str(s) => Value::Str(Rc::clone(s)),
             Value::Con(c) => Value::Con(Rc::clone(c)),
@@ -123,6 +150,7 @@ impl<C: Code> Value<C> {
             Value::Int(n) => Operand::Int(*n),
             Value::Bool(b) => Operand::Bool(*b),
             Value::Tag(t) => Operand::Con(tags.name(image, *t)),
+            Value::Data(d) => Operand::Con(tags.name(image, data_tag(image, *d))),
             Value::Lit(s) => Operand::Str(image.string(*s)),
             Value::Str(s) => Operand::Str(&s.text),
             Value::Con(c) => Operand::Con(tags.name(image, c.tag)),
