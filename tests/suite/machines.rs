@@ -490,3 +490,37 @@ fn a_growing_run_stops_at_the_memory_limit_barely_past_it() {
     }
     h.finish();
 }
+
+/// A table held as closed constant data (which env and cek read in place
+/// rather than build): matched field by field, searched, handed to a host
+/// function, and returned, shared, in the value; every machine agrees with
+/// the stepper at every fuel bound, and pauses and resumes through it.
+#[test]
+fn constant_tables_are_matched_searched_passed_and_returned_alike() {
+    let mut host = HostFunctions::new();
+    host.register("rows", |table: Vec<(i64, String)>| {
+        Ok::<_, String>(table.len() as i64)
+    })
+    .unwrap();
+    let source = r#"
+        let table = Cons(Pair(1, "pine"), Cons(Pair(2, "oak"), Cons(Pair(3, "ash"), Nil))) in
+        let rec find k t = case t of {
+          Nil => "none";
+          Cons(row, rest) => case row of { Pair(key, name) => if key == k then name else find k rest }
+        } in
+        Pair(find 2 table ++ find 9 table, Pair(rows table, Pair(table, table)))"#;
+    let program = Program::parse_with(source, &host).unwrap();
+    let mut h = Harness::new();
+    let whole = h.every_bound("constant table", &program, &Limits::default(), |_, _, _| {});
+    h.expect_ending(
+        &whole,
+        r#"value Pair("oaknone", Pair(3, Pair(Cons(Pair(1, "pine"), Cons(Pair(2, "oak"), Cons(Pair(3, "ash"), Nil))), Cons(Pair(1, "pine"), Cons(Pair(2, "oak"), Cons(Pair(3, "ash"), Nil))))))"#,
+    );
+    h.pauses(&whole, &program, 3);
+    // A case on constant data with no matching arm reports it as a
+    // constructor, on every machine alike.
+    let program = Program::parse("case Pair(1, 2) of { Cons(h, t) => h }").unwrap();
+    let runs = h.run("no arm for constant data", &program, &Limits::default());
+    h.expect_ending(&runs, "error no_matching_case");
+    h.finish();
+}
