@@ -38,8 +38,12 @@ pub const DEFAULT_MEMORY: usize = 256 << 20;
 /// * `fuel` — the number of contractions (attempted ones included) the run may
 ///   make; with none left, the outcome is [`Outcome::OutOfFuel`].
 /// * `memory` — bytes of runtime data the machine may hold at once (terms built
-///   by substitution, environments, closures, continuation frames, strings).
-///   The program's own arena and the caller's output arena are not counted.
+///   by substitution, stacks and frames, environments, closures, strings, the
+///   data handed to host functions, and the result read back). The program
+///   (its image and what the machines prepared for it) is shared by every run
+///   and not counted.
+/// * `context` — an optional value the run's host functions may read (see
+///   [`Limits::with_context`]).
 /// * `cancel` — an optional [`Cancel`] handle; once another thread cancels it,
 ///   the run stops with [`LimitKind::Cancelled`](crate::LimitKind::Cancelled) within
 ///   [`CANCEL_POLL_INTERVAL`] further contractions.

@@ -16,13 +16,6 @@ use crate::common::on_small_stack;
 
 const DEEP: usize = 1_000_000;
 
-/// Limits for the deepest data: the stepper keeps copies of its live term
-/// while compacting (DEVELOPERS.md), so it builds a list of a million cells
-/// in about 320 MiB, more than the default 256 MiB.
-fn deep_limits() -> Limits {
-    Limits::default().with_memory(1 << 30)
-}
-
 /// Whether `outcome` is the integer `n`.
 fn is_int(outcome: &Outcome, n: usize) -> bool {
     matches!(outcome, Outcome::Value(v) if v.as_int().is_some_and(|m| m as usize == n))
@@ -189,7 +182,7 @@ fn a_deep_list_value_reads_back_prints_and_drops() {
             "let rec build n acc = if n == 0 then acc else build (n - 1) (Cons(n, acc)) in build {n} Nil"
         )
     };
-    run_deep(build, deep_limits(), &[orrery::DEFAULT_MEMORY], |n, r| {
+    run_deep(build, Limits::default(), &[64 << 20], |n, r| {
         let Outcome::Value(list) = &r.outcome else {
             return false;
         };
