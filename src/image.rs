@@ -21,6 +21,7 @@ mod store;
 use std::sync::Arc;
 
 use hashbrown::HashMap;
+use smallvec::SmallVec;
 
 use crate::error::ValidationError;
 use crate::host::HostFunctions;
@@ -494,9 +495,10 @@ impl<'h, 't> ImageBuilder<'h, 't> {
                         _ => {
                             self.check_sizes(t)?;
                             jobs.push(BuildJob::Build(t));
-                            let children: Vec<&'t Term<'t>> =
-                                t.children().map(|(c, _)| c).collect();
-                            jobs.extend(children.into_iter().rev().map(BuildJob::Visit));
+                            // Children last first, so the first is built first.
+                            let at = jobs.len();
+                            jobs.extend(t.children().map(|(c, _)| BuildJob::Visit(c)));
+                            jobs[at..].reverse();
                         }
                     }
                 }
@@ -569,9 +571,9 @@ impl<'h, 't> ImageBuilder<'h, 't> {
     }
 
     /// Pop `n` child ids off `done` (first child first).
-    fn children(&mut self, done: &mut Vec<Id>, n: usize) -> Vec<Id> {
+    fn children(&mut self, done: &mut Vec<Id>, n: usize) -> SmallVec<[Id; 4]> {
         let at = done.len().saturating_sub(n);
-        let ids: Vec<Id> = done.drain(at..).collect();
+        let ids: SmallVec<[Id; 4]> = done.drain(at..).collect();
         self.parents.resize(self.image.nodes.len(), 0);
         for &id in &ids {
             self.parents[id as usize] += 1;

@@ -241,8 +241,13 @@ fn run(request: &Request) -> std::io::Result<u8> {
             return Ok(status::USAGE);
         }
     };
-    let arena = Arena::new();
-    let program = match parse_bytes(&arena, &source) {
+    // The parser's arena holds the terms only while the program is built:
+    // the program owns its image, and the arena goes before the run.
+    let parsed = {
+        let arena = Arena::new();
+        parse_bytes(&arena, &source)
+    };
+    let program = match parsed {
         Ok(program) => program,
         Err(e) => {
             let text = String::from_utf8_lossy(&source);
