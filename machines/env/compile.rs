@@ -266,7 +266,7 @@ pub(super) enum CompileItem {
     Code(CodeId),
 }
 
-/// The compiler's work lists, kept between runs.
+/// The compiler's work lists, for one compilation.
 #[derive(Debug, Default)]
 pub(super) struct Workspace {
     jobs: Vec<CompileJob>,

@@ -38,8 +38,8 @@
 //! **Limits.** Fuel and cancellation go through the run's budget; the
 //! compiler polls cancellation per node. The compiler and the interpreter
 //! grow every vector only within the memory limit (checked when a push
-//! would reallocate), which counts the code while it is being compiled, the
-//! compiler's work lists, the stacks by capacity, the live cells and the
+//! would reallocate), which counts the code and the compiler's work lists
+//! while the program is being compiled, the stacks by capacity, the live cells and the
 //! read-back (the image and the finished code are the program's); near the
 //! limit a stack grows by an eighth rather than doubling. The env machine
 //! does not pause: out of fuel ends the run.
@@ -57,8 +57,8 @@ use crate::vocabulary::{Build, Machine};
 use crate::{Counts, Limits, Outcome, Program, Report};
 
 /// The environment-based evaluator. Holds no program state between runs:
-/// it keeps its emptied stacks and the compiler's work lists for the next
-/// run (so a small program run many times allocates little) and records the
+/// it keeps its emptied stacks for the next run (so a small program run
+/// many times allocates little) and records the
 /// peak memory of its last run. It cannot pause: a run out of fuel is over.
 ///
 /// # Examples
@@ -94,11 +94,10 @@ impl Default for Env {
     }
 }
 
-/// What a run leaves for the next: emptied stacks and compiler work lists.
+/// What a run leaves for the next: its emptied stacks.
 #[derive(Debug, Default)]
 struct Scratch {
     stacks: Stacks,
-    workspace: Workspace,
 }
 
 impl Env {
@@ -165,21 +164,21 @@ impl Env {
         // by the caller: not this run's memory, except while this run
         // compiles (its budget then bounds the code and the compiler's work).
         let image = program.image();
-        let scratch = &mut self.scratch;
+        // A program is compiled once, so the compiler's work lists live
+        // only while it compiles: a run holds only what it uses.
         let code: Arc<Compiled> = program.prepared(|| {
             let mut code = Compiled::default();
-            let compiled = compile::compile(image, &mut code, &mut scratch.workspace, budget, 0);
-            scratch.workspace.trim();
-            compiled.map(|()| code)
+            let mut workspace = Workspace::default();
+            compile::compile(image, &mut code, &mut workspace, budget, 0).map(|()| code)
         })?;
-        let fixed = scratch.workspace.bytes();
+        let scratch = &mut self.scratch;
         let host = program.host();
         let args = program.args();
         let stacks = &mut scratch.stacks;
         if self.metered {
-            Interpreter::<true>::evaluate(&code, image, host, args, budget, fixed, stacks)
+            Interpreter::<true>::evaluate(&code, image, host, args, budget, stacks)
         } else {
-            Interpreter::<false>::evaluate(&code, image, host, args, budget, fixed, stacks)
+            Interpreter::<false>::evaluate(&code, image, host, args, budget, stacks)
         }
     }
 }

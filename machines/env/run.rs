@@ -149,9 +149,6 @@ pub(super) struct Interpreter<'c, 'h, const METERED: bool> {
     tags: Tags,
     /// Bytes of tags host functions made up.
     tag_bytes: usize,
-    /// Bytes the run holds besides its stacks and cells (its compiler's
-    /// scratch, when it compiled).
-    fixed: usize,
     meter: Meter,
     /// The data the program is applied to, as values.
     args: Vec<Val<'c>>,
@@ -159,16 +156,14 @@ pub(super) struct Interpreter<'c, 'h, const METERED: bool> {
 
 impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
     /// Run `code` to its value and read it back as an owned value, with the
-    /// stacks of `stacks` (emptied and kept again afterwards). The run holds
-    /// `fixed` bytes besides its own (the compiler's work lists; the image
-    /// and the compiled code are the program's and not counted).
+    /// stacks of `stacks` (emptied and kept again afterwards). The image and
+    /// the compiled code are the program's and not counted.
     pub(super) fn evaluate(
         code: &'c Compiled,
         image: &'c Image,
         host: &'h HostFunctions,
         args: &[crate::Datum<'static>],
         budget: &mut Budget,
-        fixed: usize,
         stacks: &mut Stacks,
     ) -> Result<crate::Value, Halt> {
         let kept = std::mem::take(stacks);
@@ -185,7 +180,6 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
             counts: [0; 6],
             tags: Tags::default(),
             tag_bytes: 0,
-            fixed,
             meter: Meter::holding(0),
             args: Vec::new(),
         };
@@ -233,12 +227,10 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
         Ok(())
     }
 
-    /// Bytes held now: the fixed bytes, stacks by capacity, live cells and
-    /// made-up tags.
+    /// Bytes held now: stacks by capacity, live cells and made-up tags.
     #[inline]
     fn held(&self) -> usize {
-        self.fixed
-            + self.tag_bytes
+        self.tag_bytes
             + self.stack.capacity() * size_of::<Val<'_>>()
             + self.tasks.capacity() * size_of::<Task>()
             + self.callers.capacity() * size_of::<Caller<'_>>()
