@@ -37,7 +37,7 @@ mod tests;
 use std::mem::size_of;
 use std::rc::Rc;
 
-use super::runtime::host::{from_datum, host_call};
+use super::runtime::host::{cells_bytes, from_datum, host_call};
 use super::runtime::prims::{int_prim, int_test, prim_contraction};
 use super::runtime::readback::read_back;
 use super::runtime::value::{cut, data_field, recycle, Closure, ConCell, Meter, Value, Values};
@@ -885,6 +885,12 @@ impl CekRun {
         args: &[Datum<'static>],
     ) -> Result<(), Halt> {
         for arg in args.iter().rev() {
+            if M {
+                // Refused before any cell is made if it cannot fit.
+                let need = cells_bytes::<u32>(arg);
+                let held = self.held();
+                self.budget.check_memory(held.saturating_add(need))?;
+            }
             let (argument, new_tags) = from_datum(arg, image, &self.tags);
             self.tags.append(new_tags);
             self.fixed = self.tags.bytes();

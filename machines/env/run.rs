@@ -217,6 +217,10 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
     /// other (and their size counted as work).
     fn take_args(&mut self, args: &[crate::Datum<'static>]) -> Result<(), Halt> {
         for arg in args {
+            // Refused before any cell is made if it cannot fit.
+            let need = crate::machines::runtime::host::cells_bytes::<&'c Function>(arg);
+            let held = self.held();
+            self.budget.check_memory(held.saturating_add(need))?;
             let (value, new_tags) = crate::machines::runtime::host::from_datum(arg, self.image, &self.tags);
             self.tags.append(new_tags);
             self.tag_bytes = self.tags.bytes();

@@ -6,7 +6,7 @@
 
 use std::sync::Arc;
 
-use super::value::{Code, ConCell, Text, Value, Values};
+use super::value::{values_bytes_for, Code, ConCell, Text, Value, Values, RC_HEADER};
 use crate::budget::{Budget, Halt};
 use crate::datum::{Builder, NotData};
 use crate::host::{host_step, HostStep};
@@ -46,11 +46,36 @@ pub(crate) fn host_call<C: Code>(
         HostStep::Made { fuel, result } => {
             budget.pay(Rule::Prim, fuel)?;
             let datum = result.map_err(Halt::error)?;
+            if cells_bytes::<C>(&datum) > room {
+                return Err(Halt::Memory);
+            }
             from_datum(&datum, image, tags)
         }
     };
     tags.append(new_tags);
     Ok(value)
+}
+
+/// Bytes the runtime cells of `datum` take once [`from_datum`] has made
+/// them, counted without making them, so that data too large for the
+/// memory limit is refused before any of it is built.
+pub(crate) fn cells_bytes<C: Code>(datum: &Datum<'_>) -> usize {
+    let mut total = 0usize;
+    let mut pending = vec![datum];
+    while let Some(d) = pending.pop() {
+        match d {
+            Datum::Str(s) => total = total.saturating_add(Text::bytes(s.len())),
+            Datum::Con(c) if !c.fields().is_empty() => {
+                let cell = RC_HEADER
+                    + std::mem::size_of::<ConCell<C>>()
+                    + values_bytes_for::<C>(c.fields().len());
+                total = total.saturating_add(cell);
+                pending.extend(c.fields());
+            }
+            _ => {}
+        }
+    }
+    total
 }
 
 /// Bytes a datum took, as [`Builder`] counts them.

@@ -210,6 +210,16 @@ const INLINE: usize = 3;
 /// The fields of a constructor cell or the captured values of a closure.
 pub(crate) type Values<C> = SmallVec<[Value<C>; INLINE]>;
 
+/// Bytes outside its cell of an array of `n` values collected exactly (0
+/// while they fit inline), as [`values_bytes`] will count it.
+pub(crate) fn values_bytes_for<C: Code>(n: usize) -> usize {
+    if n > INLINE {
+        n.saturating_mul(std::mem::size_of::<Value<C>>())
+    } else {
+        0
+    }
+}
+
 /// Bytes of a values array outside its cell (0 while inline).
 pub(crate) fn values_bytes<C: Code>(values: &Values<C>) -> usize {
     if values.spilled() {
@@ -373,6 +383,40 @@ mod tests {
         assert!(meter.cells() > 0);
         drop(cell);
         assert_eq!(meter.cells(), 0);
+    }
+
+    #[test]
+    fn data_is_charged_exactly_what_its_count_before_making_it_says() {
+        use crate::image::{Image, Tags};
+        use crate::machines::runtime::host::{cells_bytes, from_datum};
+        use crate::Datum;
+        let image = Image::default();
+        let tags = Tags::default();
+        let mut list = Datum::con("Nil", vec![]);
+        for i in 0..1000 {
+            let row = Datum::con(
+                "Row",
+                vec![
+                    Datum::Int(i),
+                    Datum::Str("x".repeat(i as usize % 7)),
+                    Datum::Bool(true),
+                    Datum::Int(0),
+                ],
+            );
+            list = Datum::con("Cons", vec![row, list]);
+        }
+        for datum in [
+            Datum::Int(3),
+            Datum::Str("tide".into()),
+            Datum::con("Nil", vec![]),
+            list,
+        ] {
+            let meter = Meter::holding(0);
+            let (value, _) = from_datum::<u32>(&datum, &image, &tags);
+            assert_eq!(meter.cells(), cells_bytes::<u32>(&datum), "{datum:?}");
+            drop(value);
+            assert_eq!(meter.cells(), 0);
+        }
     }
 
     #[test]
