@@ -55,6 +55,7 @@ pub struct Program {
 struct Core {
     image: Image,
     host: HostFunctions,
+    #[cfg_attr(not(feature = "env"), allow(dead_code))] // only env prepares (compiles) a program
     prepared: Prepared,
 }
 
@@ -293,6 +294,8 @@ impl Program {
     /// host.register("moon", |n: i64| Ok::<_, String>(n)).unwrap();
     /// let program = Program::parse_with("tide 3 + tide 4", &host).unwrap();
     /// assert_eq!(program.host_names(), ["tide"]);
+    /// let both = Program::parse_with("moon (tide 1) + moon 2", &host).unwrap();
+    /// assert_eq!(both.host_names(), ["tide", "moon"]);
     /// ```
     pub fn host_names(&self) -> Vec<&str> {
         let mut used: Vec<usize> = self
@@ -307,18 +310,31 @@ impl Program {
             .collect();
         used.sort_unstable();
         used.dedup();
-        let host = &self.core.host;
-        used.into_iter()
-            .filter_map(|i| host.iter().nth(i).map(|(name, _)| name))
+        // One pass over the table, in its order (a function's index is its
+        // place there), picking the sorted indices used.
+        let mut wanted = used.into_iter().peekable();
+        self.core
+            .host
+            .iter()
+            .enumerate()
+            .filter_map(|(i, (name, _))| (wanted.next_if_eq(&i).is_some()).then_some(name))
             .collect()
     }
 
     /// The form the machines run.
+    #[cfg_attr(
+        not(any(feature = "stepper", feature = "env", feature = "cek")),
+        allow(dead_code)
+    )]
     pub(crate) fn image(&self) -> &Image {
         &self.core.image
     }
 
     /// The data the root is applied to, first first.
+    #[cfg_attr(
+        not(any(feature = "stepper", feature = "env", feature = "cek")),
+        allow(dead_code)
+    )]
     pub(crate) fn args(&self) -> &[Datum<'static>] {
         &self.args
     }
@@ -331,6 +347,7 @@ impl Program {
     /// # Errors
     ///
     /// The error `make` gives.
+    #[cfg_attr(not(feature = "env"), allow(dead_code))] // only env prepares (compiles) a program
     pub(crate) fn prepared<T: Any + Send + Sync, E>(
         &self,
         make: impl FnOnce() -> Result<T, E>,
@@ -342,11 +359,13 @@ impl Program {
 /// Room for what the machines prepare for a program: one slot per type, each
 /// set once, read without locking.
 #[derive(Default)]
+#[cfg_attr(not(feature = "env"), allow(dead_code))] // only env prepares (compiles) a program
 struct Prepared {
     slots: [OnceLock<(TypeId, Arc<dyn Any + Send + Sync>)>; 8],
 }
 
 impl Prepared {
+    #[cfg_attr(not(feature = "env"), allow(dead_code))] // only env prepares (compiles) a program
     fn get_or_make<T: Any + Send + Sync, E>(
         &self,
         make: impl FnOnce() -> Result<T, E>,

@@ -717,6 +717,7 @@ pub struct Detached {
 
 impl Detached {
     /// Wrap a machine's detached state.
+    #[cfg_attr(not(any(feature = "stepper", feature = "cek")), allow(dead_code))] // env cannot pause
     pub(crate) fn new(run: Box<dyn DetachedRun>) -> Detached {
         Detached { run }
     }

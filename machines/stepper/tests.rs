@@ -25,35 +25,7 @@ fn is_memory(outcome: &Outcome) -> bool {
     matches!(outcome, Outcome::Limit(l) if l.kind() == LimitKind::Memory)
 }
 
-/// Every construct, a host call with a cost, and each kind of frame.
-const MIXED: &str = r#"
-let rec map f xs = case xs of { Nil => Nil; Cons(h, t) => Cons(f h, map f t) } in
-let rec range a b = if a > b then Nil else Cons(a, range (a + 1) b) in
-let add = \a b. a + b in
-let pick = \x. case x of { A => 1; B(y) => y; _ => 0 } in
-Triple(map (add 10) (range 1 4), pad "ab" (pick (B(3))) ++ decimal (pick A), not (pick C == 0))"#;
-
-fn host() -> HostFunctions {
-    let mut host = HostFunctions::new();
-    let pad = host
-        .register("pad", |s: String, n: i64| {
-            Ok::<_, String>(s.repeat(n.max(0) as usize))
-        })
-        .unwrap();
-    host.set_cost(pad, |args| match &args[1] {
-        Datum::Int(n) => (*n).max(0) as u64,
-        _ => 0,
-    });
-    host.register_data("wrap", 1, |args| {
-        Ok(Datum::con("Boxed", vec![args[0].clone()]))
-    })
-    .unwrap();
-    host.register_data("some", 1, |args| {
-        Ok(Datum::con("Some", vec![args[0].clone()]))
-    })
-    .unwrap();
-    host
-}
+include!("../../tests/common/mixed.rs");
 
 #[test]
 fn frames_and_nodes_are_small() {
@@ -236,7 +208,7 @@ fn a_cancelled_run_stops_within_bounded_work() {
 
 #[test]
 fn collections_anywhere_change_nothing() {
-    let host = host();
+    let host = mixed_host();
     let arena = Arena::new();
     let program = parse_with(&arena, MIXED, &host).unwrap();
     let whole = Stepper::new().run(&program, &Limits::default());

@@ -5,6 +5,7 @@
 //! | `harness` | the one harness: every machine of the table, compared with the reference stepper, every failure collected | every runner |
 //! | `fuzz_checks` | the properties the fuzz targets check (includes `harness` by path, for the fuzz crate) | `fuzz_replay`, `fuzz/` |
 //! | `corpus` | the formats of the corpus files: a program's header, a shapes file's blocks | `corpus`, `machines` |
+//! | `mixed` | a program of every construct with a costed host call, and its host table (also included by the stepper's unit tests) | `machines` |
 //! | `gen` | a proptest generator of closed programs, and all decompositions of a term | `agreement`, `determinism` |
 //!
 //! and [`on_small_stack`], for tests that would overflow a native stack if
@@ -14,6 +15,13 @@
 pub mod corpus;
 pub mod fuzz_checks;
 pub mod gen;
+
+mod mixed {
+    use orrery::{Datum, HostFunctions};
+    include!("mixed.rs");
+}
+#[allow(unused_imports)] // not every test binary runs the mixed program
+pub use mixed::{mixed_host, MIXED};
 
 pub use fuzz_checks::harness;
 

@@ -10,12 +10,13 @@
 use std::sync::mpsc;
 
 use orrery::{
-    parse, parse_with, Arena, Cancel, Datum, HostFunctions, LimitError, Limits, MachineKind,
-    Outcome, Program, Report, Rule,
+    parse, parse_with, Arena, Cancel, HostFunctions, LimitError, Limits, MachineKind, Outcome,
+    Program, Report, Rule,
 };
 
 use crate::common::corpus::{corpus_files, read_shapes};
 use crate::common::harness::{describe, Harness};
+use crate::common::{mixed_host, MIXED};
 
 /// Never ends: each call makes the next.
 const SPIN: &str = "let rec spin n = spin (n + 1) in spin 0";
@@ -300,32 +301,9 @@ fn a_machine_without_accounting_gives_the_same_reports() {
     h.finish();
 }
 
-/// Every construct, a host call with a cost, and each kind of frame.
-const MIXED: &str = r#"
-let rec map f xs = case xs of { Nil => Nil; Cons(h, t) => Cons(f h, map f t) } in
-let rec range a b = if a > b then Nil else Cons(a, range (a + 1) b) in
-let add = \a b. a + b in
-let pick = \x. case x of { A => 1; B(y) => y; _ => 0 } in
-Triple(map (add 10) (range 1 4), pad "ab" (pick (B(3))) ++ decimal (pick A), not (pick C == 0))"#;
-
-/// `pad s n` repeats `s` `n` times, for a cost of `n` units.
-fn pad_host() -> HostFunctions {
-    let mut host = HostFunctions::new();
-    let pad = host
-        .register("pad", |s: String, n: i64| {
-            Ok::<_, String>(s.repeat(n.max(0) as usize))
-        })
-        .expect("a valid host function");
-    host.set_cost(pad, |args| match &args[1] {
-        Datum::Int(n) => (*n).max(0) as u64,
-        _ => 0,
-    });
-    host
-}
-
 #[test]
 fn every_fuel_bound_pauses_and_resumes_to_the_uninterrupted_end() {
-    let host = pad_host();
+    let host = mixed_host();
     let arena = Arena::new();
     let program = parse_with(&arena, MIXED, &host).unwrap();
     let mut h = Harness::new();
