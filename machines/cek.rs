@@ -506,6 +506,7 @@ impl CekRun {
         Report {
             outcome,
             counts: self.budget.counts,
+            location: None,
         }
     }
 

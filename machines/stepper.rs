@@ -1187,6 +1187,7 @@ fn run_with(program: &Program, limits: &Limits, trace: &mut Option<Trace<'_>>) -
     let report = Report {
         outcome,
         counts: state.budget.counts,
+        location: None,
     };
     (report, state.budget.peak)
 }
@@ -1262,6 +1263,7 @@ impl StepperRun {
                         return Report {
                             outcome: Outcome::OutOfFuel,
                             counts: state.budget.counts,
+                            location: None,
                         }
                     }
                     Err(halt) => self.end = Some(state.ended(halt)),
@@ -1291,6 +1293,7 @@ impl StepperRun {
         Report {
             outcome,
             counts: self.state.budget.counts,
+            location: None,
         }
     }
 

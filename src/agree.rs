@@ -1,6 +1,8 @@
 //! The agreement promise of SEMANTICS §3 as a function: two reports agree when
 //! they have the same outcome (values compared as de Bruijn terms, errors by
-//! kind) and the same per-rule contraction counts. Resource limits are
+//! kind) and the same per-rule contraction counts, and, when they stopped
+//! by an error or at the end of the fuel, the same location: the redex's
+//! span and the backtrace ([`crate::Location`]). Resource limits are
 //! reported, never compared.
 
 use crate::equal::terms_equal_within;
@@ -17,8 +19,8 @@ use crate::vocabulary::{Outcome, Report};
 /// let arena = Arena::new();
 /// let one = Value::from_term(arena.int(1)).unwrap();
 /// let two = Value::from_term(arena.int(2)).unwrap();
-/// let a = Report { outcome: Outcome::Value(one), counts: Counts::default() };
-/// let b = Report { outcome: Outcome::Value(two), counts: Counts::default() };
+/// let a = Report { outcome: Outcome::Value(one), counts: Counts::default(), location: None };
+/// let b = Report { outcome: Outcome::Value(two), counts: Counts::default(), location: None };
 /// assert!(disagreement(&a, &a).is_none());
 /// assert!(disagreement(&a, &b).is_some());
 /// ```
@@ -48,8 +50,8 @@ pub fn disagreement(a: &Report, b: &Report) -> Option<String> {
 /// let copy = Arena::new();
 /// let other = copy.copy_term(list);
 /// let (list, other) = (Value::from_term(list).unwrap(), Value::from_term(other).unwrap());
-/// let a = Report { outcome: Outcome::Value(list), counts: Counts::default() };
-/// let b = Report { outcome: Outcome::Value(other), counts: Counts::default() };
+/// let a = Report { outcome: Outcome::Value(list), counts: Counts::default(), location: None };
+/// let b = Report { outcome: Outcome::Value(other), counts: Counts::default(), location: None };
 /// assert_eq!(disagreement_within(&a, &b, 1 << 24), Ok(None));
 /// assert!(disagreement_within(&a, &b, 1 << 10).is_err());
 /// ```
@@ -79,11 +81,43 @@ pub fn disagreement_within(
                     y.kind().name()
                 )));
             }
-            counts(a, b)
+            counts(a, b).or_else(|| locations(a, b))
         }
-        (Outcome::OutOfFuel, Outcome::OutOfFuel) => counts(a, b),
+        (Outcome::OutOfFuel, Outcome::OutOfFuel) => counts(a, b).or_else(|| locations(a, b)),
         (x, y) => Some(format!("different outcomes: {} and {}", x.name(), y.name())),
     })
+}
+
+/// Why the locations of two reports stopped by an error or the end of the
+/// fuel differ, if they do: the redex's span, then the backtrace.
+fn locations(a: &Report, b: &Report) -> Option<String> {
+    let none = crate::Location::default();
+    let (x, y) = (
+        a.location.as_ref().unwrap_or(&none),
+        b.location.as_ref().unwrap_or(&none),
+    );
+    if x.span != y.span {
+        return Some(format!("different spans: {:?} and {:?}", x.span, y.span));
+    }
+    if x.backtrace.omitted != y.backtrace.omitted
+        || x.backtrace.frames.len() != y.backtrace.frames.len()
+    {
+        return Some(format!(
+            "different backtrace depths: {} and {}",
+            x.backtrace.depth(),
+            y.backtrace.depth()
+        ));
+    }
+    let k = x
+        .backtrace
+        .frames
+        .iter()
+        .zip(&y.backtrace.frames)
+        .position(|(p, q)| p != q)?;
+    Some(format!(
+        "different backtrace frame {k}: {:?} and {:?}",
+        x.backtrace.frames[k], y.backtrace.frames[k]
+    ))
 }
 
 /// Why the counts of two reports differ, if they do (the extra fuel

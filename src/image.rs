@@ -26,6 +26,7 @@ use smallvec::SmallVec;
 use crate::error::ValidationError;
 use crate::host::HostFunctions;
 use crate::prim::Prim;
+use crate::span::{Backtrace, CallFrame, Location, Span, Trail};
 use crate::term::{Node, Term};
 
 /// The index of a node of an [`Image`].
@@ -185,6 +186,12 @@ pub(crate) struct Image {
     /// fields, all integers, booleans, strings or such data again), which
     /// the environment machines read in place rather than build per run.
     data: Vec<bool>,
+    /// Per node, its source span: empty when no node has one, so a program
+    /// without spans keeps none.
+    spans: Vec<Option<Span>>,
+    /// Function names, by λ node (a name also covers the unnamed λs of its
+    /// curried chain; see [`Image::name_chains`]).
+    names: HashMap<Id, Arc<str>>,
     pub(crate) root: Id,
 }
 
@@ -318,6 +325,89 @@ impl Image {
         id
     }
 
+    /// The source span of node `id`, if it has one.
+    #[inline]
+    pub(crate) fn span(&self, id: Id) -> Option<Span> {
+        self.spans.get(id as usize).copied().flatten()
+    }
+
+    /// The name of λ node `id`, if it has one.
+    #[inline]
+    pub(crate) fn name(&self, id: Id) -> Option<&Arc<str>> {
+        if self.names.is_empty() {
+            return None;
+        }
+        self.names.get(&id)
+    }
+
+    /// Whether any node has a span or a name, so that a machine that must
+    /// track where its nodes came from (the stepper) does it only then.
+    #[inline]
+    pub(crate) fn is_marked(&self) -> bool {
+        !self.spans.is_empty() || !self.names.is_empty()
+    }
+
+    /// The λ that takes function `func`'s last parameter: the one whose body
+    /// a call that saturates it enters, and so the one a call mark names.
+    pub(crate) fn last_lam(&self, func: u32) -> Id {
+        match self.funcs.get(func as usize) {
+            Some(f) => self.chain_node(f, f.params.saturating_sub(1)),
+            None => NONE,
+        }
+    }
+
+    /// Record `t`'s span and name for node `id`, if it has either.
+    fn mark(&mut self, id: Id, t: &Term<'_>) {
+        if let Some(span) = t.span() {
+            if self.spans.len() <= id as usize {
+                self.spans.resize(id as usize + 1, None);
+            }
+            self.spans[id as usize] = Some(span);
+        }
+        if let Some(name) = t.name() {
+            if matches!(t.node(), Node::Lam(_) | Node::RecLam(_)) {
+                self.names.insert(id, Arc::from(name));
+            }
+        }
+    }
+
+    /// Give each unnamed λ directly in the body of a named one its name,
+    /// outermost first (parents come after their children), so every
+    /// parameter of a named curried function carries the name.
+    fn name_chains(&mut self) {
+        if self.names.is_empty() {
+            return;
+        }
+        for id in (0..self.nodes.len()).rev() {
+            let (INode::Lam { body, .. } | INode::RecLam { body, .. }) = self.nodes[id] else {
+                continue;
+            };
+            if !matches!(self.node(body), INode::Lam { .. } | INode::RecLam { .. })
+                || self.names.contains_key(&body)
+            {
+                continue;
+            }
+            if let Some(name) = self.names.get(&(id as Id)).cloned() {
+                self.names.insert(body, name);
+            }
+        }
+    }
+
+    /// The [`Location`] a machine's trail describes.
+    pub(crate) fn location(&self, trail: &Trail) -> Location {
+        let (marks, omitted) = trail.marks();
+        let frames = marks
+            .map(|(site, lam)| CallFrame {
+                name: self.name(lam).cloned(),
+                site: self.span(site),
+            })
+            .collect();
+        Location {
+            span: self.span(trail.redex),
+            backtrace: Backtrace { frames, omitted },
+        }
+    }
+
     /// Validate `root` and build its image, with host calls checked against
     /// `host`.
     ///
@@ -331,6 +421,11 @@ impl Image {
             });
         }
         let mut image = ImageBuilder::new(host, allowed_nodes(root)).run(root)?;
+        if !image.spans.is_empty() {
+            image.spans.resize(image.nodes.len(), None);
+            image.spans.shrink_to_fit();
+        }
+        image.name_chains();
         analysis::analyse(&mut image);
         image.mark_data();
         Ok(image)
@@ -527,7 +622,11 @@ impl<'h, 't> ImageBuilder<'h, 't> {
 
     /// A leaf node, with the scope and value flag its term has.
     fn leaf(&mut self, node: INode, t: &Term<'_>) -> Id {
-        self.image.push(node, t.scope(), t.is_value())
+        let id = self.image.push(node, t.scope(), t.is_value());
+        if t.is_marked() {
+            self.image.mark(id, t);
+        }
+        id
     }
 
     /// The size limits and arities that can be checked before the children.
@@ -675,7 +774,11 @@ impl<'h, 't> ImageBuilder<'h, 't> {
             }
             Node::Var(_) | Node::Int(_) | Node::Bool(_) | Node::Str(_) => unreachable_shape()?,
         };
-        Ok(self.image.push(node, scope, value))
+        let id = self.image.push(node, scope, value);
+        if t.is_marked() {
+            self.image.mark(id, t);
+        }
+        Ok(id)
     }
 }
 

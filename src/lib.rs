@@ -126,6 +126,7 @@ mod image;
 mod prim;
 mod program;
 mod scope;
+mod span;
 mod subst;
 pub mod syntax;
 mod term;
@@ -149,6 +150,7 @@ pub use machines::{Machine, MachineKind, Paused};
 pub use prim::{HostId, Prim, STRING_UNIT};
 pub use program::{validate, validate_with, Program};
 pub use scope::{Built, Scope, UnboundName};
+pub use span::{Backtrace, CallFrame, Location, Span, BACKTRACE_ENDS};
 pub use syntax::{
     parse, parse_bytes, parse_term, parse_with, print, print_limited, print_with, Printed,
     SyntaxError, PRINT_LIMIT,

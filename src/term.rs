@@ -6,6 +6,7 @@ use bumpalo::Bump;
 use hashbrown::HashMap;
 
 use crate::prim::Prim;
+use crate::span::Span;
 
 /// A node of a term together with its *scope*: one more than the largest free
 /// de Bruijn index (0 when the term is closed).
@@ -30,6 +31,16 @@ pub struct Term<'a> {
     node: Node<'a>,
     scope: u32,
     value: bool,
+    /// The node's source span and function name, if it has either.
+    mark: Option<&'a Mark<'a>>,
+}
+
+/// What a term may say about where it came from (see [`Arena::at`] and
+/// [`Arena::named`]).
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+struct Mark<'a> {
+    span: Option<Span>,
+    name: Option<&'a str>,
 }
 
 /// The shape of a term: one variant per construct of the calculus.
@@ -195,6 +206,44 @@ impl<'a> Term<'a> {
             next: 0,
         }
     }
+
+    /// The term's source span, if it has one ([`Arena::at`]; the text
+    /// parser gives one to every node).
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Arena, Span};
+    /// let arena = Arena::new();
+    /// let t = arena.at(Span::new(1, 0, 3), arena.int(7));
+    /// assert_eq!(t.span(), Some(Span::new(1, 0, 3)));
+    /// assert_eq!(arena.int(7).span(), None);
+    /// ```
+    #[inline]
+    pub fn span(&self) -> Option<Span> {
+        self.mark.and_then(|m| m.span)
+    }
+
+    /// The function's name, if it has one ([`Arena::named`]; the text
+    /// parser names a function by the `let` or `let rec` that binds it).
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// let arena = orrery::Arena::new();
+    /// let f = arena.named("halve", arena.lam(arena.var(0)));
+    /// assert_eq!(f.name(), Some("halve"));
+    /// ```
+    #[inline]
+    pub fn name(&self) -> Option<&'a str> {
+        self.mark.and_then(|m| m.name)
+    }
+
+    /// Whether the term has a span or a name.
+    #[inline]
+    pub(crate) fn is_marked(&self) -> bool {
+        self.mark.is_some()
+    }
 }
 
 /// Iterator over a term's direct subterms; see [`Term::children`].
@@ -353,7 +402,71 @@ impl Arena {
             Node::Con(_, fields) => fields.iter().all(|f| f.value),
             _ => false,
         };
-        self.bump.alloc(Term { node, scope, value })
+        self.bump.alloc(Term {
+            node,
+            scope,
+            value,
+            mark: None,
+        })
+    }
+
+    /// A copy of `term` (the same node, the same children) that carries
+    /// `span`: a position in the source of a language lowered to terms,
+    /// which comes back in the [`crate::Location`] of a run stopped there.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Arena, Limits, MachineKind, Prim, Program, Span};
+    /// let arena = Arena::new();
+    /// // 7 / 0, written at bytes 20..25 of the embedder's file 4.
+    /// let div = arena.at(
+    ///     Span::new(4, 20, 25),
+    ///     arena.prim(Prim::Div, &[arena.int(7), arena.int(0)]),
+    /// );
+    /// let program = Program::new(div).unwrap();
+    /// for kind in MachineKind::enabled() {
+    ///     let report = kind.run(&program, &Limits::default());
+    ///     assert_eq!(report.location.unwrap().span, Some(Span::new(4, 20, 25)));
+    /// }
+    /// ```
+    pub fn at<'a>(&'a self, span: Span, term: &'a Term<'a>) -> &'a Term<'a> {
+        let name = term.name();
+        self.marked(
+            term,
+            Mark {
+                span: Some(span),
+                name,
+            },
+        )
+    }
+
+    /// A copy of `term` that carries the function name `name`, for
+    /// backtraces. A name on anything but a function is kept and not used.
+    /// A function's name also names the functions directly in its body
+    /// that have none (its curried parameters), so `f a b` is reported as
+    /// a call of `f`.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Arena, Prim};
+    /// let arena = Arena::new();
+    /// let inc = arena.named("bump", arena.lam(arena.prim(Prim::Add, &[arena.var(0), arena.int(1)])));
+    /// assert_eq!(inc.name(), Some("bump"));
+    /// assert!(inc.is_closed());
+    /// ```
+    pub fn named<'a>(&'a self, name: &str, term: &'a Term<'a>) -> &'a Term<'a> {
+        let span = term.span();
+        let name = Some(&*self.bump.alloc_str(name));
+        self.marked(term, Mark { span, name })
+    }
+
+    fn marked<'a>(&'a self, term: &'a Term<'a>, mark: Mark<'a>) -> &'a Term<'a> {
+        self.bump.alloc(Term {
+            mark: Some(self.bump.alloc(mark)),
+            ..*term
+        })
     }
 
     /// Allocate a term of the given shape, computing its scope.
@@ -624,6 +737,26 @@ pub(crate) fn node_with_children<'a, 'b>(
     kids: &[&'a Term<'a>],
     text: impl Fn(&'b str) -> &'a str,
 ) -> &'a Term<'a> {
+    let copy = node_alone(arena, t, kids, &text);
+    match t.mark {
+        None => copy,
+        Some(mark) => arena.marked(
+            copy,
+            Mark {
+                span: mark.span,
+                name: mark.name.map(&text),
+            },
+        ),
+    }
+}
+
+/// [`node_with_children`] without the mark.
+fn node_alone<'a, 'b>(
+    arena: &'a Arena,
+    t: &Term<'b>,
+    kids: &[&'a Term<'a>],
+    text: impl Fn(&'b str) -> &'a str,
+) -> &'a Term<'a> {
     match *t.node() {
         Node::Var(i) => arena.var(i),
         Node::Int(n) => arena.int(n),
@@ -674,6 +807,7 @@ pub(crate) fn copy_term<'a, 'b>(arena: &'a Arena, t: &'b Term<'b>) -> (&'a Term<
             continue;
         }
         let leaf = match *node.node() {
+            _ if node.is_marked() => None,
             Node::Int(n) => Some(arena.int(n)),
             Node::Bool(b) => Some(arena.boolean(b)),
             Node::Var(i) => Some(arena.var(i)),

@@ -608,6 +608,9 @@ pub struct Report {
     pub outcome: Outcome,
     /// Contractions made, per rule.
     pub counts: Counts,
+    /// Where the run stopped, for every outcome but a value and a fault:
+    /// the redex's span and the pending calls (see [`crate::Location`]).
+    pub location: Option<crate::Location>,
 }
 
 /// An evaluator: one of the machines of SEMANTICS §4. A machine value holds

@@ -198,7 +198,8 @@ fn headers_without_a_source_or_a_reason_are_refused() {
     assert!(ends_as(
         &orrery::Report {
             outcome: orrery::Outcome::OutOfFuel,
-            counts: orrery::Counts::default()
+            counts: orrery::Counts::default(),
+            location: None,
         },
         "out_of_fuel"
     )

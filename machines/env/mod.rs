@@ -152,7 +152,11 @@ impl Machine for Env {
             Err(halt) => halt.outcome(limits.memory),
         };
         let counts: Counts = budget.counts;
-        Report { outcome, counts }
+        Report {
+            outcome,
+            counts,
+            location: None,
+        }
     }
 }
 

@@ -665,6 +665,7 @@ fn the_harness_finds_disagreements_broken_limits_and_unmet_expectations() {
     let report = |outcome, counts: [u64; 6]| Report {
         outcome,
         counts: Counts::from_array(counts),
+        location: None,
     };
     let seven = report(
         Outcome::Value(orrery::Value::from_term(arena.int(7)).unwrap()),
