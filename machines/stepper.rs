@@ -687,15 +687,24 @@ impl State {
                 return Err(Halt::error(EvalError::not_a_function(f)));
             }
         };
-        // The application's frame becomes the mark: no growth.
-        self.ctx.pop();
+        // The application's frame becomes the mark (no growth), or goes
+        // when a mark is directly under it. A contractum that is a value
+        // leaves no mark: it would go at once.
+        if self.heap.is_value(image, next) {
+            self.contracted(next);
+            return Ok(());
+        }
         let mark = ContextFrame::Mark {
             site,
             lam: self.heap.origin(function),
         };
-        match self.ctx.last_mut() {
-            Some(top @ ContextFrame::Mark { .. }) => *top = mark,
-            _ => self.ctx.push(mark),
+        let last = self.ctx.len() - 1;
+        match last.checked_sub(1).map(|below| &mut self.ctx[below]) {
+            Some(below @ ContextFrame::Mark { .. }) => {
+                *below = mark;
+                self.ctx.pop();
+            }
+            _ => self.ctx[last] = mark,
         }
         self.focus = next;
         Ok(())

@@ -121,12 +121,12 @@ impl Task {
     }
 }
 
-/// The frame and closure of a caller waiting for a call to return, and the
-/// application that called it (its call mark; [`NONE`] at the top level).
+/// The frame and closure of a caller waiting for a call to return. The
+/// application that called the caller (its call mark; [`NONE`] at the top
+/// level) is kept by the `RETURN` task pushed with it.
 struct Caller<'c> {
     base: usize,
     closure: Option<Rc<Fun<'c>>>,
-    site: CodeId,
 }
 
 /// The emptied stacks of the last run, kept for the next. Their element
@@ -136,7 +136,7 @@ struct Caller<'c> {
 pub(super) struct Stacks {
     pub(super) stack: Vec<[usize; 2]>,
     tasks: Vec<Task>,
-    callers: Vec<[usize; 3]>,
+    callers: Vec<[usize; 2]>,
 }
 
 /// The state of one run.
@@ -153,8 +153,10 @@ pub(super) struct Interpreter<'c, 'h, const METERED: bool> {
     base: usize,
     /// The current function's closure (`None` at the top level).
     closure: Option<Rc<Fun<'c>>>,
-    /// The application whose call entered the current function ([`NONE`]
-    /// at the top level): with the closure, the current call mark.
+    /// The application whose call entered the bottom caller's function
+    /// (the current one while no caller waits; [`NONE`] at the top level):
+    /// the site of every other call is kept in the `RETURN` task that
+    /// waits for it (see [`Interpreter::trail`]).
     site: CodeId,
     /// Where the run stopped, once it has: the redex's image node.
     redex: Id,
@@ -380,7 +382,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
     /// Keep the current frame and closure for when the call being made
     /// returns.
     #[inline(always)]
-    fn save_caller(&mut self) -> Result<(), Halt> {
+    fn save_caller(&mut self, site: CodeId) -> Result<(), Halt> {
         if METERED && self.callers.len() == self.callers.capacity() {
             let held = self.held();
             grow(&mut self.callers, 1, held, &mut self.budget)?;
@@ -388,9 +390,8 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
         self.callers.push(Caller {
             base: self.base,
             closure: self.closure.take(),
-            site: self.site,
         });
-        self.task(Task::new(Task::RETURN, 0))
+        self.task(Task::new(Task::RETURN, site))
     }
 
     #[inline(always)]
@@ -595,7 +596,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
     ) -> Result<CodeId, Halt> {
         match function {
             Value::Fun(closure) => self.apply(closure, argument, tail, site),
-            callee => self.not_a_function(callee),
+            callee => self.not_a_function(callee, site),
         }
     }
 
@@ -603,10 +604,15 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
     /// (the argument was evaluated first, as in the stepper), then the error.
     #[cold]
     #[inline(never)]
-    fn not_a_function(&mut self, callee: Val<'c>) -> Result<CodeId, Halt> {
-        self.take(Rule::Beta)?;
-        let operand = callee.operand(self.image, &self.tags);
-        Err(Halt::error(EvalError::not_a_function(operand)))
+    fn not_a_function(&mut self, callee: Val<'c>, site: CodeId) -> Result<CodeId, Halt> {
+        let halt = match self.take(Rule::Beta) {
+            Ok(()) => {
+                let operand = callee.operand(self.image, &self.tags);
+                Halt::error(EvalError::not_a_function(operand))
+            }
+            Err(halt) => halt,
+        };
+        Err(self.stopped_code(halt, site))
     }
 
     /// [`Interpreter::call`] of a closure, at application `site`.
@@ -625,7 +631,9 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
         } else {
             Rule::Beta
         };
-        self.take(rule)?;
+        if let Err(halt) = self.take(rule) {
+            return Err(self.stopped_code(halt, site));
+        }
         if k + 1 < f.params {
             return self.partial(closure, argument);
         }
@@ -646,8 +654,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
         site: CodeId,
     ) -> Result<CodeId, Halt> {
         let f: &'c Function = closure.code;
-        self.frame_for_call(f, tail)?;
-        self.site = site;
+        self.frame_for_call(f, tail, site)?;
         if f.rec {
             self.stack.push(Value::Fun(Rc::clone(&closure)));
         }
@@ -660,11 +667,12 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
     /// Start the frame of a call of `f`: the caller's frame dropped (a tail
     /// call) or saved, and room for the new one.
     #[inline(always)]
-    fn frame_for_call(&mut self, f: &Function, tail: bool) -> Result<(), Halt> {
+    fn frame_for_call(&mut self, f: &Function, tail: bool, site: CodeId) -> Result<(), Halt> {
         if tail {
             cut(&mut self.stack, self.base);
+            self.tail_site(site);
         } else {
-            self.save_caller()?;
+            self.save_caller(site)?;
         }
         self.base = self.stack.len();
         let frame = f.frame as usize;
@@ -696,8 +704,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
         site: CodeId,
     ) -> Result<CodeId, Halt> {
         let f: &'c Function = closure.code;
-        self.frame_for_call(f, tail)?;
-        self.site = site;
+        self.frame_for_call(f, tail, site)?;
         self.push_given(&closure, f)?;
         self.stack.push(argument);
         self.pad(f.frame as usize);
@@ -892,6 +899,14 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
         self.code.origin.get(code as usize).copied().unwrap_or(NONE)
     }
 
+    /// [`Interpreter::stopped`] at the node of instruction `code`.
+    #[cold]
+    #[inline(never)]
+    fn stopped_code(&mut self, halt: Halt, code: CodeId) -> Halt {
+        let node = self.origin(code);
+        self.stopped(halt, node)
+    }
+
     /// Record that the run stopped by `halt` at image node `node` (the
     /// innermost record wins: it is made first).
     #[cold]
@@ -913,10 +928,21 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                 trail.push(self.origin(site), self.image.last_lam(c.code.func));
             }
         };
-        mark(&self.closure, self.site);
+        // The site of each call a caller waits for is in the `RETURN` task
+        // pushed with the caller; the bottom caller's own, in `site`.
+        let mut sites = self
+            .tasks
+            .iter()
+            .rev()
+            .filter(|t| t.kind() == Task::RETURN)
+            .map(|t| t.code())
+            .chain(std::iter::once(self.site));
+        let mut closure = &self.closure;
         for caller in self.callers.iter().rev() {
-            mark(&caller.closure, caller.site);
+            mark(closure, sites.next().unwrap_or(NONE));
+            closure = &caller.closure;
         }
+        mark(closure, sites.next().unwrap_or(NONE));
         trail
     }
 
@@ -987,9 +1013,10 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
         };
         let at = if tail {
             self.slide(first, self.base);
+            self.tail_site(site);
             self.base
         } else {
-            self.save_caller()?;
+            self.save_caller(site)?;
             if first != at {
                 self.slide(first, at);
             }
@@ -1003,8 +1030,18 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
         }
         self.pad(frame);
         self.closure = Some(closure);
-        self.site = site;
         Ok(f.body)
+    }
+
+    /// A tail call at `site` replaces the current call's mark: the site
+    /// kept in the `RETURN` task of the call it replaces, or, in the calls
+    /// the top level made in tail position, [`Interpreter::site`].
+    #[inline(always)]
+    fn tail_site(&mut self, site: CodeId) {
+        match self.tasks.last_mut() {
+            Some(task) if task.kind() == Task::RETURN => *task = Task::new(Task::RETURN, site),
+            _ => self.site = site,
+        }
     }
 
     /// Put the values a partial application holds beyond its captured ones
@@ -1165,7 +1202,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                         if let Some(v) = self.int_argument(argument) {
                             at!(self, self.take(Rule::Prim), self.origin(argument));
                             let f = self.atom(function).ok_or_else(broken)?;
-                            pc = at!(self, self.call(f, v, tail, pc), self.origin(pc));
+                            pc = self.call(f, v, tail, pc)?;
                             if pc == PUSHED {
                                 break;
                             }
@@ -1185,7 +1222,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                             self.atom(function).ok_or_else(broken)?,
                             self.atom(argument).ok_or_else(broken)?,
                         );
-                        pc = at!(self, self.call(f, a, tail, pc), self.origin(pc));
+                        pc = self.call(f, a, tail, pc)?;
                         if pc == PUSHED {
                             break;
                         }
@@ -1287,7 +1324,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                         let argument = self.pop()?;
                         let function = self.pop()?;
                         let tail = kind == Task::TAIL_CALL;
-                        pc = at!(self, self.call(function, argument, tail, at), self.origin(at));
+                        pc = self.call(function, argument, tail, at)?;
                         if pc != PUSHED {
                             continue 'eval;
                         }
@@ -1306,7 +1343,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                         };
                         let function = self.pop()?;
                         let argument = self.atom(argument).ok_or_else(broken)?;
-                        pc = at!(self, self.call(function, argument, tail, at), self.origin(at));
+                        pc = self.call(function, argument, tail, at)?;
                         if pc != PUSHED {
                             continue 'eval;
                         }
@@ -1325,7 +1362,6 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                         let caller = self.callers.pop().ok_or_else(broken)?;
                         self.base = caller.base;
                         self.closure = caller.closure;
-                        self.site = caller.site;
                         continue;
                     }
                     _ => {}
