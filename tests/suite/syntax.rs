@@ -459,7 +459,8 @@ fn error_positions() {
     );
     fails_at("rec f. f", 1, 1, "`rec` needs at least one parameter");
     fails_at("\\_. _", 1, 5, "`_` binds nothing");
-    fails_at("\"日本\" ++ zz", 1, 9, "unbound name `zz`");
+    // Columns are display columns: each of 日 and 本 is two wide.
+    fails_at("\"日本\" ++ zz", 1, 11, "unbound name `zz`");
     fails_at("\"\\u{D800}\"", 1, 2, "not a Unicode scalar value");
     fails_at("\"\\u{1234567}\"", 1, 2, "1 to 6 hexadecimal digits");
     fails_at("\"\\u41\"", 1, 2, "malformed escape");
@@ -521,12 +522,12 @@ fn rendered_errors_show_the_line_and_a_caret() {
     assert_eq!(e.to_string(), "2:9: unbound name `undefined_total`");
     assert_eq!(
         e.render("prices.orr", source),
-        "prices.orr:2:9: unbound name `undefined_total`\n\trate * undefined_total\n\t       ^"
+        "prices.orr:2:9: unbound name `undefined_total`\n\trate * undefined_total\n\t       ^\n"
     );
     let crlf = "1 +\r\n)";
     assert_eq!(
         error(crlf).render("f", crlf),
-        "f:2:1: unexpected `)`, expected an expression\n)\n^"
+        "f:2:1: unexpected `)`, expected an expression\n)\n^\n"
     );
 }
 
