@@ -22,7 +22,7 @@ use std::sync::Arc;
 
 use smallvec::SmallVec;
 
-use heap::{Collector, Heap, NODE_BYTES, STRING_OVERHEAD};
+use heap::{Collector, Heap, STRING_OVERHEAD};
 use readback::{flatten, to_datum, Fragment};
 use subst::{Binds, SubstJob};
 
@@ -30,6 +30,7 @@ use crate::budget::{growth, Budget, Ended, Halt};
 use crate::error::Fault;
 use crate::error::Operand;
 use crate::host::{host_step, HostStep, NO_HOST};
+use crate::span::{Location, Trail};
 use crate::image::{CaseInfo, INode, Id, Image, TagId, Tags, NONE};
 use crate::prim::PrimValue;
 use crate::prim::{delta_polled, fuel_units, Stopped};
@@ -83,20 +84,27 @@ pub struct Stepper {
 /// focus they are the decomposition `E[t]` of SEMANTICS §1.1. A frame keeps only
 /// what is still to be evaluated: the values to the left of an operand or
 /// field hole are on the value stack, and the operands already evaluated are
-/// not kept through their list.
+/// not kept through their list. A frame whose construct is a redex once its
+/// hole is a value keeps `at`, the image node that construct came from (see
+/// [`Heap::origin`]), for the location of a stop there.
 #[derive(Clone, Copy, Debug)]
 enum ContextFrame {
     /// `□ t`.
-    AppFunction(Id),
+    AppFunction { argument: Id, at: Id },
     /// `v □`.
-    AppArgument(Id),
+    AppArgument { function: Id, at: Id },
     /// `let □ in t`.
-    LetBound(Id),
+    LetBound { body: Id, at: Id },
     /// `if □ then t else u`.
-    IfCondition(Id, Id),
+    IfCondition { yes: Id, no: Id, at: Id },
     /// `op(v…, □, t…)`: the `left` operands still to evaluate start at
     /// absolute list position `next`.
-    Operand { op: Prim, next: u32, left: u32 },
+    Operand {
+        op: Prim,
+        next: u32,
+        left: u32,
+        at: Id,
+    },
     /// `K(v…, □, t…)` with `arity` fields, `left` of them still to evaluate
     /// from position `next`.
     Field {
@@ -107,7 +115,27 @@ enum ContextFrame {
     },
     /// `case □ of {…}`: the image case, and where its arm bodies are
     /// ([`NONE`]: the image case's own).
-    Scrutinee { case: u32, bodies: u32 },
+    Scrutinee { case: u32, bodies: u32, at: Id },
+    /// A call mark `⟨site, lam⟩` (see [`crate::span`]): the hole is the
+    /// body of a call of λ `lam` made at application `site` (image nodes,
+    /// or [`NONE`]). It goes when the hole is a value, and a call made
+    /// directly in it replaces it.
+    Mark { site: Id, lam: Id },
+}
+
+impl ContextFrame {
+    /// The image node of the redex this frame makes with a value in its
+    /// hole, if it makes one.
+    fn redex(self) -> Option<Id> {
+        match self {
+            ContextFrame::AppArgument { at, .. }
+            | ContextFrame::LetBound { at, .. }
+            | ContextFrame::IfCondition { at, .. }
+            | ContextFrame::Scrutinee { at, .. } => Some(at),
+            ContextFrame::Operand { left: 0, at, .. } => Some(at),
+            _ => None,
+        }
+    }
 }
 
 /// A callback that sees each contraction's rule and redex.
@@ -346,10 +374,11 @@ impl State {
     #[inline(never)]
     fn grow_nodes(&mut self) -> Result<(), Halt> {
         // Up to the next collection's threshold, not past it.
-        let soft = self.gc_at / NODE_BYTES + 1;
+        let node_bytes = self.heap.node_bytes();
+        let soft = self.gc_at / node_bytes + 1;
         if let Some(wanted) = self.heap.node_capacity(1, soft)? {
             let (len, cap) = (self.heap.nodes.len(), self.heap.nodes.capacity());
-            let cap = self.capacity_within(len, cap, 1, wanted, NODE_BYTES)?;
+            let cap = self.capacity_within(len, cap, 1, wanted, node_bytes)?;
             self.heap.grow_nodes(cap);
         }
         Ok(())
@@ -390,7 +419,7 @@ impl State {
     fn collect(&mut self, image: &Image) -> Result<(), Halt> {
         self.due = false;
         let held = self.held();
-        let estimate = (self.live / NODE_BYTES)
+        let estimate = (self.live / self.heap.node_bytes())
             .saturating_mul(2)
             .saturating_add(1024);
         let old = std::mem::replace(&mut self.heap, Heap::new(image));
@@ -411,20 +440,21 @@ impl State {
         for frame in &mut self.ctx {
             budget.work(1)?;
             match frame {
-                ContextFrame::AppFunction(t)
-                | ContextFrame::AppArgument(t)
-                | ContextFrame::LetBound(t) => {
+                ContextFrame::AppFunction { argument: t, .. }
+                | ContextFrame::AppArgument { function: t, .. }
+                | ContextFrame::LetBound { body: t, .. } => {
                     *t = c.forward(*t, budget)?;
                 }
-                ContextFrame::IfCondition(y, n) => {
-                    *y = c.forward(*y, budget)?;
-                    *n = c.forward(*n, budget)?;
+                ContextFrame::IfCondition { yes, no, .. } => {
+                    *yes = c.forward(*yes, budget)?;
+                    *no = c.forward(*no, budget)?;
                 }
+                ContextFrame::Mark { .. } => {}
                 ContextFrame::Operand { next, left, .. }
                 | ContextFrame::Field { next, left, .. } => {
                     *next = c.list(*next, *left, budget)?;
                 }
-                ContextFrame::Scrutinee { case, bodies } => {
+                ContextFrame::Scrutinee { case, bodies, .. } => {
                     if *bodies != NONE {
                         let n = image
                             .cases
@@ -480,9 +510,17 @@ impl State {
             };
             let last = self.ctx.len() - 1;
             match top {
-                ContextFrame::AppFunction(argument) => {
-                    self.ctx[last] = ContextFrame::AppArgument(focus);
+                ContextFrame::AppFunction { argument, at } => {
+                    self.ctx[last] = ContextFrame::AppArgument {
+                        function: focus,
+                        at,
+                    };
                     self.focus = argument;
+                    continue;
+                }
+                ContextFrame::Mark { .. } => {
+                    // The call has returned its value: its mark goes, free.
+                    self.ctx.pop();
                     continue;
                 }
                 ContextFrame::Operand { left, .. } | ContextFrame::Field { left, .. }
@@ -507,11 +545,15 @@ impl State {
                     self.construct(tag, arity)?;
                     continue;
                 }
-                ContextFrame::AppArgument(function) => self.beta(image, function, trace)?,
-                ContextFrame::LetBound(body) => self.let_in(image, body, trace)?,
-                ContextFrame::IfCondition(yes, no) => self.if_then_else(image, yes, no, trace)?,
+                ContextFrame::AppArgument { function, at } => {
+                    self.beta(image, function, at, trace)?
+                }
+                ContextFrame::LetBound { body, .. } => self.let_in(image, body, trace)?,
+                ContextFrame::IfCondition { yes, no, .. } => {
+                    self.if_then_else(image, yes, no, trace)?
+                }
                 ContextFrame::Operand { op, .. } => self.prim(image, host, op, trace)?,
-                ContextFrame::Scrutinee { case, bodies } => {
+                ContextFrame::Scrutinee { case, bodies, .. } => {
                     self.case(image, case, bodies, trace)?
                 }
             }
@@ -535,17 +577,18 @@ impl State {
         }
         // Room is made: the pushes below do not grow the stack.
         let focus = self.focus;
+        let at = self.heap.origin(focus);
         match self.heap.node(image, focus) {
             INode::App(function, argument) => {
-                self.ctx.push(ContextFrame::AppFunction(argument));
+                self.ctx.push(ContextFrame::AppFunction { argument, at });
                 self.focus = function;
             }
             INode::Let(bound, body) => {
-                self.ctx.push(ContextFrame::LetBound(body));
+                self.ctx.push(ContextFrame::LetBound { body, at });
                 self.focus = bound;
             }
             INode::If(condition, yes, no) => {
-                self.ctx.push(ContextFrame::IfCondition(yes, no));
+                self.ctx.push(ContextFrame::IfCondition { yes, no, at });
                 self.focus = condition;
             }
             INode::Prim(op, start) => {
@@ -565,6 +608,7 @@ impl State {
                     op,
                     next: start + 1,
                     left: arity - 1,
+                    at,
                 });
                 self.focus = self.heap.list(image, start);
             }
@@ -579,7 +623,7 @@ impl State {
             }
             INode::Case(scrutinee, x) => {
                 let (case, bodies) = self.heap.case_of(image, focus, x);
-                self.ctx.push(ContextFrame::Scrutinee { case, bodies });
+                self.ctx.push(ContextFrame::Scrutinee { case, bodies, at });
                 self.focus = scrutinee;
             }
             INode::Var { index, .. } => {
@@ -615,11 +659,15 @@ impl State {
         self.focus = next;
     }
 
-    /// `(λ. t) v` or `(μλ. t) v`, with `v` the focus.
+    /// `(λ. t) v` or `(μλ. t) v` at application `site`, with `v` the
+    /// focus. The contractum is marked as the body of a call of the λ made
+    /// at `site`; directly in another mark (a tail call), it takes that
+    /// mark's place, so the context does not grow.
     fn beta(
         &mut self,
         image: &Image,
         function: Id,
+        site: Id,
         trace: &mut Option<Trace<'_>>,
     ) -> Result<(), Halt> {
         let v = self.focus;
@@ -639,8 +687,36 @@ impl State {
                 return Err(Halt::error(EvalError::not_a_function(f)));
             }
         };
-        self.contracted(next);
+        // The application's frame becomes the mark: no growth.
+        self.ctx.pop();
+        let mark = ContextFrame::Mark {
+            site,
+            lam: self.heap.origin(function),
+        };
+        match self.ctx.last_mut() {
+            Some(top @ ContextFrame::Mark { .. }) => *top = mark,
+            _ => self.ctx.push(mark),
+        }
+        self.focus = next;
         Ok(())
+    }
+
+    /// Where the run stopped: the redex of the innermost frame when the
+    /// focus is a value it waits for (a contraction that failed or could
+    /// not be paid), else the focus itself; and the marks of the context.
+    pub(super) fn trail(&self, image: &Image) -> Trail {
+        let top = self.ctx.last().copied();
+        let redex = match top.and_then(ContextFrame::redex) {
+            Some(at) if self.heap.is_value(image, self.focus) => at,
+            _ => self.heap.origin(self.focus),
+        };
+        let mut trail = Trail::new(redex);
+        for frame in self.ctx.iter().rev() {
+            if let ContextFrame::Mark { site, lam } = *frame {
+                trail.push(site, lam);
+            }
+        }
+        trail
     }
 
     /// `let v in t`.
@@ -1169,6 +1245,7 @@ impl Stepper {
             program: program.clone(),
             loaded: false,
             end: None,
+            location: None,
         }
     }
 }
@@ -1183,11 +1260,16 @@ fn run_with(program: &Program, limits: &Limits, trace: &mut Option<Trace<'_>>) -
         Ok(()) => state.reduce(image, host, trace),
         Err(halt) => Err(halt),
     };
+    let location = match &end {
+        Err(halt) => state.located(image, halt),
+        Ok(_) => None,
+    };
     let outcome = state.outcome(image, host, end);
+    let location = location.or_else(|| stopped_without_redex(&outcome));
     let report = Report {
         outcome,
         counts: state.budget.counts,
-        location: None,
+        location,
     };
     (report, state.budget.peak)
 }
@@ -1225,6 +1307,8 @@ pub struct StepperRun {
     /// by the first resume).
     loaded: bool,
     end: Option<End>,
+    /// Where the run stopped, once it has ended without a value.
+    location: Option<Location>,
 }
 
 impl StepperRun {
@@ -1257,16 +1341,22 @@ impl StepperRun {
                 Ok(()) => state.reduce(image, self.program.host(), &mut None),
                 Err(halt) => Err(halt),
             };
+            if let Err(halt) = &end {
+                self.location = state.located(image, halt);
+            }
             match end {
                 Err(Halt::OutOfFuel) => match state.pause(image) {
                     Ok(()) => {
                         return Report {
                             outcome: Outcome::OutOfFuel,
                             counts: state.budget.counts,
-                            location: None,
+                            location: self.location.take(),
                         }
                     }
-                    Err(halt) => self.end = Some(state.ended(halt)),
+                    Err(halt) => {
+                        self.location = state.located(image, &halt);
+                        self.end = Some(state.ended(halt));
+                    }
                 },
                 Ok(value) => {
                     state.focus = value;
@@ -1290,10 +1380,13 @@ impl StepperRun {
             Some(End::Ended(ended)) => ended.outcome(),
             None => Outcome::OutOfFuel,
         };
+        if self.location.is_none() {
+            self.location = stopped_without_redex(&outcome);
+        }
         Report {
             outcome,
             counts: self.state.budget.counts,
-            location: None,
+            location: self.location.clone(),
         }
     }
 
@@ -1364,7 +1457,22 @@ impl StepperRun {
     }
 }
 
+/// The location of a run that stopped with no redex to point at (its value
+/// was too big to read back): no span and no calls. `None` for a value or a
+/// fault.
+fn stopped_without_redex(outcome: &Outcome) -> Option<Location> {
+    match outcome {
+        Outcome::Value(_) | Outcome::Fault(_) => None,
+        _ => Some(Location::default()),
+    }
+}
+
 impl State {
+    /// Where a run stopped by `halt` is, unless it is a fault.
+    fn located(&self, image: &Image, halt: &Halt) -> Option<Location> {
+        (!matches!(halt, Halt::Fault(_))).then(|| image.location(&self.trail(image)))
+    }
+
     /// Before a pause: collect a heap that has grown past twice what the
     /// last collection kept, and give back stack space far beyond what is
     /// in use, so a paused run holds its live state and little more.

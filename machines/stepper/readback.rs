@@ -268,24 +268,24 @@ impl StoreReader {
     ) -> Result<Id, Halt> {
         self.spend(budget)?;
         Ok(match frame {
-            ContextFrame::AppFunction(a) => {
+            ContextFrame::AppFunction { argument: a, .. } => {
                 let a = self.term(view, a, budget)?;
                 self.store.push_app(hole, a)
             }
-            ContextFrame::AppArgument(f) => {
+            ContextFrame::AppArgument { function: f, .. } => {
                 let f = self.term(view, f, budget)?;
                 self.store.push_app(f, hole)
             }
-            ContextFrame::LetBound(body) => {
+            ContextFrame::LetBound { body, .. } => {
                 let body = self.term(view, body, budget)?;
                 self.store.push_let(hole, body)
             }
-            ContextFrame::IfCondition(y, n) => {
+            ContextFrame::IfCondition { yes: y, no: n, .. } => {
                 let y = self.term(view, y, budget)?;
                 let n = self.term(view, n, budget)?;
                 self.store.push_if(hole, y, n)
             }
-            ContextFrame::Operand { op, next, left } => {
+            ContextFrame::Operand { op, next, left, .. } => {
                 let args =
                     self.spread(view, op.arity() as u32, next, left, hole, stack, below, budget)?;
                 self.store.push_prim(op, &args)
@@ -300,7 +300,8 @@ impl StoreReader {
                 let tag = self.tag(view, tag);
                 self.store.push_con(tag, &args)
             }
-            ContextFrame::Scrutinee { case, bodies } => {
+            ContextFrame::Scrutinee { case, bodies, .. } => {
+
                 let Some(info) = view.image.cases.get(case as usize).copied() else {
                     return Err(Halt::fault("the stepper read back a case the image lacks"));
                 };
@@ -314,6 +315,8 @@ impl StoreReader {
                 }
                 self.case(view, case, hole, &arms)?
             }
+            // A mark is no construct: the term is its hole.
+            ContextFrame::Mark { .. } => hole,
         })
     }
 
@@ -482,7 +485,8 @@ pub(super) fn flatten(
 impl State {
     /// Show the tracer the redex about to be contracted under `rule`: the
     /// focus plugged into the innermost frame, or (`alone`) the focus itself,
-    /// read back into a store and made a term of the trace's scratch arena.
+    /// read back into a store and made a term of the trace's scratch arena,
+    /// carrying the span of the program node it comes from.
     pub(super) fn traced(
         &mut self,
         image: &Image,
@@ -508,7 +512,15 @@ impl State {
             }
             _ => hole,
         };
-        let redex = reader.into_term(redex, trace.scratch, budget)?;
+        let mut redex = reader.into_term(redex, trace.scratch, budget)?;
+        // The redex carries its source span, when it has one.
+        let origin = match self.ctx.last() {
+            Some(frame) if !alone => frame.redex().unwrap_or(NONE),
+            _ => self.heap.origin(self.focus),
+        };
+        if let Some(span) = image.span(origin) {
+            redex = trace.scratch.at(span, redex);
+        }
         (trace.sink)(rule, redex);
         Ok(())
     }

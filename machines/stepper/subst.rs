@@ -78,6 +78,7 @@ impl State {
                 }
                 SubstJob::Build(id) => {
                     let new = self.rebuild(image, id)?;
+                    self.heap.copied_from(new, id);
                     self.push_done(new)?;
                 }
             }

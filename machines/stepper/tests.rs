@@ -5,6 +5,7 @@
 //! between threads. What every machine must do is tested once, over the
 //! machine table, in `tests/`.
 
+use super::heap::NODE_BYTES;
 use super::*;
 use crate::budget::POLL_WORK;
 use crate::{parse, parse_with, print, Cancel, Datum, LimitKind};
@@ -277,4 +278,145 @@ fn a_paused_run_can_move_between_threads() {
     assert_eq!(run.resume(0).outcome, Outcome::OutOfFuel);
     let report = std::thread::scope(|s| s.spawn(move || run.resume(1000).counts).join().unwrap());
     assert_eq!(report.total(), 204);
+}
+
+/// Byte `k` of an embedder's file 9: a span the test can tell apart.
+fn at(k: u32) -> crate::Span {
+    crate::Span::new(9, k, k + 1)
+}
+
+/// `top 0` where `top c = 2 * mid c`, `mid b = 1 + dist b` and
+/// `dist a = 100 / a`: a division by zero three calls deep, every call site
+/// and the division with a span of its own (bytes 1 to 4).
+fn three_deep(arena: &Arena) -> &Term<'_> {
+    let dist = arena.named(
+        "dist",
+        arena.lam(arena.at(at(1), arena.prim(Prim::Div, &[arena.int(100), arena.var(0)]))),
+    );
+    let mid = arena.named(
+        "mid",
+        arena.lam(arena.prim(
+            Prim::Add,
+            &[arena.int(1), arena.at(at(2), arena.app(arena.var(1), arena.var(0)))],
+        )),
+    );
+    let top = arena.named(
+        "top",
+        arena.lam(arena.prim(
+            Prim::Mul,
+            &[arena.int(2), arena.at(at(3), arena.app(arena.var(1), arena.var(0)))],
+        )),
+    );
+    let call = arena.at(at(4), arena.app(arena.var(0), arena.int(0)));
+    arena.let_in(dist, arena.let_in(mid, arena.let_in(top, call)))
+}
+
+#[test]
+fn an_error_three_calls_deep_reports_the_redex_and_each_call() {
+    let arena = Arena::new();
+    let program = Program::new(three_deep(&arena)).unwrap();
+    let report = Stepper::new().run(&program, &Limits::default());
+    assert!(matches!(report.outcome, Outcome::Error(_)));
+    let location = report.location.expect("an error has a location");
+    assert_eq!(location.span, Some(at(1)));
+    let frames: Vec<(Option<&str>, Option<crate::Span>)> = location
+        .backtrace
+        .frames
+        .iter()
+        .map(|f| (f.name.as_deref(), f.site))
+        .collect();
+    assert_eq!(
+        frames,
+        [
+            (Some("dist"), Some(at(2))),
+            (Some("mid"), Some(at(3))),
+            (Some("top"), Some(at(4)))
+        ]
+    );
+    assert_eq!(location.backtrace.omitted, 0);
+}
+
+#[test]
+fn a_stop_at_every_fuel_bound_has_the_marks_of_its_context() {
+    // Out of fuel before each contraction of the same program: the marks
+    // grow one call at a time, the redex is always one of the program's.
+    let arena = Arena::new();
+    let program = Program::new(three_deep(&arena)).unwrap();
+    let total = Stepper::new().run(&program, &Limits::default()).counts.total();
+    let mut depths = Vec::new();
+    for fuel in 0..total {
+        let report = Stepper::new().run(&program, &Limits::default().with_fuel(fuel));
+        assert_eq!(report.outcome, Outcome::OutOfFuel);
+        let location = report.location.unwrap();
+        depths.push(location.backtrace.depth());
+    }
+    // let, let, let, then β into top (depth 1), β into mid (2), β into dist
+    // (3), and the division (still 3).
+    assert_eq!(depths, [0, 0, 0, 0, 1, 2, 3]);
+}
+
+#[test]
+fn a_tail_call_takes_its_callers_mark() {
+    let arena = Arena::new();
+    let program = program(&arena, "let rec spin n = spin (n + 1) in spin 0");
+    for fuel in [1, 2, 3, 10, 1_001] {
+        let report = Stepper::new().run(&program, &Limits::default().with_fuel(fuel));
+        let depth = report.location.unwrap().backtrace.depth();
+        assert!(depth <= 1, "{depth} marks after {fuel} contractions");
+    }
+}
+
+#[test]
+fn a_deep_backtrace_keeps_its_ends_and_counts_the_middle() {
+    let arena = Arena::new();
+    let program = program(
+        &arena,
+        "let rec down n = if n == 0 then 1 / n else 1 + down (n - 1) in down 1000",
+    );
+    let report = Stepper::new().run(&program, &Limits::default());
+    let trace = report.location.unwrap().backtrace;
+    assert_eq!(trace.depth(), 1001);
+    assert_eq!(trace.frames.len(), 2 * crate::BACKTRACE_ENDS);
+    assert_eq!(trace.omitted, 1001 - 2 * crate::BACKTRACE_ENDS as u64);
+}
+
+#[test]
+fn a_value_has_no_location_and_a_paused_run_has_one() {
+    let arena = Arena::new();
+    let program = Program::new(three_deep(&arena)).unwrap();
+    let mut run = Stepper::new().start(&program, &Limits::default().with_fuel(5));
+    let paused = run.resume(0);
+    assert_eq!(paused.location.unwrap().backtrace.depth(), 2);
+    let ended = run.resume(100);
+    assert_eq!(ended.location.as_ref().unwrap().span, Some(at(1)));
+    assert_eq!(run.resume(0).location, ended.location);
+    let fine = program_value(&arena);
+    assert_eq!(Stepper::new().run(&fine, &Limits::default()).location, None);
+}
+
+fn program_value(arena: &Arena) -> Program {
+    program(arena, "let fee = 3 in fee + 1")
+}
+
+#[test]
+fn traced_redexes_carry_their_spans() {
+    let arena = Arena::new();
+    let program = Program::new(three_deep(&arena)).unwrap();
+    let mut seen = Vec::new();
+    Stepper::new().run_traced(&program, &Limits::default(), &mut |rule, redex| {
+        seen.push((rule, redex.span()));
+    });
+    // The three lets have no spans; the calls and the division do.
+    assert_eq!(
+        seen,
+        [
+            (Rule::Let, None),
+            (Rule::Let, None),
+            (Rule::Let, None),
+            (Rule::Beta, Some(at(4))),
+            (Rule::Beta, Some(at(3))),
+            (Rule::Beta, Some(at(2))),
+            (Rule::Prim, Some(at(1))),
+        ]
+    );
 }
