@@ -83,9 +83,12 @@
 //! the name), the lambdas of `\x y. e` (the whole lambda) and of
 //! `let f x y = e` (from `f` to the end of `e`).
 //!
-//! Functions are named for backtraces ([`crate::Term::name`]): `let f =
-//! \x. e`, `let f x y = e`, `let rec f x = e` and `rec f x. e` name the
-//! function `f`, each of its lambdas. Only lambdas are named.
+//! Functions are named for backtraces ([`crate::Term::name`]):
+//! `let f = \x. e`, `let f x y = e`, `let rec f x = e` and `rec f x. e`
+//! name the function `f`. The sugared forms name each lambda of the curried
+//! chain; in `let f = \x y. e` the outer lambda is named and a program
+//! gives its name to the rest of the chain ([`crate::Arena::named`]). Only
+//! lambdas are named: `let n = 5` names nothing.
 
 mod lexer;
 mod parser;
@@ -217,14 +220,15 @@ pub fn excerpt(source: &str, span: Span) -> String {
     };
     let cols = EXCERPT_COLUMNS as u64;
     let total: u64 = line.chars().map(|c| u64::from(char_width(c))).sum();
-    let mut caret = u64::from(span.col.max(1) - 1);
+    // A column past the line's end (the end of the input) puts the caret
+    // just after it.
+    let caret = u64::from(span.col.max(1) - 1).min(total);
     // The window of display columns shown: the whole line, or `cols` of it
     // with the caret a third of the way in (or as far in as the line's end
     // makes it).
     let (lo, hi) = if total <= cols {
         (0, total)
     } else {
-        caret = caret.min(total);
         let lo = caret.saturating_sub(cols / 3).min(total - cols);
         (lo, lo + cols)
     };
@@ -263,7 +267,7 @@ pub fn excerpt(source: &str, span: Span) -> String {
     if cut {
         text.push('…');
     }
-    // A caret past the line's end (the end of the input) sits after it.
+    // A caret at the line's end sits after it.
     marks.extend(std::iter::repeat(' ').take(caret.saturating_sub(padded) as usize));
     let room = hi.saturating_sub(caret).max(1);
     let carets = underline_width(source, span).min(room);
