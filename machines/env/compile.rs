@@ -191,6 +191,9 @@ pub(crate) struct Function {
 #[derive(Debug, Default)]
 pub(super) struct Compiled {
     pub(super) code: Vec<Instr>,
+    /// Per instruction, the image node it was compiled from ([`NONE`] for
+    /// an atom), read only where a run stops, for its location.
+    pub(super) origin: Vec<Id>,
     /// Operand, field and argument lists.
     pub(super) lists: Vec<CodeId>,
     pub(super) fetches: Vec<Fetch>,
@@ -208,6 +211,7 @@ impl Compiled {
     /// Bytes of compiled code, as the memory limit counts them.
     pub(super) fn bytes(&self) -> usize {
         self.code.capacity() * size_of::<Instr>()
+            + self.origin.capacity() * size_of::<Id>()
             + self.lists.capacity() * size_of::<CodeId>()
             + self.fetches.capacity() * size_of::<Fetch>()
             + self.bodies.capacity() * size_of::<CodeId>()
@@ -226,6 +230,7 @@ impl Compiled {
 
     fn clear(&mut self) {
         self.code.clear();
+        self.origin.clear();
         self.lists.clear();
         self.fetches.clear();
         self.bodies.clear();
@@ -255,7 +260,8 @@ const KEEP_BYTES: usize = 64 << 10;
 pub(super) enum CompileJob {
     Visit { node: Id, depth: u32, tail: bool },
     Build { node: Id, depth: u32 },
-    Spine { len: u32, tail: bool },
+    /// A spine of `len` arguments whose outermost application is `node`.
+    Spine { len: u32, tail: bool, node: Id },
 }
 
 /// A compiled child: an atom not yet emitted (its parent may take it in),
@@ -428,13 +434,19 @@ impl Compiler<'_, '_> {
         Ok(())
     }
 
-    fn emit(&mut self, instr: Instr) -> Result<CodeId, Halt> {
+    /// Append `instr`, compiled from image node `node`.
+    fn emit(&mut self, instr: Instr, node: Id) -> Result<CodeId, Halt> {
         if self.c.code.len() == self.c.code.capacity() {
             let held = self.held();
             grow(&mut self.c.code, 1, held, self.budget)?;
         }
+        if self.c.origin.len() == self.c.origin.capacity() {
+            let held = self.held();
+            grow(&mut self.c.origin, 1, held, self.budget)?;
+        }
         let id = self.c.code.len() as CodeId;
         self.c.code.push(instr);
+        self.c.origin.push(node);
         Ok(id)
     }
 
@@ -469,7 +481,7 @@ impl Compiler<'_, '_> {
     fn code(&mut self, item: CompileItem) -> Result<CodeId, Halt> {
         match item {
             CompileItem::Code(id) => Ok(id),
-            CompileItem::Atom(atom) => self.emit(Instr::Atom(atom)),
+            CompileItem::Atom(atom) => self.emit(Instr::Atom(atom), NONE),
         }
     }
 
@@ -486,7 +498,7 @@ impl Compiler<'_, '_> {
             match job {
                 CompileJob::Visit { node, depth, tail } => self.visit(node, depth, tail)?,
                 CompileJob::Build { node, depth } => self.build(node, depth)?,
-                CompileJob::Spine { len, tail } => self.spine(len, tail)?,
+                CompileJob::Spine { len, tail, node } => self.spine(len, tail, node)?,
             }
         }
         let item = self.w.done.pop().ok_or_else(broken)?;
@@ -635,7 +647,11 @@ impl Compiler<'_, '_> {
             head = f;
         }
         self.budget.work(u64::from(len))?;
-        self.job(CompileJob::Spine { len, tail })?;
+        self.job(CompileJob::Spine {
+            len,
+            tail,
+            node: id,
+        })?;
         if self.w.jobs.capacity() - self.w.jobs.len() < len as usize + 1 {
             let held = self.held();
             grow(&mut self.w.jobs, len as usize + 1, held, self.budget)?;
@@ -657,9 +673,15 @@ impl Compiler<'_, '_> {
         Ok(())
     }
 
-    /// The application of `function` to `argument`, with the shortcuts for
-    /// atoms.
-    fn app(&mut self, function: CompileItem, argument: CompileItem, tail: bool) -> Result<CodeId, Halt> {
+    /// The application of `function` to `argument`, image node `node`, with
+    /// the shortcuts for atoms.
+    fn app(
+        &mut self,
+        function: CompileItem,
+        argument: CompileItem,
+        tail: bool,
+        node: Id,
+    ) -> Result<CodeId, Halt> {
         let instr = match (function, argument) {
             (CompileItem::Atom(function), CompileItem::Atom(argument)) => Instr::AppAtoms {
                 function,
@@ -682,12 +704,23 @@ impl Compiler<'_, '_> {
                 tail,
             },
         };
-        self.emit(instr)
+        self.emit(instr, node)
     }
 
-    /// Build a spine of `len` arguments from its compiled head and
-    /// arguments (on top of `done`).
-    fn spine(&mut self, len: u32, tail: bool) -> Result<(), Halt> {
+    /// Build a spine of `len` arguments, outermost application `node`,
+    /// from its compiled head and arguments (on top of `done`).
+    fn spine(&mut self, len: u32, tail: bool, node: Id) -> Result<(), Halt> {
+        // The applications, innermost (`h a₁`) first, counted while held.
+        let held = self.held().saturating_add(len as usize * size_of::<Id>());
+        self.budget.check_memory(held)?;
+        let mut apps: Vec<Id> = Vec::with_capacity(len as usize);
+        let mut at_node = node;
+        while let Some(&INode::App(f, _)) = self.image.nodes.get(at_node as usize) {
+            apps.push(at_node);
+            at_node = f;
+        }
+        apps.reverse();
+        let app_node = |k: u32| apps.get(k as usize).copied().unwrap_or(NONE);
         let at = self
             .w
             .done
@@ -704,7 +737,12 @@ impl Compiler<'_, '_> {
                 let mut fallback = head;
                 for k in 0..m {
                     let a = arg(self.w, k);
-                    fallback = CompileItem::Code(self.app(fallback, a, tail && k + 1 == len)?);
+                    fallback = CompileItem::Code(self.app(
+                        fallback,
+                        a,
+                        tail && k + 1 == len,
+                        app_node(k),
+                    )?);
                 }
                 self.reserve_lists(m as usize)?;
                 let start = self.c.lists.len() as u32;
@@ -722,13 +760,18 @@ impl Compiler<'_, '_> {
                     tail: tail && m == len,
                     fallback,
                 };
-                function = CompileItem::Code(self.emit(instr)?);
+                function = CompileItem::Code(self.emit(instr, app_node(m - 1))?);
                 next = m;
             }
         }
         for k in next..len {
             let a = arg(self.w, k);
-            function = CompileItem::Code(self.app(function, a, tail && k + 1 == len)?);
+            function = CompileItem::Code(self.app(
+                function,
+                a,
+                tail && k + 1 == len,
+                app_node(k),
+            )?);
         }
         self.w.done.truncate(at);
         self.done(function)
@@ -850,7 +893,7 @@ impl Compiler<'_, '_> {
             }
             _ => return Err(broken()),
         };
-        let code = self.emit(instr)?;
+        let code = self.emit(instr, id)?;
         self.done(CompileItem::Code(code))
     }
 
@@ -908,12 +951,15 @@ impl Compiler<'_, '_> {
             }
             self.w.pending.push(func);
         }
-        self.emit(Instr::Closure {
-            func,
-            fetch: Span {
-                start,
-                len: runs.len() as u32,
+        self.emit(
+            Instr::Closure {
+                func,
+                fetch: Span {
+                    start,
+                    len: runs.len() as u32,
+                },
             },
-        })
+            f.head,
+        )
     }
 }

@@ -53,6 +53,7 @@ use run::{Interpreter, Stacks};
 use std::sync::Arc;
 
 use crate::budget::{Budget, Halt};
+use crate::span::Trail;
 use crate::vocabulary::{Build, Machine};
 use crate::{Counts, Limits, Outcome, Program, Report};
 
@@ -145,17 +146,22 @@ impl Machine for Env {
                     .with_memory(usize::MAX),
             )
         };
-        let result = self.evaluate(program, &mut budget);
+        let (result, trail) = self.evaluate(program, &mut budget);
         self.peak = budget.peak;
-        let outcome = match result {
-            Ok(value) => Outcome::Value(value),
-            Err(halt) => halt.outcome(limits.memory),
+        let (outcome, location) = match result {
+            Ok(value) => (Outcome::Value(value), None),
+            Err(Halt::Fault(f)) => (Outcome::Fault(*f), None),
+            Err(halt) => {
+                // A run stopped while compiling has no trail: no redex yet.
+                let trail = trail.unwrap_or_else(|| Trail::new(crate::image::NONE));
+                (halt.outcome(limits.memory), Some(program.image().location(&trail)))
+            }
         };
         let counts: Counts = budget.counts;
         Report {
             outcome,
             counts,
-            location: None,
+            location,
         }
     }
 }
@@ -163,18 +169,26 @@ impl Machine for Env {
 impl Env {
     /// Compile `program` (once: the code is kept with the program, for every
     /// run and thread) and run it under `budget`, reading its value back.
-    fn evaluate(&mut self, program: &Program, budget: &mut Budget) -> Result<crate::Value, Halt> {
+    fn evaluate(
+        &mut self,
+        program: &Program,
+        budget: &mut Budget,
+    ) -> (Result<crate::Value, Halt>, Option<Trail>) {
         // The image and the code are the program's, prepared once and held
         // by the caller: not this run's memory, except while this run
         // compiles (its budget then bounds the code and the compiler's work).
         let image = program.image();
         // A program is compiled once, so the compiler's work lists live
         // only while it compiles: a run holds only what it uses.
-        let code: Arc<Compiled> = program.prepared(|| {
+        let code: Result<Arc<Compiled>, Halt> = program.prepared(|| {
             let mut code = Compiled::default();
             let mut workspace = Workspace::default();
             compile::compile(image, &mut code, &mut workspace, budget, 0).map(|()| code)
-        })?;
+        });
+        let code = match code {
+            Ok(code) => code,
+            Err(halt) => return (Err(halt), None),
+        };
         let scratch = &mut self.scratch;
         let host = program.host();
         let args = program.args();

@@ -17,7 +17,7 @@ use crate::error::EvalError;
 use crate::vocabulary::{Counts, Rule};
 use crate::budget::{Budget, Halt};
 use crate::prim::HostId;
-use crate::image::{INode, Image, Tags};
+use crate::image::{INode, Id, Image, Tags, NONE};
 use crate::machines::runtime::host::host_call;
 use crate::machines::runtime::prims::{int_prim, int_test, prim_contraction};
 use crate::machines::runtime::readback::read_back;
@@ -26,7 +26,19 @@ use crate::machines::runtime::value::{
 };
 use crate::prim::Prim;
 
+use crate::span::Trail;
 use crate::{HostFunctions, Limits};
+
+/// `$e`'s value, or a return of its halt with the stop recorded at image
+/// node `$node` (evaluated only then, off the hot path).
+macro_rules! at {
+    ($run:ident, $e:expr, $node:expr) => {
+        match $e {
+            Ok(v) => v,
+            Err(halt) => return Err($run.stopped(halt, $node)),
+        }
+    };
+}
 
 impl Code for &Function {
     #[inline(always)]
@@ -109,10 +121,12 @@ impl Task {
     }
 }
 
-/// The frame and closure of a caller waiting for a call to return.
+/// The frame and closure of a caller waiting for a call to return, and the
+/// application that called it (its call mark; [`NONE`] at the top level).
 struct Caller<'c> {
     base: usize,
     closure: Option<Rc<Fun<'c>>>,
+    site: CodeId,
 }
 
 /// The emptied stacks of the last run, kept for the next. Their element
@@ -122,7 +136,7 @@ struct Caller<'c> {
 pub(super) struct Stacks {
     pub(super) stack: Vec<[usize; 2]>,
     tasks: Vec<Task>,
-    callers: Vec<[usize; 2]>,
+    callers: Vec<[usize; 3]>,
 }
 
 /// The state of one run.
@@ -139,6 +153,14 @@ pub(super) struct Interpreter<'c, 'h, const METERED: bool> {
     base: usize,
     /// The current function's closure (`None` at the top level).
     closure: Option<Rc<Fun<'c>>>,
+    /// The application whose call entered the current function ([`NONE`]
+    /// at the top level): with the closure, the current call mark.
+    site: CodeId,
+    /// Where the run stopped, once it has: the redex's image node.
+    redex: Id,
+    /// Whether the second of two contractions paid together is the one
+    /// the fuel ran out before.
+    second: bool,
     /// The run's budget, moved in for the run (one indirection less on
     /// every contraction) and handed back at its end.
     budget: Budget,
@@ -157,7 +179,8 @@ pub(super) struct Interpreter<'c, 'h, const METERED: bool> {
 impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
     /// Run `code` to its value and read it back as an owned value, with the
     /// stacks of `stacks` (emptied and kept again afterwards). The image and
-    /// the compiled code are the program's and not counted.
+    /// the compiled code are the program's and not counted. A run that
+    /// stops without a value also gives where it stopped.
     pub(super) fn evaluate(
         code: &'c Compiled,
         image: &'c Image,
@@ -165,7 +188,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
         args: &[crate::Datum<'static>],
         budget: &mut Budget,
         stacks: &mut Stacks,
-    ) -> Result<crate::Value, Halt> {
+    ) -> (Result<crate::Value, Halt>, Option<Trail>) {
         let kept = std::mem::take(stacks);
         let mut run = Interpreter::<METERED> {
             code,
@@ -176,6 +199,9 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
             callers: recycle(kept.callers),
             base: 0,
             closure: None,
+            site: NONE,
+            redex: NONE,
+            second: false,
             budget: std::mem::replace(budget, Budget::new(&Limits::default())),
             counts: [0; 6],
             tags: Tags::default(),
@@ -188,6 +214,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
             let held = run.held();
             read_back(&value, image, &run.tags, host, &mut run.budget, held)
         });
+        let trail = result.is_err().then(|| run.trail());
         *budget = std::mem::replace(&mut run.budget, Budget::new(&Limits::default()));
         let mut by_rule = budget.counts.to_array();
         for (n, mine) in by_rule.iter_mut().zip(run.counts) {
@@ -210,7 +237,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
             tasks: run.tasks,
             callers: recycle(run.callers),
         };
-        result
+        (result, trail)
     }
 
     /// The program's argument data as values, their cells charged like any
@@ -297,7 +324,9 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
     #[inline(always)]
     fn take2(&mut self, first: Rule, second: Rule) -> Result<(), Halt> {
         if METERED && !self.budget.tank.take2() {
+            self.second = false;
             self.take(first)?;
+            self.second = true;
             return self.take(second);
         }
         self.count(first);
@@ -359,6 +388,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
         self.callers.push(Caller {
             base: self.base,
             closure: self.closure.take(),
+            site: self.site,
         });
         self.task(Task::new(Task::RETURN, 0))
     }
@@ -556,9 +586,15 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
     /// evaluate next, or [`PUSHED`] when the call's value (a partial
     /// application) is on the stack.
     #[inline(always)]
-    fn call(&mut self, function: Val<'c>, argument: Val<'c>, tail: bool) -> Result<CodeId, Halt> {
+    fn call(
+        &mut self,
+        function: Val<'c>,
+        argument: Val<'c>,
+        tail: bool,
+        site: CodeId,
+    ) -> Result<CodeId, Halt> {
         match function {
-            Value::Fun(closure) => self.apply(closure, argument, tail),
+            Value::Fun(closure) => self.apply(closure, argument, tail, site),
             callee => self.not_a_function(callee),
         }
     }
@@ -573,13 +609,14 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
         Err(Halt::error(EvalError::not_a_function(operand)))
     }
 
-    /// [`Interpreter::call`] of a closure.
+    /// [`Interpreter::call`] of a closure, at application `site`.
     #[inline(never)]
     fn apply(
         &mut self,
         closure: Rc<Fun<'c>>,
         argument: Val<'c>,
         tail: bool,
+        site: CodeId,
     ) -> Result<CodeId, Halt> {
         let f: &'c Function = closure.code;
         let k = closure.applied;
@@ -593,9 +630,9 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
             return self.partial(closure, argument);
         }
         if k > 0 {
-            return self.enter_partial(closure, argument, tail);
+            return self.enter_partial(closure, argument, tail, site);
         }
-        self.enter(closure, argument, tail)
+        self.enter(closure, argument, tail, site)
     }
 
     /// Enter the body of an unapplied closure of a function of one
@@ -606,9 +643,11 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
         closure: Rc<Fun<'c>>,
         argument: Val<'c>,
         tail: bool,
+        site: CodeId,
     ) -> Result<CodeId, Halt> {
         let f: &'c Function = closure.code;
         self.frame_for_call(f, tail)?;
+        self.site = site;
         if f.rec {
             self.stack.push(Value::Fun(Rc::clone(&closure)));
         }
@@ -654,9 +693,11 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
         closure: Rc<Fun<'c>>,
         argument: Val<'c>,
         tail: bool,
+        site: CodeId,
     ) -> Result<CodeId, Halt> {
         let f: &'c Function = closure.code;
         self.frame_for_call(f, tail)?;
+        self.site = site;
         self.push_given(&closure, f)?;
         self.stack.push(argument);
         self.pad(f.frame as usize);
@@ -779,18 +820,104 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                 Some(&Instr::Atom(atom)) => self.atom(atom).ok_or_else(broken)?,
                 Some(&Instr::Prim2 { op, a, b }) => match self.int_op(op, a, b) {
                     Some(v) => {
-                        self.take(Rule::Prim)?;
+                        at!(self, self.take(Rule::Prim), self.origin(id));
                         v
                     }
                     None => return self.spine_arg(at, k, id),
                 },
                 _ => return self.spine_arg(at, k, id),
             };
-            self.push(value)?;
-            self.spine_beta(k)?;
+            at!(self, self.push(value), self.origin(id));
+            at!(self, self.spine_beta(k), self.spine_app(at, k));
             k += 1;
         }
-        self.enter_spine(args.len, tail)
+        let entered = self.enter_spine(args.len, tail, at);
+        Ok(at!(self, entered, self.origin(at)))
+    }
+
+    /// The image node of the application to argument `k` of the spine at
+    /// `at` (`k` from 0, the innermost): the redex of its contraction.
+    #[cold]
+    fn spine_app(&self, at: CodeId, k: u32) -> Id {
+        let Some(&Instr::AppN { args, .. }) = self.code.code.get(at as usize) else {
+            return NONE;
+        };
+        // The spine's node is the application to its last argument.
+        let mut node = self.origin(at);
+        for _ in k + 1..args.len {
+            match self.image.nodes.get(node as usize) {
+                Some(&INode::App(f, _)) => node = f,
+                _ => return NONE,
+            }
+        }
+        node
+    }
+
+    /// The condition and the `if` of the `Instr::IfPrim2` at `at`, as image
+    /// nodes: the redexes of its two contractions.
+    #[cold]
+    fn if_parts(&self, at: CodeId) -> (Id, Id) {
+        let node = self.origin(at);
+        let condition = match self.image.nodes.get(node as usize) {
+            Some(&INode::If(c, ..)) => c,
+            _ => NONE,
+        };
+        if self.second {
+            (condition, node)
+        } else {
+            (condition, condition)
+        }
+    }
+
+    /// The image node of the `i`-th integer operation (from 0) that the
+    /// comparison at `condition` makes in its operands.
+    #[cold]
+    fn compared(&self, condition: CodeId, i: u32) -> Id {
+        let code = self.code;
+        let Some(&Instr::Prim { operands, .. }) = code.code.get(condition as usize) else {
+            return NONE;
+        };
+        let made = code
+            .lists
+            .get(operands.range())
+            .unwrap_or(&[])
+            .iter()
+            .filter(|&&o| matches!(code.code.get(o as usize), Some(Instr::Prim2 { .. })));
+        made.copied().nth(i as usize).map_or(NONE, |o| self.origin(o))
+    }
+
+    /// The image node instruction `code` was compiled from.
+    #[inline]
+    fn origin(&self, code: CodeId) -> Id {
+        self.code.origin.get(code as usize).copied().unwrap_or(NONE)
+    }
+
+    /// Record that the run stopped by `halt` at image node `node` (the
+    /// innermost record wins: it is made first).
+    #[cold]
+    #[inline(never)]
+    fn stopped(&mut self, halt: Halt, node: Id) -> Halt {
+        if self.redex == NONE {
+            self.redex = node;
+        }
+        halt
+    }
+
+    /// Where the run stopped: its redex, then the call marks of the current
+    /// function and of each caller waiting, innermost first (the top level
+    /// has none).
+    fn trail(&self) -> Trail {
+        let mut trail = Trail::new(self.redex);
+        let mut mark = |closure: &Option<Rc<Fun<'c>>>, site: CodeId| {
+            if let Some(c) = closure {
+                trail.push(self.origin(site), self.image.last_lam(c.code.func));
+            }
+        };
+        mark(&self.closure, self.site);
+        for caller in self.callers.iter().rev() {
+            mark(&caller.closure, caller.site);
+        }
+        trail
     }
 
     /// Evaluate argument `k` of the spine at `at`, code `id`, and come back.
@@ -838,7 +965,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
     /// arguments): they become the new frame, after self (of a μλ) and the
     /// arguments a partial application held, replacing the caller's frame
     /// in tail position.
-    fn enter_spine(&mut self, m: u32, tail: bool) -> Result<CodeId, Halt> {
+    fn enter_spine(&mut self, m: u32, tail: bool, site: CodeId) -> Result<CodeId, Halt> {
         let at = self.top(m + 1)?;
         if tail && at < self.base {
             return Err(broken());
@@ -876,6 +1003,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
         }
         self.pad(frame);
         self.closure = Some(closure);
+        self.site = site;
         Ok(f.body)
     }
 
@@ -994,7 +1122,8 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
         // The program applied to its arguments: once the root is a value,
         // push the first argument and call, then the next.
         for k in (0..self.args.len()).rev() {
-            self.tasks.push(Task::new(Task::CALL, 0));
+            // Applications the program has no node for: no call site.
+            self.tasks.push(Task::new(Task::CALL, NONE));
             self.tasks.push(Task::new(Task::PUSH_ARG, k as CodeId));
         }
         let mut pc = code.root;
@@ -1006,12 +1135,12 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                 };
                 match *instr {
                     Instr::Atom(atom) => {
-                        self.push_atom(atom)?;
+                        at!(self, self.push_atom(atom), NONE);
                         break;
                     }
                     Instr::Closure { func, fetch } => {
-                        let made = self.closure_of(func, fetch)?;
-                        self.push(made)?;
+                        let made = at!(self, self.closure_of(func, fetch), self.origin(pc));
+                        at!(self, self.push(made), self.origin(pc));
                         break;
                     }
                     Instr::App {
@@ -1020,12 +1149,12 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                         tail,
                     } => {
                         let call = if tail { Task::TAIL_CALL } else { Task::CALL };
-                        self.task(Task::new(call, 0))?;
-                        self.task(Task::new(Task::EVAL, argument))?;
+                        at!(self, self.task(Task::new(call, pc)), self.origin(pc));
+                        at!(self, self.task(Task::new(Task::EVAL, argument)), self.origin(pc));
                         pc = function;
                     }
                     Instr::AppAtomArgument { function, .. } => {
-                        self.task(Task::new(Task::CALL_ATOM, pc))?;
+                        at!(self, self.task(Task::new(Task::CALL_ATOM, pc)), self.origin(pc));
                         pc = function;
                     }
                     Instr::AppAtomFunction {
@@ -1034,17 +1163,17 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                         tail,
                     } => {
                         if let Some(v) = self.int_argument(argument) {
-                            self.take(Rule::Prim)?;
+                            at!(self, self.take(Rule::Prim), self.origin(argument));
                             let f = self.atom(function).ok_or_else(broken)?;
-                            pc = self.call(f, v, tail)?;
+                            pc = at!(self, self.call(f, v, tail, pc), self.origin(pc));
                             if pc == PUSHED {
                                 break;
                             }
                             continue;
                         }
-                        self.push_atom(function)?;
+                        at!(self, self.push_atom(function), self.origin(pc));
                         let call = if tail { Task::TAIL_CALL } else { Task::CALL };
-                        self.task(Task::new(call, 0))?;
+                        at!(self, self.task(Task::new(call, pc)), self.origin(pc));
                         pc = argument;
                     }
                     Instr::AppAtoms {
@@ -1056,7 +1185,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                             self.atom(function).ok_or_else(broken)?,
                             self.atom(argument).ok_or_else(broken)?,
                         );
-                        pc = self.call(f, a, tail)?;
+                        pc = at!(self, self.call(f, a, tail, pc), self.origin(pc));
                         if pc == PUSHED {
                             break;
                         }
@@ -1068,7 +1197,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                         ..
                     } => {
                         if self.enters_directly(function, args.len) {
-                            self.push_atom(function)?;
+                            at!(self, self.push_atom(function), self.origin(pc));
                             pc = self.spine(pc, 0)?;
                         } else {
                             pc = fallback;
@@ -1076,39 +1205,43 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                     }
                     Instr::IfPrim2 { op, a, b, yes, no } => {
                         if let Some(holds) = self.int_condition(op, a, b) {
-                            self.take2(Rule::Prim, Rule::If)?;
+                            at!(self, self.take2(Rule::Prim, Rule::If), self.if_parts(pc).1);
                             pc = if holds { yes } else { no };
                             continue;
                         }
-                        let condition = self.prim2(op, a, b)?;
-                        self.take(Rule::If)?;
-                        pc = self.branch(condition, yes, no)?;
+                        let condition = at!(self, self.prim2(op, a, b), self.if_parts(pc).0);
+                        at!(self, self.take(Rule::If), self.origin(pc));
+                        pc = at!(self, self.branch(condition, yes, no), self.origin(pc));
                     }
                     Instr::Prim1 { op, a } => {
                         let a = self.atom(a).ok_or_else(broken)?;
-                        let v = self.prim(op, &[a])?;
-                        self.push(v)?;
+                        let v = at!(self, self.prim(op, &[a]), self.origin(pc));
+                        at!(self, self.push(v), self.origin(pc));
                         break;
                     }
                     Instr::Prim2 { op, a, b } => {
-                        let v = self.prim2(op, a, b)?;
-                        self.push(v)?;
+                        let v = at!(self, self.prim2(op, a, b), self.origin(pc));
+                        at!(self, self.push(v), self.origin(pc));
                         break;
                     }
                     Instr::Let { bound, .. } => {
-                        self.task(Task::new(Task::BIND, pc))?;
+                        at!(self, self.task(Task::new(Task::BIND, pc)), self.origin(pc));
                         pc = bound;
                     }
                     Instr::If { condition, yes, no } => {
                         if let Some((holds, inner)) = self.int_comparison(condition) {
-                            for _ in 0..inner {
-                                self.take(Rule::Prim)?;
+                            for i in 0..inner {
+                                at!(self, self.take(Rule::Prim), self.compared(condition, i));
                             }
-                            self.take2(Rule::Prim, Rule::If)?;
+                            at!(
+                                self,
+                                self.take2(Rule::Prim, Rule::If),
+                                if self.second { self.origin(pc) } else { self.origin(condition) }
+                            );
                             pc = if holds { yes } else { no };
                             continue;
                         }
-                        self.task(Task::new(Task::BRANCH, pc))?;
+                        at!(self, self.task(Task::new(Task::BRANCH, pc)), self.origin(pc));
                         pc = condition;
                     }
                     Instr::Prim { operands: list, .. } | Instr::Con { fields: list, .. } => {
@@ -1121,7 +1254,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                         // apply the primitive (build the constructor).
                         let list = code.lists.get(list.range()).ok_or_else(broken)?;
                         if METERED && self.tasks.capacity() - self.tasks.len() < list.len() + 1 {
-                            self.grow_tasks(list.len() + 1)?;
+                            at!(self, self.grow_tasks(list.len() + 1), self.origin(pc));
                         }
                         self.tasks.push(Task::new(then, pc));
                         let Some((&first, rest)) = list.split_first() else {
@@ -1133,7 +1266,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                         pc = first;
                     }
                     Instr::Case { scrutinee, .. } => {
-                        self.task(Task::new(Task::MATCH, pc))?;
+                        at!(self, self.task(Task::new(Task::MATCH, pc)), self.origin(pc));
                         pc = scrutinee;
                     }
                 }
@@ -1153,7 +1286,8 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                     kind @ (Task::CALL | Task::TAIL_CALL) => {
                         let argument = self.pop()?;
                         let function = self.pop()?;
-                        pc = self.call(function, argument, kind == Task::TAIL_CALL)?;
+                        let tail = kind == Task::TAIL_CALL;
+                        pc = at!(self, self.call(function, argument, tail, at), self.origin(at));
                         if pc != PUSHED {
                             continue 'eval;
                         }
@@ -1161,7 +1295,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                     }
                     Task::PUSH_ARG => {
                         let value = self.args.get(at as usize).cloned().ok_or_else(broken)?;
-                        self.push(value)?;
+                        at!(self, self.push(value), NONE);
                         continue;
                     }
                     Task::CALL_ATOM => {
@@ -1172,7 +1306,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                         };
                         let function = self.pop()?;
                         let argument = self.atom(argument).ok_or_else(broken)?;
-                        pc = self.call(function, argument, tail)?;
+                        pc = at!(self, self.call(function, argument, tail, at), self.origin(at));
                         if pc != PUSHED {
                             continue 'eval;
                         }
@@ -1180,7 +1314,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                     }
                     Task::SPINE_ARG => {
                         let k = task.index();
-                        self.spine_beta(k)?;
+                        at!(self, self.spine_beta(k), self.spine_app(at, k));
                         pc = self.spine(at, k + 1)?;
                         continue 'eval;
                     }
@@ -1191,6 +1325,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                         let caller = self.callers.pop().ok_or_else(broken)?;
                         self.base = caller.base;
                         self.closure = caller.closure;
+                        self.site = caller.site;
                         continue;
                     }
                     _ => {}
@@ -1200,22 +1335,22 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                 };
                 match *instr {
                     Instr::Let { slot, body, .. } => {
-                        self.take(Rule::Let)?;
+                        at!(self, self.take(Rule::Let), self.origin(at));
                         let value = self.pop()?;
                         self.set_local(slot, value)?;
                         pc = body;
                         continue 'eval;
                     }
                     Instr::If { yes, no, .. } => {
-                        self.take(Rule::If)?;
+                        at!(self, self.take(Rule::If), self.origin(at));
                         let condition = self.pop()?;
-                        pc = self.branch(condition, yes, no)?;
+                        pc = at!(self, self.branch(condition, yes, no), self.origin(at));
                         continue 'eval;
                     }
                     Instr::Prim { op, operands } => {
                         if operands.len == 2 {
                             if let Some(v) = self.int_operands(op) {
-                                self.take(Rule::Prim)?;
+                                at!(self, self.take(Rule::Prim), self.origin(at));
                                 self.stack.pop();
                                 if let Some(top) = self.stack.last_mut() {
                                     *top = v;
@@ -1223,9 +1358,11 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                                 continue;
                             }
                         }
-                        self.apply_prim(op, operands.len)?;
+                        at!(self, self.apply_prim(op, operands.len), self.origin(at));
                     }
-                    Instr::Con { tag, fields } => self.build_con(tag, fields.len)?,
+                    Instr::Con { tag, fields } => {
+                        at!(self, self.build_con(tag, fields.len), self.origin(at))
+                    }
                     Instr::Case {
                         case,
                         bodies,
@@ -1233,8 +1370,8 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                         slot,
                         ..
                     } => {
-                        self.take(Rule::Case)?;
-                        pc = self.match_case(case, bodies, default, slot)?;
+                        at!(self, self.take(Rule::Case), self.origin(at));
+                        pc = at!(self, self.match_case(case, bodies, default, slot), self.origin(at));
                         continue 'eval;
                     }
                     _ => return Err(broken()),

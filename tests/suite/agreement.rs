@@ -12,7 +12,7 @@
 use orrery::{Arena, Arm, ErrorKind, Limits, Outcome, Prim, Program, Report, Rule, Term};
 use proptest::prelude::*;
 
-use crate::common::gen::{build, program};
+use crate::common::gen::{build, marked, program};
 use crate::common::harness::{reference, Harness};
 
 /// Fuel for the reference run: generated programs that have not ended by
@@ -36,7 +36,9 @@ proptest! {
     #[test]
     fn machines_agree_under_every_fuel_bound(g in program(), cut in any::<u64>()) {
         let arena = Arena::new();
-        let program = Program::new(build(&arena, &g, 0)).expect("generated programs are valid");
+        // Every node has a span and most functions a name, so the harness
+        // compares every machine's location and backtrace too.
+        let program = Program::new(marked(&arena, build(&arena, &g, 0))).expect("generated programs are valid");
         let mut h = Harness::new();
         let Some(full) = agree_at(&mut h, &program, FUEL) else {
             return h.into_result().map_err(TestCaseError::fail);

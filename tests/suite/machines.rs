@@ -429,11 +429,11 @@ fn a_growing_run_stops_at_the_memory_limit_barely_past_it() {
     // Frames of pending calls, constructors waiting for their fields, and
     // the cells of a list that grows forever, each with the most bytes a
     // call of it may cost (the stepper's collector keeps copies of a live
-    // list).
+    // list, and its context holds a call mark besides each pending frame).
     let growing = [
-        ("pending additions", "let rec deep n = 1 + deep (n + 1) in deep 0", 256),
-        ("pending additions of one", "let rec f n = 1 + f n in f 0", 256),
-        ("pending fields", "let rec f n = Cons(n, f (n + 1)) in f 0", 256),
+        ("pending additions", "let rec deep n = 1 + deep (n + 1) in deep 0", 384),
+        ("pending additions of one", "let rec f n = 1 + f n in f 0", 384),
+        ("pending fields", "let rec f n = Cons(n, f (n + 1)) in f 0", 384),
         (
             "a list",
             "let rec upto n acc = if n == 0 then acc else upto (n - 1) (Cons(n, acc)) in upto (0 - 1) Nil",
