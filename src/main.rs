@@ -1,13 +1,16 @@
 //! The `orrery` command line (SEMANTICS §6): run a program file on one machine or
 //! on all of them, print the outcome as text or JSON lines, and exit with a
-//! status that says how the run ended.
+//! status that says how the run ended. A run that stops without a value at
+//! a place in the program shows the place (`FILE:LINE:COL`, the line with
+//! the redex underlined) and the calls pending there, innermost first.
 
 use std::io::Write;
 use std::process::ExitCode;
 
+use orrery::syntax::excerpt;
 use orrery::{
-    disagreement_within, parse_bytes, print_limited, Arena, Limits, MachineKind, Outcome, Program,
-    Report, Rule, DEFAULT_FUEL, DEFAULT_MEMORY,
+    disagreement_within, parse_bytes, print_limited, Arena, Limits, Location, MachineKind, Outcome,
+    Program, Report, Rule, BACKTRACE_ENDS, DEFAULT_FUEL, DEFAULT_MEMORY,
 };
 
 /// Exit statuses of SEMANTICS §6.
@@ -25,6 +28,10 @@ mod status {
 
 /// Printed values longer than this are cut, with a marker.
 const VALUE_PRINT_LIMIT: usize = 1 << 20;
+
+/// How a backtrace names a function that has no name (one not bound by a
+/// `let` or `rec`).
+const UNNAMED: &str = "λ";
 
 /// A redex in a trace line is cut past this many bytes.
 #[cfg_attr(not(feature = "stepper"), allow(dead_code))]
@@ -181,21 +188,124 @@ fn json_line(machine: &str, report: &Report) -> String {
         .map(|r| format!("\"{}\":{}", r.name(), report.counts.get(*r)))
         .collect();
     line.push_str(&format!(
-        ",\"steps\":{},\"fuel\":{},\"rules\":{{{}}}}}",
+        ",\"steps\":{},\"fuel\":{},\"rules\":{{{}}}",
         report.counts.total(),
         report.counts.fuel(),
         rules.join(",")
     ));
+    if let Some(location) = stop_location(report) {
+        line.push_str(&json_location(location));
+    }
+    line.push('}');
     line
 }
 
-/// The human-readable report: the value on stdout, the rest on stderr.
+/// Where a run stopped, for the outcomes that have a place: an error, out
+/// of fuel, a limit (a machine that does not say gives `None`).
+fn stop_location(report: &Report) -> Option<&Location> {
+    match report.outcome {
+        Outcome::Error(_) | Outcome::OutOfFuel | Outcome::Limit(_) => report.location.as_ref(),
+        Outcome::Value(_) | Outcome::Fault(_) => None,
+    }
+}
+
+/// The JSON fields of a location, each with its leading comma:
+/// `"at":{"line":L,"col":C}` (or `null`), `"backtrace":[{"name":…,"line":…,"col":…}, …]`
+/// innermost first, and `"omitted":N`, the frames left out between the
+/// innermost and the outermost [`BACKTRACE_ENDS`].
+fn json_location(location: &Location) -> String {
+    let at = location.span.map_or_else(
+        || "null".to_string(),
+        |at| format!("{{\"line\":{},\"col\":{}}}", at.line, at.col),
+    );
+    let frames: Vec<String> = location
+        .backtrace
+        .frames
+        .iter()
+        .map(|frame| {
+            let name = frame
+                .name
+                .as_deref()
+                .map_or_else(|| "null".to_string(), json_string);
+            let (line, col) = frame.site.map_or_else(
+                || ("null".to_string(), "null".to_string()),
+                |site| (site.line.to_string(), site.col.to_string()),
+            );
+            format!("{{\"name\":{name},\"line\":{line},\"col\":{col}}}")
+        })
+        .collect();
+    format!(
+        ",\"at\":{at},\"backtrace\":[{}],\"omitted\":{}",
+        frames.join(","),
+        location.backtrace.omitted
+    )
+}
+
+/// A stop at a place, for a person: `FILE:LINE:COL: KIND: MESSAGE`, the
+/// source line with the redex underlined, then one line per pending call,
+/// innermost first, `    NAME at FILE:LINE:COL`, with a line counting the
+/// calls left out between the two ends of a deep backtrace.
+fn location_text(
+    file: &str,
+    source: &str,
+    kind: &str,
+    message: &str,
+    location: &Location,
+) -> String {
+    let mut out = match location.span {
+        Some(at) if at.line > 0 => format!(
+            "{file}:{}:{}: {kind}: {message}\n{}",
+            at.line,
+            at.col,
+            excerpt(source, at)
+        ),
+        _ => format!("{file}: {kind}: {message}\n"),
+    };
+    let backtrace = &location.backtrace;
+    for (i, frame) in backtrace.frames.iter().enumerate() {
+        if i == BACKTRACE_ENDS && backtrace.omitted > 0 {
+            let calls = if backtrace.omitted == 1 {
+                "call"
+            } else {
+                "calls"
+            };
+            out.push_str(&format!("    … {} more {calls} …\n", backtrace.omitted));
+        }
+        let name = frame.name.as_deref().unwrap_or(UNNAMED);
+        match frame.site {
+            Some(site) if site.line > 0 => out.push_str(&format!(
+                "    {name} at {file}:{}:{}\n",
+                site.line, site.col
+            )),
+            _ => out.push_str(&format!("    {name} at ?\n")),
+        }
+    }
+    out
+}
+
+/// The human-readable report: the value on stdout, the rest on stderr. A
+/// stop with a location names its place in `file` (whose text is `source`)
+/// and the pending calls.
 fn text_report(
     machine: &str,
     report: &Report,
+    (file, source): (&str, &str),
     stdout: &mut impl Write,
     stderr: &mut impl Write,
 ) -> std::io::Result<()> {
+    if let Some(location) = stop_location(report) {
+        let (kind, message) = match &report.outcome {
+            Outcome::Error(e) => (e.kind().name(), e.message().to_string()),
+            Outcome::Limit(l) => (l.kind().name(), l.message().to_string()),
+            _ => (
+                "out_of_fuel",
+                format!("out of fuel after {} contractions", report.counts.total()),
+            ),
+        };
+        let text = location_text(file, source, kind, &message, location);
+        write!(stderr, "{text}")?;
+        return writeln!(stderr, "{machine}: {}", report.counts);
+    }
     match &report.outcome {
         Outcome::Value(v) => writeln!(stdout, "{}", v.print_limited(VALUE_PRINT_LIMIT).text)?,
         Outcome::Error(e) => writeln!(
@@ -247,14 +357,15 @@ fn run(request: &Request) -> std::io::Result<u8> {
         let arena = Arena::new();
         parse_bytes(&arena, &source)
     };
+    let text = String::from_utf8_lossy(&source);
     let program = match parsed {
         Ok(program) => program,
         Err(e) => {
-            let text = String::from_utf8_lossy(&source);
             write!(stderr, "{}", e.render(&request.file, &text))?;
             return Ok(status::SYNTAX);
         }
     };
+    let source = (request.file.as_str(), &*text);
     // Every machine runs within the one memory limit: the first machine's
     // result is kept for the comparison, so the others get what it leaves,
     // and each later result is dropped once compared.
@@ -271,6 +382,7 @@ fn run(request: &Request) -> std::io::Result<u8> {
         request.json,
         first.name(),
         &reference,
+        source,
         &mut stdout,
         &mut stderr,
     )?;
@@ -284,6 +396,7 @@ fn run(request: &Request) -> std::io::Result<u8> {
             request.json,
             machine.name(),
             &report,
+            source,
             &mut stdout,
             &mut stderr,
         )?;
@@ -331,18 +444,20 @@ fn emit(
     json: bool,
     machine: &str,
     report: &Report,
+    source: (&str, &str),
     stdout: &mut impl Write,
     stderr: &mut impl Write,
 ) -> std::io::Result<()> {
     if json {
         writeln!(stdout, "{}", json_line(machine, report))
     } else {
-        text_report(machine, report, stdout, stderr)
+        text_report(machine, report, source, stdout, stderr)
     }
 }
 
 /// Run `program` on one machine, tracing the stepper's contractions on
-/// stderr if asked.
+/// stderr if asked: `[N] RULE: REDEX`, or `[N] LINE:COL RULE: REDEX` when
+/// the redex has a place in the source.
 fn run_one(machine: MachineKind, program: &Program, limits: &Limits, trace: bool) -> Report {
     #[cfg(feature = "stepper")]
     if trace && machine == MachineKind::Stepper {
@@ -354,8 +469,12 @@ fn run_one(machine: MachineKind, program: &Program, limits: &Limits, trace: bool
             &mut |rule, redex| {
                 n += 1;
                 let printed = print_limited(redex, TRACE_PRINT_LIMIT);
+                let place = match redex.span() {
+                    Some(at) if at.line > 0 => format!("{}:{} ", at.line, at.col),
+                    _ => String::new(),
+                };
                 // A closed stderr cannot stop the run; the outcome still counts.
-                let _ = writeln!(trace_out, "[{n}] {rule}: {}", printed.text);
+                let _ = writeln!(trace_out, "[{n}] {place}{rule}: {}", printed.text);
             },
         );
     }

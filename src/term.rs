@@ -397,17 +397,49 @@ impl Arena {
 
     #[inline]
     fn node<'a>(&'a self, node: Node<'a>, scope: u32) -> &'a Term<'a> {
-        let value = match node {
-            Node::Lam(_) | Node::RecLam(_) | Node::Int(_) | Node::Bool(_) | Node::Str(_) => true,
-            Node::Con(_, fields) => fields.iter().all(|f| f.value),
-            _ => false,
-        };
+        let value = is_value_node(&node);
         self.bump.alloc(Term {
             node,
             scope,
             value,
             mark: None,
         })
+    }
+
+    /// A node that carries `span` (and, for a function, `name`) from the
+    /// start: what `at` and `named` on a fresh [`Arena::term`] give, without
+    /// allocating the term twice. The text parser builds every node so.
+    pub(crate) fn term_at<'a>(
+        &'a self,
+        node: Node<'a>,
+        span: Span,
+        name: Option<&'a str>,
+    ) -> &'a Term<'a> {
+        let scope = scope_of(&node);
+        let value = is_value_node(&node);
+        let mark = self.bump.alloc(Mark {
+            span: Some(span),
+            name,
+        });
+        self.bump.alloc(Term {
+            node,
+            scope,
+            value,
+            mark: Some(mark),
+        })
+    }
+
+    /// [`Arena::named`] with a name already in this arena, so a name given to
+    /// several nodes is stored once.
+    pub(crate) fn named_as<'a>(&'a self, name: &'a str, term: &'a Term<'a>) -> &'a Term<'a> {
+        let span = term.span();
+        self.marked(
+            term,
+            Mark {
+                span,
+                name: Some(name),
+            },
+        )
     }
 
     /// A copy of `term` (the same node, the same children) that carries
@@ -702,6 +734,17 @@ impl Arena {
     /// Copy a slice of arms into the arena.
     pub(crate) fn arms<'a>(&'a self, arms: &[Arm<'a>]) -> &'a [Arm<'a>] {
         self.bump.alloc_slice_copy(arms)
+    }
+}
+
+/// Whether a node of this shape is a value (its fields' flags decide for a
+/// constructor).
+#[inline]
+fn is_value_node(node: &Node<'_>) -> bool {
+    match node {
+        Node::Lam(_) | Node::RecLam(_) | Node::Int(_) | Node::Bool(_) | Node::Str(_) => true,
+        Node::Con(_, fields) => fields.iter().all(|f| f.value),
+        _ => false,
     }
 }
 

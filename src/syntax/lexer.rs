@@ -1,9 +1,12 @@
 //! The lexer of the text syntax: a hand-written maximal-munch scanner over bytes
 //! (Aho, Lam, Sethi and Ullman, *Compilers: Principles, Techniques, and Tools*,
 //! 2nd ed., 2006, ch. 3), producing one token at a time with names borrowed from
-//! the source.
+//! the source. Names follow Unicode Standard Annex #31 (*Unicode Identifiers
+//! and Syntax*, revision 39, 2023, §2, Default Identifiers: `XID_Start` then
+//! `XID_Continue`), read from the tables of the `unicode-ident` crate; each
+//! token's line and display column are kept as the scanner moves.
 
-use super::Failure;
+use super::{char_width, Failure};
 
 /// The keywords of the syntax.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -64,11 +67,12 @@ pub(super) fn is_keyword(word: &str) -> bool {
 /// A token's kind, with the source text it stands for where that matters.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub(super) enum Tok<'s> {
-    /// A lower-case name other than `_` and the keywords.
+    /// A name (its first character not upper case) other than `_` and the
+    /// keywords.
     Name(&'s str),
     /// `_` on its own: a binder that cannot be referred to, or the default arm.
     Underscore,
-    /// A capitalised constructor name.
+    /// A constructor name: a name whose first character is upper case.
     Con(&'s str),
     /// The digits of an integer literal (without sign).
     Int(&'s str),
@@ -147,35 +151,124 @@ impl Tok<'_> {
     }
 }
 
-/// A token and the byte range of the source it covers.
+/// A place in the source: a byte offset and its 1-based line and display
+/// column.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub(super) struct Pos {
+    pub(super) byte: usize,
+    pub(super) line: u32,
+    pub(super) col: u32,
+}
+
+/// A token, the byte range of the source it covers, and where it starts.
 #[derive(Clone, Copy, Debug)]
 pub(super) struct Token<'s> {
     pub(super) tok: Tok<'s>,
     pub(super) start: usize,
     pub(super) end: usize,
+    pub(super) line: u32,
+    pub(super) col: u32,
 }
 
-/// The scanner: a position in the source and a buffer for the value of the
-/// latest string literal that had escapes.
+impl Token<'_> {
+    /// Where the token starts.
+    pub(super) fn pos(&self) -> Pos {
+        Pos {
+            byte: self.start,
+            line: self.line,
+            col: self.col,
+        }
+    }
+}
+
+/// The scanner: a position in the source, the line and column of the
+/// latest token's start, and a buffer for the value of the latest string
+/// literal that had escapes.
 pub(super) struct Lexer<'s> {
     text: &'s str,
     bytes: &'s [u8],
     pos: usize,
+    /// Where the latest token started: the line and column are counted from
+    /// here to the next token's start, so the whole source is read once.
+    seen: Pos,
     buffer: String,
 }
 
-fn is_name_byte(b: u8) -> bool {
-    b.is_ascii_alphanumeric() || b == b'_' || b == b'\''
+/// The byte-order mark, skipped at the very start of the text.
+const BOM: &str = "\u{feff}";
+
+/// Whether `c` may continue a name: UAX #31's `XID_Continue`, or `'` (so
+/// `x'` is a name), but never `λ`, which is always the lambda.
+fn continues_name(c: char) -> bool {
+    if c.is_ascii() {
+        c.is_ascii_alphanumeric() || c == '_' || c == '\''
+    } else {
+        c != 'λ' && unicode_ident::is_xid_continue(c)
+    }
+}
+
+/// Whether `c` may start a name or a constructor: `_`, or UAX #31's
+/// `XID_Start` other than `λ`.
+fn starts_name(c: char) -> bool {
+    if c.is_ascii() {
+        c.is_ascii_alphabetic() || c == '_'
+    } else {
+        c != 'λ' && unicode_ident::is_xid_start(c)
+    }
 }
 
 impl<'s> Lexer<'s> {
     pub(super) fn new(text: &'s str) -> Self {
+        // Offsets count from the first byte of the text, the mark included;
+        // the mark is as wide as nothing, so the first column is still 1.
+        let pos = if text.starts_with(BOM) { BOM.len() } else { 0 };
         Lexer {
             text,
             bytes: text.as_bytes(),
-            pos: 0,
+            pos,
+            seen: Pos {
+                byte: pos,
+                line: 1,
+                col: 1,
+            },
             buffer: String::new(),
         }
+    }
+
+    /// The line and column of byte `to` (at or after the latest token's
+    /// start, at a character boundary), moving the count there.
+    fn locate(&mut self, to: usize) -> Pos {
+        let Pos {
+            byte,
+            mut line,
+            mut col,
+        } = self.seen;
+        let stretch = self.bytes.get(byte..to).unwrap_or(&[]);
+        if stretch.is_ascii() {
+            for &b in stretch {
+                if b == b'\n' {
+                    line = line.saturating_add(1);
+                    col = 1;
+                } else {
+                    col = col.saturating_add(1);
+                }
+            }
+        } else {
+            for c in self.text.get(byte..to).unwrap_or("").chars() {
+                if c == '\n' {
+                    line = line.saturating_add(1);
+                    col = 1;
+                } else {
+                    col = col.saturating_add(char_width(c));
+                }
+            }
+        }
+        self.seen = Pos {
+            byte: to,
+            line,
+            col,
+        };
+        self.seen
     }
 
     /// The value of a string literal token: a slice of the source when it had
@@ -220,9 +313,25 @@ impl<'s> Lexer<'s> {
         }
     }
 
+    /// The character at byte `at`, if any.
+    fn char_at_byte(&self, at: usize) -> Option<char> {
+        self.text.get(at..).and_then(|rest| rest.chars().next())
+    }
+
+    /// The end of the name whose characters continue from byte `at`.
     fn name_end(&self, mut at: usize) -> usize {
-        while self.peek(at).is_some_and(is_name_byte) {
-            at += 1;
+        while let Some(&b) = self.bytes.get(at) {
+            if b.is_ascii() {
+                if !(b.is_ascii_alphanumeric() || b == b'_' || b == b'\'') {
+                    break;
+                }
+                at += 1;
+                continue;
+            }
+            match self.char_at_byte(at) {
+                Some(c) if continues_name(c) => at += c.len_utf8(),
+                _ => break,
+            }
         }
         at
     }
@@ -231,38 +340,52 @@ impl<'s> Lexer<'s> {
     pub(super) fn next_token(&mut self) -> Result<Token<'s>, Failure> {
         self.skip_trivia();
         let start = self.pos;
+        let Pos { line, col, .. } = self.locate(start);
         let Some(b) = self.peek(start) else {
             return Ok(Token {
                 tok: Tok::Eof,
                 start,
                 end: start,
+                line,
+                col,
             });
         };
         let next = self.peek(start + 1);
-        let (tok, len) = match b {
-            b'a'..=b'z' | b'_' => {
-                let end = self.name_end(start + 1);
-                let word = self.text.get(start..end).unwrap_or("");
-                let tok = match Keyword::from_word(word) {
+        // A name or constructor starts with `_` or a letter (`XID_Start`);
+        // a constructor's first character is upper case.
+        let first = match b {
+            b'a'..=b'z' | b'A'..=b'Z' | b'_' => Some(char::from(b)),
+            0x80.. => self.char_at_byte(start).filter(|&c| starts_name(c)),
+            _ => None,
+        };
+        if let Some(c) = first {
+            let end = self.name_end(start + c.len_utf8());
+            let word = self.text.get(start..end).unwrap_or("");
+            let tok = if c.is_uppercase() {
+                Tok::Con(word)
+            } else {
+                match Keyword::from_word(word) {
                     Some(k) => Tok::Keyword(k),
                     None if word == "_" => Tok::Underscore,
                     None => Tok::Name(word),
-                };
-                (tok, end - start)
-            }
-            b'A'..=b'Z' => {
-                let end = self.name_end(start + 1);
-                (
-                    Tok::Con(self.text.get(start..end).unwrap_or("")),
-                    end - start,
-                )
-            }
+                }
+            };
+            self.pos = end;
+            return Ok(Token {
+                tok,
+                start,
+                end,
+                line,
+                col,
+            });
+        }
+        let (tok, len) = match b {
             b'0'..=b'9' => {
                 let mut end = start + 1;
                 while self.peek(end).is_some_and(|c| c.is_ascii_digit()) {
                     end += 1;
                 }
-                if self.peek(end).is_some_and(is_name_byte) {
+                if self.char_at_byte(end).is_some_and(continues_name) {
                     return Err(Failure::new(
                         start,
                         "malformed integer literal: a number runs into a name",
@@ -319,7 +442,13 @@ impl<'s> Lexer<'s> {
         };
         let end = start + len;
         self.pos = end;
-        Ok(Token { tok, start, end })
+        Ok(Token {
+            tok,
+            start,
+            end,
+            line,
+            col,
+        })
     }
 
     /// Scan a string literal opening at `start`; returns whether it had escapes

@@ -34,8 +34,26 @@
 //! # Fine points
 //!
 //! - Whitespace is space, tab, carriage return and line feed; any other
-//!   character outside a string or comment is an error. Names and constructor
-//!   names are ASCII.
+//!   character outside a string, comment or name is an error. A UTF-8
+//!   byte-order mark at the very start of the text is skipped (byte offsets
+//!   still count from the text's first byte, the mark's three included).
+//! - Names are Unicode identifiers as Unicode Standard Annex #31 (*Unicode
+//!   Identifiers and Syntax*, revision 39, 2023, §2) defines them: a
+//!   character of `XID_Start` or `_`, then characters of `XID_Continue` (and
+//!   `'`, so `rate'` is a name), so `café`, `größe` and `温室` are names. A
+//!   name whose first character is upper case (`char::is_uppercase`:
+//!   `Épi`, `Ωmega`) is a constructor. Keywords are the ASCII words above.
+//!   `λ` is a letter to UAX #31 but here it is always the lambda, never part
+//!   of a name: `λx. x` is a function and `aλb` is `a`, a lambda and `b`.
+//! - Lines and columns (in [`SyntaxError`], in the [`Span`]s the parser puts
+//!   on every node, and for the carets of [`excerpt`]) count from 1. A
+//!   column is a display column: each character counts its width under
+//!   Unicode Standard Annex #11 (*East Asian Width*), from the tables of the
+//!   `unicode-width` crate, so a CJK character or an emoji counts 2 and a
+//!   combining mark 0; a tab and any other control character count 1 (a tab
+//!   is copied into the caret line, so the caret still lines up under any
+//!   tab stops). A sequence a terminal may draw as one picture (an emoji
+//!   joined by zero-width joiners) counts the sum of its characters.
 //! - `- 7` (with a space) and `-(7)` are negation; only `-7` is a literal.
 //!   Digits running straight into a name (`12abc`) are an error.
 //! - `_` alone binds a slot nothing can refer to (`\_ x. x`, `let _ = e in b`,
@@ -50,6 +68,27 @@
 //!   and nothing can be captured. `let f x = e` is printed as
 //!   `let a = \a. e` (the function is not in scope in its own body, so its
 //!   name and its parameter's are both level-numbered from the same depth).
+//!
+//! # Spans and names
+//!
+//! Every node the parser builds carries the [`Span`] of the source it comes
+//! from ([`crate::Term::span`]): file 0, its byte range, and the line and
+//! display column of its start. An application `f a b` is two nodes, `f a`
+//! and `f a b`, each from `f` to the end of its last argument; an operator
+//! `100 / n` spans from `100` to `n`; a `let` from `let` to the end of its
+//! body; parentheses belong to the span of what contains them, not of what
+//! they enclose. Nodes the syntax stands for without writing them get the
+//! span of what they stand for: `a && b`, `a || b` and `not a` (the `if`
+//! and its boolean), a built-in function passed as a value (its lambdas, at
+//! the name), the lambdas of `\x y. e` (the whole lambda) and of
+//! `let f x y = e` (from `f` to the end of `e`).
+//!
+//! Functions are named for backtraces ([`crate::Term::name`]):
+//! `let f = \x. e`, `let f x y = e`, `let rec f x = e` and `rec f x. e`
+//! name the function `f`. The sugared forms name each lambda of the curried
+//! chain; in `let f = \x y. e` the outer lambda is named and a program
+//! gives its name to the rest of the chain ([`crate::Arena::named`]). Only
+//! lambdas are named: `let n = 5` names nothing.
 
 mod lexer;
 mod parser;
@@ -57,15 +96,19 @@ mod printer;
 
 use std::fmt::Write as _;
 
+use unicode_width::UnicodeWidthChar;
+
 use crate::host::{HostFunctions, NO_HOST};
 use crate::prim::Prim;
 use crate::program::Program;
+use crate::span::Span;
 use crate::term::{Arena, Term};
 
 /// A syntax or name error, with the 1-based line and column where it was found.
 ///
-/// The column counts characters (Unicode scalar values), not bytes. `Display`
-/// writes `LINE:COL: message`; [`SyntaxError::render`] adds the file name, the
+/// The column is a display column (a CJK character or an emoji counts 2, a
+/// tab 1; see the module's fine points), not a byte count. `Display` writes
+/// `LINE:COL: message`; [`SyntaxError::render`] adds the file name, the
 /// offending line and a caret, as the command line prints it.
 ///
 /// # Examples
@@ -82,16 +125,17 @@ use crate::term::{Arena, Term};
 pub struct SyntaxError {
     /// 1-based line.
     pub line: u32,
-    /// 1-based column, in characters.
+    /// 1-based column, in display width.
     pub column: u32,
     /// What is wrong.
     pub message: String,
 }
 
 impl SyntaxError {
-    /// The error as a compiler would show it: `FILE:LINE:COL: message`, then the
-    /// offending line of `source`, then a caret under the column. Tabs before
-    /// the column are kept so that the caret lines up.
+    /// The error as a compiler would show it: `FILE:LINE:COL: message`, then
+    /// the offending line of `source` and a caret under the column, as
+    /// [`excerpt`] shows them (a long line is cut to a window around the
+    /// column). Every line ends with a newline.
     ///
     /// # Examples
     ///
@@ -102,28 +146,164 @@ impl SyntaxError {
     /// let err = parse(&arena, source).unwrap_err();
     /// assert_eq!(
     ///     err.render("fees.orr", source),
-    ///     "fees.orr:2:7: unexpected `*`, expected an expression\nfee * * 2\n      ^"
+    ///     "fees.orr:2:7: unexpected `*`, expected an expression\nfee * * 2\n      ^\n"
     /// );
     /// ```
     pub fn render(&self, file: &str, source: &str) -> String {
-        let index = usize::try_from(self.line.saturating_sub(1)).unwrap_or(usize::MAX);
-        let line = source.split('\n').nth(index).unwrap_or("");
-        let line = line.strip_suffix('\r').unwrap_or(line);
-        let mut out = format!(
-            "{file}:{}:{}: {}\n{line}\n",
-            self.line, self.column, self.message
-        );
-        let before = usize::try_from(self.column.saturating_sub(1)).unwrap_or(usize::MAX);
-        let mut chars = line.chars();
-        for _ in 0..before {
-            match chars.next() {
-                Some('\t') => out.push('\t'),
-                _ => out.push(' '),
-            }
-        }
-        out.push('^');
-        out
+        let at = Span::new(0, 0, 0).with_position(self.line, self.column);
+        format!(
+            "{file}:{}:{}: {}\n{}",
+            self.line,
+            self.column,
+            self.message,
+            excerpt(source, at)
+        )
     }
+}
+
+/// The most display columns of a source line that [`excerpt`] shows: a
+/// longer line is cut to a window of this many around the place pointed at.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{syntax::{excerpt, EXCERPT_COLUMNS}, Span};
+/// let line = "x".repeat(3 * EXCERPT_COLUMNS);
+/// let shown = excerpt(&line, Span::new(0, 0, 0).with_position(1, 100));
+/// assert!(shown.lines().next().unwrap().chars().count() <= EXCERPT_COLUMNS + 2);
+/// ```
+pub const EXCERPT_COLUMNS: usize = 80;
+
+/// The source line a span starts on, and under it a caret line: `^` under
+/// the span's first column and on across its display width (cut at the
+/// line's end, so a span over several lines underlines the rest of its
+/// first), or one `^` when the span is a bare position (`start == end`).
+/// Both lines end with a newline; a span with no line (0) gives `""`.
+///
+/// The span's `line` and `col` place the caret (as the parser counts them:
+/// display columns, see the module's fine points); its byte range, read in
+/// `source`, gives the underline's width. Tabs before the caret are copied
+/// into the caret line so that it lines up under any tab stops. A line wider
+/// than [`EXCERPT_COLUMNS`] is cut to that many columns around the caret,
+/// with `…` where it was cut, and the caret still under its character.
+/// Control characters other than tab are shown as `\u{FFFD}` (both are one
+/// column wide), so an excerpt cannot send a terminal escape sequences. This
+/// is what [`SyntaxError::render`] and the command line's runtime errors
+/// print.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{syntax::excerpt, Span};
+/// let source = "let share = \\n. 100 / n in\nshare 0";
+/// // `100 / n`: bytes 17..24, line 1, column 17.
+/// let span = Span::new(0, 17, 24).with_position(1, 17);
+/// assert_eq!(
+///     excerpt(source, span),
+///     "let share = \\n. 100 / n in\n                ^^^^^^^\n"
+/// );
+/// // A CJK name is two columns a character wide.
+/// let source = "let 温室 = 0 in 1 / 温室";
+/// let span = Span::new(0, 18, 28).with_position(1, 17); // `1 / 温室`
+/// assert_eq!(excerpt(source, span), format!("{source}\n{}^^^^^^^^\n", " ".repeat(16)));
+/// ```
+pub fn excerpt(source: &str, span: Span) -> String {
+    if span.line == 0 {
+        return String::new();
+    }
+    let index = usize::try_from(span.line - 1).unwrap_or(usize::MAX);
+    let line = source.split('\n').nth(index).unwrap_or("");
+    let line = line.strip_suffix('\r').unwrap_or(line);
+    let line = match index {
+        0 => line.strip_prefix('\u{feff}').unwrap_or(line),
+        _ => line,
+    };
+    let cols = EXCERPT_COLUMNS as u64;
+    let total: u64 = line.chars().map(|c| u64::from(char_width(c))).sum();
+    // A column past the line's end (the end of the input) puts the caret
+    // just after it.
+    let caret = u64::from(span.col.max(1) - 1).min(total);
+    // The window of display columns shown: the whole line, or `cols` of it
+    // with the caret a third of the way in (or as far in as the line's end
+    // makes it).
+    let (lo, hi) = if total <= cols {
+        (0, total)
+    } else {
+        let lo = caret.saturating_sub(cols / 3).min(total - cols);
+        (lo, lo + cols)
+    };
+    let mut text = String::new();
+    let mut marks = String::new();
+    if lo > 0 {
+        text.push('…');
+        marks.push(' ');
+    }
+    let (mut at, mut padded) = (0u64, lo);
+    let mut cut = false;
+    for c in line.chars() {
+        let width = u64::from(char_width(c));
+        let start = at;
+        at += width;
+        if start < lo {
+            continue;
+        }
+        if at > hi {
+            cut = true;
+            break;
+        }
+        text.push(if c.is_control() && c != '\t' {
+            '\u{FFFD}'
+        } else {
+            c
+        });
+        if start < caret {
+            match c {
+                '\t' => marks.push('\t'),
+                _ => marks.extend(std::iter::repeat(' ').take(width as usize)),
+            }
+            padded = at;
+        }
+    }
+    if cut {
+        text.push('…');
+    }
+    // A caret at the line's end sits after it.
+    marks.extend(std::iter::repeat(' ').take(caret.saturating_sub(padded) as usize));
+    let room = hi.saturating_sub(caret).max(1);
+    let carets = underline_width(source, span).min(room);
+    marks.extend(std::iter::repeat('^').take(carets as usize));
+    format!("{text}\n{marks}\n")
+}
+
+/// How many columns a span's underline takes: the display width of its
+/// bytes up to the end of its first line, at least 1.
+fn underline_width(source: &str, span: Span) -> u64 {
+    let range = usize::try_from(span.start)
+        .ok()
+        .zip(usize::try_from(span.end).ok());
+    let text = match range {
+        Some((start, end)) if start < end => source.get(start..end).unwrap_or(""),
+        _ => "",
+    };
+    let first = text.split('\n').next().unwrap_or("");
+    let first = first.strip_suffix('\r').unwrap_or(first);
+    first
+        .chars()
+        .map(|c| u64::from(char_width(c)))
+        .sum::<u64>()
+        .max(1)
+}
+
+/// The display width of a character, as columns are counted: its East Asian
+/// Width (Unicode Standard Annex #11) from the `unicode-width` crate's
+/// tables — 2 for wide and fullwidth characters, 0 for combining and other
+/// zero-width ones, else 1 — and 1 for a tab or any other control character.
+#[inline]
+pub(crate) fn char_width(c: char) -> u32 {
+    if c.is_ascii() {
+        return 1;
+    }
+    c.width().map_or(1, |w| u32::try_from(w).unwrap_or(1))
 }
 
 /// An error found at a byte offset of the source; turned into a
@@ -154,23 +334,20 @@ impl Failure {
     }
 }
 
-/// The 1-based line and character column of a byte offset.
+/// The 1-based line and display column of a byte offset (at a character
+/// boundary; the bytes before it are UTF-8, as far as an invalid encoding
+/// lets them be). Counts as the lexer's positions do.
 pub(crate) fn line_column(source: &[u8], offset: usize) -> (u32, u32) {
     let before = source.get(..offset).unwrap_or(source);
     let line_start = before
         .iter()
         .rposition(|&b| b == b'\n')
         .map_or(0, |i| i + 1);
-    let newlines = before.iter().filter(|&&b| b == b'\n').count();
-    // Count characters by their first bytes: UTF-8 continuation bytes are 0b10xxxxxx.
-    let chars = before
-        .get(line_start..)
-        .unwrap_or(&[])
-        .iter()
-        .filter(|&&b| b & 0xC0 != 0x80)
-        .count();
-    let clamp = |n: usize| u32::try_from(n.saturating_add(1)).unwrap_or(u32::MAX);
-    (clamp(newlines), clamp(chars))
+    let newlines = before.iter().filter(|&&b| b == b'\n').count() as u64;
+    let prefix = String::from_utf8_lossy(before.get(line_start..).unwrap_or(&[]));
+    let width: u64 = prefix.chars().map(|c| u64::from(char_width(c))).sum();
+    let clamp = |n: u64| u32::try_from(n.saturating_add(1)).unwrap_or(u32::MAX);
+    (clamp(newlines), clamp(width))
 }
 
 /// `LINE:COL` of a byte offset, for messages that point at a second place.

@@ -1,15 +1,18 @@
 //! The parser of the text syntax: Dijkstra's shunting-yard operator-precedence
 //! algorithm (1961) run inside an explicit pushdown automaton, one frame per
 //! open construct, so nesting depth costs heap, never native stack. Names become
-//! de Bruijn indices as they are read (Pierce, *TAPL*, 2002, §6.1).
+//! de Bruijn indices as they are read (Pierce, *TAPL*, 2002, §6.1). Every
+//! node is built with the span of its source text (see the module comment of
+//! `syntax`): each operand on the stack keeps the extent it was read from.
 
 use hashbrown::hash_map::Entry;
 use hashbrown::{HashMap, HashSet};
 use smallvec::SmallVec;
 
-use super::lexer::{Keyword, Lexer, Tok, Token};
+use super::lexer::{Keyword, Lexer, Pos, Tok, Token};
 use super::{place, Failure, Function, Functions};
 use crate::prim::Prim;
+use crate::span::Span;
 use crate::term::{Arena, Arm, Node, Term};
 
 type Parsed<T> = Result<T, Failure>;
@@ -36,12 +39,26 @@ enum OpKind {
     Not,
 }
 
-/// An operator waiting on the operator stack.
+/// An operator waiting on the operator stack, and where it is (a prefix
+/// operator's span starts there).
 #[derive(Clone, Copy, Debug)]
 struct Operator {
     kind: OpKind,
     precedence: u8,
-    at: usize,
+    at: Pos,
+}
+
+/// The span of the source from `from` to byte `end`, in file 0. Offsets
+/// past `u32::MAX` are clamped to it.
+fn span(from: Pos, end: usize) -> Span {
+    let clamp = |n: usize| u32::try_from(n).unwrap_or(u32::MAX);
+    Span {
+        file: 0,
+        start: clamp(from.byte),
+        end: clamp(end),
+        line: from.line,
+        col: from.col,
+    }
 }
 
 fn binary_operator(tok: Tok<'_>) -> Option<(OpKind, u8, Assoc)> {
@@ -87,15 +104,28 @@ fn starts_argument(tok: Tok<'_>) -> bool {
 }
 
 /// An entry of the operand stack: a term, or a named function still
-/// collecting its arguments (it becomes a primitive once saturated).
+/// collecting its arguments (it becomes a primitive once saturated), with
+/// the extent of the source it was read from (`from` to byte `end`; for a
+/// parenthesised operand, the parentheses included).
 #[derive(Clone, Debug)]
 enum Pending<'a> {
-    Term(&'a Term<'a>),
+    Term {
+        term: &'a Term<'a>,
+        from: Pos,
+        end: usize,
+    },
     Partial {
         function: Function,
-        args: SmallVec<[&'a Term<'a>; 2]>,
+        /// Each argument with the end of its source.
+        args: SmallVec<[(&'a Term<'a>, usize); 2]>,
+        /// Where the function's name is.
+        from: Pos,
+        name_end: usize,
     },
 }
+
+/// A term read from `from` to byte `end`.
+type Extent<'a> = (&'a Term<'a>, Pos, usize);
 
 /// What to do when the expression a frame is reading comes to its end.
 #[derive(Clone, Copy, Debug)]
@@ -104,41 +134,48 @@ enum Kind<'s, 'a> {
     Top,
     /// `( e )`, opened at `open`.
     Paren {
-        open: usize,
+        open: Pos,
     },
-    /// `\x1 … xn. e`.
+    /// `\x1 … xn. e`, the `\` at `from`.
     Lambda {
         params: u32,
+        from: Pos,
     },
-    /// `rec f x1 … xn. e`: μλ binds f and x1, then n−1 λs.
+    /// `rec f x1 … xn. e`: μλ binds f and x1, then n−1 λs; `rec` at `from`.
     Rec {
         params: u32,
+        name: Option<&'s str>,
+        from: Pos,
     },
-    /// `let [rec] name params = e` awaiting `in`.
+    /// `let [rec] name params = e` awaiting `in`: `let` at `keyword`, the
+    /// name at `def`.
     LetBound {
         name: Option<&'s str>,
         params: u32,
         rec: bool,
-        keyword: usize,
+        keyword: Pos,
+        def: Pos,
     },
     /// `let … in e`.
     LetBody {
         bound: &'a Term<'a>,
+        keyword: Pos,
     },
     IfCondition {
-        keyword: usize,
+        keyword: Pos,
     },
     IfThen {
         condition: &'a Term<'a>,
-        keyword: usize,
+        keyword: Pos,
     },
     IfElse {
         condition: &'a Term<'a>,
         then: &'a Term<'a>,
+        keyword: Pos,
     },
     /// `case e of`.
     Scrutinee {
-        keyword: usize,
+        keyword: Pos,
     },
     /// The body of an arm of the innermost open case; `None` is the `_` arm.
     ArmBody {
@@ -147,7 +184,7 @@ enum Kind<'s, 'a> {
     /// A field of `Tag( … )`; earlier fields are on the field stack from `base`.
     Field {
         tag: &'s str,
-        at: usize,
+        at: Pos,
         base: usize,
     },
 }
@@ -171,6 +208,8 @@ struct OpenCase<'a> {
     arms: usize,
     default: Option<&'a Term<'a>>,
     id: u32,
+    /// Where `case` is.
+    keyword: Pos,
 }
 
 /// A constructor tag seen in the program: its arena copy, arity and first use.
@@ -290,6 +329,8 @@ impl<'s, 'a> Parser<'s, 'a> {
                 tok: Tok::Eof,
                 start: 0,
                 end: 0,
+                line: 1,
+                col: 1,
             },
             functions,
             frames: Vec::new(),
@@ -334,8 +375,8 @@ impl<'s, 'a> Parser<'s, 'a> {
             } else if let Some((kind, precedence, assoc)) = binary_operator(tok) {
                 self.binary(kind, precedence, assoc)?;
             } else {
-                let term = self.finish_expression()?;
-                if let Some(done) = self.complete(term)? {
+                let expression = self.finish_expression()?;
+                if let Some(done) = self.complete(expression)? {
                     return Ok(done);
                 }
             }
@@ -372,14 +413,28 @@ impl<'s, 'a> Parser<'s, 'a> {
 
     // ----- operands -------------------------------------------------------
 
+    /// A node with the span `from`..`end`.
+    fn node(&self, node: Node<'a>, from: Pos, end: usize) -> &'a Term<'a> {
+        self.arena.term_at(node, span(from, end), None)
+    }
+
+    /// A leaf for the current token, which is then consumed and delivered.
+    fn leaf(&mut self, node: Node<'a>, from: Pos) -> Parsed<()> {
+        let end = self.token.end;
+        let term = self.node(node, from, end);
+        self.advance()?;
+        self.deliver(term, from, end)
+    }
+
     /// Read whatever starts at the current token in operand position: an atom,
     /// a prefix operator, or the start of a construct (which pushes a frame).
     fn operand(&mut self) -> Parsed<()> {
         let token = self.token;
+        let here = token.pos();
         match token.tok {
             Tok::Name(name) => {
                 self.advance()?;
-                self.name(name, token.start)
+                self.name(name, here, token.end)
             }
             Tok::Underscore => Err(Failure::new(
                 token.start,
@@ -388,57 +443,46 @@ impl<'s, 'a> Parser<'s, 'a> {
             Tok::Int(digits) => {
                 let value = integer(digits, false)
                     .ok_or_else(|| Failure::new(token.start, "integer literal out of range"))?;
-                self.advance()?;
-                self.deliver(self.arena.int(value))
+                self.leaf(Node::Int(value), here)
             }
             Tok::Str { .. } => {
-                let term = self.arena.string(self.lexer.string_value(&token));
-                self.advance()?;
-                self.deliver(term)
+                let value = self.arena.tag(self.lexer.string_value(&token));
+                self.leaf(Node::Str(value), here)
             }
-            Tok::Keyword(Keyword::True) => {
-                self.advance()?;
-                self.deliver(self.arena.boolean(true))
-            }
-            Tok::Keyword(Keyword::False) => {
-                self.advance()?;
-                self.deliver(self.arena.boolean(false))
-            }
+            Tok::Keyword(Keyword::True) => self.leaf(Node::Bool(true), here),
+            Tok::Keyword(Keyword::False) => self.leaf(Node::Bool(false), here),
             Tok::Con(tag) => {
                 self.advance()?;
                 let base = self.fields.len();
                 if self.token.tok != Tok::LParen {
-                    return self.constructor(tag, token.start, base);
+                    return self.constructor(tag, here, base, token.end);
                 }
                 self.advance()?;
                 if self.token.tok == Tok::RParen {
+                    let end = self.token.end;
                     self.advance()?;
-                    return self.constructor(tag, token.start, base);
+                    return self.constructor(tag, here, base, end);
                 }
                 self.push_frame(Kind::Field {
                     tag,
-                    at: token.start,
+                    at: here,
                     base,
                 });
                 Ok(())
             }
             Tok::LParen => {
                 self.advance()?;
-                self.push_frame(Kind::Paren { open: token.start });
+                self.push_frame(Kind::Paren { open: here });
                 Ok(())
             }
             Tok::Keyword(Keyword::Case) => {
                 self.advance()?;
-                self.push_frame(Kind::Scrutinee {
-                    keyword: token.start,
-                });
+                self.push_frame(Kind::Scrutinee { keyword: here });
                 Ok(())
             }
             Tok::Keyword(Keyword::If) => {
                 self.advance()?;
-                self.push_frame(Kind::IfCondition {
-                    keyword: token.start,
-                });
+                self.push_frame(Kind::IfCondition { keyword: here });
                 Ok(())
             }
             Tok::Lambda => {
@@ -448,7 +492,7 @@ impl<'s, 'a> Parser<'s, 'a> {
                     return Err(expected("a parameter name", &self.token));
                 }
                 self.expect(Tok::Dot, "`.` after the parameters")?;
-                self.push_frame(Kind::Lambda { params });
+                self.push_frame(Kind::Lambda { params, from: here });
                 Ok(())
             }
             Tok::Keyword(Keyword::Rec) => {
@@ -463,7 +507,11 @@ impl<'s, 'a> Parser<'s, 'a> {
                     ));
                 }
                 self.expect(Tok::Dot, "`.` after the parameters")?;
-                self.push_frame(Kind::Rec { params });
+                self.push_frame(Kind::Rec {
+                    params,
+                    name,
+                    from: here,
+                });
                 Ok(())
             }
             Tok::Keyword(Keyword::Let) => {
@@ -472,6 +520,7 @@ impl<'s, 'a> Parser<'s, 'a> {
                 if rec {
                     self.advance()?;
                 }
+                let def = self.token.pos();
                 let name = self.binder_name("a name after `let`")?;
                 if rec {
                     self.scope.push(name, token.start)?;
@@ -488,7 +537,8 @@ impl<'s, 'a> Parser<'s, 'a> {
                     name,
                     params,
                     rec,
-                    keyword: token.start,
+                    keyword: here,
+                    def,
                 });
                 Ok(())
             }
@@ -500,18 +550,17 @@ impl<'s, 'a> Parser<'s, 'a> {
                         let value = integer(digits, true).ok_or_else(|| {
                             Failure::new(token.start, "integer literal out of range")
                         })?;
-                        self.advance()?;
-                        self.deliver(self.arena.int(value))
+                        self.leaf(Node::Int(value), here)
                     }
                     _ => {
-                        self.push_prefix(OpKind::Negate, token.start);
+                        self.push_prefix(OpKind::Negate, here);
                         Ok(())
                     }
                 }
             }
             Tok::Keyword(Keyword::Not) if !self.frame()?.after_operand => {
                 self.advance()?;
-                self.push_prefix(OpKind::Not, token.start);
+                self.push_prefix(OpKind::Not, here);
                 Ok(())
             }
             _ => Err(match token.tok {
@@ -573,7 +622,7 @@ impl<'s, 'a> Parser<'s, 'a> {
         }
     }
 
-    fn push_prefix(&mut self, kind: OpKind, at: usize) {
+    fn push_prefix(&mut self, kind: OpKind, at: Pos) {
         self.operators.push(Operator {
             kind,
             precedence: UNARY,
@@ -581,46 +630,66 @@ impl<'s, 'a> Parser<'s, 'a> {
         });
     }
 
-    /// Resolve a name: the innermost local binder, else a named function.
-    fn name(&mut self, name: &'s str, at: usize) -> Parsed<()> {
+    /// Resolve a name read from `at` to byte `end`: the innermost local
+    /// binder, else a named function.
+    fn name(&mut self, name: &'s str, at: Pos, end: usize) -> Parsed<()> {
         if let Some(index) = self.scope.lookup(name) {
-            return self.deliver(self.arena.var(index));
+            return self.deliver(self.node(Node::Var(index), at, end), at, end);
         }
         let Some(function) = self.functions.lookup(name) else {
             // Noted, and parsed on as an integer, so that every unbound
             // name is found in one parse.
             if self.unbound_seen.insert(name) {
-                self.unbound.push((name, at));
+                self.unbound.push((name, at.byte));
             }
-            return self.deliver(self.arena.int(0));
+            return self.deliver(self.node(Node::Int(0), at, end), at, end);
         };
         if function.arity == 0 {
-            return self.deliver(self.arena.prim(function.prim, &[]));
+            let call = self.node(Node::Prim(function.prim, &[]), at, end);
+            return self.deliver(call, at, end);
         }
         if self.frame()?.after_operand {
             // Passed as an argument: η-expand it into a lambda now.
-            let term = self.eta(function, &[]);
-            return self.deliver(term);
+            let term = self.eta(function, &[], at, end);
+            return self.deliver(term, at, end);
         }
         self.operands.push(Pending::Partial {
             function,
             args: SmallVec::new(),
+            from: at,
+            name_end: end,
         });
         self.frame()?.after_operand = true;
         Ok(())
     }
 
-    /// `(λ…λ. op(#n−1, …, #0)) a1 … ak` for a function of arity n given k < n arguments.
-    fn eta(&self, function: Function, args: &[&'a Term<'a>]) -> &'a Term<'a> {
+    /// `(λ…λ. op(#n−1, …, #0)) a1 … ak` for a function of arity n given k < n
+    /// arguments, each with the end of its source. The lambdas and the call
+    /// in them are the name's (`from` to `name_end`); each application spans
+    /// from the name to the end of its argument.
+    fn eta(
+        &self,
+        function: Function,
+        args: &[(&'a Term<'a>, usize)],
+        from: Pos,
+        name_end: usize,
+    ) -> &'a Term<'a> {
         let arena = self.arena;
         let n = u32::try_from(function.arity).unwrap_or(u32::MAX);
-        let vars: SmallVec<[&'a Term<'a>; 4]> = (0..n).rev().map(|i| arena.var(i)).collect();
-        let mut term = arena.prim(function.prim, &vars);
+        let vars: SmallVec<[&'a Term<'a>; 4]> = (0..n)
+            .rev()
+            .map(|i| self.node(Node::Var(i), from, name_end))
+            .collect();
+        let mut term = self.node(
+            Node::Prim(function.prim, arena.terms(&vars)),
+            from,
+            name_end,
+        );
         for _ in 0..n {
-            term = arena.lam(term);
+            term = self.node(Node::Lam(term), from, name_end);
         }
-        for &arg in args {
-            term = arena.app(term, arg);
+        for &(arg, end) in args {
+            term = self.node(Node::App(term, arg), from, end);
         }
         term
     }
@@ -655,36 +724,57 @@ impl<'s, 'a> Parser<'s, 'a> {
         }
     }
 
-    /// Deliver the constructor `tag` with the fields above `base` on the field stack.
-    fn constructor(&mut self, tag: &'s str, at: usize, base: usize) -> Parsed<()> {
+    /// Deliver the constructor `tag`, written from `at` to byte `end`, with
+    /// the fields above `base` on the field stack.
+    fn constructor(&mut self, tag: &'s str, at: Pos, base: usize, end: usize) -> Parsed<()> {
         let fields = self.fields.get(base..).unwrap_or(&[]);
         let arity = u32::try_from(fields.len())
-            .map_err(|_| Failure::new(at, "too many constructor fields"))?;
+            .map_err(|_| Failure::new(at.byte, "too many constructor fields"))?;
         let fields = self.arena.terms(fields);
         self.fields.truncate(base);
-        let tag = self.tag(tag, arity, at)?;
-        self.deliver(self.arena.term(Node::Con(tag, fields)))
+        let tag = self.tag(tag, arity, at.byte)?;
+        self.deliver(self.node(Node::Con(tag, fields), at, end), at, end)
     }
 
-    /// Hand a finished operand to the innermost frame: it starts an
-    /// application, or it is the next argument of the one in progress.
-    fn deliver(&mut self, term: &'a Term<'a>) -> Parsed<()> {
+    /// Hand a finished operand, read from `from` to byte `end`, to the
+    /// innermost frame: it starts an application, or it is the next argument
+    /// of the one in progress (which then spans from its head to `end`).
+    fn deliver(&mut self, term: &'a Term<'a>, from: Pos, end: usize) -> Parsed<()> {
         let at = self.token.start;
         let frame = self.frames.last_mut().ok_or_else(|| bug(at))?;
         if !frame.after_operand {
             frame.after_operand = true;
-            self.operands.push(Pending::Term(term));
+            self.operands.push(Pending::Term { term, from, end });
             return Ok(());
         }
         let arena = self.arena;
         match self.operands.last_mut() {
-            Some(Pending::Term(head)) => *head = arena.app(head, term),
-            Some(Pending::Partial { function, args }) => {
-                args.push(term);
+            Some(Pending::Term {
+                term: head,
+                from: head_from,
+                end: head_end,
+            }) => {
+                *head = arena.term_at(Node::App(head, term), span(*head_from, end), None);
+                *head_end = end;
+            }
+            Some(Pending::Partial {
+                function,
+                args,
+                from: head_from,
+                ..
+            }) => {
+                args.push((term, end));
                 if args.len() >= function.arity {
-                    let saturated = arena.prim(function.prim, args);
+                    let head_from = *head_from;
+                    let terms: SmallVec<[&'a Term<'a>; 4]> = args.iter().map(|a| a.0).collect();
+                    let call = Node::Prim(function.prim, arena.terms(&terms));
+                    let saturated = arena.term_at(call, span(head_from, end), None);
                     if let Some(top) = self.operands.last_mut() {
-                        *top = Pending::Term(saturated);
+                        *top = Pending::Term {
+                            term: saturated,
+                            from: head_from,
+                            end,
+                        };
                     }
                 }
             }
@@ -695,18 +785,34 @@ impl<'s, 'a> Parser<'s, 'a> {
 
     /// Turn an unsaturated function at the top of the operand stack into a term.
     fn materialize(&mut self) {
-        if let Some(Pending::Partial { function, args }) = self.operands.last() {
-            let term = self.eta(*function, args);
+        if let Some(Pending::Partial {
+            function,
+            args,
+            from,
+            name_end,
+        }) = self.operands.last()
+        {
+            let from = *from;
+            let end = args.last().map_or(*name_end, |a| a.1);
+            let term = self.eta(*function, args, from, *name_end);
             if let Some(top) = self.operands.last_mut() {
-                *top = Pending::Term(term);
+                *top = Pending::Term { term, from, end };
             }
         }
     }
 
-    fn pop_term(&mut self, at: usize) -> Parsed<&'a Term<'a>> {
+    fn pop_term(&mut self, at: usize) -> Parsed<Extent<'a>> {
         match self.operands.pop() {
-            Some(Pending::Term(term)) => Ok(term),
-            Some(Pending::Partial { function, args }) => Ok(self.eta(function, &args)),
+            Some(Pending::Term { term, from, end }) => Ok((term, from, end)),
+            Some(Pending::Partial {
+                function,
+                args,
+                from,
+                name_end,
+            }) => {
+                let end = args.last().map_or(name_end, |a| a.1);
+                Ok((self.eta(function, &args, from, name_end), from, end))
+            }
             None => Err(bug(at)),
         }
     }
@@ -714,7 +820,7 @@ impl<'s, 'a> Parser<'s, 'a> {
     // ----- operators ------------------------------------------------------
 
     fn binary(&mut self, kind: OpKind, precedence: u8, assoc: Assoc) -> Parsed<()> {
-        let at = self.token.start;
+        let at = self.token.pos();
         self.materialize();
         let base = self.frame()?.operators;
         while let Some(top) = self.operators.last().copied() {
@@ -728,7 +834,7 @@ impl<'s, 'a> Parser<'s, 'a> {
             if !reduce {
                 if assoc == Assoc::None && top.precedence == precedence {
                     return Err(Failure::new(
-                        at,
+                        at.byte,
                         format!(
                             "comparisons do not chain: add parentheses around the comparison before {}",
                             self.token.tok.describe()
@@ -748,38 +854,47 @@ impl<'s, 'a> Parser<'s, 'a> {
         self.advance()
     }
 
-    /// Apply the operator on top of the operator stack to its operands.
+    /// Apply the operator on top of the operator stack to its operands. The
+    /// result spans from its first operand (or a prefix operator) to the end
+    /// of its last; the `if` that `&&`, `||` and `not` stand for, and the
+    /// booleans in it, all get that span.
     fn reduce(&mut self) -> Parsed<()> {
         let at = self.token.start;
         let operator = self.operators.pop().ok_or_else(|| bug(at))?;
-        let arena = self.arena;
-        let term = match operator.kind {
+        let here = operator.at.byte;
+        let (term, from, end) = match operator.kind {
             OpKind::Negate => {
-                let x = self.pop_term(operator.at)?;
-                arena.prim(Prim::Neg, &[x])
+                let (x, _, end) = self.pop_term(here)?;
+                let from = operator.at;
+                let args = self.arena.terms(&[x]);
+                (self.node(Node::Prim(Prim::Neg, args), from, end), from, end)
             }
             OpKind::Not => {
-                let x = self.pop_term(operator.at)?;
-                arena.if_then_else(x, arena.boolean(false), arena.boolean(true))
+                let (x, _, end) = self.pop_term(here)?;
+                let from = operator.at;
+                let no = self.node(Node::Bool(false), from, end);
+                let yes = self.node(Node::Bool(true), from, end);
+                (self.node(Node::If(x, no, yes), from, end), from, end)
             }
             OpKind::Or | OpKind::And | OpKind::Binary(_) => {
-                let right = self.pop_term(operator.at)?;
-                let left = self.pop_term(operator.at)?;
-                match operator.kind {
-                    OpKind::Or => arena.if_then_else(left, arena.boolean(true), right),
-                    OpKind::And => arena.if_then_else(left, right, arena.boolean(false)),
-                    OpKind::Binary(prim) => arena.prim(prim, &[left, right]),
-                    OpKind::Negate | OpKind::Not => return Err(bug(operator.at)),
-                }
+                let (right, _, end) = self.pop_term(here)?;
+                let (left, from, _) = self.pop_term(here)?;
+                let node = match operator.kind {
+                    OpKind::Or => Node::If(left, self.node(Node::Bool(true), from, end), right),
+                    OpKind::And => Node::If(left, right, self.node(Node::Bool(false), from, end)),
+                    OpKind::Binary(prim) => Node::Prim(prim, self.arena.terms(&[left, right])),
+                    OpKind::Negate | OpKind::Not => return Err(bug(here)),
+                };
+                (self.node(node, from, end), from, end)
             }
         };
-        self.operands.push(Pending::Term(term));
+        self.operands.push(Pending::Term { term, from, end });
         Ok(())
     }
 
     /// The current token cannot continue the innermost frame's expression:
-    /// reduce what is pending into one term.
-    fn finish_expression(&mut self) -> Parsed<&'a Term<'a>> {
+    /// reduce what is pending into one term, with its extent.
+    fn finish_expression(&mut self) -> Parsed<Extent<'a>> {
         let frame = *self.frame()?;
         if !frame.after_operand {
             return Err(match self.token.tok {
@@ -791,26 +906,47 @@ impl<'s, 'a> Parser<'s, 'a> {
         while self.operators.len() > frame.operators {
             self.reduce()?;
         }
-        let term = self.pop_term(self.token.start)?;
+        let expression = self.pop_term(self.token.start)?;
         if self.operands.len() != frame.operands {
             return Err(bug(self.token.start));
         }
-        Ok(term)
+        Ok(expression)
     }
 
     // ----- constructs -----------------------------------------------------
 
-    fn wrap_lambdas(&self, mut term: &'a Term<'a>, count: u32) -> &'a Term<'a> {
+    /// `count` lambdas around `term`, each with span `at` and `name`.
+    fn wrap_lambdas(
+        &self,
+        mut term: &'a Term<'a>,
+        count: u32,
+        at: Span,
+        name: Option<&'a str>,
+    ) -> &'a Term<'a> {
         for _ in 0..count {
-            term = self.arena.lam(term);
+            term = self.arena.term_at(Node::Lam(term), at, name);
         }
         term
     }
 
-    /// The innermost frame's expression is `term`, ended by the current token:
-    /// finish the construct the frame stands for. Returns the program's term
-    /// when the top frame completes.
-    fn complete(&mut self, term: &'a Term<'a>) -> Parsed<Option<&'a Term<'a>>> {
+    /// The recursive function `μλ. λ…λ. body` of `params` parameters, each
+    /// of its lambdas with span `at` and `name`.
+    fn rec_function(
+        &self,
+        body: &'a Term<'a>,
+        params: u32,
+        at: Span,
+        name: Option<&'a str>,
+    ) -> &'a Term<'a> {
+        let inner = self.wrap_lambdas(body, params.saturating_sub(1), at, name);
+        self.arena.term_at(Node::RecLam(inner), at, name)
+    }
+
+    /// The innermost frame's expression is `expression`, ended by the current
+    /// token: finish the construct the frame stands for. Returns the
+    /// program's term when the top frame completes.
+    fn complete(&mut self, expression: Extent<'a>) -> Parsed<Option<&'a Term<'a>>> {
+        let (term, _, end) = expression;
         let at = self.token.start;
         let frame = self.frames.pop().ok_or_else(|| bug(at))?;
         let arena = self.arena;
@@ -826,52 +962,69 @@ impl<'s, 'a> Parser<'s, 'a> {
             }
             Kind::Paren { open } => {
                 if self.token.tok != Tok::RParen {
-                    let what = format!("`)` to close the `(` at {}", place(self.text, open));
+                    let what = format!("`)` to close the `(` at {}", place(self.text, open.byte));
                     return Err(expected(&what, &self.token));
                 }
+                let close = self.token.end;
                 self.advance()?;
-                self.deliver(term)?;
+                self.deliver(term, open, close)?;
             }
-            Kind::Lambda { params } => {
+            Kind::Lambda { params, from } => {
                 self.scope.pop(params);
-                self.deliver(self.wrap_lambdas(term, params))?;
+                let function = self.wrap_lambdas(term, params, span(from, end), None);
+                self.deliver(function, from, end)?;
             }
-            Kind::Rec { params } => {
+            Kind::Rec { params, name, from } => {
                 self.scope.pop(params.saturating_add(1));
-                let body = self.wrap_lambdas(term, params.saturating_sub(1));
-                self.deliver(arena.rec_lam(body))?;
+                let name = name.map(|n| arena.tag(n));
+                let function = self.rec_function(term, params, span(from, end), name);
+                self.deliver(function, from, end)?;
             }
             Kind::LetBound {
                 name,
                 params,
                 rec,
                 keyword,
+                def,
             } => {
                 if self.token.tok != Tok::Keyword(Keyword::In) {
-                    let what =
-                        format!("`in` to go with the `let` at {}", place(self.text, keyword));
+                    let what = format!(
+                        "`in` to go with the `let` at {}",
+                        place(self.text, keyword.byte)
+                    );
                     return Err(expected(&what, &self.token));
                 }
+                let label = name.map(|n| arena.tag(n));
                 let bound = if rec {
                     self.scope.pop(params.saturating_add(1));
-                    arena.rec_lam(self.wrap_lambdas(term, params.saturating_sub(1)))
-                } else {
+                    self.rec_function(term, params, span(def, end), label)
+                } else if params > 0 {
                     self.scope.pop(params);
-                    self.wrap_lambdas(term, params)
+                    self.wrap_lambdas(term, params, span(def, end), label)
+                } else {
+                    // `let f = \x. e` names the function too, unless it has
+                    // a name of its own (`let f = rec g x. e`).
+                    match (label, term.node()) {
+                        (Some(label), Node::Lam(_) | Node::RecLam(_)) if term.name().is_none() => {
+                            arena.named_as(label, term)
+                        }
+                        _ => term,
+                    }
                 };
                 self.scope.push(name, at)?;
                 self.advance()?;
-                self.push_frame(Kind::LetBody { bound });
+                self.push_frame(Kind::LetBody { bound, keyword });
             }
-            Kind::LetBody { bound } => {
+            Kind::LetBody { bound, keyword } => {
                 self.scope.pop(1);
-                self.deliver(arena.let_in(bound, term))?;
+                let whole = self.node(Node::Let(bound, term), keyword, end);
+                self.deliver(whole, keyword, end)?;
             }
             Kind::IfCondition { keyword } => {
                 if self.token.tok != Tok::Keyword(Keyword::Then) {
                     let what = format!(
                         "`then` to go with the `if` at {}",
-                        place(self.text, keyword)
+                        place(self.text, keyword.byte)
                     );
                     return Err(expected(&what, &self.token));
                 }
@@ -885,7 +1038,7 @@ impl<'s, 'a> Parser<'s, 'a> {
                 if self.token.tok != Tok::Keyword(Keyword::Else) {
                     let what = format!(
                         "`else` to go with the `if` at {}",
-                        place(self.text, keyword)
+                        place(self.text, keyword.byte)
                     );
                     return Err(expected(&what, &self.token));
                 }
@@ -893,16 +1046,22 @@ impl<'s, 'a> Parser<'s, 'a> {
                 self.push_frame(Kind::IfElse {
                     condition,
                     then: term,
+                    keyword,
                 });
             }
-            Kind::IfElse { condition, then } => {
-                self.deliver(arena.if_then_else(condition, then, term))?;
+            Kind::IfElse {
+                condition,
+                then,
+                keyword,
+            } => {
+                let whole = self.node(Node::If(condition, then, term), keyword, end);
+                self.deliver(whole, keyword, end)?;
             }
             Kind::Scrutinee { keyword } => {
                 if self.token.tok != Tok::Keyword(Keyword::Of) {
                     let what = format!(
                         "`of` to go with the `case` at {}",
-                        place(self.text, keyword)
+                        place(self.text, keyword.byte)
                     );
                     return Err(expected(&what, &self.token));
                 }
@@ -915,6 +1074,7 @@ impl<'s, 'a> Parser<'s, 'a> {
                     arms: self.arms.len(),
                     default: None,
                     id,
+                    keyword,
                 });
                 self.next_arm()?;
             }
@@ -933,8 +1093,9 @@ impl<'s, 'a> Parser<'s, 'a> {
                         self.next_arm()?;
                     }
                     Tok::RBrace => {
+                        let close = self.token.end;
                         self.advance()?;
-                        self.finish_case()?;
+                        self.finish_case(close)?;
                     }
                     _ => return Err(expected("`;` or `}` after the case arm", &self.token)),
                 }
@@ -947,8 +1108,9 @@ impl<'s, 'a> Parser<'s, 'a> {
                         self.push_frame(Kind::Field { tag, at, base });
                     }
                     Tok::RParen => {
+                        let close = self.token.end;
                         self.advance()?;
-                        self.constructor(tag, at, base)?;
+                        self.constructor(tag, at, base, close)?;
                     }
                     _ => {
                         let what = format!("`,` or `)` in the fields of `{tag}`");
@@ -966,8 +1128,9 @@ impl<'s, 'a> Parser<'s, 'a> {
         let case = *self.cases.last().ok_or_else(|| bug(token.start))?;
         match token.tok {
             Tok::RBrace => {
+                let close = token.end;
                 self.advance()?;
-                self.finish_case()
+                self.finish_case(close)
             }
             Tok::Underscore | Tok::Con(_) if case.default.is_some() => Err(Failure::new(
                 token.start,
@@ -1026,8 +1189,9 @@ impl<'s, 'a> Parser<'s, 'a> {
         }
     }
 
-    /// The `}` of the innermost open case has been read: build the case.
-    fn finish_case(&mut self) -> Parsed<()> {
+    /// The `}` of the innermost open case, ending at byte `close`, has been
+    /// read: build the case, spanning from `case` to the `}`.
+    fn finish_case(&mut self, close: usize) -> Parsed<()> {
         let at = self.token.start;
         let case = self.cases.pop().ok_or_else(|| bug(at))?;
         let arms = self.arena.arms(self.arms.get(case.arms..).unwrap_or(&[]));
@@ -1035,9 +1199,8 @@ impl<'s, 'a> Parser<'s, 'a> {
         for arm in arms {
             self.arm_tags.remove(&(case.id, arm.tag));
         }
-        let term = self
-            .arena
-            .term(Node::Case(case.scrutinee, arms, case.default));
-        self.deliver(term)
+        let node = Node::Case(case.scrutinee, arms, case.default);
+        let term = self.node(node, case.keyword, close);
+        self.deliver(term, case.keyword, close)
     }
 }

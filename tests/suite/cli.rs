@@ -148,12 +148,198 @@ fn trace_shows_each_contraction_with_rule_and_redex() {
     assert_eq!(stdout(&out).trim(), "9");
     let err = stderr(&out);
     let trace: Vec<&str> = err.lines().filter(|l| l.starts_with('[')).collect();
+    // Each line starts with the redex's line and column in the source.
     assert_eq!(
         trace,
         [
-            "[1] prim: 1 + 2",
-            "[2] beta: (\\a. a * a) 3",
-            "[3] prim: 3 * 3"
+            "[1] 1:14 prim: 1 + 2",
+            "[2] 1:1 beta: (\\a. a * a) 3",
+            "[3] 1:6 prim: 3 * 3"
+        ]
+    );
+}
+
+/// Whether this build has the stepper, the machine that reports locations
+/// (the others follow; these tests ask for it by name).
+fn has_stepper() -> bool {
+    orrery::MachineKind::from_name("stepper").is_some()
+}
+
+/// A division by zero three calls deep: `route` calls `split` calls `share`.
+const COURIER: &str = "# a courier's share of a parcel fee
+let share n = 100 / n in
+let split k = share (k - 3) + 1 in
+let route k = 2 * split k in
+route 3
+";
+
+#[test]
+fn a_runtime_error_shows_its_place_the_line_and_the_calls() {
+    if !has_stepper() {
+        return;
+    }
+    let file = program_file("courier.orr", COURIER);
+    let out = orrery(&["run", &file, "--machine", "stepper"]);
+    assert_eq!(out.status.code(), Some(1));
+    assert_eq!(stdout(&out), "");
+    let err = stderr(&out);
+    let lines: Vec<&str> = err.lines().collect();
+    assert_eq!(
+        lines,
+        [
+            format!("{file}:2:15: division_by_zero: division by zero in /").as_str(),
+            "let share n = 100 / n in",
+            "              ^^^^^^^",
+            format!("    share at {file}:3:15").as_str(),
+            format!("    split at {file}:4:19").as_str(),
+            format!("    route at {file}:5:1").as_str(),
+            "stepper: 8 contractions (beta 3, beta_rec 0, let 3, if 0, prim 2, case 0)",
+        ]
+    );
+    assert!(err.ends_with('\n'));
+}
+
+#[test]
+fn a_runtime_error_in_json_has_its_place_and_backtrace_after_the_old_fields() {
+    if !has_stepper() {
+        return;
+    }
+    let file = program_file("courier-json.orr", COURIER);
+    let out = orrery(&["run", &file, "--machine", "stepper", "--json"]);
+    assert_eq!(out.status.code(), Some(1));
+    let text = stdout(&out);
+    let line = text.trim_end();
+    // The fields that were there before come first, unchanged.
+    let (old, new) = line.split_once(r#","at":"#).expect("an `at` field");
+    assert_eq!(
+        old,
+        r#"{"machine":"stepper","outcome":"error","error":"division_by_zero","message":"division by zero in /","steps":8,"fuel":8,"rules":{"beta":3,"beta_rec":0,"let":3,"if":0,"prim":2,"case":0}"#
+    );
+    assert_eq!(
+        new,
+        r#"{"line":2,"col":15},"backtrace":[{"name":"share","line":3,"col":15},{"name":"split","line":4,"col":19},{"name":"route","line":5,"col":1}],"omitted":0}"#
+    );
+}
+
+#[test]
+fn out_of_fuel_in_json_has_its_place_and_backtrace() {
+    if !has_stepper() {
+        return;
+    }
+    // The loop's call is in tail position: it replaces its caller's mark,
+    // so one frame is pending however long it runs.
+    let file = program_file("spin.orr", "let rec spin n = spin (n + 1) in\nspin 0");
+    let out = orrery(&[
+        "run",
+        &file,
+        "--machine",
+        "stepper",
+        "--fuel",
+        "7",
+        "--json",
+    ]);
+    assert_eq!(out.status.code(), Some(4));
+    let text = stdout(&out);
+    assert!(
+        text.trim_end().ends_with(
+            r#""rules":{"beta":0,"beta_rec":3,"let":1,"if":0,"prim":3,"case":0},"at":{"line":1,"col":18},"backtrace":[{"name":"spin","line":1,"col":18}],"omitted":0}"#
+        ),
+        "{text}"
+    );
+    let out = orrery(&["run", &file, "--machine", "stepper", "--fuel", "7"]);
+    assert_eq!(out.status.code(), Some(4));
+    let err = stderr(&out);
+    let lines: Vec<&str> = err.lines().collect();
+    assert_eq!(
+        lines[..4],
+        [
+            format!("{file}:1:18: out_of_fuel: out of fuel after 7 contractions").as_str(),
+            "let rec spin n = spin (n + 1) in",
+            "                 ^^^^^^^^^^^^",
+            format!("    spin at {file}:1:18").as_str(),
+        ]
+    );
+}
+
+#[test]
+fn a_deep_backtrace_keeps_both_ends_and_counts_the_rest() {
+    if !has_stepper() {
+        return;
+    }
+    let source = "let rec down n = if n == 0 then 1 / n else 1 + down (n - 1) in\ndown 40";
+    let file = program_file("down.orr", source);
+    let out = orrery(&["run", &file, "--machine", "stepper"]);
+    assert_eq!(out.status.code(), Some(1));
+    let err = stderr(&out);
+    let lines: Vec<&str> = err.lines().collect();
+    assert_eq!(
+        lines[0],
+        format!("{file}:1:33: division_by_zero: division by zero in /")
+    );
+    // The source line and its caret, then the frames.
+    let frames = &lines[3..lines.len() - 1];
+    // 41 calls are pending: 16 innermost, a line for the 9 between, and
+    // the 16 outermost, the last of which is the program's own `down 40`.
+    let ends = orrery::BACKTRACE_ENDS;
+    assert_eq!(frames.len(), 2 * ends + 1);
+    let inner = format!("    down at {file}:1:48");
+    assert!(frames[..ends].iter().all(|f| *f == inner), "{err}");
+    assert_eq!(frames[ends], "    … 9 more calls …");
+    assert!(frames[ends + 1..2 * ends].iter().all(|f| *f == inner));
+    assert_eq!(frames[2 * ends], format!("    down at {file}:2:1"));
+
+    let out = orrery(&["run", &file, "--machine", "stepper", "--json"]);
+    let text = stdout(&out);
+    assert_eq!(
+        text.matches(r#"{"name":"down","line":1,"col":48}"#).count(),
+        31
+    );
+    assert!(text.contains(r#"{"name":"down","line":2,"col":1}],"omitted":9}"#));
+}
+
+#[test]
+fn an_unnamed_function_has_a_word_of_its_own_in_the_backtrace() {
+    if !has_stepper() {
+        return;
+    }
+    let file = program_file("unnamed.orr", "(\\parcels. 100 / parcels) 0");
+    let out = orrery(&["run", &file, "--machine", "stepper"]);
+    let err = stderr(&out);
+    let lines: Vec<&str> = err.lines().collect();
+    assert_eq!(
+        lines[..4],
+        [
+            format!("{file}:1:12: division_by_zero: division by zero in /").as_str(),
+            "(\\parcels. 100 / parcels) 0",
+            "           ^^^^^^^^^^^^^",
+            format!("    λ at {file}:1:1").as_str(),
+        ]
+    );
+    let out = orrery(&["run", &file, "--machine", "stepper", "--json"]);
+    assert!(stdout(&out).contains(
+        r#""at":{"line":1,"col":12},"backtrace":[{"name":null,"line":1,"col":1}],"omitted":0}"#
+    ));
+}
+
+#[test]
+fn a_runtime_error_on_a_wide_line_is_underlined_by_display_width() {
+    if !has_stepper() {
+        return;
+    }
+    // 温室 (greenhouse) is two characters two columns wide each (Unicode
+    // Standard Annex #11, East Asian Width: both are Wide).
+    let source = "let 温室 = 0 in\n\"🌱\" ++ decimal (12 / 温室)";
+    let file = program_file("wide.orr", source);
+    let out = orrery(&["run", &file, "--machine", "stepper"]);
+    assert_eq!(out.status.code(), Some(1));
+    let err = stderr(&out);
+    let lines: Vec<&str> = err.lines().collect();
+    assert_eq!(
+        lines[..3],
+        [
+            format!("{file}:2:18: division_by_zero: division by zero in /").as_str(),
+            "\"🌱\" ++ decimal (12 / 温室)",
+            "                 ^^^^^^^^^",
         ]
     );
 }

@@ -5,8 +5,8 @@
 
 use orrery::toolkit::terms_equal;
 use orrery::{
-    parse, parse_bytes, parse_term, print, print_limited, validate, Arena, Arm, Prim, SyntaxError,
-    Term, PRINT_LIMIT,
+    parse, parse_bytes, parse_term, print, print_limited, validate, Arena, Arm, Node, Prim,
+    SyntaxError, Term, PRINT_LIMIT,
 };
 use proptest::prelude::*;
 
@@ -459,7 +459,8 @@ fn error_positions() {
     );
     fails_at("rec f. f", 1, 1, "`rec` needs at least one parameter");
     fails_at("\\_. _", 1, 5, "`_` binds nothing");
-    fails_at("\"日本\" ++ zz", 1, 9, "unbound name `zz`");
+    // Columns are display columns: each of 日 and 本 is two wide.
+    fails_at("\"日本\" ++ zz", 1, 11, "unbound name `zz`");
     fails_at("\"\\u{D800}\"", 1, 2, "not a Unicode scalar value");
     fails_at("\"\\u{1234567}\"", 1, 2, "1 to 6 hexadecimal digits");
     fails_at("\"\\u41\"", 1, 2, "malformed escape");
@@ -521,12 +522,12 @@ fn rendered_errors_show_the_line_and_a_caret() {
     assert_eq!(e.to_string(), "2:9: unbound name `undefined_total`");
     assert_eq!(
         e.render("prices.orr", source),
-        "prices.orr:2:9: unbound name `undefined_total`\n\trate * undefined_total\n\t       ^"
+        "prices.orr:2:9: unbound name `undefined_total`\n\trate * undefined_total\n\t       ^\n"
     );
     let crlf = "1 +\r\n)";
     assert_eq!(
         error(crlf).render("f", crlf),
-        "f:2:1: unexpected `)`, expected an expression\n)\n^"
+        "f:2:1: unexpected `)`, expected an expression\n)\n^\n"
     );
 }
 
@@ -1300,4 +1301,344 @@ fn every_unbound_name_is_reported_once_with_where_it_is_first_used() {
         err.message
     );
     assert!(err.message.ends_with("and 4968 more"), "{}", err.message);
+}
+
+// ----- spans, names and Unicode text -------------------------------------
+//
+// Sources for the Unicode facts these tests rely on: Unicode Standard Annex
+// #31, *Unicode Identifiers and Syntax* (revision 39, 2023), §2 Default
+// Identifiers (a name is `XID_Start` then `XID_Continue`; é, ß and CJK
+// ideographs are letters, Arabic-Indic digits continue but do not start a
+// name); Unicode Standard Annex #11, *East Asian Width* (CJK ideographs are
+// Wide, two columns; emoji such as U+1F331 SEEDLING are Wide by their
+// Emoji_Presentation); the Unicode Standard, ch. 23.8 (U+FEFF as a
+// byte-order mark).
+
+/// A parsed node's span as (start byte, end byte, line, column).
+#[track_caller]
+fn place_of(t: &Term<'_>) -> (u32, u32, u32, u32) {
+    let s = t
+        .span()
+        .unwrap_or_else(|| panic!("{} has no span", print(t)));
+    assert_eq!(s.file, 0);
+    (s.start, s.end, s.line, s.col)
+}
+
+/// The children of a node, in order.
+fn kids<'a>(t: &'a Term<'a>) -> Vec<&'a Term<'a>> {
+    t.children().map(|(c, _)| c).collect()
+}
+
+#[test]
+fn spans_cover_each_construct() {
+    let a = Arena::new();
+    let parse = |s: &str| parse_term(&a, s).unwrap_or_else(|e| panic!("{s:?}: {e}"));
+
+    // A let spans from `let` to the end of its body, over lines; the
+    // function `share n = …` from its name; an operator from its first
+    // operand; an application from its head, parentheses included, while
+    // what they enclose keeps its own.
+    let source = "let share n = 100 / n in\n  share (2 + 1)";
+    let t = parse(source);
+    assert_eq!(place_of(t), (0, 40, 1, 1));
+    let [bound, body] = kids(t)[..] else { panic!() };
+    assert!(matches!(bound.node(), Node::Lam(_)));
+    assert_eq!(place_of(bound), (4, 21, 1, 5));
+    assert_eq!(place_of(kids(bound)[0]), (14, 21, 1, 15)); // 100 / n
+    assert_eq!(place_of(body), (27, 40, 2, 3)); // share (2 + 1)
+    let [share, sum] = kids(body)[..] else {
+        panic!()
+    };
+    assert_eq!(place_of(share), (27, 32, 2, 3));
+    assert_eq!(place_of(sum), (34, 39, 2, 10)); // 2 + 1, without its parentheses
+
+    // `f a b` is `(f a) b`: each application from `f` to its last argument.
+    let t = parse("\\f a b. f a b");
+    assert_eq!(place_of(t), (0, 13, 1, 1));
+    let (mut inner, mut lambdas) = (t, 0);
+    while let Node::Lam(body) = inner.node() {
+        assert_eq!(place_of(inner), (0, 13, 1, 1), "every λ of `\\f a b.`");
+        inner = body;
+        lambdas += 1;
+    }
+    assert_eq!(lambdas, 3);
+    assert_eq!(place_of(inner), (8, 13, 1, 9));
+    assert_eq!(place_of(kids(inner)[0]), (8, 11, 1, 9));
+    assert_eq!(place_of(kids(inner)[1]), (12, 13, 1, 13));
+
+    let t = parse("(\\x. x) (1)");
+    assert_eq!(place_of(t), (0, 11, 1, 1));
+    assert_eq!(place_of(kids(t)[0]), (1, 6, 1, 2));
+    assert_eq!(place_of(kids(t)[1]), (9, 10, 1, 10));
+
+    let t = parse("1 + 2 * 3");
+    assert_eq!(place_of(t), (0, 9, 1, 1));
+    assert_eq!(place_of(kids(t)[1]), (4, 9, 1, 5));
+    let t = parse("(1 + 2) * 3");
+    assert_eq!(place_of(t), (0, 11, 1, 1));
+    assert_eq!(place_of(kids(t)[0]), (1, 6, 1, 2));
+
+    // Literals: a negative one includes its sign, a string its quotes.
+    assert_eq!(place_of(parse("-7")), (0, 2, 1, 1));
+    assert_eq!(place_of(parse("  \"a\\nb\"")), (2, 8, 1, 3));
+    assert_eq!(place_of(kids(parse("\\x. -x"))[0]), (4, 6, 1, 5));
+
+    // Sugar: `not`, `&&`, `||` are `if`s whose booleans share their span.
+    let not = kids(parse("\\b. not b"))[0];
+    assert!(matches!(not.node(), Node::If(..)));
+    for part in std::iter::once(not).chain(kids(not).into_iter().skip(1)) {
+        assert_eq!(place_of(part), (4, 9, 1, 5));
+    }
+    let and = kids(kids(parse("\\a b. a && b"))[0])[0];
+    assert_eq!(place_of(and), (6, 12, 1, 7));
+    assert_eq!(place_of(kids(and)[2]), (6, 12, 1, 7)); // the `false`
+    let or = kids(kids(parse("\\a b. a || b"))[0])[0];
+    assert_eq!(place_of(kids(or)[1]), (6, 12, 1, 7)); // the `true`
+
+    let t = parse("if true then 1 else 2");
+    assert_eq!(place_of(t), (0, 21, 1, 1));
+    assert_eq!(place_of(kids(t)[0]), (3, 7, 1, 4));
+    let t = parse("case Nil of { Nil => 1; _ => 2 }");
+    assert!(matches!(t.node(), Node::Case(..)));
+    assert_eq!(place_of(t), (0, 32, 1, 1));
+    assert_eq!(place_of(kids(t)[0]), (5, 8, 1, 6));
+    let t = parse("Pair(1, \"two\")");
+    assert_eq!(place_of(t), (0, 14, 1, 1));
+    assert_eq!(place_of(kids(t)[1]), (8, 13, 1, 9));
+
+    // A built-in: called, it spans its name and arguments; passed as a
+    // value, its η-expansion (λ, call, variable) spans the name.
+    assert_eq!(place_of(parse("length \"ab\"")), (0, 11, 1, 1));
+    let eta = parse("length");
+    assert!(matches!(eta.node(), Node::Lam(_)));
+    let call = kids(eta)[0];
+    assert!(matches!(call.node(), Node::Prim(Prim::Length, _)));
+    for part in [eta, call, kids(call)[0]] {
+        assert_eq!(place_of(part), (0, 6, 1, 1));
+    }
+
+    // Every node has one, down to the leaves.
+    let source =
+        "let rec count n = case n of { Z => 0; S(m) => 1 + count m } in\n\tcount (S(S(Z)))";
+    let mut stack = vec![parse(source)];
+    let mut nodes = 0;
+    while let Some(t) = stack.pop() {
+        let (start, end, line, col) = place_of(t);
+        assert!(start < end && end as usize <= source.len() && line >= 1 && col >= 1);
+        stack.extend(kids(t));
+        nodes += 1;
+    }
+    // let, μλ, case, n, 0, +, 1, count m (3), count (S(S(Z))) (5)
+    assert_eq!(nodes, 15);
+}
+
+#[test]
+fn spans_count_display_columns_after_wide_text() {
+    let a = Arena::new();
+    // 温室 is 6 bytes and 4 columns; "🌱日本" is 10 bytes between its
+    // quotes and 6 columns.
+    let source = "let 温室 = \"🌱日本\" in\n温室 ++ 温室";
+    let t = parse_term(&a, source).unwrap();
+    let [bound, body] = kids(t)[..] else { panic!() };
+    assert_eq!(place_of(bound), (13, 25, 1, 12));
+    assert_eq!(place_of(body), (29, 45, 2, 1));
+    assert_eq!(place_of(kids(body)[1]), (39, 45, 2, 9));
+
+    // A seedling emoji is two columns wide: `x` sits at column 13.
+    let t = parse_term(&a, "\\x. \"🌱\" ++ x").unwrap();
+    let concat = kids(t)[0];
+    assert_eq!(place_of(kids(concat)[0]), (4, 10, 1, 5));
+    assert_eq!(place_of(kids(concat)[1]), (14, 15, 1, 13));
+    // A combining acute accent is as wide as nothing.
+    fails_at("\\e\u{301}. e\u{301} + zz", 1, 9, "unbound name `zz`");
+}
+
+#[test]
+fn let_and_rec_name_their_functions() {
+    let a = Arena::new();
+    let bound = |s: &str| -> &Term<'_> {
+        let t = parse_term(&a, s).unwrap_or_else(|e| panic!("{s:?}: {e}"));
+        kids(t)[0]
+    };
+    // `let f = \x. …`: the λ is named, and no other node.
+    let f = bound("let tariff = \\kg. kg * 3 in tariff 2");
+    assert_eq!(f.name(), Some("tariff"));
+    assert_eq!(kids(f)[0].name(), None);
+    // `let f x y = …`: every λ of the curried chain.
+    let f = bound("let fee zone kg = zone + kg in fee 1 2");
+    assert_eq!(f.name(), Some("fee"));
+    assert!(matches!(kids(f)[0].node(), Node::Lam(_)));
+    assert_eq!(kids(f)[0].name(), Some("fee"));
+    // `let rec f x = …` and `rec f x. …`.
+    let f = bound("let rec hops n = if n == 0 then 0 else hops (n - 1) in hops 3");
+    assert!(matches!(f.node(), Node::RecLam(_)));
+    assert_eq!(f.name(), Some("hops"));
+    let t = parse_term(&a, "rec relay stop leg. relay stop leg").unwrap();
+    assert!(matches!(t.node(), Node::RecLam(_)));
+    assert_eq!(
+        (t.name(), kids(t)[0].name()),
+        (Some("relay"), Some("relay"))
+    );
+    // A recursive function keeps its own name under a let.
+    assert_eq!(bound("let f = rec g x. g x in f").name(), Some("g"));
+    // Only functions are named.
+    assert_eq!(bound("let zone = 5 in zone").name(), None);
+    assert_eq!(bound("let _ = \\x. x in 0").name(), None);
+    assert_eq!(parse_term(&a, "\\x. x").unwrap().name(), None);
+    // A name leaves the term what it was.
+    same_as(
+        "let tariff = \\kg. kg * 3 in tariff 2",
+        "let t = \\k. k * 3 in t 2",
+    );
+}
+
+#[test]
+fn names_are_unicode_identifiers() {
+    // UAX #31 §2: é, ß and CJK ideographs are XID_Start and XID_Continue.
+    same_as(
+        "let café = 2 in let größe = 3 in café * größe",
+        "let a = 2 in let b = 3 in a * b",
+    );
+    same_as("let 温室 = 4 in 温室 + 温室", "let g = 4 in g + g");
+    same_as("\\e\u{301}. e\u{301}", "\\x. x"); // e and a combining accent
+                                               // An upper-case first letter makes a constructor, in any script.
+    same("Épi(1)", |a| a.con("Épi", &[a.int(1)]));
+    same("case Ωmega of { Ωmega => 1 }", |a| {
+        a.case(a.con("Ωmega", &[]), &[Arm::new("Ωmega", 0, a.int(1))], None)
+    });
+    // λ is always the lambda, never part of a name.
+    same_as("λx. x", "\\x. x");
+    same_as("λcafé. café", "\\x. x");
+    same("\\a. aλb. b", |a| a.lam(a.app(a.var(0), a.lam(a.var(0)))));
+    // An Arabic-Indic digit continues a name but cannot start one.
+    fails_at("1 + ٣", 1, 5, "unexpected character `٣`");
+    same_as("\\x٣. x٣", "\\x. x");
+    fails_at("12é", 1, 1, "malformed integer literal");
+}
+
+#[test]
+fn a_byte_order_mark_is_skipped() {
+    let a = Arena::new();
+    let t = parse_term(&a, "\u{feff}1 + 2").unwrap();
+    // Offsets count from the text's first byte, the mark's three included;
+    // the mark takes no column.
+    assert_eq!(place_of(t), (3, 8, 1, 1));
+    let source = "\u{feff}1 + zz";
+    let e = error(source);
+    assert_eq!((e.line, e.column), (1, 5));
+    assert_eq!(
+        e.render("bom.orr", source),
+        "bom.orr:1:5: unbound name `zz`\n1 + zz\n    ^\n"
+    );
+    // Anywhere else it is a character out of place.
+    fails_at("1 +\u{feff} 2", 1, 4, "unexpected character");
+    assert!(parse_bytes(&a, b"\xef\xbb\xbfdecimal 7").is_ok());
+}
+
+#[test]
+fn a_rendered_error_ends_its_caret_line_with_a_newline() {
+    let source = "let fee = 12 in fee +";
+    let shown = error(source).render("fee.orr", source);
+    assert!(shown.ends_with("^\n"), "{shown:?}");
+    assert_eq!(shown.lines().count(), 3);
+}
+
+#[test]
+fn an_emoji_before_an_error_moves_its_column_by_two() {
+    // U+1F331 SEEDLING: Wide (UAX #11), so `oops` is at column 9, not 8.
+    let source = "\"🌱\" ++ oops";
+    let e = error(source);
+    assert_eq!((e.line, e.column), (1, 9));
+    assert_eq!(
+        e.render("seed.orr", source),
+        format!(
+            "seed.orr:1:9: unbound name `oops`\n{source}\n{}^\n",
+            " ".repeat(8)
+        )
+    );
+}
+
+/// The display column (0-based) where `needle` starts in `line`, counting
+/// 日 and 本 two wide and everything else in these tests one.
+fn column_of(line: &str, needle: &str) -> usize {
+    let byte = line
+        .find(needle)
+        .unwrap_or_else(|| panic!("{needle:?} not in {line:?}"));
+    line[..byte]
+        .chars()
+        .map(|c| if matches!(c, '日' | '本') { 2 } else { 1 })
+        .sum()
+}
+
+#[test]
+fn a_long_line_is_cut_to_a_window_with_the_caret_under_its_character() {
+    let window = orrery::syntax::EXCERPT_COLUMNS;
+    // The place near the end of a long line: cut at the start only.
+    let source = format!("let total = 0 in {}oops", "total + ".repeat(40));
+    let e = error(&source);
+    assert_eq!((e.line, e.column), (1, 17 + 320 + 1));
+    let shown = e.render("long.orr", &source);
+    let lines: Vec<&str> = shown.lines().collect();
+    assert_eq!(lines.len(), 3);
+    assert!(
+        lines[1].starts_with('…') && lines[1].ends_with("oops"),
+        "{shown}"
+    );
+    assert!(lines[1].chars().count() <= window + 2);
+    assert_eq!(lines[2].trim_start(), "^");
+    assert_eq!(lines[2].find('^'), Some(column_of(lines[1], "oops")));
+
+    // In the middle: cut at both ends.
+    let source = format!("{}oops{}", "12 + ".repeat(60), " + 1".repeat(60));
+    let shown = error(&source).render("long.orr", &source);
+    let lines: Vec<&str> = shown.lines().collect();
+    assert!(
+        lines[1].starts_with('…') && lines[1].ends_with('…'),
+        "{shown}"
+    );
+    assert!(lines[1].chars().count() <= window + 2);
+    assert_eq!(lines[2].find('^'), Some(column_of(lines[1], "oops")));
+
+    // Wide characters before the place: the caret still lines up by width.
+    let source = format!("\"{}\" ++ oops", "日本".repeat(60));
+    let e = error(&source);
+    assert_eq!(e.column, 1 + 1 + 240 + 1 + 4);
+    let shown = e.render("wide.orr", &source);
+    let lines: Vec<&str> = shown.lines().collect();
+    assert!(lines[1].starts_with('…'), "{shown}");
+    assert_eq!(lines[2].find('^'), Some(column_of(lines[1], "oops")));
+}
+
+#[test]
+fn an_excerpt_underlines_a_span_to_the_end_of_its_line() {
+    use orrery::syntax::excerpt;
+    use orrery::Span;
+    let source = "let courier =\n  \\parcel. parcel / 0 in\ncourier 3";
+    // The whole let: three lines, underlined to the end of the first.
+    let whole = Span::new(0, 0, source.len() as u32).with_position(1, 1);
+    assert_eq!(excerpt(source, whole), "let courier =\n^^^^^^^^^^^^^\n");
+    // `parcel / 0` on line 2.
+    let start = source.find("parcel /").unwrap() as u32;
+    let div = Span::new(0, start, start + 10).with_position(2, 12);
+    assert_eq!(
+        excerpt(source, div),
+        "  \\parcel. parcel / 0 in\n           ^^^^^^^^^^\n"
+    );
+    // A position alone has one caret; no line, no excerpt.
+    let at = Span::new(0, 0, 0).with_position(3, 9);
+    assert_eq!(excerpt(source, at), "courier 3\n        ^\n");
+    assert_eq!(excerpt(source, Span::new(0, 0, 4)), "");
+    // A column past the line's end, or a byte range past the text's, is
+    // held to the line.
+    let far = Span::new(0, 0, u32::MAX).with_position(3, u32::MAX);
+    assert_eq!(excerpt(source, far), "courier 3\n         ^\n");
+    // Tabs are copied into the caret line; control characters are shown
+    // as U+FFFD, one column wide like the character they stand for.
+    let source = "\t\"\u{1b}[0m\"\t++ oops";
+    let e = error(source);
+    assert_eq!(e.column, 12);
+    assert_eq!(
+        e.render("tab.orr", source),
+        "tab.orr:1:12: unbound name `oops`\n\t\"\u{FFFD}[0m\"\t++ oops\n\t      \t   ^\n"
+    );
 }
