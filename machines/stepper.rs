@@ -364,10 +364,17 @@ impl State {
     /// A new heap node.
     #[inline(always)]
     fn node(&mut self, node: INode, scope: u32, value: bool) -> Result<Id, Halt> {
+        self.node_from(node, scope, value, NONE)
+    }
+
+    /// A new heap node copied from image node `origin` (see
+    /// [`Heap::origin`]).
+    #[inline(always)]
+    fn node_from(&mut self, node: INode, scope: u32, value: bool, origin: Id) -> Result<Id, Halt> {
         if !self.heap.has_room(1) {
             self.grow_nodes()?;
         }
-        Ok(self.heap.push(node, scope, value))
+        Ok(self.heap.push(node, scope, value, origin))
     }
 
     #[cold]
@@ -375,7 +382,7 @@ impl State {
     fn grow_nodes(&mut self) -> Result<(), Halt> {
         // Up to the next collection's threshold, not past it.
         let node_bytes = self.heap.node_bytes();
-        let soft = self.gc_at / node_bytes + 1;
+        let soft = self.gc_at / heap::NODE_BYTES + 1;
         if let Some(wanted) = self.heap.node_capacity(1, soft)? {
             let (len, cap) = (self.heap.nodes.len(), self.heap.nodes.capacity());
             let cap = self.capacity_within(len, cap, 1, wanted, node_bytes)?;
@@ -419,7 +426,7 @@ impl State {
     fn collect(&mut self, image: &Image) -> Result<(), Halt> {
         self.due = false;
         let held = self.held();
-        let estimate = (self.live / self.heap.node_bytes())
+        let estimate = (self.live / heap::NODE_BYTES)
             .saturating_mul(2)
             .saturating_add(1024);
         let old = std::mem::replace(&mut self.heap, Heap::new(image));

@@ -71,20 +71,6 @@ impl Heap {
         }
     }
 
-    /// Record that heap node `id` is a copy of node `from`.
-    #[inline(always)]
-    pub(super) fn copied_from(&mut self, id: Id, from: Id) {
-        if self.tracking {
-            let origin = self.origin(from);
-            if let Some(slot) = id
-                .checked_sub(self.base)
-                .and_then(|h| self.origins.get_mut(h as usize))
-            {
-                *slot = origin;
-            }
-        }
-    }
-
     /// Bytes one node takes, its origin included when tracking.
     #[inline(always)]
     pub(super) fn node_bytes(&self) -> usize {
@@ -174,14 +160,15 @@ impl Heap {
         }
     }
 
-    /// Append a node; the caller has made room ([`Heap::has_room`]).
+    /// Append a node copied from image node `origin` ([`NONE`] for one the
+    /// run made up); the caller has made room ([`Heap::has_room`]).
     #[inline(always)]
-    pub(super) fn push(&mut self, node: INode, scope: u32, value: bool) -> Id {
+    pub(super) fn push(&mut self, node: INode, scope: u32, value: bool, origin: Id) -> Id {
         let id = self.base + self.nodes.len() as u32;
         self.nodes.push(node);
         self.meta.push(scope | if value { VALUE_BIT } else { 0 });
         if self.tracking {
-            self.origins.push(NONE);
+            self.origins.push(origin);
         }
         id
     }
@@ -249,7 +236,9 @@ impl Heap {
     /// collection policy compares.
     #[inline(always)]
     pub(super) fn used(&self) -> usize {
-        self.nodes.len() * self.node_bytes() + self.lists.len() * 4
+        // The origins (when tracked) are left out: they do not change when
+        // collecting pays.
+        self.nodes.len() * NODE_BYTES + self.lists.len() * 4
     }
 }
 
