@@ -178,7 +178,9 @@ pub const EXCERPT_COLUMNS: usize = 80;
 /// the span's first column and on across its display width (cut at the
 /// line's end, so a span over several lines underlines the rest of its
 /// first), or one `^` when the span is a bare position (`start == end`).
-/// Both lines end with a newline; a span with no line (0) gives `""`.
+/// Both lines end with a newline. A span with no line (0), as a language
+/// lowered through the builder gives them, is placed by its first byte
+/// ([`position`]); one that is not in `source` gives `""`.
 ///
 /// The span's `line` and `col` place the caret (as the parser counts them:
 /// display columns, see the module's fine points); its byte range, read in
@@ -208,9 +210,14 @@ pub const EXCERPT_COLUMNS: usize = 80;
 /// assert_eq!(excerpt(source, span), format!("{source}\n{}^^^^^^^^\n", " ".repeat(16)));
 /// ```
 pub fn excerpt(source: &str, span: Span) -> String {
-    if span.line == 0 {
-        return String::new();
-    }
+    let span = if span.line == 0 {
+        match position(source, span.start) {
+            Some((line, col)) => span.with_position(line, col),
+            None => return String::new(),
+        }
+    } else {
+        span
+    };
     let index = usize::try_from(span.line - 1).unwrap_or(usize::MAX);
     let line = source.split('\n').nth(index).unwrap_or("");
     let line = line.strip_suffix('\r').unwrap_or(line);
@@ -273,6 +280,38 @@ pub fn excerpt(source: &str, span: Span) -> String {
     let carets = underline_width(source, span).min(room);
     marks.extend(std::iter::repeat('^').take(carets as usize));
     format!("{text}\n{marks}\n")
+}
+
+/// The line and display column (both from 1, counted as the parser counts
+/// them) of byte `offset` of `source`, or `None` past its end or inside a
+/// character: what a language with spans of its own needs to place a byte
+/// range ([`Span::new`]) in its text, and what [`excerpt`] uses for a span
+/// with no line.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::syntax::position;
+/// let source = "rate = 4\nbeds = 温室 / 0";
+/// assert_eq!(position(source, 0), Some((1, 1)));
+/// assert_eq!(position(source, 16), Some((2, 8)));  // 温
+/// assert_eq!(position(source, 23), Some((2, 13))); // `/`, after two wide characters
+/// assert_eq!(position(source, 17), None); // inside 温
+/// ```
+pub fn position(source: &str, offset: u32) -> Option<(u32, u32)> {
+    let offset = usize::try_from(offset).ok()?;
+    if offset > source.len() || !source.is_char_boundary(offset) {
+        return None;
+    }
+    let before = &source[..offset];
+    let line_start = before.rfind('\n').map_or(0, |k| k + 1);
+    let line = before.matches('\n').count() + 1;
+    let mut head = &before[line_start..];
+    if line_start == 0 {
+        head = head.strip_prefix('\u{feff}').unwrap_or(head);
+    }
+    let col: u64 = head.chars().map(|c| u64::from(char_width(c))).sum::<u64>() + 1;
+    Some((u32::try_from(line).ok()?, u32::try_from(col).ok()?))
 }
 
 /// How many columns a span's underline takes: the display width of its

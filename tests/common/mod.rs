@@ -23,7 +23,7 @@ mod mixed {
 #[allow(unused_imports)] // not every test binary runs the mixed program
 pub use mixed::{mixed_host, MIXED};
 
-pub use fuzz_checks::harness;
+pub use fuzz_checks::{harness, marks};
 
 /// Run `f` on a thread with a 2 MiB stack, as an embedding application's
 /// worker thread might have, and return what it returns; panics (this is a

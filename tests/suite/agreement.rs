@@ -12,8 +12,9 @@
 use orrery::{Arena, Arm, ErrorKind, Limits, Outcome, Prim, Program, Report, Rule, Term};
 use proptest::prelude::*;
 
-use crate::common::gen::{build, marked, program};
+use crate::common::gen::{build, program};
 use crate::common::harness::{reference, Harness};
+use crate::common::marks::marked;
 
 /// Fuel for the reference run: generated programs that have not ended by
 /// then are treated as divergent (they run out of fuel everywhere).

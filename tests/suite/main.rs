@@ -31,6 +31,7 @@ mod embedding;
 mod fuzz_replay;
 mod hostile;
 mod limit_shapes;
+mod locations;
 mod machines;
 mod syntax;
 mod toolkit;
