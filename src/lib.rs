@@ -101,6 +101,64 @@
 //! another thread. The open-term toolkit (shift, substitution, equality,
 //! the δ-rules) is [`toolkit`], apart from this embedding API.
 //!
+//! # Where a run stopped: spans and backtraces
+//!
+//! Any term may carry a source [`Span`] ([`Arena::at`]: a file number of
+//! yours and a byte range) and a function a name ([`Arena::named`]); the
+//! text parser gives every node its span and every `let`-bound function its
+//! name. A report that is not a value says where the run stopped
+//! ([`Report::location`]): the span of the redex that failed, or of the
+//! next one when the fuel or a limit stopped it, and the [`Backtrace`] of
+//! the calls pending around it, innermost first, each with its function's
+//! name and its call site. A tail call takes its caller's place, so a loop
+//! has one frame; a deep backtrace keeps [`BACKTRACE_ENDS`] frames at each
+//! end and counts the rest. For errors and the end of the fuel every
+//! machine reports the same location: it is part of the agreement
+//! ([`disagreement`]). A program with no spans pays nothing for them.
+//!
+//! A language of your own keeps its own positions. Here a made-up rules
+//! language is lowered by hand, and the error is shown with a caret in *its*
+//! source ([`syntax::excerpt`] places a byte span in the text):
+//!
+//! ```
+//! use orrery::{syntax, Arena, Limits, MachineKind, Outcome, Prim, Program, Span};
+//!
+//! // The user's rules file, in a language of theirs.
+//! let source = "ration(beds) := 120 / beds\nplan := ration(0)\n";
+//! const RULES_FILE: u32 = 1;
+//! let span_of = |text: &str| {
+//!     let start = source.find(text).unwrap() as u32;
+//!     Span::new(RULES_FILE, start, start + text.len() as u32)
+//! };
+//!
+//! // Their compiler lowers `ration` to a function and `plan` to a call,
+//! // each node with the span of the text it came from.
+//! let arena = Arena::new();
+//! let divide = arena.at(span_of("120 / beds"), arena.prim(Prim::Div, &[arena.int(120), arena.var(0)]));
+//! let ration = arena.named("ration", arena.lam(divide));
+//! let plan = arena.at(span_of("ration(0)"), arena.app(ration, arena.int(0)));
+//! let program = Program::new(plan).unwrap();
+//!
+//! let report = MachineKind::fastest().unwrap().run(&program, &Limits::default());
+//! let location = report.location.unwrap();
+//! let at = location.span.unwrap();
+//! assert_eq!(at.file, RULES_FILE);
+//! let (line, col) = syntax::position(source, at.start).unwrap();
+//! let Outcome::Error(error) = &report.outcome else { panic!("an error") };
+//! let mut message = format!("rules.txt:{line}:{col}: {}: {}\n", error.kind().name(), error.message());
+//! message += &syntax::excerpt(source, at);
+//! for frame in &location.backtrace.frames {
+//!     let (line, col) = syntax::position(source, frame.site.unwrap().start).unwrap();
+//!     message += &format!("  in {} at rules.txt:{line}:{col}\n", frame.name.as_deref().unwrap());
+//! }
+//! assert_eq!(message, "\
+//! rules.txt:1:17: division_by_zero: division by zero in /
+//! ration(beds) := 120 / beds
+//!                 ^^^^^^^^^^
+//!   in ration at rules.txt:2:9
+//! ");
+//! ```
+//!
 //! # Untrusted code
 //!
 //! The limits bound contractions and runtime memory. They do not bound
