@@ -1624,10 +1624,14 @@ fn an_excerpt_underlines_a_span_to_the_end_of_its_line() {
         excerpt(source, div),
         "  \\parcel. parcel / 0 in\n           ^^^^^^^^^^\n"
     );
-    // A position alone has one caret; no line, no excerpt.
+    // A position alone has one caret; a span with no line is placed by its
+    // first byte, and one outside the text has no excerpt.
     let at = Span::new(0, 0, 0).with_position(3, 9);
     assert_eq!(excerpt(source, at), "courier 3\n        ^\n");
-    assert_eq!(excerpt(source, Span::new(0, 0, 4)), "");
+    assert_eq!(excerpt(source, Span::new(0, 0, 4)), "let courier =\n^^^^\n");
+    let three = source.find("3").unwrap() as u32;
+    assert_eq!(excerpt(source, Span::new(0, three, three + 1)), "courier 3\n        ^\n");
+    assert_eq!(excerpt(source, Span::new(0, 900, 904)), "");
     // A column past the line's end, or a byte range past the text's, is
     // held to the line.
     let far = Span::new(0, 0, u32::MAX).with_position(3, u32::MAX);
