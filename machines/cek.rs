@@ -294,13 +294,11 @@ impl Environment {
     /// The activation this environment belongs to.
     #[inline(always)]
     fn activation(&self) -> Activation {
-        match &self.closure {
-            Some(closure) => Activation {
-                entry: self.entry,
-                site: self.site,
-                func: closure.code,
-            },
-            None => Activation::TOP,
+        // The top level's environment has its entry and site already.
+        Activation {
+            entry: self.entry,
+            site: self.site,
+            func: self.closure.as_ref().map_or(NONE, |c| c.code),
         }
     }
 }
@@ -1407,34 +1405,32 @@ impl CekRun {
                 self.apply_atom_function::<M>(image, value, argument, app)
             }
             ContinuationFrame::Call { function, .. } => {
-                let (rule, applicable) = match function {
-                    Value::Fun(c) => (closure_rule(image, c), true),
-                    _ => (Rule::Beta, false),
-                };
+                let rule = call_rule(image, function);
                 let value = self.take_at_frame::<M>(rule, value)?;
-                if !applicable {
-                    return Err(self.not_a_function_at_frame(image, value));
-                }
-                let Some(ContinuationFrame::Call {
-                    function: Value::Fun(closure),
-                    app,
-                    ..
-                }) = self.kont.pop()
-                else {
+                let Some(frame) = self.kont.pop() else {
                     return Err(broken("the frame changed"));
                 };
-                self.call::<M>(image, closure, value, app)
+                match frame {
+                    ContinuationFrame::Call {
+                        function: Value::Fun(closure),
+                        app,
+                        ..
+                    } => self.call::<M>(image, closure, value, app),
+                    frame => Err(self.not_a_function_at_frame(image, frame, value)),
+                }
             }
             ContinuationFrame::Apply { .. } => {
                 let rule = call_rule(image, &value);
                 let value = self.take_at_frame::<M>(rule, value)?;
-                let Value::Fun(closure) = value else {
-                    return Err(self.not_a_function_at_frame(image, value));
-                };
-                let Some(ContinuationFrame::Apply { argument }) = self.kont.pop() else {
+                let Some(frame) = self.kont.pop() else {
                     return Err(broken("the frame changed"));
                 };
-                self.call::<M>(image, closure, argument, NONE)
+                match (value, frame) {
+                    (Value::Fun(closure), ContinuationFrame::Apply { argument }) => {
+                        self.call::<M>(image, closure, argument, NONE)
+                    }
+                    (value, frame) => Err(self.not_a_function_at_frame(image, frame, value)),
+                }
             }
             ContinuationFrame::Partial { .. } => {
                 let value = self.take_at_frame::<M>(Rule::Beta, value)?;
@@ -1465,18 +1461,20 @@ impl CekRun {
             }
             ContinuationFrame::If { .. } => {
                 let value = self.take_at_frame::<M>(Rule::If, value)?;
-                let Value::Bool(holds) = value else {
-                    // The frame stays, to locate the error.
-                    let error = EvalError::not_a_boolean(value.operand(image, &self.tags));
-                    return Err(self.error_at_frame(value, error));
+                let Some(frame) = self.kont.pop() else {
+                    return Err(broken("the frame changed"));
                 };
-                let Some(ContinuationFrame::If {
+                let Value::Bool(holds) = value else {
+                    let error = EvalError::not_a_boolean(value.operand(image, &self.tags));
+                    return Err(self.error_at_frame(frame, value, error));
+                };
+                let ContinuationFrame::If {
                     yes,
                     no,
                     env,
                     below,
                     ..
-                }) = self.kont.pop()
+                } = frame
                 else {
                     return Err(broken("the frame changed"));
                 };
@@ -1528,28 +1526,35 @@ impl CekRun {
         }
     }
 
-    /// `error`, for the value `value` returned to the frame on top, which
-    /// stays there (with `value` the control) to say where the run stopped.
+    /// `error`, for the value `value` returned to `frame`, just popped:
+    /// the frame goes back on top, with `value` the control, to say where
+    /// the run stopped (its room is still there).
     #[cold]
     #[inline(never)]
-    fn error_at_frame(&mut self, value: Val, error: EvalError) -> Halt {
+    fn error_at_frame(&mut self, frame: ContinuationFrame, value: Val, error: EvalError) -> Halt {
+        self.kont.push(frame);
         self.control = Some(Control::Return(value));
         Halt::error(error)
     }
 
-    /// The application frame on top (a call or an argument's) was handed a
-    /// value that is not a function (the frame's or `value`), the
-    /// contraction paid: the error, the frame left on top.
+    /// An application frame (a call's or an argument's), just popped, was
+    /// handed a value that is not a function (the frame's or `value`), the
+    /// contraction paid: the error, the frame put back.
     #[cold]
     #[inline(never)]
-    fn not_a_function_at_frame(&mut self, image: &Image, value: Val) -> Halt {
-        let error = match self.kont.last() {
-            Some(ContinuationFrame::Call { function, .. }) => {
+    fn not_a_function_at_frame(
+        &mut self,
+        image: &Image,
+        frame: ContinuationFrame,
+        value: Val,
+    ) -> Halt {
+        let error = match &frame {
+            ContinuationFrame::Call { function, .. } => {
                 EvalError::not_a_function(function.operand(image, &self.tags))
             }
             _ => EvalError::not_a_function(value.operand(image, &self.tags)),
         };
-        self.error_at_frame(value, error)
+        self.error_at_frame(frame, value, error)
     }
 
     /// The last operand `value` of primitive `op` (at position `at`) has
