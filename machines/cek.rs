@@ -44,6 +44,7 @@ use super::runtime::value::{cut, data_field, recycle, Closure, ConCell, Meter, V
 use crate::budget::{growth, reserve_within, Budget, Ended, Halt};
 use crate::error::Fault;
 use crate::image::{Capture, INode, Id, Image, Tags, NONE};
+use crate::span::{Location, Trail};
 use crate::vocabulary::{Build, Detached, Machine, Paused};
 use crate::{Counts, Datum, EvalError, Limits, Outcome, Prim, Program, Report, Rule};
 
@@ -215,15 +216,32 @@ impl Paused for CekRun {
 }
 
 /// The environment of the control: the current function's locals,
-/// `locals[base .. base + depth]` (the innermost binder last), and its closure,
+/// `locals[top - depth .. top]` (the innermost binder last), and its closure,
 /// whose first captured values are the function's free variables. `F` is how
 /// the closure is held: an `Rc` while the machine runs, a cell's number in a
 /// detached run.
+///
+/// It also names the function activation it belongs to, for backtraces:
+/// `site`, the application node of the call that entered it ([`NONE`] at
+/// the top level and for the program's arguments, which have none), and
+/// `entry`, how many continuation frames there were when it was entered.
+/// A call with no frame of the caller's pending (a tail call) is entered at
+/// the caller's height and takes its place; any other callee is entered
+/// above the caller's frames, so the live activations have distinct
+/// entries, and every frame an activation pushes lies at or above its
+/// entry. (Where the locals start does not tell activations apart: a
+/// callee entered under a frame that keeps no environment, such as the
+/// inner call of `m (m n)`, reuses its caller's locals.) `top` is a `u32`:
+/// the locals stack is kept under [`MAX_LOCALS`].
 #[derive(Clone)]
 struct Environment<F = Rc<Fun>> {
     closure: Option<F>,
-    base: usize,
+    /// One past its last local (kept rather than where they start: every
+    /// local is read from here).
+    top: u32,
     depth: u32,
+    site: Id,
+    entry: u32,
 }
 
 impl Environment {
@@ -231,15 +249,57 @@ impl Environment {
     fn top() -> Self {
         Environment {
             closure: None,
-            base: 0,
+            top: 0,
             depth: 0,
+            site: NONE,
+            entry: 0,
         }
     }
+}
 
+impl<F> Environment<F> {
     /// One past the last local this environment uses.
     #[inline(always)]
     fn extent(&self) -> usize {
-        self.base + self.depth as usize
+        self.top as usize
+    }
+}
+
+/// The most locals a run may hold at once (2³¹, 32 GiB of values): growth
+/// past it stops the run at the memory limit, so a local's position fits
+/// the `u32` of [`Environment::top`] (growth at most doubles the stack).
+const MAX_LOCALS: usize = 1 << 31;
+
+/// The function activation a frame belongs to, for the backtrace: its
+/// identity among the live ones (`entry`, see [`Environment`]), the call
+/// site that entered it and its function's index ([`NONE`]: the top level,
+/// which has no call mark). Frames that keep no environment keep this.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+struct Activation {
+    entry: u32,
+    site: Id,
+    func: u32,
+}
+
+impl Activation {
+    /// The top level's.
+    const TOP: Activation = Activation {
+        entry: 0,
+        site: NONE,
+        func: NONE,
+    };
+}
+
+impl Environment {
+    /// The activation this environment belongs to.
+    #[inline(always)]
+    fn activation(&self) -> Activation {
+        // The top level's environment has its entry and site already.
+        Activation {
+            entry: self.entry,
+            site: self.site,
+            func: self.closure.as_ref().map_or(NONE, |c| c.code),
+        }
     }
 }
 
@@ -248,24 +308,40 @@ impl Environment {
 /// in, and `below`: how many locals the frames under them need. `V` and `F`
 /// are how values and closures are held: runtime values and `Rc`s while the
 /// machine runs, plain data in a detached run.
+///
+/// Each frame whose construct is a redex once its hole is a value knows
+/// that construct's image node (`app`, `node`, `term`), where a run that
+/// stops there stopped; the application frames that keep no environment
+/// keep the [`Activation`] they belong to.
 enum ContinuationFrame<V = Val, F = Rc<Fun>> {
-    /// `□ t`: evaluate the argument next.
+    /// `□ t`: evaluate the argument `argument` of application `app` next.
     Arg {
         argument: Id,
+        app: Id,
         env: Environment<F>,
         below: usize,
     },
-    /// `v □`: apply `function` to the value.
-    Call { function: V },
+    /// `v □`: apply `function` to the value, at application `app`.
+    Call {
+        function: V,
+        app: Id,
+        caller: Activation,
+    },
     /// `□ v`: apply the value to `argument`, a value already (one of the
-    /// program's arguments, under its root).
+    /// program's arguments, under its root: the top level's, at no
+    /// application node).
     Apply { argument: V },
     /// `c x₁ … xₐ □`, a curried call inside which no closure is made for the
     /// partial applications: `closure` (with `k` arguments of its own) has
     /// been given the `applied - k` arguments on top of the operand stack, each
-    /// application contracted, and the value is its argument `applied + 1`
-    /// (see [`calls`]).
-    Partial { closure: F, applied: u32 },
+    /// application contracted, and the value is its argument `applied + 1`,
+    /// at application `app` (see [`calls`]).
+    Partial {
+        closure: F,
+        applied: u32,
+        app: Id,
+        caller: Activation,
+    },
     /// `f v₁ … vᵢ □ aᵢ₊₂ … aₘ` for the spine `term` of a call whose head
     /// is bound to `closure`, which takes exactly `m` more arguments: the
     /// `index` values to the left are on the operand stack, each application
@@ -278,14 +354,16 @@ enum ContinuationFrame<V = Val, F = Rc<Fun>> {
         env: Environment<F>,
         below: usize,
     },
-    /// `let □ in t`.
+    /// `let □ in t`, of let node `node`.
     Let {
+        node: Id,
         body: Id,
         env: Environment<F>,
         below: usize,
     },
-    /// `if □ then t else u`.
+    /// `if □ then t else u`, of if node `node`.
     If {
+        node: Id,
         yes: Id,
         no: Id,
         env: Environment<F>,
@@ -302,12 +380,48 @@ enum ContinuationFrame<V = Val, F = Rc<Fun>> {
         env: Environment<F>,
         below: usize,
     },
-    /// `case □ of {…}`, the case's index in the image.
+    /// `case □ of {…}` of case node `node`, the case's index in the image.
     Case {
+        node: Id,
         case: u32,
         env: Environment<F>,
         below: usize,
     },
+}
+
+impl ContinuationFrame {
+    /// The image node of the redex this frame makes with a value in its
+    /// hole ([`NONE`] for an application to one of the program's
+    /// arguments, which has none).
+    fn redex(&self, image: &Image) -> Id {
+        use ContinuationFrame as K;
+        match self {
+            K::Arg { app, .. } | K::Call { app, .. } | K::Partial { app, .. } => *app,
+            K::Apply { .. } => NONE,
+            // The application contracted next: number `index + 1` from the
+            // innermost.
+            K::Spine { term, index, m, .. } => {
+                calls::spine_app(image, *term, m.saturating_sub(index + 1))
+            }
+            K::Let { node, .. } | K::If { node, .. } | K::Operand { node, .. } => *node,
+            K::Case { node, .. } => *node,
+        }
+    }
+
+    /// The activation this frame belongs to.
+    fn activation(&self) -> Activation {
+        use ContinuationFrame as K;
+        match self {
+            K::Call { caller, .. } | K::Partial { caller, .. } => *caller,
+            K::Apply { .. } => Activation::TOP,
+            K::Arg { env, .. }
+            | K::Spine { env, .. }
+            | K::Let { env, .. }
+            | K::If { env, .. }
+            | K::Operand { env, .. }
+            | K::Case { env, .. } => env.activation(),
+        }
+    }
 }
 
 /// The control: a node to evaluate, or a value to hand to the continuation
@@ -322,7 +436,8 @@ enum Control<V = Val> {
 enum End {
     /// The value, read back.
     Value(crate::Value),
-    Ended(Ended),
+    /// How it ended, and where ([`None`] for a fault).
+    Ended(Ended, Option<Location>),
 }
 
 /// The state of one CEK run: control, environment, continuation, and the
@@ -377,6 +492,10 @@ pub struct CekRun {
     /// Whether the program's arguments are still to be converted and put
     /// under the root (on the first resume).
     args_pending: bool,
+    /// The redex of an error whose frame is gone, contracted in the current
+    /// environment ([`NONE`] otherwise): set only on error paths, read by
+    /// [`CekRun::trail`].
+    stop: Id,
     end: Option<End>,
 }
 
@@ -425,6 +544,7 @@ impl CekRun {
             meter: Meter::holding(0),
             metered,
             cells: 0,
+            stop: NONE,
             end: None,
         }
     }
@@ -477,10 +597,15 @@ impl CekRun {
     /// }
     /// assert_eq!(report, whole);
     /// ```
+    ///
+    /// A report of an error, a limit or the end of the fuel says where the
+    /// run stopped ([`Report::location`]): the redex that failed or could
+    /// not be paid, and the calls pending around it (see [`crate::span`]).
     pub fn resume(&mut self, more_fuel: u64) -> Report {
         self.budget.add_fuel(more_fuel);
         self.meter = Meter::holding(self.cells);
         if self.end.is_none() {
+            self.stop = NONE;
             let result = if self.metered {
                 self.execute::<true>()
             } else {
@@ -491,23 +616,85 @@ impl CekRun {
                     self.clear();
                     Some(self.read_back(value))
                 }
-                Err(halt) => halt.ended(self.budget.memory).map(|ended| {
-                    self.clear();
-                    End::Ended(ended)
-                }),
+                Err(halt) => {
+                    let located = !matches!(halt, Halt::Fault(_));
+                    halt.ended(self.budget.memory).map(|ended| {
+                        let location = located.then(|| self.location());
+                        self.clear();
+                        End::Ended(ended, location)
+                    })
+                }
             };
         }
-        let outcome = match &self.end {
-            None => Outcome::OutOfFuel,
-            Some(End::Value(value)) => Outcome::Value(value.clone()),
-            Some(End::Ended(ended)) => ended.outcome(),
+        let (outcome, location) = match &self.end {
+            None => (Outcome::OutOfFuel, Some(self.location())),
+            Some(End::Value(value)) => (Outcome::Value(value.clone()), None),
+            Some(End::Ended(ended, location)) => (ended.outcome(), location.clone()),
         };
         self.cells = self.meter.cells();
         Report {
             outcome,
             counts: self.budget.counts,
-            location: None,
+            location,
         }
+    }
+
+    /// Where the run stands (stopped by an error or a limit, or paused), as
+    /// a location.
+    #[cold]
+    fn location(&self) -> Location {
+        let image = self.program.image();
+        image.location(&self.trail(image))
+    }
+
+    /// The run's trail (see [`crate::span`]): the redex it stopped at, then
+    /// a call mark for each function activation pending, innermost first.
+    ///
+    /// The redex is the one the state shows: a value returned to a frame
+    /// whose contraction failed or could not be paid (the frame's construct,
+    /// in the frame's activation), a node to evaluate (a primitive without
+    /// operands, in the current environment), or the one an error path
+    /// recorded in [`CekRun::stop`] after popping its frame. Then each
+    /// activation is a mark ⟨site, λ⟩, the λ being the last of its
+    /// function's chain (the one whose body a saturating call enters), and
+    /// the continuation, read from the top, adds one for each activation
+    /// its frames belong to, the top level's excepted. A memory limit or a
+    /// cancellation elsewhere is located at the current environment with
+    /// no redex.
+    fn trail(&self, image: &Image) -> Trail {
+        let (redex, innermost) = if self.stop != NONE {
+            (self.stop, self.env.activation())
+        } else {
+            match (&self.control, self.kont.last()) {
+                (Some(Control::Return(_)), Some(frame)) => {
+                    (frame.redex(image), frame.activation())
+                }
+                (Some(Control::Eval(id)), _) => (*id, self.env.activation()),
+                _ => (NONE, self.env.activation()),
+            }
+        };
+        let mut trail = Trail::new(redex);
+        // The chain's last λ, found once per run of one function's marks.
+        let mut lam = (NONE, NONE);
+        let mut mark = |trail: &mut Trail, a: Activation| {
+            if a.func == NONE {
+                return;
+            }
+            if lam.0 != a.func {
+                lam = (a.func, image.last_lam(a.func));
+            }
+            trail.push(a.site, lam.1);
+        };
+        mark(&mut trail, innermost);
+        let mut last = innermost;
+        for frame in self.kont.iter().rev() {
+            let a = frame.activation();
+            if a != last {
+                mark(&mut trail, a);
+                last = a;
+            }
+        }
+        trail
     }
 
     /// The end of a run whose value is `value`: the value read back under
@@ -525,10 +712,12 @@ impl CekRun {
         );
         match read {
             Ok(value) => End::Value(value),
-            Err(halt) => End::Ended(
-                halt.ended(self.budget.memory)
-                    .unwrap_or_else(|| Ended::Fault(Fault::new("read-back asked for fuel"))),
-            ),
+            // Every contraction was made: no redex, and no call pending.
+            Err(halt) => match halt.ended(self.budget.memory) {
+                Some(ended @ Ended::Fault(_)) => End::Ended(ended, None),
+                Some(ended) => End::Ended(ended, Some(Location::default())),
+                None => End::Ended(Ended::Fault(Fault::new("read-back asked for fuel")), None),
+            },
         }
     }
 
@@ -698,6 +887,9 @@ impl CekRun {
     #[inline(always)]
     fn reserve_locals<const M: bool>(&mut self, extra: usize) -> Result<(), Halt> {
         if M && self.locals.capacity() - self.locals.len() < extra {
+            if self.locals.len().saturating_add(extra) > MAX_LOCALS {
+                return Err(Halt::Memory);
+            }
             let held = self.held();
             return grow_within(&mut self.locals, extra, held, &mut self.budget);
         }
@@ -770,6 +962,7 @@ impl CekRun {
     fn bind<const M: bool>(&mut self, value: Val) -> Result<(), Halt> {
         self.reserve_locals::<M>(1)?;
         self.locals.push(value);
+        self.env.top += 1;
         self.env.depth += 1;
         Ok(())
     }
@@ -957,18 +1150,24 @@ impl CekRun {
             INode::App(function, argument) => {
                 let head = image.node(function);
                 match self.atom_of(head)? {
-                    Some(f) => self.apply_atom_function::<M>(image, f, argument)?,
+                    Some(f) => self.apply_atom_function::<M>(image, f, argument, id)?,
                     None => self.app_spine::<M>(image, id, head, function, argument)?,
                 }
             }
             INode::Let(bound, body) => {
-                self.push_env_frame::<M>(|env, below| ContinuationFrame::Let { body, env, below })?;
+                self.push_env_frame::<M>(|env, below| ContinuationFrame::Let {
+                    node: id,
+                    body,
+                    env,
+                    below,
+                })?;
                 Control::Eval(bound)
             }
             INode::If(condition, yes, no) => match self.if_int_test::<M>(image, condition) {
                 Some(holds) => Control::Eval(if holds { yes } else { no }),
                 None => {
                     self.push_env_frame::<M>(|env, below| ContinuationFrame::If {
+                        node: id,
                         yes,
                         no,
                         env,
@@ -1037,6 +1236,7 @@ impl CekRun {
             },
             INode::Case(scrutinee, case) => {
                 self.push_env_frame::<M>(|env, below| ContinuationFrame::Case {
+                    node: id,
                     case,
                     env,
                     below,
@@ -1077,10 +1277,10 @@ impl CekRun {
         self.pay_now::<M>(Rule::Prim).then_some(value)
     }
 
-    /// `f a` with `f` an atom whose value is `function`: an atom argument or
-    /// an integer operation on atoms is taken at once when the fuel slice
-    /// covers the contractions; otherwise the argument is evaluated under a
-    /// call frame.
+    /// `f a` (application `app`) with `f` an atom whose value is
+    /// `function`: an atom argument or an integer operation on atoms is
+    /// taken at once when the fuel slice covers the contractions; otherwise
+    /// the argument is evaluated under a call frame.
     // Measured gain (callgrind; benches/README.md, "Fast paths"): fib25 209.7M -> 158.9M instructions.
     #[inline(always)]
     fn apply_atom_function<const M: bool>(
@@ -1088,6 +1288,7 @@ impl CekRun {
         image: &Image,
         function: Val,
         argument: Id,
+        app: Id,
     ) -> Result<Control, Halt> {
         let node = image.node(argument);
         let taken = if let INode::Prim(op, start) = node {
@@ -1114,13 +1315,9 @@ impl CekRun {
                         self.pay_now::<M>(rule)
                     };
                     if paid {
-                        return self.call_closure::<M>(image, closure, &f, a);
+                        return self.call_closure::<M>(image, closure, &f, a, app);
                     }
-                    self.room_for_frame::<M>()?;
-                    self.kont.push(ContinuationFrame::Call {
-                        function: Value::Fun(closure),
-                    });
-                    return Ok(Control::Eval(argument));
+                    return self.push_call::<M>(Value::Fun(closure), argument, app);
                 }
                 function => {
                     let paid = if prim {
@@ -1129,17 +1326,33 @@ impl CekRun {
                         self.pay_now::<M>(Rule::Beta)
                     };
                     if paid {
+                        self.stop = app;
                         let operand = function.operand(image, &self.tags);
                         return Err(Halt::error(EvalError::not_a_function(operand)));
                     }
-                    self.room_for_frame::<M>()?;
-                    self.kont.push(ContinuationFrame::Call { function });
-                    return Ok(Control::Eval(argument));
+                    return self.push_call::<M>(function, argument, app);
                 }
             }
         }
+        self.push_call::<M>(function, argument, app)
+    }
+
+    /// Evaluate `argument` of application `app` under a frame that applies
+    /// `function` to its value.
+    #[inline(always)]
+    fn push_call<const M: bool>(
+        &mut self,
+        function: Val,
+        argument: Id,
+        app: Id,
+    ) -> Result<Control, Halt> {
         self.room_for_frame::<M>()?;
-        self.kont.push(ContinuationFrame::Call { function });
+        let caller = self.env.activation();
+        self.kont.push(ContinuationFrame::Call {
+            function,
+            app,
+            caller,
+        });
         Ok(Control::Eval(argument))
     }
 
@@ -1162,6 +1375,7 @@ impl CekRun {
         }
         self.push_env_frame::<M>(|env, below| ContinuationFrame::Arg {
             argument,
+            app: id,
             env,
             below,
         })?;
@@ -1179,6 +1393,7 @@ impl CekRun {
             ContinuationFrame::Arg { .. } => {
                 let Some(ContinuationFrame::Arg {
                     argument,
+                    app,
                     env,
                     below,
                 }) = self.kont.pop()
@@ -1187,35 +1402,56 @@ impl CekRun {
                 };
                 self.floor = below;
                 self.enter(env);
-                self.apply_atom_function::<M>(image, value, argument)
+                self.apply_atom_function::<M>(image, value, argument, app)
             }
-            ContinuationFrame::Call { function } => {
+            ContinuationFrame::Call { function, .. } => {
                 let rule = call_rule(image, function);
                 let value = self.take_at_frame::<M>(rule, value)?;
-                let Some(ContinuationFrame::Call { function }) = self.kont.pop() else {
+                let Some(frame) = self.kont.pop() else {
                     return Err(broken("the frame changed"));
                 };
-                self.call::<M>(image, function, value)
+                match frame {
+                    ContinuationFrame::Call {
+                        function: Value::Fun(closure),
+                        app,
+                        ..
+                    } => self.call::<M>(image, closure, value, app),
+                    frame => Err(self.not_a_function_at_frame(image, frame, value)),
+                }
             }
             ContinuationFrame::Apply { .. } => {
                 let rule = call_rule(image, &value);
                 let value = self.take_at_frame::<M>(rule, value)?;
-                let Some(ContinuationFrame::Apply { argument }) = self.kont.pop() else {
+                let Some(frame) = self.kont.pop() else {
                     return Err(broken("the frame changed"));
                 };
-                self.call::<M>(image, value, argument)
+                match (value, frame) {
+                    (Value::Fun(closure), ContinuationFrame::Apply { argument }) => {
+                        self.call::<M>(image, closure, argument, NONE)
+                    }
+                    (value, frame) => Err(self.not_a_function_at_frame(image, frame, value)),
+                }
             }
             ContinuationFrame::Partial { .. } => {
                 let value = self.take_at_frame::<M>(Rule::Beta, value)?;
-                let Some(ContinuationFrame::Partial { closure, applied }) = self.kont.pop() else {
+                let Some(ContinuationFrame::Partial {
+                    closure,
+                    applied,
+                    app,
+                    ..
+                }) = self.kont.pop()
+                else {
                     return Err(broken("the frame changed"));
                 };
-                self.partial_value::<M>(image, closure, applied, value)
+                self.partial_value::<M>(image, closure, applied, value, app)
             }
             ContinuationFrame::Spine { .. } => self.spine_value::<M>(image, value),
             ContinuationFrame::Let { .. } => {
                 let value = self.take_at_frame::<M>(Rule::Let, value)?;
-                let Some(ContinuationFrame::Let { body, env, below }) = self.kont.pop() else {
+                let Some(ContinuationFrame::Let {
+                    body, env, below, ..
+                }) = self.kont.pop()
+                else {
                     return Err(broken("the frame changed"));
                 };
                 self.floor = below;
@@ -1225,18 +1461,22 @@ impl CekRun {
             }
             ContinuationFrame::If { .. } => {
                 let value = self.take_at_frame::<M>(Rule::If, value)?;
-                let Some(ContinuationFrame::If {
+                let Some(frame) = self.kont.pop() else {
+                    return Err(broken("the frame changed"));
+                };
+                let Value::Bool(holds) = value else {
+                    let error = EvalError::not_a_boolean(value.operand(image, &self.tags));
+                    return Err(self.error_at_frame(frame, value, error));
+                };
+                let ContinuationFrame::If {
                     yes,
                     no,
                     env,
                     below,
-                }) = self.kont.pop()
+                    ..
+                } = frame
                 else {
                     return Err(broken("the frame changed"));
-                };
-                let Value::Bool(holds) = value else {
-                    let operand = value.operand(image, &self.tags);
-                    return Err(Halt::error(EvalError::not_a_boolean(operand)));
                 };
                 self.floor = below;
                 self.enter(env);
@@ -1270,14 +1510,51 @@ impl CekRun {
             }
             ContinuationFrame::Case { .. } => {
                 let value = self.take_at_frame::<M>(Rule::Case, value)?;
-                let Some(ContinuationFrame::Case { case, env, below }) = self.kont.pop() else {
+                let Some(ContinuationFrame::Case {
+                    node,
+                    case,
+                    env,
+                    below,
+                }) = self.kont.pop()
+                else {
                     return Err(broken("the frame changed"));
                 };
                 self.floor = below;
                 self.enter(env);
-                self.select::<M>(image, case, value)
+                self.select::<M>(image, node, case, value)
             }
         }
+    }
+
+    /// `error`, for the value `value` returned to `frame`, just popped:
+    /// the frame goes back on top, with `value` the control, to say where
+    /// the run stopped (its room is still there).
+    #[cold]
+    #[inline(never)]
+    fn error_at_frame(&mut self, frame: ContinuationFrame, value: Val, error: EvalError) -> Halt {
+        self.kont.push(frame);
+        self.control = Some(Control::Return(value));
+        Halt::error(error)
+    }
+
+    /// An application frame (a call's or an argument's), just popped, was
+    /// handed a value that is not a function (the frame's or `value`), the
+    /// contraction paid: the error, the frame put back.
+    #[cold]
+    #[inline(never)]
+    fn not_a_function_at_frame(
+        &mut self,
+        image: &Image,
+        frame: ContinuationFrame,
+        value: Val,
+    ) -> Halt {
+        let error = match &frame {
+            ContinuationFrame::Call { function, .. } => {
+                EvalError::not_a_function(function.operand(image, &self.tags))
+            }
+            _ => EvalError::not_a_function(value.operand(image, &self.tags)),
+        };
+        self.error_at_frame(frame, value, error)
     }
 
     /// The last operand `value` of primitive `op` (at position `at`) has
@@ -1436,11 +1713,13 @@ impl CekRun {
         Ok(Control::Return(Value::Con(ConCell::new(tag, fields))))
     }
 
-    /// Enter the arm of case `case` that matches `value`, its fuel paid, with
-    /// the constructor's fields bound; else the default arm; else the error.
+    /// Enter the arm of case `case` (node `node`) that matches `value`, its
+    /// fuel paid, with the constructor's fields bound; else the default
+    /// arm; else the error.
     fn select<const M: bool>(
         &mut self,
         image: &Image,
+        node: Id,
         case: u32,
         value: Val,
     ) -> Result<Control, Halt> {
@@ -1453,6 +1732,7 @@ impl CekRun {
                 self.reserve_locals::<M>(fields.len())?;
                 self.work::<M>(fields.len())?;
                 self.locals.extend(fields.iter().cloned());
+                self.env.top += arm.arity;
                 self.env.depth += arm.arity;
                 return Ok(Control::Eval(arm.body));
             }
@@ -1465,6 +1745,7 @@ impl CekRun {
                     self.reserve_locals::<M>(fields.len())?;
                     self.work::<M>(fields.len())?;
                     self.locals.extend(fields.iter().map(|&f| data_field(image, f)));
+                    self.env.top += arm.arity;
                     self.env.depth += arm.arity;
                     return Ok(Control::Eval(arm.body));
                 }
@@ -1473,6 +1754,7 @@ impl CekRun {
         if info.default != NONE {
             return Ok(Control::Eval(info.default));
         }
+        self.stop = node;
         let operand = value.operand(image, &self.tags);
         Err(Halt::error(EvalError::no_matching_case(operand)))
     }

@@ -7,9 +7,13 @@
 //! stack under a [`ContinuationFrame::Partial`] or [`ContinuationFrame::Spine`] and no closure is
 //! made. Every application is still one contraction, paid in the order of
 //! the nested calls, so the counts and the fuel bounds are the stepper's.
+//!
+//! A call that enters a body makes a new activation: its environment names
+//! the application that saturated the function (the outermost of the
+//! spine, the last contracted) and the continuation's height (see
+//! [`Environment`]), which is what a backtrace reads.
 
 use std::rc::Rc;
-
 
 use super::{
     broken, closure_bytes, closure_rule, int_pair, CekRun, ContinuationFrame, Control, Environment,
@@ -20,7 +24,7 @@ use crate::image::analysis::MAX_CHAIN;
 use crate::image::{Func, INode, Id, Image};
 use crate::machines::runtime::prims::int_prim;
 use crate::machines::runtime::value::{cut, Closure, Value, Values};
-use crate::{EvalError, Rule};
+use crate::Rule;
 
 /// The arguments of a call kept inline; more (up to the analysis' one bound,
 /// [`MAX_CHAIN`] parameters) spill to the heap.
@@ -34,32 +38,25 @@ enum Taken {
 }
 
 impl CekRun {
-    /// Contract the application of `function` to `argument`, its fuel
-    /// already paid: enter the body, with the callee's locals where the
-    /// continuation's end (so a tail call reuses the caller's), or make the
-    /// partial application.
+    /// Contract the application (node `site`, or [`crate::image::NONE`])
+    /// of `closure` to `argument`, its fuel already paid: enter the body,
+    /// with the callee's locals where the continuation's end (so a tail
+    /// call reuses the caller's), or make the partial application.
     #[inline]
     pub(super) fn call<const M: bool>(
         &mut self,
         image: &Image,
-        function: Val,
+        closure: Rc<Fun>,
         argument: Val,
+        site: Id,
     ) -> Result<Control, Halt> {
-        let Value::Fun(closure) = function else {
-            let operand = function.operand(image, &self.tags);
-            return Err(Halt::error(EvalError::not_a_function(operand)));
-        };
         let Some(f) = image.funcs.get(closure.code as usize).copied() else {
             return Err(broken("a closure of no function"));
         };
-        if f.params == 1 {
-            return self.enter_unary::<M>(closure, &f, argument);
-        }
-        let applied = closure.applied;
-        self.step::<M>(image, closure, &f, applied, argument)
+        self.call_closure::<M>(image, closure, &f, argument, site)
     }
 
-    /// Contract the application of `closure` (of function `f`) to
+    /// Contract the application `site` of `closure` (of function `f`) to
     /// `argument`, its fuel paid.
     #[inline(always)]
     pub(super) fn call_closure<const M: bool>(
@@ -68,16 +65,17 @@ impl CekRun {
         closure: Rc<Fun>,
         f: &Func,
         argument: Val,
+        site: Id,
     ) -> Result<Control, Halt> {
         if f.params == 1 {
-            return self.enter_unary::<M>(closure, f, argument);
+            return self.enter_unary::<M>(closure, f, argument, site);
         }
         let applied = closure.applied;
-        self.step::<M>(image, closure, f, applied, argument)
+        self.step::<M>(image, closure, f, applied, argument, site)
     }
 
     /// A function of one parameter, entered at once with its self (if it is
-    /// recursive) and its argument as locals.
+    /// recursive) and its argument as locals, called at `site`.
     // Measured gain (callgrind; benches/README.md, "Fast paths"): fib25 191.8M -> 158.9M instructions.
     #[inline(always)]
     fn enter_unary<const M: bool>(
@@ -85,9 +83,11 @@ impl CekRun {
         closure: Rc<Fun>,
         f: &Func,
         argument: Val,
+        site: Id,
     ) -> Result<Control, Halt> {
         cut(&mut self.locals, self.floor);
-        let base = self.locals.len();
+        // Under `MAX_LOCALS`, which `reserve_locals` keeps.
+        let base = self.locals.len() as u32;
         let depth = 1 + u32::from(f.rec);
         self.reserve_locals::<M>(depth as usize)?;
         if f.rec {
@@ -96,8 +96,10 @@ impl CekRun {
         self.locals.push(argument);
         self.env = Environment {
             closure: Some(closure),
-            base,
+            top: base + depth,
             depth,
+            site,
+            entry: self.kont.len() as u32,
         };
         Ok(Control::Eval(f.body))
     }
@@ -105,11 +107,11 @@ impl CekRun {
     /// Go on with a curried call: `closure` (of function `f`, holding `k`
     /// arguments) has just been applied to `value`, its argument number
     /// `applied + 1`, its fuel paid, with the `applied - k` arguments between
-    /// on top of the operand stack. While `f` wants more and the top frame
-    /// is `□ b`, keep the value and go on to `b` (taking an atom `b` at
-    /// once); once `f` has all its parameters, enter its body; otherwise the
-    /// partial application escapes as a closure. A loop, however long the
-    /// chain.
+    /// on top of the operand stack, at application `site`. While `f` wants
+    /// more and the top frame is `□ b`, keep the value and go on to `b`
+    /// (taking an atom `b` at once); once `f` has all its parameters, enter
+    /// its body, called at the last application; otherwise the partial
+    /// application escapes as a closure. A loop, however long the chain.
     // Measured gain (callgrind; benches/README.md, "Fast paths"): a nine-parameter recursive function called
     // 100,000 times (more arguments than a spine takes) 1158.9M -> 368.5M.
     pub(super) fn step<const M: bool>(
@@ -119,16 +121,18 @@ impl CekRun {
         f: &Func,
         mut applied: u32,
         mut value: Val,
+        mut site: Id,
     ) -> Result<Control, Halt> {
         loop {
             if applied + 1 >= f.params {
-                return self.enter_body::<M>(closure, f, applied, value);
+                return self.enter_body::<M>(closure, f, applied, value, site);
             }
             if !matches!(self.kont.last(), Some(ContinuationFrame::Arg { .. })) {
                 return self.partial::<M>(closure, f, applied, value);
             }
             let Some(ContinuationFrame::Arg {
                 argument,
+                app,
                 env,
                 below,
             }) = self.kont.pop()
@@ -137,19 +141,28 @@ impl CekRun {
             };
             self.push_operand::<M>(value)?;
             applied += 1;
+            site = app;
             self.floor = below;
             self.enter(env);
             match self.atom(image, argument)? {
                 Some(next) if self.pay_now::<M>(Rule::Beta) => value = next,
                 _ => {
-                    self.push_frame::<M>(ContinuationFrame::Partial { closure, applied })?;
+                    // The application is the argument frame's activation's.
+                    let caller = self.env.activation();
+                    self.push_frame::<M>(ContinuationFrame::Partial {
+                        closure,
+                        applied,
+                        app,
+                        caller,
+                    })?;
                     return Ok(Control::Eval(argument));
                 }
             }
         }
     }
 
-    /// The value for a [`ContinuationFrame::Partial`], its fuel paid.
+    /// The value for a [`ContinuationFrame::Partial`] of application
+    /// `app`, its fuel paid.
     #[inline]
     pub(super) fn partial_value<const M: bool>(
         &mut self,
@@ -157,17 +170,19 @@ impl CekRun {
         closure: Rc<Fun>,
         applied: u32,
         value: Val,
+        app: Id,
     ) -> Result<Control, Halt> {
         let Some(f) = image.funcs.get(closure.code as usize).copied() else {
             return Err(broken("a closure of no function"));
         };
-        self.step::<M>(image, closure, &f, applied, value)
+        self.step::<M>(image, closure, &f, applied, value, app)
     }
 
     /// Enter the body of `closure`'s function `f`, whose last parameter is
     /// `value`: its locals are its self (if recursive), the arguments the
     /// closure holds, the `applied - k` on top of the operand stack, and
-    /// `value`, placed where the continuation's locals end.
+    /// `value`, placed where the continuation's locals end; called at
+    /// application `site`.
     #[inline]
     fn enter_body<const M: bool>(
         &mut self,
@@ -175,11 +190,13 @@ impl CekRun {
         f: &Func,
         applied: u32,
         value: Val,
+        site: Id,
     ) -> Result<Control, Halt> {
         let k = closure.applied;
         let pending = applied.saturating_sub(k) as usize;
         cut(&mut self.locals, self.floor);
-        let base = self.locals.len();
+        // Under `MAX_LOCALS`, which `reserve_locals` keeps.
+        let base = self.locals.len() as u32;
         let depth = f.params + u32::from(f.rec);
         self.reserve_locals::<M>(depth as usize)?;
         self.work::<M>(depth as usize)?;
@@ -209,8 +226,10 @@ impl CekRun {
         self.locals.push(value);
         self.env = Environment {
             closure: Some(closure),
-            base,
+            top: base + depth,
             depth,
+            site,
+            entry: self.kont.len() as u32,
         };
         Ok(Control::Eval(f.body))
     }
@@ -300,11 +319,10 @@ impl CekRun {
         }
         let lead = match self.saturated_call::<M>(image, &closure, &f, args)? {
             Taken::Whole => {
-                self.env = Environment {
-                    base: self.env.base,
-                    depth: self.env.depth,
-                    closure: Some(closure),
-                };
+                // The locals are in place: the rest of the new activation.
+                self.env.closure = Some(closure);
+                self.env.site = id;
+                self.env.entry = self.kont.len() as u32;
                 return Ok(Some(Control::Eval(f.body)));
             }
             Taken::Lead(lead) => lead,
@@ -325,7 +343,7 @@ impl CekRun {
     /// atom or an integer operation on integer atoms that does not fail and
     /// the fuel covers every contraction: the contractions of the nested
     /// calls in their order, and the body's locals in place (the current
-    /// environment's `base` and `depth` set to them; the caller sets its
+    /// environment's `top` and `depth` set to them; the caller sets its
     /// closure). Otherwise the leading such arguments are taken at once, if
     /// the fuel covers their contractions, their values left on the operand
     /// stack for a spine frame, and the rest is the frame's.
@@ -378,7 +396,8 @@ impl CekRun {
             if base < old {
                 self.locals.drain(base..old);
             }
-            self.env.base = base;
+            // Under `MAX_LOCALS`, which `reserve_locals` keeps.
+            self.env.top = base as u32 + depth;
             self.env.depth = depth;
             return Ok(Taken::Whole);
         }
@@ -501,8 +520,21 @@ impl CekRun {
             return Err(broken("a closure of no function"));
         };
         let applied = closure.applied + m - 1;
-        self.enter_body::<M>(closure, &f, applied, value)
+        self.enter_body::<M>(closure, &f, applied, value, term)
     }
+}
+
+/// The application `back` places inside the outermost one, `term`, of a
+/// spine `f a₁ … aₘ` (`back < m`): the one a spine frame contracts next.
+pub(super) fn spine_app(image: &Image, term: Id, back: u32) -> Id {
+    let mut at = term;
+    for _ in 0..back {
+        match image.node(at) {
+            INode::App(function, _) => at = function,
+            _ => break,
+        }
+    }
+    at
 }
 
 /// The argument `back` places left of the last in the spine `term` of a

@@ -4,7 +4,10 @@
 //! its address, children before parents, by an iterative post-order walk,
 //! so sharing survives and no list is too long for the native stack.
 //! Attaching makes the cells again in that order on the new thread, charged
-//! to its live-byte meter, and gives the machine state back.
+//! to its live-byte meter, and gives the machine state back. What locates
+//! a stop (the frames' redex nodes and activations, the environment's call
+//! site and entry, an ended run's location) is plain already and goes
+//! along unchanged.
 
 use std::rc::Rc;
 
@@ -86,6 +89,7 @@ pub(super) struct DetachedCek {
     fixed: usize,
     metered: bool,
     args_pending: bool,
+    stop: Id,
     end: Option<End>,
 }
 
@@ -109,6 +113,7 @@ impl DetachedCek {
             fixed: run.fixed,
             metered: run.metered,
             args_pending: run.args_pending,
+            stop: run.stop,
             end,
         }
     }
@@ -124,6 +129,7 @@ impl DetachedCek {
             fixed,
             metered,
             args_pending,
+            stop,
             mut end,
         } = self;
         let mut run = CekRun {
@@ -141,6 +147,7 @@ impl DetachedCek {
             metered,
             cells: 0,
             args_pending,
+            stop,
             end: None,
         };
         if let Some(state) = state {
@@ -163,9 +170,10 @@ impl DetachedRun for DetachedCek {
 /// How a halt while detaching or attaching ends the run (a broken
 /// invariant: the walks pay no fuel and ask for no memory).
 fn ended(halt: Halt) -> End {
-    End::Ended(halt.ended(usize::MAX).unwrap_or_else(|| {
+    let ended = halt.ended(usize::MAX).unwrap_or_else(|| {
         Ended::Fault(Fault::new("in the cek machine: detaching ran out of fuel"))
-    }))
+    });
+    End::Ended(ended, None)
 }
 
 impl State {
@@ -264,8 +272,10 @@ impl<F> Environment<F> {
         };
         Ok(Environment {
             closure,
-            base: self.base,
+            top: self.top,
             depth: self.depth,
+            site: self.site,
+            entry: self.entry,
         })
     }
 }
@@ -293,22 +303,37 @@ impl<V, F> ContinuationFrame<V, F> {
         Ok(match self {
             K::Arg {
                 argument,
+                app,
                 env,
                 below,
             } => K::Arg {
                 argument: *argument,
+                app: *app,
                 env: env.translate(t)?,
                 below: *below,
             },
-            K::Call { function } => K::Call {
+            K::Call {
+                function,
+                app,
+                caller,
+            } => K::Call {
                 function: t.value(function)?,
+                app: *app,
+                caller: *caller,
             },
             K::Apply { argument } => K::Apply {
                 argument: t.value(argument)?,
             },
-            K::Partial { closure, applied } => K::Partial {
+            K::Partial {
+                closure,
+                applied,
+                app,
+                caller,
+            } => K::Partial {
                 closure: t.closure(closure)?,
                 applied: *applied,
+                app: *app,
+                caller: *caller,
             },
             K::Spine {
                 closure,
@@ -325,17 +350,25 @@ impl<V, F> ContinuationFrame<V, F> {
                 env: env.translate(t)?,
                 below: *below,
             },
-            K::Let { body, env, below } => K::Let {
+            K::Let {
+                node,
+                body,
+                env,
+                below,
+            } => K::Let {
+                node: *node,
                 body: *body,
                 env: env.translate(t)?,
                 below: *below,
             },
             K::If {
+                node,
                 yes,
                 no,
                 env,
                 below,
             } => K::If {
+                node: *node,
                 yes: *yes,
                 no: *no,
                 env: env.translate(t)?,
@@ -356,7 +389,13 @@ impl<V, F> ContinuationFrame<V, F> {
                 env: env.translate(t)?,
                 below: *below,
             },
-            K::Case { case, env, below } => K::Case {
+            K::Case {
+                node,
+                case,
+                env,
+                below,
+            } => K::Case {
+                node: *node,
                 case: *case,
                 env: env.translate(t)?,
                 below: *below,

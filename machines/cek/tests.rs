@@ -3,8 +3,10 @@
 //! closures that capture only their free variables, the memory limit on deep
 //! spines, deep sums and read-back, the size of its frames and values, the
 //! program's arguments under the root, and paused runs detached to another
-//! thread with their sharing. What every machine must do is tested once,
-//! over the machine table, in `tests/`.
+//! thread with their sharing, and where a run stopped: the redex and the
+//! call marks read off the continuation, against the stepper's at every
+//! fuel bound. What every machine must do is tested once, over the machine
+//! table, in `tests/`.
 
 use super::*;
 use crate::{parse, Arena, Cancel, LimitError, LimitKind, Term};
@@ -411,4 +413,611 @@ fn a_million_cell_list_detaches_on_a_small_stack() {
     assert_eq!(int_of(&report), Some(1_000_000));
     let whole = Cek::new().run(&program, &Limits::default());
     assert_eq!(report, whole);
+}
+
+
+// Where a run stopped. The programs carry spans and names of our own (the
+// builder's `Arena::at` and `Arena::named`, as a language lowered onto the
+// kernel would), so that each assertion names the node it means whatever
+// the text parser attaches.
+
+/// A span that stands for source line `line`.
+fn line(line: u32) -> crate::Span {
+    crate::Span::new(0, line * 100, line * 100 + 10).with_position(line, 1)
+}
+
+/// `t` at line `n`.
+fn at<'a>(arena: &'a Arena, n: u32, t: &'a Term<'a>) -> &'a Term<'a> {
+    arena.at(line(n), t)
+}
+
+/// The location of a report, which every stop but a value must have.
+fn location_of(report: &Report) -> &crate::Location {
+    report.location.as_ref().expect("a stop has a location")
+}
+
+/// The (name, line of the call site) of each frame of a backtrace.
+fn frames(location: &crate::Location) -> Vec<(Option<&str>, Option<u32>)> {
+    location
+        .backtrace
+        .frames
+        .iter()
+        .map(|f| (f.name.as_deref(), f.site.map(|s| s.line)))
+        .collect()
+}
+
+/// How `source` reads, rebuilt with a span on every node (node `k` in
+/// preorder covers byte `k` of file 1, at line `k + 1`) and a name on every
+/// function that is not a curried parameter of another, with a table of
+/// what each node is: `app1`, `app2`, … for an application the given
+/// number of places from the head of its spine, else the construct.
+struct Located<'a> {
+    term: &'a Term<'a>,
+    kinds: Vec<&'static str>,
+}
+
+fn located<'a>(arena: &'a Arena, source: &str) -> Located<'a> {
+    let parsed = crate::parse_term(arena, source).expect("the test program parses");
+    let mut kinds = Vec::new();
+    let term = relocate(arena, parsed, false, &mut kinds);
+    Located { term, kinds }
+}
+
+/// `t` rebuilt as [`located`] says; `in_lambda` when `t` is the body of a
+/// λ (a curried parameter, left unnamed).
+fn relocate<'a>(
+    arena: &'a Arena,
+    t: &'a Term<'a>,
+    in_lambda: bool,
+    kinds: &mut Vec<&'static str>,
+) -> &'a Term<'a> {
+    const APPS: [&str; 6] = ["app1", "app2", "app3", "app4", "app5", "app6+"];
+    let k = kinds.len() as u32;
+    kinds.push("");
+    let kind;
+    let copy = match *t.node() {
+        crate::Node::Var(_) | crate::Node::Int(_) | crate::Node::Bool(_) | crate::Node::Str(_) => {
+            kind = "atom";
+            t
+        }
+        crate::Node::Lam(b) => {
+            kind = "lam";
+            arena.lam(relocate(arena, b, true, kinds))
+        }
+        crate::Node::RecLam(b) => {
+            kind = "lam";
+            arena.rec_lam(relocate(arena, b, true, kinds))
+        }
+        crate::Node::App(f, a) => {
+            // The innermost application of a spine is `app1`.
+            let depth = spine_depth(f);
+            kind = APPS[depth.min(APPS.len() - 1)];
+            let f = relocate(arena, f, false, kinds);
+            arena.app(f, relocate(arena, a, false, kinds))
+        }
+        crate::Node::Let(a, b) => {
+            kind = "let";
+            let a = relocate(arena, a, false, kinds);
+            arena.let_in(a, relocate(arena, b, false, kinds))
+        }
+        crate::Node::If(c, y, n) => {
+            kind = "if";
+            let c = relocate(arena, c, false, kinds);
+            let y = relocate(arena, y, false, kinds);
+            arena.if_then_else(c, y, relocate(arena, n, false, kinds))
+        }
+        crate::Node::Prim(op, args) => {
+            kind = "prim";
+            let args: Vec<&Term<'_>> = args
+                .iter()
+                .map(|&a| relocate(arena, a, false, kinds))
+                .collect();
+            arena.prim(op, &args)
+        }
+        crate::Node::Con(tag, fields) => {
+            kind = "con";
+            let fields: Vec<&Term<'_>> = fields
+                .iter()
+                .map(|&f| relocate(arena, f, false, kinds))
+                .collect();
+            arena.con(tag, &fields)
+        }
+        crate::Node::Case(s, arms, default) => {
+            kind = "case";
+            let s = relocate(arena, s, false, kinds);
+            let arms: Vec<crate::Arm<'_>> = arms
+                .iter()
+                .map(|arm| {
+                    crate::Arm::new(arm.tag, arm.arity, relocate(arena, arm.body, false, kinds))
+                })
+                .collect();
+            let default = default.map(|d| relocate(arena, d, false, kinds));
+            arena.case(s, &arms, default)
+        }
+    };
+    kinds[k as usize] = kind;
+    let copy = match copy.node() {
+        crate::Node::Lam(_) | crate::Node::RecLam(_) if !in_lambda => {
+            arena.named(&format!("f{k}"), copy)
+        }
+        _ => copy,
+    };
+    arena.at(
+        crate::Span::new(1, k, k + 1).with_position(k + 1, 1),
+        copy,
+    )
+}
+
+/// How many applications are under `t` on its function side: 0 for a head.
+fn spine_depth(t: &Term<'_>) -> usize {
+    let mut depth = 0;
+    let mut at = t;
+    while let crate::Node::App(f, _) = *at.node() {
+        depth += 1;
+        at = f;
+    }
+    depth
+}
+
+/// Run `program` on this machine and on the stepper with every fuel bound
+/// from 0 to one past what it needs, and check that they stop at the same
+/// place each time (and agree in all else); the uninterrupted report, and
+/// the lines (node numbers, for [`located`] programs) of each out-of-fuel
+/// stop's redex.
+#[cfg(feature = "stepper")]
+fn same_stops_as_the_stepper(program: &Program) -> (Report, Vec<Option<u32>>) {
+    use crate::machines::stepper::Stepper;
+    let whole = Cek::new().run(program, &Limits::default());
+    let reference = Stepper::new().run(program, &Limits::default());
+    assert_eq!(crate::disagreement(&whole, &reference), None);
+    assert_eq!(whole.location, reference.location);
+    let mut stops = Vec::new();
+    for fuel in 0..=whole.counts.total() + 1 {
+        let limits = Limits::default().with_fuel(fuel);
+        let cek = Cek::new().run(program, &limits);
+        let stepper = Stepper::new().run(program, &limits);
+        assert_eq!(cek.location, stepper.location, "fuel {fuel}");
+        assert_eq!(crate::disagreement(&cek, &stepper), None, "fuel {fuel}");
+        if cek.outcome == Outcome::OutOfFuel {
+            stops.push(location_of(&cek).span.map(|s| s.start));
+        }
+    }
+    (whole, stops)
+}
+
+/// The kinds of node the stops of a [`located`] program were at.
+fn kinds_at(located: &Located<'_>, stops: &[Option<u32>]) -> std::collections::BTreeSet<&'static str> {
+    stops
+        .iter()
+        .map(|s| s.map_or("none", |k| located.kinds[k as usize]))
+        .collect()
+}
+
+#[test]
+fn a_division_by_zero_three_calls_deep_names_each_call_and_its_site() {
+    let arena = Arena::new();
+    let v = |i| arena.var(i);
+    // let share = λcrates. 120 / crates               (line 1: the division)
+    // let per_van = λvans. share (vans - 2) + 1       (line 2: the call of share)
+    // let route = λstops. 3 * per_van stops           (line 3: the call of per_van)
+    // route 2                                         (line 4)
+    let share = arena.named(
+        "share",
+        arena.lam(at(&arena, 1, arena.prim(Prim::Div, &[arena.int(120), v(0)]))),
+    );
+    let per_van = arena.named(
+        "per_van",
+        arena.lam(arena.prim(
+            Prim::Add,
+            &[
+                at(&arena, 2, arena.app(v(1), arena.prim(Prim::Sub, &[v(0), arena.int(2)]))),
+                arena.int(1),
+            ],
+        )),
+    );
+    let route = arena.named(
+        "route",
+        arena.lam(arena.prim(Prim::Mul, &[arena.int(3), at(&arena, 3, arena.app(v(1), v(0)))])),
+    );
+    let t = arena.let_in(
+        share,
+        arena.let_in(per_van, arena.let_in(route, at(&arena, 4, arena.app(v(0), arena.int(2))))),
+    );
+    let program = Program::new(t).unwrap();
+    let report = Cek::new().run(&program, &Limits::default());
+    assert!(
+        matches!(&report.outcome, Outcome::Error(e) if e.kind() == crate::ErrorKind::DivisionByZero)
+    );
+    let location = location_of(&report);
+    assert_eq!(location.span, Some(line(1)));
+    assert_eq!(
+        frames(location),
+        [
+            (Some("share"), Some(2)),
+            (Some("per_van"), Some(3)),
+            (Some("route"), Some(4))
+        ]
+    );
+    assert_eq!(location.backtrace.omitted, 0);
+    // An ended run says so however often it is asked.
+    let mut run = Cek::start(&program, &Limits::default());
+    let first = run.resume(0);
+    assert_eq!(first.location, report.location);
+    assert_eq!(run.resume(0).location, report.location);
+    assert_eq!(run.resume(100).location, report.location);
+    #[cfg(feature = "stepper")]
+    same_stops_as_the_stepper(&program);
+}
+
+/// `let rec water beds = if beds == 0 then 0 else water (beds - 1)` (the
+/// recursive call at line 2) `in water n` (line 3): a tail loop.
+fn watering<'a>(arena: &'a Arena, n: i64) -> &'a Term<'a> {
+    let v = |i| arena.var(i);
+    let water = arena.named(
+        "water",
+        arena.rec_lam(arena.if_then_else(
+            arena.prim(Prim::Eq, &[v(0), arena.int(0)]),
+            arena.int(0),
+            at(arena, 2, arena.app(v(1), arena.prim(Prim::Sub, &[v(0), arena.int(1)]))),
+        )),
+    );
+    arena.let_in(water, at(arena, 3, arena.app(v(0), arena.int(n))))
+}
+
+#[test]
+fn a_tail_loop_out_of_fuel_has_one_frame() {
+    let arena = Arena::new();
+    let program = Program::new(watering(&arena, 1_000_000)).unwrap();
+    let report = Cek::new().run(&program, &Limits::default().with_fuel(5_000));
+    assert_eq!(report.outcome, Outcome::OutOfFuel);
+    assert_eq!(frames(location_of(&report)), [(Some("water"), Some(2))]);
+    // Paused again and again, the loop's backtrace stays one frame.
+    let mut run = Cek::start(&program, &Limits::default().with_fuel(0));
+    for _ in 0..200 {
+        let report = run.resume(997);
+        assert_eq!(report.outcome, Outcome::OutOfFuel);
+        assert_eq!(location_of(&report).backtrace.depth(), 1);
+    }
+    #[cfg(feature = "stepper")]
+    {
+        use crate::machines::stepper::Stepper;
+        for fuel in [1, 2, 3, 4, 5, 6, 7, 5_000] {
+            let limits = Limits::default().with_fuel(fuel);
+            let stepper = Stepper::new().run(&program, &limits);
+            assert_eq!(Cek::new().run(&program, &limits).location, stepper.location);
+        }
+        let small = Program::new(watering(&arena, 3)).unwrap();
+        same_stops_as_the_stepper(&small);
+    }
+}
+
+#[test]
+fn a_deep_recursion_keeps_both_ends_of_its_backtrace() {
+    // let rec stack n = if n == 0 then 1 / n else 1 + stack (n - 1)   (line 2: the call)
+    // in stack 1000                                                   (line 3)
+    let arena = Arena::new();
+    let v = |i| arena.var(i);
+    let stack = arena.named(
+        "stack",
+        arena.rec_lam(arena.if_then_else(
+            arena.prim(Prim::Eq, &[v(0), arena.int(0)]),
+            at(&arena, 1, arena.prim(Prim::Div, &[arena.int(1), v(0)])),
+            arena.prim(
+                Prim::Add,
+                &[
+                    arena.int(1),
+                    at(&arena, 2, arena.app(v(1), arena.prim(Prim::Sub, &[v(0), arena.int(1)]))),
+                ],
+            ),
+        )),
+    );
+    let t = arena.let_in(stack, at(&arena, 3, arena.app(v(0), arena.int(1000))));
+    let program = Program::new(t).unwrap();
+    let report = Cek::new().run(&program, &Limits::default());
+    let location = location_of(&report);
+    assert_eq!(location.span, Some(line(1)));
+    let trace = &location.backtrace;
+    assert_eq!(trace.depth(), 1001);
+    assert_eq!(trace.frames.len(), 2 * crate::BACKTRACE_ENDS);
+    assert_eq!(trace.omitted, 1001 - 2 * crate::BACKTRACE_ENDS as u64);
+    let found = frames(location);
+    let (last, inner) = found.split_last().unwrap();
+    assert_eq!(*last, (Some("stack"), Some(3)));
+    assert!(inner.iter().all(|&f| f == (Some("stack"), Some(2))), "{inner:?}");
+    #[cfg(feature = "stepper")]
+    {
+        let stepper = crate::machines::stepper::Stepper::new().run(&program, &Limits::default());
+        assert_eq!(report.location, stepper.location);
+    }
+}
+
+/// A host function that refuses loads over 10.
+fn scales() -> (crate::HostFunctions, crate::HostId) {
+    let mut host = crate::HostFunctions::new();
+    let weigh = host
+        .register("weigh", |x: i64| {
+            if x > 10 {
+                Err(format!("{x} crates overload the scale"))
+            } else {
+                Ok(x)
+            }
+        })
+        .unwrap();
+    (host, weigh)
+}
+
+#[test]
+fn errors_in_each_construct_are_located_at_their_redex() {
+    let arena = Arena::new();
+    let v = |i| arena.var(i);
+    let (host, weigh) = scales();
+    // Each program is `let f = λx. BODY in f ARG` (under some lets), the
+    // redex of BODY at line 1 and the call of f at line 2.
+    let unary = |name: &str, body, arg| {
+        arena.let_in(
+            arena.named(name, arena.lam(body)),
+            at(&arena, 2, arena.app(v(0), arg)),
+        )
+    };
+    let cases: Vec<(&str, &Term<'_>, crate::ErrorKind)> = vec![
+        (
+            // let tariff = 4 in (λn. tariff n) 3: an atom applied at once
+            "bill: an atom applied",
+            arena.let_in(
+                arena.int(4),
+                unary("bill", at(&arena, 1, arena.app(v(1), v(0))), arena.int(3)),
+            ),
+            crate::ErrorKind::NotAFunction,
+        ),
+        (
+            // tariff (rate n): the argument is a call, the function waits
+            "bill: an argument evaluated first",
+            arena.let_in(
+                arena.lam(arena.prim(Prim::Mul, &[v(0), arena.int(2)])),
+                arena.let_in(
+                    arena.int(4),
+                    unary(
+                        "bill",
+                        at(&arena, 1, arena.app(v(1), arena.app(v(2), v(0)))),
+                        arena.int(3),
+                    ),
+                ),
+            ),
+            crate::ErrorKind::NotAFunction,
+        ),
+        (
+            // tariff n 5: the inner application fails
+            "bill: a spine headed by a number",
+            arena.let_in(
+                arena.int(4),
+                unary(
+                    "bill",
+                    at(&arena, 5, arena.app(at(&arena, 1, arena.app(v(1), v(0))), arena.int(5))),
+                    arena.int(3),
+                ),
+            ),
+            crate::ErrorKind::NotAFunction,
+        ),
+        (
+            "check: a condition that is a number",
+            unary(
+                "check",
+                at(&arena, 1, arena.if_then_else(v(0), arena.int(1), arena.int(2))),
+                arena.int(5),
+            ),
+            crate::ErrorKind::NotABoolean,
+        ),
+        (
+            "check: a condition computed to a number",
+            unary(
+                "check",
+                at(
+                    &arena,
+                    1,
+                    arena.if_then_else(
+                        arena.prim(Prim::Add, &[v(0), arena.int(1)]),
+                        arena.int(1),
+                        arena.int(2),
+                    ),
+                ),
+                arena.int(5),
+            ),
+            crate::ErrorKind::NotABoolean,
+        ),
+        (
+            "pick: a case with no arm for the value",
+            unary(
+                "pick",
+                at(
+                    &arena,
+                    1,
+                    arena.case(v(0), &[crate::Arm::new("Van", 1, v(0))], None),
+                ),
+                arena.con("Bike", &[arena.int(2)]),
+            ),
+            crate::ErrorKind::NoMatchingCase,
+        ),
+        (
+            "load: a host function that refuses",
+            unary(
+                "load",
+                at(&arena, 1, arena.prim(Prim::Host(weigh), &[v(0)])),
+                arena.int(40),
+            ),
+            crate::ErrorKind::HostError,
+        ),
+        (
+            "split: a division by zero",
+            unary(
+                "split",
+                at(&arena, 1, arena.prim(Prim::Div, &[arena.int(9), v(0)])),
+                arena.int(0),
+            ),
+            crate::ErrorKind::DivisionByZero,
+        ),
+    ];
+    for (what, t, kind) in cases {
+        let program = Program::with_host(t, &host).unwrap();
+        let report = Cek::new().run(&program, &Limits::default());
+        assert!(
+            matches!(&report.outcome, Outcome::Error(e) if e.kind() == kind),
+            "{what}: {:?}",
+            report.outcome
+        );
+        let location = location_of(&report);
+        assert_eq!(location.span, Some(line(1)), "{what}");
+        let name = what.split(':').next();
+        assert_eq!(frames(location), [(name, Some(2))], "{what}");
+        #[cfg(feature = "stepper")]
+        same_stops_as_the_stepper(&program);
+    }
+    // The program's own value applied to an argument: no application node,
+    // no call pending.
+    let program = Program::new(at(&arena, 1, arena.int(7)))
+        .unwrap()
+        .apply(&[Datum::Int(1)])
+        .unwrap();
+    let report = Cek::new().run(&program, &Limits::default());
+    assert_eq!(report.location, Some(crate::Location::default()));
+    #[cfg(feature = "stepper")]
+    same_stops_as_the_stepper(&program);
+}
+
+/// Every construct, and every way this machine makes a call: a spine made
+/// whole (`plant`'s loop), a spine under a frame whose arguments are
+/// evaluated one by one (the first `harvest`), a spine whose head is
+/// computed, so that the applications are contracted one at a time as the
+/// arguments arrive (`(if …) 1 …`), a function whose tail call takes its
+/// caller's remaining arguments (`fwd`), and a partial application that
+/// escapes (`part`).
+const EVERY_CONSTRUCT: &str = "\
+let rec plant rows cols depth = if rows == 0 then depth else plant (rows - 1) (cols + 1) (depth * 2) in
+let crop = case Seed(3) of { Seed(k) => k + 1; _ => 0 } in
+let harvest = \\a b c. a + b * c in
+let fwd = \\x. harvest x in
+let part = harvest 1 in
+harvest (plant 2 crop 1) (if crop > 2 then 5 else 6) (harvest 1 2 3)
+  + (if crop > 9 then harvest else harvest) 1 (plant 1 1 1) 3
+  + fwd 1 2 (part 2 3)
+  + case Pair(crop, 2) of { Pair(p, q) => p * q }";
+
+#[cfg(feature = "stepper")]
+#[test]
+fn out_of_fuel_before_each_kind_of_redex_is_where_the_stepper_stops() {
+    let arena = Arena::new();
+    let located = located(&arena, EVERY_CONSTRUCT);
+    let program = Program::new(located.term).unwrap();
+    let (whole, stops) = same_stops_as_the_stepper(&program);
+    assert!(whole.outcome.value().is_some());
+    let kinds = kinds_at(&located, &stops);
+    for kind in ["app1", "app2", "app3", "let", "if", "prim", "case"] {
+        assert!(kinds.contains(kind), "no stop before a {kind}: {kinds:?}");
+    }
+    // The program as the text parser gives it agrees too, with whatever
+    // spans and names it attaches.
+    same_stops_as_the_stepper(&Program::parse(EVERY_CONSTRUCT).unwrap());
+}
+
+#[cfg(feature = "stepper")]
+#[test]
+fn nested_calls_at_one_site_are_told_apart() {
+    // McCarthy's 91 function: `m (m (n + 11))` enters the inner call while
+    // the outer waits without an environment, so the inner one reuses its
+    // caller's locals, at the same site: only the continuation's height
+    // at entry tells the two activations apart.
+    let arena = Arena::new();
+    let source = "let rec m n = if n > 100 then n - 10 else m (m (n + 11)) in m 60";
+    let located = located(&arena, source);
+    let program = Program::new(located.term).unwrap();
+    let (whole, _) = same_stops_as_the_stepper(&program);
+    assert_eq!(int_of(&whole), Some(91));
+    let mut repeated = 0;
+    for fuel in 0..whole.counts.total() {
+        let report = Cek::new().run(&program, &Limits::default().with_fuel(fuel));
+        let sites = frames(location_of(&report));
+        repeated = repeated.max(sites.windows(2).filter(|w| w[0] == w[1]).count());
+    }
+    assert!(repeated >= 2, "{repeated}");
+}
+
+#[cfg(feature = "stepper")]
+#[test]
+fn the_root_applied_to_arguments_is_a_call_with_no_site() {
+    let arena = Arena::new();
+    let located = located(&arena, "\\load crates. if crates > 3 then load / (crates - 4) else 0");
+    let program = Program::new(located.term)
+        .unwrap()
+        .apply(&[Datum::Int(60), Datum::Int(4)])
+        .unwrap();
+    let (whole, _) = same_stops_as_the_stepper(&program);
+    let location = location_of(&whole);
+    assert_eq!(location.span.map(|s| located.kinds[s.start as usize]), Some("prim"));
+    // The call of the root's function is pending, named, at no site.
+    assert_eq!(frames(location), [(Some("f0"), None)]);
+}
+
+#[test]
+fn a_paused_or_moved_run_keeps_its_location() {
+    let arena = Arena::new();
+    let located = located(&arena, EVERY_CONSTRUCT);
+    let program = Program::new(located.term).unwrap();
+    // Ends with an error deep inside calls: the same program, divided by zero.
+    let failing = located_failure(&arena);
+    for program in [program, failing] {
+        let whole = Cek::new().run(&program, &Limits::default());
+        let total = whole.counts.total();
+        for fuel in [0, 1, 5, total / 3, total / 2, total - 1] {
+            let mut run = Cek::start(&program, &Limits::default().with_fuel(fuel));
+            let paused = run.resume(0);
+            assert_eq!(paused.outcome, Outcome::OutOfFuel);
+            assert!(paused.location.is_some());
+            // Asked again, and as a run given all its fuel at once is at
+            // this bound.
+            assert_eq!(run.resume(0), paused);
+            let direct = Cek::new().run(&program, &Limits::default().with_fuel(fuel));
+            assert_eq!(direct, paused, "fuel {fuel}");
+            #[cfg(feature = "stepper")]
+            {
+                let stepper = crate::machines::stepper::Stepper::new()
+                    .run(&program, &Limits::default().with_fuel(fuel));
+                assert_eq!(paused.location, stepper.location, "fuel {fuel}");
+            }
+            // Moved to another thread, it is where it was, and ends as an
+            // uninterrupted run.
+            let moved = Paused::detach(Box::new(run));
+            let (again, end) = std::thread::spawn(move || {
+                let mut run = moved.attach();
+                (run.resume(0), run.resume(total))
+            })
+            .join()
+            .unwrap();
+            assert_eq!(again, paused, "fuel {fuel}");
+            assert_eq!(end, whole, "fuel {fuel}");
+        }
+        // An ended run, moved, keeps its end and where it was.
+        let mut run = Cek::start(&program, &Limits::default());
+        assert_eq!(run.resume(0), whole);
+        let moved = Paused::detach(Box::new(run));
+        let report = std::thread::spawn(move || moved.attach().resume(0))
+            .join()
+            .unwrap();
+        assert_eq!(report, whole);
+    }
+}
+
+/// [`EVERY_CONSTRUCT`] with `harvest` dividing by zero when its last
+/// argument is 3 (inside two pending calls), relocated.
+fn located_failure(arena: &Arena) -> Program {
+    let source = EVERY_CONSTRUCT.replace(
+        "\\a b c. a + b * c",
+        "\\a b c. if c == 3 then a / (c - 3) else a + b * c",
+    );
+    let located = located(arena, &source);
+    let program = Program::new(located.term).unwrap();
+    let report = Cek::new().run(&program, &Limits::default());
+    assert!(
+        matches!(&report.outcome, Outcome::Error(e) if e.kind() == crate::ErrorKind::DivisionByZero)
+    );
+    assert!(location_of(&report).backtrace.depth() >= 1);
+    program
 }
