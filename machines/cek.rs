@@ -600,7 +600,7 @@ impl CekRun {
     ///
     /// A report of an error, a limit or the end of the fuel says where the
     /// run stopped ([`Report::location`]): the redex that failed or could
-    /// not be paid, and the calls pending around it (see [`crate::span`]).
+    /// not be paid, and the calls pending around it (see [`crate::Location`]).
     pub fn resume(&mut self, more_fuel: u64) -> Report {
         self.budget.add_fuel(more_fuel);
         self.meter = Meter::holding(self.cells);

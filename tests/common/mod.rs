@@ -23,6 +23,7 @@ mod mixed {
 #[allow(unused_imports)] // not every test binary runs the mixed program
 pub use mixed::{mixed_host, MIXED};
 
+#[allow(unused_imports)] // not every test binary marks programs
 pub use fuzz_checks::{harness, marks};
 
 /// Run `f` on a thread with a 2 MiB stack, as an embedding application's

@@ -1630,7 +1630,10 @@ fn an_excerpt_underlines_a_span_to_the_end_of_its_line() {
     assert_eq!(excerpt(source, at), "courier 3\n        ^\n");
     assert_eq!(excerpt(source, Span::new(0, 0, 4)), "let courier =\n^^^^\n");
     let three = source.find("3").unwrap() as u32;
-    assert_eq!(excerpt(source, Span::new(0, three, three + 1)), "courier 3\n        ^\n");
+    assert_eq!(
+        excerpt(source, Span::new(0, three, three + 1)),
+        "courier 3\n        ^\n"
+    );
     assert_eq!(excerpt(source, Span::new(0, 900, 904)), "");
     // A column past the line's end, or a byte range past the text's, is
     // held to the line.
