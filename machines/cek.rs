@@ -28,6 +28,16 @@
 //! the tags the run made up (the program's image is the caller's). A paused
 //! run holds `Rc` cells, so it stays on its thread; the `detach` submodule
 //! turns its whole state into plain data that can move.
+//!
+//! Where a run stopped ([`crate::Location`]) is read off the state only when
+//! it stops: the frame a value was returned to names the redex (each frame
+//! keeps its construct's image node), and the continuation, read from the
+//! top, holds one call mark per pending function activation (the
+//! continuation marks of Clements and Felleisen, "A tail-recursive machine
+//! with stack inspection", TOPLAS 2004), the activations told apart by the
+//! continuation's height when each was entered. Running pays for it with
+//! stores only: a call records its site and that height, and a frame
+//! without an environment its activation.
 
 mod calls;
 mod detach;
@@ -268,6 +278,8 @@ impl<F> Environment<F> {
 /// The most locals a run may hold at once (2³¹, 32 GiB of values): growth
 /// past it stops the run at the memory limit, so a local's position fits
 /// the `u32` of [`Environment::top`] (growth at most doubles the stack).
+/// The benchmark-only [`Cek::without_accounting`] checks no memory at all,
+/// this bound included.
 const MAX_LOCALS: usize = 1 << 31;
 
 /// The function activation a frame belongs to, for the backtrace: its
@@ -601,6 +613,22 @@ impl CekRun {
     /// A report of an error, a limit or the end of the fuel says where the
     /// run stopped ([`Report::location`]): the redex that failed or could
     /// not be paid, and the calls pending around it (see [`crate::Location`]).
+    /// A paused run's is the next redex's; an ended run's stays the same.
+    ///
+    /// ```
+    /// use orrery::machines::cek::Cek;
+    /// use orrery::{Limits, Outcome, Program};
+    /// let source = "let rec sprout n = if n == 0 then 0 else 1 + sprout (n - 1) in sprout 9";
+    /// let program = Program::parse(source).unwrap();
+    /// let mut run = Cek::start(&program, &Limits::default().with_fuel(30));
+    /// let report = run.resume(0);
+    /// assert_eq!(report.outcome, Outcome::OutOfFuel);
+    /// let location = report.location.unwrap();
+    /// // The let, the first call, then four contractions a level (the test
+    /// // and its if, the subtraction and the call): eight calls pending.
+    /// assert_eq!(location.backtrace.depth(), 8);
+    /// assert_eq!(location.backtrace.frames[0].name.as_deref(), Some("sprout"));
+    /// ```
     pub fn resume(&mut self, more_fuel: u64) -> Report {
         self.budget.add_fuel(more_fuel);
         self.meter = Meter::holding(self.cells);

@@ -586,6 +586,7 @@ fn same_stops_as_the_stepper(program: &Program) -> (Report, Vec<Option<u32>>) {
 }
 
 /// The kinds of node the stops of a [`located`] program were at.
+#[cfg(feature = "stepper")]
 fn kinds_at(located: &Located<'_>, stops: &[Option<u32>]) -> std::collections::BTreeSet<&'static str> {
     stops
         .iter()
@@ -959,18 +960,25 @@ fn the_root_applied_to_arguments_is_a_call_with_no_site() {
 #[test]
 fn a_paused_or_moved_run_keeps_its_location() {
     let arena = Arena::new();
-    let located = located(&arena, EVERY_CONSTRUCT);
-    let program = Program::new(located.term).unwrap();
+    let valued = located(&arena, EVERY_CONSTRUCT);
     // Ends with an error deep inside calls: the same program, divided by zero.
     let failing = located_failure(&arena);
-    for program in [program, failing] {
+    for located in [valued, failing] {
+        let program = Program::new(located.term).unwrap();
         let whole = Cek::new().run(&program, &Limits::default());
         let total = whole.counts.total();
         for fuel in [0, 1, 5, total / 3, total / 2, total - 1] {
             let mut run = Cek::start(&program, &Limits::default().with_fuel(fuel));
             let paused = run.resume(0);
             assert_eq!(paused.outcome, Outcome::OutOfFuel);
-            assert!(paused.location.is_some());
+            // Before a redex: an application, a let, an if, a primitive or
+            // a case (this program applies no arguments to its root).
+            let at = location_of(&paused).span.expect("every node has a span");
+            let kind = located.kinds[at.start as usize];
+            assert!(
+                kind.starts_with("app") || ["let", "if", "prim", "case"].contains(&kind),
+                "fuel {fuel}: paused at a {kind}"
+            );
             // Asked again, and as a run given all its fuel at once is at
             // this bound.
             assert_eq!(run.resume(0), paused);
@@ -1007,7 +1015,7 @@ fn a_paused_or_moved_run_keeps_its_location() {
 
 /// [`EVERY_CONSTRUCT`] with `harvest` dividing by zero when its last
 /// argument is 3 (inside two pending calls), relocated.
-fn located_failure(arena: &Arena) -> Program {
+fn located_failure(arena: &Arena) -> Located<'_> {
     let source = EVERY_CONSTRUCT.replace(
         "\\a b c. a + b * c",
         "\\a b c. if c == 3 then a / (c - 3) else a + b * c",
@@ -1019,5 +1027,35 @@ fn located_failure(arena: &Arena) -> Program {
         matches!(&report.outcome, Outcome::Error(e) if e.kind() == crate::ErrorKind::DivisionByZero)
     );
     assert!(location_of(&report).backtrace.depth() >= 1);
-    program
+    located
+}
+
+#[test]
+fn a_parsed_program_is_located_in_its_text() {
+    let source = "let share = \\crates. 120 / crates in\n\
+                  let per_van = \\vans. share (vans - 2) + 1 in\n\
+                  let route = \\stops. 3 * per_van stops in\n\
+                  route 2";
+    let program = Program::parse(source).unwrap();
+    let report = Cek::new().run(&program, &Limits::default());
+    let location = location_of(&report);
+    let text = |span: Option<crate::Span>| {
+        let span = span.expect("the parser gives every node a span");
+        (span.line, &source[span.start as usize..span.end as usize])
+    };
+    assert_eq!(text(location.span), (1, "120 / crates"));
+    let found: Vec<_> = location
+        .backtrace
+        .frames
+        .iter()
+        .map(|f| (f.name.as_deref(), text(f.site)))
+        .collect();
+    assert_eq!(
+        found,
+        [
+            (Some("share"), (2, "share (vans - 2)")),
+            (Some("per_van"), (3, "per_van stops")),
+            (Some("route"), (4, "route 2"))
+        ]
+    );
 }
