@@ -487,6 +487,7 @@ impl State {
     /// focus plugged into the innermost frame, or (`alone`) the focus itself,
     /// read back into a store and made a term of the trace's scratch arena,
     /// carrying the span of the program node it comes from.
+    #[inline(always)]
     pub(super) fn traced(
         &mut self,
         image: &Image,
@@ -494,7 +495,21 @@ impl State {
         rule: Rule,
         alone: bool,
     ) -> Result<(), Halt> {
-        let Some(trace) = trace else { return Ok(()) };
+        match trace {
+            None => Ok(()),
+            Some(trace) => self.show(image, trace, rule, alone),
+        }
+    }
+
+    /// [`State::traced`] with a tracer.
+    #[inline(never)]
+    fn show(
+        &mut self,
+        image: &Image,
+        trace: &mut Trace<'_>,
+        rule: Rule,
+        alone: bool,
+    ) -> Result<(), Halt> {
         trace.scratch.reset();
         let held = self.held().saturating_add(trace.scratch.allocated_bytes());
         let mut reader = StoreReader::new(held);
