@@ -331,3 +331,40 @@ fn a_paused_run_reports_where_it_paused_and_where_it_ended() {
         );
     }
 }
+
+#[test]
+fn a_cancelled_run_says_which_rule_was_running() {
+    // The host function cancels the run on its third call; the loop that
+    // called it is the one pending call when the run stops.
+    use std::sync::atomic::{AtomicU32, Ordering};
+    use std::sync::Arc;
+    for &kind in MachineKind::enabled() {
+        let cancel = orrery::Cancel::new();
+        let calls = Arc::new(AtomicU32::new(0));
+        let mut host = HostFunctions::new();
+        let stop = cancel.clone();
+        host.register("tick", move |n: i64| {
+            if calls.fetch_add(1, Ordering::Relaxed) == 2 {
+                stop.cancel();
+            }
+            Ok::<_, String>(n)
+        })
+        .unwrap();
+        let source = "let rec churn n = churn (tick (n + 1)) in\nchurn 0";
+        let program = Program::parse_with(source, &host).unwrap();
+        let limits = Limits::default().with_fuel(u64::MAX).with_cancel(cancel);
+        let report = kind.run(&program, &limits);
+        assert!(
+            matches!(report.outcome, Outcome::Limit(_)),
+            "{}",
+            kind.name()
+        );
+        let location = report.location.expect("a cancelled run has a location");
+        assert_eq!(
+            frames(&location),
+            [(Some("churn"), 1, 19)],
+            "{}",
+            kind.name()
+        );
+    }
+}
