@@ -22,7 +22,7 @@ use std::sync::Arc;
 
 use smallvec::SmallVec;
 
-use heap::{Collector, Heap, STRING_OVERHEAD};
+use heap::{Collector, Heap, NODE_BYTES, STRING_OVERHEAD};
 use readback::{flatten, to_datum, Fragment};
 use subst::{Binds, SubstJob};
 
@@ -84,9 +84,9 @@ pub struct Stepper {
 /// focus they are the decomposition `E[t]` of SEMANTICS §1.1. A frame keeps only
 /// what is still to be evaluated: the values to the left of an operand or
 /// field hole are on the value stack, and the operands already evaluated are
-/// not kept through their list. A frame whose construct is a redex once its
-/// hole is a value keeps `at`, the image node that construct came from (see
-/// [`Heap::origin`]), for the location of a stop there.
+/// not kept through their list. Each frame keeps `at`, the image node its
+/// construct stands for (see [`State::focus_at`]), for the location of a
+/// stop there and to follow the program's nodes down into its holes.
 #[derive(Clone, Copy, Debug)]
 enum ContextFrame {
     /// `□ t`.
@@ -112,15 +112,16 @@ enum ContextFrame {
         arity: u32,
         next: u32,
         left: u32,
+        at: Id,
     },
     /// `case □ of {…}`: the image case, and where its arm bodies are
     /// ([`NONE`]: the image case's own).
     Scrutinee { case: u32, bodies: u32, at: Id },
-    /// A call mark `⟨site, lam⟩` (see [`crate::span`]): the hole is the
-    /// body of a call of λ `lam` made at application `site` (image nodes,
-    /// or [`NONE`]). It goes when the hole is a value, and a call made
-    /// directly in it replaces it.
-    Mark { site: Id, lam: Id },
+    /// A call mark `⟨site, λ⟩` (see [`crate::span`]): the hole is the
+    /// body of a call made at application `site` (an image node, or
+    /// [`NONE`]) of the λ at place `pos` of curried function `func`. It goes
+    /// when the hole is a value, and a call made directly in it replaces it.
+    Mark { site: Id, func: u32, pos: u32 },
 }
 
 impl ContextFrame {
@@ -169,6 +170,17 @@ struct State {
     /// The term in the hole: being searched when it is not a value, else
     /// being plugged into the innermost frame.
     focus: Id,
+    /// Where the focus stands in the program, for a program with spans or
+    /// names: the image node `from` and how to go on from it (see
+    /// [`place`]). A node substitution made is a copy of an image node, and
+    /// substitution keeps a body's shape, so the image node is followed from
+    /// node to child as the search goes down and from a function's body to
+    /// its contractum; no node remembers where it came from, and the way is
+    /// only walked where the search goes down ([`State::focus_at`]).
+    from: Id,
+    how: u32,
+    /// Whether the program has spans or names.
+    tracking: bool,
     ctx: Vec<ContextFrame>,
     /// The evaluated operands and fields of the operand and field frames,
     /// innermost last.
@@ -196,6 +208,9 @@ impl State {
             heap: Heap::new(image),
             tags: Tags::default(),
             focus: image.root,
+            from: image.root,
+            how: HERE,
+            tracking: image.is_marked(),
             ctx: Vec::new(),
             values: Vec::new(),
             jobs: Vec::new(),
@@ -364,28 +379,39 @@ impl State {
     /// A new heap node.
     #[inline(always)]
     fn node(&mut self, node: INode, scope: u32, value: bool) -> Result<Id, Halt> {
-        self.node_from(node, scope, value, NONE)
-    }
-
-    /// A new heap node copied from image node `origin` (see
-    /// [`Heap::origin`]).
-    #[inline(always)]
-    fn node_from(&mut self, node: INode, scope: u32, value: bool, origin: Id) -> Result<Id, Halt> {
         if !self.heap.has_room(1) {
             self.grow_nodes()?;
         }
-        Ok(self.heap.push(node, scope, value, origin))
+        Ok(self.heap.push(node, scope, value))
+    }
+
+    /// The image node the focus stands for ([`NONE`] for a program without
+    /// spans or names, or where it is not known).
+    pub(super) fn focus_at(&self, image: &Image) -> Id {
+        if !self.tracking {
+            NONE
+        } else if !self.heap.is_heap(self.focus) {
+            self.focus
+        } else {
+            place(image, self.from, self.how)
+        }
+    }
+
+    /// The focus comes from image node `from` by way `how` (see [`place`]).
+    #[inline(always)]
+    fn came(&mut self, from: Id, how: u32) {
+        self.from = from;
+        self.how = how;
     }
 
     #[cold]
     #[inline(never)]
     fn grow_nodes(&mut self) -> Result<(), Halt> {
         // Up to the next collection's threshold, not past it.
-        let node_bytes = self.heap.node_bytes();
-        let soft = self.gc_at / heap::NODE_BYTES + 1;
+        let soft = self.gc_at / NODE_BYTES + 1;
         if let Some(wanted) = self.heap.node_capacity(1, soft)? {
             let (len, cap) = (self.heap.nodes.len(), self.heap.nodes.capacity());
-            let cap = self.capacity_within(len, cap, 1, wanted, node_bytes)?;
+            let cap = self.capacity_within(len, cap, 1, wanted, NODE_BYTES)?;
             self.heap.grow_nodes(cap);
         }
         Ok(())
@@ -426,7 +452,7 @@ impl State {
     fn collect(&mut self, image: &Image) -> Result<(), Halt> {
         self.due = false;
         let held = self.held();
-        let estimate = (self.live / heap::NODE_BYTES)
+        let estimate = (self.live / NODE_BYTES)
             .saturating_mul(2)
             .saturating_add(1024);
         let old = std::mem::replace(&mut self.heap, Heap::new(image));
@@ -523,6 +549,7 @@ impl State {
                         at,
                     };
                     self.focus = argument;
+                    self.came(at, 1);
                     continue;
                 }
                 ContextFrame::Mark { .. } => {
@@ -537,11 +564,13 @@ impl State {
                     self.push_focus(image)?;
                     let last = self.ctx.len() - 1;
                     match &mut self.ctx[last] {
-                        ContextFrame::Operand { next, left, .. }
-                        | ContextFrame::Field { next, left, .. } => {
+                        ContextFrame::Operand { next, left, at, .. }
+                        | ContextFrame::Field { next, left, at, .. } => {
                             self.focus = self.heap.list(image, *next);
                             *next += 1;
                             *left -= 1;
+                            let (from, how) = (*at, FROM_END | *left);
+                            self.came(from, how);
                         }
                         _ => return Err(internal("a frame changed under the collector")),
                     }
@@ -555,9 +584,9 @@ impl State {
                 ContextFrame::AppArgument { function, at } => {
                     self.beta(image, function, at, trace)?
                 }
-                ContextFrame::LetBound { body, .. } => self.let_in(image, body, trace)?,
-                ContextFrame::IfCondition { yes, no, .. } => {
-                    self.if_then_else(image, yes, no, trace)?
+                ContextFrame::LetBound { body, at } => self.let_in(image, body, at, trace)?,
+                ContextFrame::IfCondition { yes, no, at } => {
+                    self.if_then_else(image, yes, no, at, trace)?
                 }
                 ContextFrame::Operand { op, .. } => self.prim(image, host, op, trace)?,
                 ContextFrame::Scrutinee { case, bodies, .. } => {
@@ -584,7 +613,7 @@ impl State {
         }
         // Room is made: the pushes below do not grow the stack.
         let focus = self.focus;
-        let at = self.heap.origin(focus);
+        let at = self.focus_at(image);
         match self.heap.node(image, focus) {
             INode::App(function, argument) => {
                 self.ctx.push(ContextFrame::AppFunction { argument, at });
@@ -625,6 +654,7 @@ impl State {
                     arity: len,
                     next: start + 1,
                     left: len - 1,
+                    at,
                 });
                 self.focus = self.heap.list(image, start);
             }
@@ -640,6 +670,8 @@ impl State {
             }
             _ => return Err(internal("a value taken for a redex")),
         }
+        // Every construct is entered at its first subterm.
+        self.came(at, 0);
         Ok(())
     }
 
@@ -694,17 +726,20 @@ impl State {
                 return Err(Halt::error(EvalError::not_a_function(f)));
             }
         };
-        // The application's frame becomes the mark (no growth), or goes
-        // when a mark is directly under it. A contractum that is a value
-        // leaves no mark: it would go at once.
+        // A contractum that is a value leaves no mark: it would go at once.
         if self.heap.is_value(image, next) {
             self.contracted(next);
             return Ok(());
         }
-        let mark = ContextFrame::Mark {
-            site,
-            lam: self.heap.origin(function),
+        let (func, pos) = match node {
+            INode::Lam { func, pos, .. } => (func, pos),
+            INode::RecLam { func, .. } => (func, 0),
+            _ => (NONE, 0),
         };
+        self.came(func, IN_BODY | pos);
+        // The application's frame becomes the mark (no growth), or goes
+        // when a mark is directly under it.
+        let mark = ContextFrame::Mark { site, func, pos };
         let last = self.ctx.len() - 1;
         match last.checked_sub(1).map(|below| &mut self.ctx[below]) {
             Some(below @ ContextFrame::Mark { .. }) => {
@@ -724,11 +759,15 @@ impl State {
         let top = self.ctx.last().copied();
         let redex = match top.and_then(ContextFrame::redex) {
             Some(at) if self.heap.is_value(image, self.focus) => at,
-            _ => self.heap.origin(self.focus),
+            _ => self.focus_at(image),
         };
         let mut trail = Trail::new(redex);
         for frame in self.ctx.iter().rev() {
-            if let ContextFrame::Mark { site, lam } = *frame {
+            if let ContextFrame::Mark { site, func, pos } = *frame {
+                let lam = image
+                    .funcs
+                    .get(func as usize)
+                    .map_or(NONE, |f| image.chain_node(f, pos));
                 trail.push(site, lam);
             }
         }
@@ -740,11 +779,13 @@ impl State {
         &mut self,
         image: &Image,
         body: Id,
+        at: Id,
         trace: &mut Option<Trace<'_>>,
     ) -> Result<(), Halt> {
         self.budget.take(Rule::Let)?;
         self.traced(image, trace, Rule::Let, false)?;
         let next = self.instantiate(image, body, Binds::One(self.focus))?;
+        self.came(at, 1);
         self.contracted(next);
         Ok(())
     }
@@ -755,13 +796,20 @@ impl State {
         image: &Image,
         yes: Id,
         no: Id,
+        at: Id,
         trace: &mut Option<Trace<'_>>,
     ) -> Result<(), Halt> {
         self.budget.take(Rule::If)?;
         self.traced(image, trace, Rule::If, false)?;
         let next = match self.heap.node(image, self.focus) {
-            INode::Bool(true) => yes,
-            INode::Bool(false) => no,
+            INode::Bool(true) => {
+                self.came(at, 1);
+                yes
+            }
+            INode::Bool(false) => {
+                self.came(at, 2);
+                no
+            }
             _ => {
                 let c = operand(image, &self.heap, &self.tags, self.focus);
                 return Err(Halt::error(EvalError::not_a_boolean(c)));
@@ -794,10 +842,16 @@ impl State {
         let next = match arm {
             Some((i, start, len)) => {
                 let body = self.heap.arm_body(image, &case, bodies, i);
-                self.instantiate(image, body, Binds::Fields { start, len })?
+                let next = self.instantiate(image, body, Binds::Fields { start, len })?;
+                let arm_body = image.arms.get((case.arms + i) as usize).map_or(NONE, |a| a.body);
+                self.came(arm_body, HERE);
+                next
             }
             None => match self.heap.default_body(image, &case, bodies) {
-                Some(default) => default,
+                Some(default) => {
+                    self.came(case.default, HERE);
+                    default
+                }
                 None => {
                     let s = operand(image, &self.heap, &self.tags, v);
                     return Err(Halt::error(EvalError::no_matching_case(s)));
@@ -976,6 +1030,8 @@ impl State {
             term = self.node(INode::App(term, value), 0, false)?;
         }
         self.focus = term;
+        // The program applied to data has no node of its own.
+        self.came(NONE, HERE);
         Ok(())
     }
 
@@ -1001,6 +1057,76 @@ impl State {
             .ok_or_else(|| internal("an empty host result"))?;
         self.done.truncate(start);
         Ok(result)
+    }
+}
+
+/// A way from an image node to where the focus stands ([`State::came`]):
+/// the node itself.
+const HERE: u32 = u32::MAX;
+/// With the place of a λ in its curried function: into its body (`from`
+/// is the function).
+const IN_BODY: u32 = 1 << 30;
+/// With a count: the operand or field with that many after it.
+const FROM_END: u32 = 1 << 31;
+
+/// The image node reached from image node `from` by way `how`: `HERE`, a
+/// child (0, 1 or 2, in evaluation order; a case's scrutinee is 0), an
+/// operand or field counted from the end (`FROM_END`), or the body of a λ
+/// of function `from` (`IN_BODY`); [`NONE`] where `from` is not known.
+#[inline(always)]
+fn place(image: &Image, from: Id, how: u32) -> Id {
+    if how < 3 {
+        return child(image, from, how);
+    }
+    place_far(image, from, how)
+}
+
+/// [`place`] for the ways other than a child.
+#[inline(never)]
+fn place_far(image: &Image, from: Id, how: u32) -> Id {
+    if how == HERE {
+        return from;
+    }
+    if how & FROM_END != 0 && how != HERE {
+        let after = (how & !FROM_END) as usize;
+        let (start, len) = match image.nodes.get(from as usize) {
+            Some(&INode::Prim(op, start)) => (start, op.arity()),
+            Some(&INode::Con(_, start, len)) => (start, len as usize),
+            _ => return NONE,
+        };
+        return match len.checked_sub(after + 1) {
+            Some(k) => image.lists.get(start as usize + k).copied().unwrap_or(NONE),
+            None => NONE,
+        };
+    }
+    if how & IN_BODY != 0 {
+        let lam = image
+            .funcs
+            .get(from as usize)
+            .map_or(NONE, |f| image.chain_node(f, how & !IN_BODY));
+        return match image.nodes.get(lam as usize) {
+            Some(&(INode::Lam { body, .. } | INode::RecLam { body, .. })) => body,
+            _ => NONE,
+        };
+    }
+    child(image, from, how)
+}
+
+/// Child `k` (0, 1 or 2, in evaluation order; a case's scrutinee is 0) of
+/// image node `from`, or [`NONE`].
+#[inline(always)]
+fn child(image: &Image, from: Id, k: u32) -> Id {
+    match (image.nodes.get(from as usize), k) {
+        (Some(&(INode::App(c, _) | INode::Let(c, _) | INode::If(c, _, _) | INode::Case(c, _))), 0) => c,
+        (Some(&(INode::App(_, c) | INode::Let(_, c) | INode::If(_, c, _))), 1) => c,
+        (Some(&INode::If(_, _, c)), 2) => c,
+        (Some(&INode::Prim(op, start)), k) if (k as usize) < op.arity() => {
+            image.lists.get((start + k) as usize).copied().unwrap_or(NONE)
+        }
+        (Some(&INode::Con(_, start, len)), k) if k < len => {
+            image.lists.get((start + k) as usize).copied().unwrap_or(NONE)
+        }
+        _ => NONE,
     }
 }
 

@@ -42,12 +42,6 @@ pub(super) struct Heap {
     pub(super) strings: Vec<Arc<str>>,
     /// Bytes of the strings' text.
     pub(super) string_bytes: usize,
-    /// Whether each node records the image node it was copied from: only
-    /// for a program with spans or names, so no other pays for it.
-    tracking: bool,
-    /// Per node, when tracking: the image node it was copied from by
-    /// substitution, or [`NONE`] for a node the run made up.
-    origins: Vec<Id>,
 }
 
 impl Heap {
@@ -56,25 +50,8 @@ impl Heap {
         Heap {
             base: image.nodes.len() as u32,
             list_base: image.lists.len() as u32,
-            tracking: image.is_marked(),
             ..Heap::default()
         }
-    }
-
-    /// The image node `id` comes from: itself for an image node, the node
-    /// it was copied from for a heap node (when tracking), else [`NONE`].
-    #[inline]
-    pub(super) fn origin(&self, id: Id) -> Id {
-        match id.checked_sub(self.base) {
-            None => id,
-            Some(h) => self.origins.get(h as usize).copied().unwrap_or(NONE),
-        }
-    }
-
-    /// Bytes one node takes, its origin included when tracking.
-    #[inline(always)]
-    pub(super) fn node_bytes(&self) -> usize {
-        NODE_BYTES + if self.tracking { 4 } else { 0 }
     }
 
     /// Node `id`, of the image or of this heap. Ids are made only by this
@@ -160,16 +137,12 @@ impl Heap {
         }
     }
 
-    /// Append a node copied from image node `origin` ([`NONE`] for one the
-    /// run made up); the caller has made room ([`Heap::has_room`]).
+    /// Append a node; the caller has made room ([`Heap::has_room`]).
     #[inline(always)]
-    pub(super) fn push(&mut self, node: INode, scope: u32, value: bool, origin: Id) -> Id {
+    pub(super) fn push(&mut self, node: INode, scope: u32, value: bool) -> Id {
         let id = self.base + self.nodes.len() as u32;
         self.nodes.push(node);
         self.meta.push(scope | if value { VALUE_BIT } else { 0 });
-        if self.tracking {
-            self.origins.push(origin);
-        }
         id
     }
 
@@ -200,10 +173,6 @@ impl Heap {
         self.nodes
             .reserve_exact(cap.saturating_sub(self.nodes.len()));
         self.meta.reserve_exact(cap.saturating_sub(self.meta.len()));
-        if self.tracking {
-            self.origins
-                .reserve_exact(cap.saturating_sub(self.origins.len()));
-        }
     }
 
     /// Whether the list positions would run out after `n` more entries.
@@ -225,7 +194,6 @@ impl Heap {
     pub(super) fn bytes(&self) -> usize {
         self.nodes.capacity() * std::mem::size_of::<INode>()
             + self.meta.capacity() * 4
-            + self.origins.capacity() * 4
             + self.lists.capacity() * 4
             + self.strings.capacity() * std::mem::size_of::<Arc<str>>()
             + self.strings.len() * (STRING_OVERHEAD - std::mem::size_of::<Arc<str>>())
@@ -236,8 +204,6 @@ impl Heap {
     /// collection policy compares.
     #[inline(always)]
     pub(super) fn used(&self) -> usize {
-        // The origins (when tracked) are left out: they do not change when
-        // collecting pays.
         self.nodes.len() * NODE_BYTES + self.lists.len() * 4
     }
 }
@@ -266,15 +232,15 @@ impl<'h> Collector<'h> {
     ) -> Result<Self, Halt> {
         let table = from.nodes.len().saturating_mul(4);
         let estimate = estimate.min(from.nodes.len());
-        let first = estimate.saturating_mul(from.node_bytes());
+        let first = estimate.saturating_mul(NODE_BYTES);
         budget.check_memory(outside.saturating_add(table).saturating_add(first))?;
         let mut to = Heap {
             base: from.base,
             list_base: from.list_base,
-            tracking: from.tracking,
             ..Heap::default()
         };
-        to.grow_nodes(estimate);
+        to.nodes.reserve_exact(estimate);
+        to.meta.reserve_exact(estimate);
         Ok(Collector {
             image,
             from,
@@ -308,7 +274,7 @@ impl<'h> Collector<'h> {
         budget.work(1)?;
         if !self.to.has_room(1) {
             if let Some(cap) = self.to.node_capacity(1, usize::MAX)? {
-                let bytes = cap.saturating_mul(self.to.node_bytes());
+                let bytes = cap.saturating_mul(NODE_BYTES);
                 self.room(bytes, budget)?;
                 self.to.grow_nodes(cap);
             }
@@ -331,11 +297,6 @@ impl<'h> Collector<'h> {
         let new = self.to.base + self.to.nodes.len() as u32;
         self.to.nodes.push(node);
         self.to.meta.push(meta);
-        if self.to.tracking {
-            self.to
-                .origins
-                .push(self.from.origins.get(h).copied().unwrap_or(NONE));
-        }
         self.forward[h] = new;
         Ok(new)
     }

@@ -295,6 +295,7 @@ impl StoreReader {
                 arity,
                 next,
                 left,
+                ..
             } => {
                 let args = self.spread(view, arity, next, left, hole, stack, below, budget)?;
                 let tag = self.tag(view, tag);
@@ -531,7 +532,7 @@ impl State {
         // The redex carries its source span, when it has one.
         let origin = match self.ctx.last() {
             Some(frame) if !alone => frame.redex().unwrap_or(NONE),
-            _ => self.heap.origin(self.focus),
+            _ => self.focus_at(image),
         };
         if let Some(span) = image.span(origin) {
             redex = trace.scratch.at(span, redex);

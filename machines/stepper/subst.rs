@@ -156,43 +156,42 @@ impl State {
     /// Node `id` rebuilt from its children's new ids on top of `done`.
     fn rebuild(&mut self, image: &Image, id: Id) -> Result<Id, Halt> {
         let node = self.heap.node(image, id);
-        let origin = self.heap.origin(id);
         let scope = |s: &State, c: Id| s.heap.scope(image, c);
         match node {
             INode::Lam { func, pos, .. } => {
                 let body = self.pop_done()?;
                 let s = scope(self, body).saturating_sub(1);
-                self.node_from(INode::Lam { body, func, pos }, s, true, origin)
+                self.node(INode::Lam { body, func, pos }, s, true)
             }
             INode::RecLam { func, .. } => {
                 let body = self.pop_done()?;
                 let s = scope(self, body).saturating_sub(2);
-                self.node_from(INode::RecLam { body, func }, s, true, origin)
+                self.node(INode::RecLam { body, func }, s, true)
             }
             INode::App(..) => {
                 let a = self.pop_done()?;
                 let f = self.pop_done()?;
                 let s = scope(self, f).max(scope(self, a));
-                self.node_from(INode::App(f, a), s, false, origin)
+                self.node(INode::App(f, a), s, false)
             }
             INode::Let(..) => {
                 let b = self.pop_done()?;
                 let a = self.pop_done()?;
                 let s = scope(self, a).max(scope(self, b).saturating_sub(1));
-                self.node_from(INode::Let(a, b), s, false, origin)
+                self.node(INode::Let(a, b), s, false)
             }
             INode::If(..) => {
                 let n = self.pop_done()?;
                 let y = self.pop_done()?;
                 let c = self.pop_done()?;
                 let s = scope(self, c).max(scope(self, y)).max(scope(self, n));
-                self.node_from(INode::If(c, y, n), s, false, origin)
+                self.node(INode::If(c, y, n), s, false)
             }
             INode::Prim(op, _) => {
                 let n = op.arity();
                 let s = self.top_scope(image, n);
                 let start = self.list_from_done(n)?;
-                self.node_from(INode::Prim(op, start), s, false, origin)
+                self.node(INode::Prim(op, start), s, false)
             }
             INode::Con(tag, _, len) => {
                 let n = len as usize;
@@ -202,7 +201,7 @@ impl State {
                     .iter()
                     .all(|&f| self.heap.is_value(image, f));
                 let start = self.list_from_done(n)?;
-                self.node_from(INode::Con(tag, start, len), s, value, origin)
+                self.node(INode::Con(tag, start, len), s, value)
             }
             INode::Case(_, x) => {
                 let (ic, _) = self.heap.case_of(image, id, x);
@@ -230,7 +229,7 @@ impl State {
                 self.heap.lists.push(ic);
                 self.heap.lists.extend_from_slice(&self.done[at + 1..]);
                 self.done.truncate(at);
-                self.node_from(INode::Case(scrutinee, start), s, false, origin)
+                self.node(INode::Case(scrutinee, start), s, false)
             }
             INode::Var { .. } | INode::Int(_) | INode::Bool(_) | INode::Str(_) => {
                 Err(internal("a leaf to rebuild"))
