@@ -387,6 +387,7 @@ impl State {
 
     /// The image node the focus stands for ([`NONE`] for a program without
     /// spans or names, or where it is not known).
+    #[inline]
     pub(super) fn focus_at(&self, image: &Image) -> Id {
         if !self.tracking {
             NONE
@@ -736,7 +737,13 @@ impl State {
             INode::RecLam { func, .. } => (func, 0),
             _ => (NONE, 0),
         };
-        self.came(func, IN_BODY | pos);
+        match node {
+            // An image λ's body is the image node itself.
+            INode::Lam { body, .. } | INode::RecLam { body, .. } if !self.heap.is_heap(function) => {
+                self.came(body, HERE)
+            }
+            _ => self.came(func, IN_BODY | pos),
+        }
         // The application's frame becomes the mark (no growth), or goes
         // when a mark is directly under it.
         let mark = ContextFrame::Mark { site, func, pos };
