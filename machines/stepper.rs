@@ -387,7 +387,7 @@ impl State {
 
     /// The image node the focus stands for ([`NONE`] for a program without
     /// spans or names, or where it is not known).
-    #[inline]
+    #[inline(always)]
     pub(super) fn focus_at(&self, image: &Image) -> Id {
         if !self.tracking {
             NONE
