@@ -1088,13 +1088,14 @@ fn place(image: &Image, from: Id, how: u32) -> Id {
     place_far(image, from, how)
 }
 
-/// [`place`] for the ways other than a child.
+/// [`place`] for the ways other than a child (any other way is no way:
+/// [`NONE`]).
 #[inline(never)]
 fn place_far(image: &Image, from: Id, how: u32) -> Id {
     if how == HERE {
         return from;
     }
-    if how & FROM_END != 0 && how != HERE {
+    if how & FROM_END != 0 {
         let after = (how & !FROM_END) as usize;
         let (start, len) = match image.nodes.get(from as usize) {
             Some(&INode::Prim(op, start)) => (start, op.arity()),
@@ -1116,7 +1117,7 @@ fn place_far(image: &Image, from: Id, how: u32) -> Id {
             _ => NONE,
         };
     }
-    child(image, from, how)
+    NONE
 }
 
 /// Child `k` (0, 1 or 2, in evaluation order; a case's scrutinee is 0) of

@@ -860,19 +860,24 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
         node
     }
 
-    /// The condition and the `if` of the `Instr::IfPrim2` at `at`, as image
-    /// nodes: the redexes of its two contractions.
+    /// The condition of the `Instr::IfPrim2` at `at`, as an image node:
+    /// the redex of its first contraction.
     #[cold]
-    fn if_parts(&self, at: CodeId) -> (Id, Id) {
-        let node = self.origin(at);
-        let condition = match self.image.nodes.get(node as usize) {
+    fn condition_of(&self, at: CodeId) -> Id {
+        match self.image.nodes.get(self.origin(at) as usize) {
             Some(&INode::If(c, ..)) => c,
             _ => NONE,
-        };
+        }
+    }
+
+    /// Of two contractions paid together ([`Interpreter::take2`]), the
+    /// redex of the one the fuel ran out before.
+    #[cold]
+    fn of_pair(&self, first: Id, second: Id) -> Id {
         if self.second {
-            (condition, node)
+            second
         } else {
-            (condition, condition)
+            first
         }
     }
 
@@ -1242,11 +1247,15 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                     }
                     Instr::IfPrim2 { op, a, b, yes, no } => {
                         if let Some(holds) = self.int_condition(op, a, b) {
-                            at!(self, self.take2(Rule::Prim, Rule::If), self.if_parts(pc).1);
+                            at!(
+                                self,
+                                self.take2(Rule::Prim, Rule::If),
+                                self.of_pair(self.condition_of(pc), self.origin(pc))
+                            );
                             pc = if holds { yes } else { no };
                             continue;
                         }
-                        let condition = at!(self, self.prim2(op, a, b), self.if_parts(pc).0);
+                        let condition = at!(self, self.prim2(op, a, b), self.condition_of(pc));
                         at!(self, self.take(Rule::If), self.origin(pc));
                         pc = at!(self, self.branch(condition, yes, no), self.origin(pc));
                     }
@@ -1273,7 +1282,7 @@ impl<'c, 'h, const METERED: bool> Interpreter<'c, 'h, METERED> {
                             at!(
                                 self,
                                 self.take2(Rule::Prim, Rule::If),
-                                if self.second { self.origin(pc) } else { self.origin(condition) }
+                                self.of_pair(self.origin(condition), self.origin(pc))
                             );
                             pc = if holds { yes } else { no };
                             continue;
