@@ -119,9 +119,10 @@ enum ContextFrame {
     Scrutinee { case: u32, bodies: u32, at: Id },
     /// A call mark `⟨site, λ⟩` (see [`crate::span`]): the hole is the
     /// body of a call made at application `site` (an image node, or
-    /// [`NONE`]) of the λ at place `pos` of curried function `func`. It goes
-    /// when the hole is a value, and a call made directly in it replaces it.
-    Mark { site: Id, func: u32, pos: u32 },
+    /// [`NONE`]) of image λ `lam` ([`NONE`] for a program without spans or
+    /// names). It goes when the hole is a value, and a call made directly
+    /// in it replaces it.
+    Mark { site: Id, lam: Id },
 }
 
 impl ContextFrame {
@@ -732,21 +733,20 @@ impl State {
             self.contracted(next);
             return Ok(());
         }
-        let (func, pos) = match node {
-            INode::Lam { func, pos, .. } => (func, pos),
-            INode::RecLam { func, .. } => (func, 0),
-            _ => (NONE, 0),
+        // The λ applied, as a program node: itself, or for a copy the λ at
+        // its place in its function (only looked up for a marked program).
+        let lam = match node {
+            _ if !self.tracking => NONE,
+            _ if !self.heap.is_heap(function) => function,
+            INode::Lam { func, pos, .. } => image.lam_at(func, pos),
+            INode::RecLam { func, .. } => image.lam_at(func, 0),
+            _ => NONE,
         };
-        match node {
-            // An image λ's body is the image node itself.
-            INode::Lam { body, .. } | INode::RecLam { body, .. } if !self.heap.is_heap(function) => {
-                self.came(body, HERE)
-            }
-            _ => self.came(func, IN_BODY | pos),
-        }
+        // The contractum is the λ's body.
+        self.came(lam, 0);
         // The application's frame becomes the mark (no growth), or goes
         // when a mark is directly under it.
-        let mark = ContextFrame::Mark { site, func, pos };
+        let mark = ContextFrame::Mark { site, lam };
         let last = self.ctx.len() - 1;
         match last.checked_sub(1).map(|below| &mut self.ctx[below]) {
             Some(below @ ContextFrame::Mark { .. }) => {
@@ -770,11 +770,7 @@ impl State {
         };
         let mut trail = Trail::new(redex);
         for frame in self.ctx.iter().rev() {
-            if let ContextFrame::Mark { site, func, pos } = *frame {
-                let lam = image
-                    .funcs
-                    .get(func as usize)
-                    .map_or(NONE, |f| image.chain_node(f, pos));
+            if let ContextFrame::Mark { site, lam } = *frame {
                 trail.push(site, lam);
             }
         }
@@ -1070,71 +1066,36 @@ impl State {
 /// A way from an image node to where the focus stands ([`State::came`]):
 /// the node itself.
 const HERE: u32 = u32::MAX;
-/// With the place of a λ in its curried function: into its body (`from`
-/// is the function).
-const IN_BODY: u32 = 1 << 30;
 /// With a count: the operand or field with that many after it.
 const FROM_END: u32 = 1 << 31;
 
 /// The image node reached from image node `from` by way `how`: `HERE`, a
-/// child (0, 1 or 2, in evaluation order; a case's scrutinee is 0), an
-/// operand or field counted from the end (`FROM_END`), or the body of a λ
-/// of function `from` (`IN_BODY`); [`NONE`] where `from` is not known.
+/// child (0, 1 or 2, in evaluation order: a case's scrutinee, a λ's body;
+/// see [`Image::kid`]), or an operand or field counted from the end
+/// (`FROM_END`); [`NONE`] where `from` is not known.
 #[inline(always)]
 fn place(image: &Image, from: Id, how: u32) -> Id {
     if how < 3 {
-        return child(image, from, how);
+        return image.kid(from, how);
     }
-    place_far(image, from, how)
-}
-
-/// [`place`] for the ways other than a child (any other way is no way:
-/// [`NONE`]).
-#[inline(never)]
-fn place_far(image: &Image, from: Id, how: u32) -> Id {
     if how == HERE {
         return from;
     }
-    if how & FROM_END != 0 {
-        let after = (how & !FROM_END) as usize;
-        let (start, len) = match image.nodes.get(from as usize) {
-            Some(&INode::Prim(op, start)) => (start, op.arity()),
-            Some(&INode::Con(_, start, len)) => (start, len as usize),
-            _ => return NONE,
-        };
-        return match len.checked_sub(after + 1) {
-            Some(k) => image.lists.get(start as usize + k).copied().unwrap_or(NONE),
-            None => NONE,
-        };
-    }
-    if how & IN_BODY != 0 {
-        let lam = image
-            .funcs
-            .get(from as usize)
-            .map_or(NONE, |f| image.chain_node(f, how & !IN_BODY));
-        return match image.nodes.get(lam as usize) {
-            Some(&(INode::Lam { body, .. } | INode::RecLam { body, .. })) => body,
-            _ => NONE,
-        };
-    }
-    NONE
+    from_end(image, from, how & !FROM_END)
 }
 
-/// Child `k` (0, 1 or 2, in evaluation order; a case's scrutinee is 0) of
-/// image node `from`, or [`NONE`].
-#[inline(always)]
-fn child(image: &Image, from: Id, k: u32) -> Id {
-    match (image.nodes.get(from as usize), k) {
-        (Some(&(INode::App(c, _) | INode::Let(c, _) | INode::If(c, _, _) | INode::Case(c, _))), 0) => c,
-        (Some(&(INode::App(_, c) | INode::Let(_, c) | INode::If(_, c, _))), 1) => c,
-        (Some(&INode::If(_, _, c)), 2) => c,
-        (Some(&INode::Prim(op, start)), k) if (k as usize) < op.arity() => {
-            image.lists.get((start + k) as usize).copied().unwrap_or(NONE)
-        }
-        (Some(&INode::Con(_, start, len)), k) if k < len => {
-            image.lists.get((start + k) as usize).copied().unwrap_or(NONE)
-        }
-        _ => NONE,
+/// The operand or field of image node `from` with `after` more after it,
+/// or [`NONE`].
+#[inline(never)]
+fn from_end(image: &Image, from: Id, after: u32) -> Id {
+    let (start, len) = match image.nodes.get(from as usize) {
+        Some(&INode::Prim(op, start)) => (start, op.arity()),
+        Some(&INode::Con(_, start, len)) => (start, len as usize),
+        _ => return NONE,
+    };
+    match len.checked_sub(after as usize + 1) {
+        Some(k) => image.lists.get(start as usize + k).copied().unwrap_or(NONE),
+        None => NONE,
     }
 }
 

@@ -149,6 +149,8 @@ pub(crate) struct Func {
     /// Where its capture runs start in [`Image::runs`], and how many.
     pub(crate) runs: u32,
     pub(crate) runs_len: u32,
+    /// Where its `λ` nodes, head first, start in [`Image::chains`].
+    pub(crate) chain: u32,
 }
 
 /// How a closure gathers a stretch of its captured values where it is made.
@@ -179,6 +181,9 @@ pub(crate) struct Image {
     pub(crate) tag_arity: Vec<u32>,
     tag_ids: HashMap<Arc<str>, TagId>,
     pub(crate) funcs: Vec<Func>,
+    /// Every function's `λ` nodes, head first, function after function: a
+    /// λ at any place of a chain in one look (the stepper's locations).
+    pub(crate) chains: Vec<Id>,
     pub(crate) runs: Vec<Capture>,
     /// Whether a node has more than one parent (only closed nodes do).
     shared: Vec<bool>,
@@ -192,6 +197,10 @@ pub(crate) struct Image {
     /// Function names, by λ node (a name also covers the unnamed λs of its
     /// curried chain; see [`Image::name_chains`]).
     names: HashMap<Id, Arc<str>>,
+    /// For an image with spans or names, per node its first three children
+    /// in evaluation order ([`NONE`] past the last): how the stepper finds
+    /// the program node of a copy in one look ([`Image::kid`]).
+    kids: Vec<Id>,
     pub(crate) root: Id,
 }
 
@@ -314,15 +323,13 @@ impl Image {
 
     /// The node at position `pos` of function `func`'s chain: its head for
     /// 0, else the `λ` taking parameter `pos + 1`.
+    #[inline]
     pub(crate) fn chain_node(&self, func: &Func, pos: u32) -> Id {
-        let mut id = func.head;
-        for _ in 0..pos {
-            match self.node(id) {
-                INode::Lam { body, .. } | INode::RecLam { body, .. } => id = body,
-                _ => break,
-            }
+        if pos >= func.params {
+            return NONE;
         }
-        id
+        let at = func.chain as usize + pos as usize;
+        self.chains.get(at).copied().unwrap_or(NONE)
     }
 
     /// The source span of node `id`, if it has one.
@@ -428,7 +435,66 @@ impl Image {
         image.name_chains();
         analysis::analyse(&mut image);
         image.mark_data();
+        image.list_kids();
         Ok(image)
+    }
+
+    /// Fill [`Image::kids`], for an image with spans or names only.
+    fn list_kids(&mut self) {
+        if !self.is_marked() {
+            return;
+        }
+        let mut kids = vec![NONE; self.nodes.len() * 3];
+        for (id, node) in self.nodes.iter().enumerate() {
+            let mut put = |k: usize, c: Id| kids[id * 3 + k] = c;
+            match *node {
+                INode::App(a, b) | INode::Let(a, b) => {
+                    put(0, a);
+                    put(1, b);
+                }
+                INode::If(a, b, c) => {
+                    put(0, a);
+                    put(1, b);
+                    put(2, c);
+                }
+                INode::Case(scrutinee, _) => put(0, scrutinee),
+                INode::Lam { body, .. } | INode::RecLam { body, .. } => put(0, body),
+                INode::Prim(op, start) => {
+                    for (k, &c) in self
+                        .list(start, op.arity() as u32)
+                        .iter()
+                        .take(3)
+                        .enumerate()
+                    {
+                        put(k, c);
+                    }
+                }
+                INode::Con(_, start, len) => {
+                    for (k, &c) in self.list(start, len).iter().take(3).enumerate() {
+                        put(k, c);
+                    }
+                }
+                _ => {}
+            }
+        }
+        self.kids = kids;
+    }
+
+    /// Child `k` (0, 1 or 2, in evaluation order: a case's scrutinee, a
+    /// λ's body) of node `from`, or [`NONE`] (always for an image without
+    /// spans or names).
+    #[inline(always)]
+    pub(crate) fn kid(&self, from: Id, k: u32) -> Id {
+        let at = (from as usize).wrapping_mul(3).wrapping_add(k as usize);
+        self.kids.get(at).copied().unwrap_or(NONE)
+    }
+
+    /// The λ at place `pos` of function `func`'s chain, or [`NONE`].
+    #[inline]
+    pub(crate) fn lam_at(&self, func: u32, pos: u32) -> Id {
+        self.funcs
+            .get(func as usize)
+            .map_or(NONE, |f| self.chain_node(f, pos))
     }
 
     /// Append a node with its scope and value flag (for builders of images

@@ -131,6 +131,8 @@ impl Tree {
                     let mut binders = 1 + u32::from(rec);
                     let mut params = 1;
                     let mut inner = body;
+                    let chain = image.chains.len() as u32;
+                    image.chains.push(id);
                     while params < MAX_CHAIN && !image.is_shared(inner) {
                         let INode::Lam { body, .. } = image.node(inner) else {
                             break;
@@ -140,6 +142,7 @@ impl Tree {
                             func,
                             pos: params,
                         };
+                        image.chains.push(inner);
                         params += 1;
                         binders += 1;
                         inner = body;
@@ -157,6 +160,7 @@ impl Tree {
                         captured: 0,
                         runs: 0,
                         runs_len: 0,
+                        chain,
                     });
                     let g = self.scans.len() as u32;
                     self.scans.push(Scan {
