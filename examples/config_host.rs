@@ -89,6 +89,10 @@ fn main() {
             eprintln!("{path}: {f}");
             std::process::exit(1);
         }
+        Outcome::Suspended(call) => {
+            eprintln!("{path}: waits on {call}, which this tool cannot answer");
+            std::process::exit(1);
+        }
         Outcome::Limit(l) => {
             eprintln!("{path}: {l}");
             std::process::exit(1);

@@ -19,6 +19,7 @@ fn describe(outcome: &Outcome) -> String {
         Outcome::OutOfFuel => "out of fuel".to_string(),
         Outcome::Limit(l) => format!("stopped: {l}"),
         Outcome::Fault(f) => format!("orrery failed: {f}"),
+        Outcome::Suspended(call) => format!("waits on {call}"),
     }
 }
 

@@ -166,6 +166,7 @@ fn main() {
             Outcome::OutOfFuel => "rule ran out of fuel".to_string(),
             Outcome::Limit(l) => format!("stopped: {l}"),
             Outcome::Fault(f) => format!("orrery failed: {f}"),
+            Outcome::Suspended(call) => format!("rule waits on {call}"),
         };
         println!(
             "{:<4} {:>3} kg {:>2}h{:<9} → {answer}   [{} contractions]",

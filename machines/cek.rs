@@ -220,6 +220,14 @@ impl Paused for CekRun {
         CekRun::peak_bytes(self)
     }
 
+    fn answer(&mut self, answer: crate::Answer) {
+        self.budget.give(answer);
+    }
+
+    fn snapshot(&self) -> crate::Snapshot {
+        crate::Snapshot::of("cek", &self.program, &self.budget, CekRun::is_finished(self))
+    }
+
     fn detach(self: Box<Self>) -> Detached {
         Detached::new(Box::new(detach::DetachedCek::new(*self)))
     }
@@ -630,7 +638,7 @@ impl CekRun {
     /// assert_eq!(location.backtrace.frames[0].name.as_deref(), Some("sprout"));
     /// ```
     pub fn resume(&mut self, more_fuel: u64) -> Report {
-        self.budget.add_fuel(more_fuel);
+        self.budget.resumed(more_fuel);
         self.meter = Meter::holding(self.cells);
         if self.end.is_none() {
             self.stop = NONE;
@@ -655,7 +663,7 @@ impl CekRun {
             };
         }
         let (outcome, location) = match &self.end {
-            None => (Outcome::OutOfFuel, Some(self.location())),
+            None => (self.budget.paused(), Some(self.location())),
             Some(End::Value(value)) => (Outcome::Value(value.clone()), None),
             Some(End::Ended(ended, location)) => (ended.outcome(), location.clone()),
         };

@@ -990,7 +990,7 @@ impl State {
             } else {
                 Ok(Vec::new())
             };
-            match host_step(host, id, self.budget.context(), args, fuel_left) {
+            match host_step(host, id, &mut self.budget, args) {
                 HostStep::OutOfFuel => return Err(Halt::OutOfFuel),
                 HostStep::TooLarge => return Err(Halt::Memory),
                 HostStep::Made { fuel, result } => {
@@ -1441,7 +1441,7 @@ impl StepperRun {
         if self.end.is_none() {
             let image = self.program.image();
             let state = &mut self.state;
-            state.budget.add_fuel(more_fuel);
+            state.budget.resumed(more_fuel);
             let loaded = if self.loaded {
                 Ok(())
             } else {
@@ -1459,7 +1459,7 @@ impl StepperRun {
                 Err(Halt::OutOfFuel) => match state.pause(image) {
                     Ok(()) => {
                         return Report {
-                            outcome: Outcome::OutOfFuel,
+                            outcome: state.budget.paused(),
                             counts: state.budget.counts,
                             location: self.location.take(),
                         }
@@ -1489,7 +1489,7 @@ impl StepperRun {
         let outcome = match &self.end {
             Some(End::Value(value)) => Outcome::Value(value.clone()),
             Some(End::Ended(ended)) => ended.outcome(),
-            None => Outcome::OutOfFuel,
+            None => self.state.budget.paused(),
         };
         if self.location.is_none() {
             self.location = stopped_without_redex(&outcome);
@@ -1668,6 +1668,14 @@ impl Paused for StepperRun {
 
     fn peak_bytes(&self) -> usize {
         StepperRun::peak_bytes(self)
+    }
+
+    fn answer(&mut self, answer: crate::Answer) {
+        self.state.budget.give(answer);
+    }
+
+    fn snapshot(&self) -> crate::Snapshot {
+        crate::Snapshot::of("stepper", &self.program, &self.state.budget, StepperRun::is_finished(self))
     }
 
     /// The run itself: it owns all its state and is `Send` already.

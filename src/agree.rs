@@ -84,6 +84,12 @@ pub fn disagreement_within(
             counts(a, b).or_else(|| locations(a, b))
         }
         (Outcome::OutOfFuel, Outcome::OutOfFuel) => counts(a, b).or_else(|| locations(a, b)),
+        (Outcome::Suspended(x), Outcome::Suspended(y)) => {
+            if x != y {
+                return Ok(Some(format!("suspended at different calls: {x} and {y}")));
+            }
+            counts(a, b).or_else(|| locations(a, b))
+        }
         (x, y) => Some(format!("different outcomes: {} and {}", x.name(), y.name())),
     })
 }

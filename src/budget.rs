@@ -27,7 +27,9 @@
 
 use crate::error::{EvalError, Fault, LimitError};
 use crate::host::Context;
-use crate::vocabulary::{Cancel, Counts, Limits, Outcome, Rule, RunContext, CANCEL_POLL_INTERVAL};
+use crate::vocabulary::{
+    Answer, Cancel, Counts, HostCall, Limits, Outcome, Rule, RunContext, CANCEL_POLL_INTERVAL,
+};
 
 /// Units of fuel-free work between two looks at the cancellation flag.
 pub(crate) const POLL_WORK: i64 = 1 << 16;
@@ -71,12 +73,6 @@ impl Halt {
             Halt::Cancelled => Ended::Limit(LimitError::cancelled()),
             Halt::Fault(f) => Ended::Fault(*f),
         })
-    }
-
-    /// The outcome this halt is for a run whose memory limit is `memory`.
-    pub(crate) fn outcome(self, memory: usize) -> Outcome {
-        self.ended(memory)
-            .map_or(Outcome::OutOfFuel, |e| e.outcome())
     }
 }
 
@@ -191,6 +187,17 @@ pub(crate) struct Budget {
     pub(crate) memory: usize,
     /// The most bytes held at any check.
     pub(crate) peak: usize,
+    /// The suspending host call the run stopped at (its machine paused just
+    /// before it, as when out of fuel), until the next resume.
+    pub(crate) suspended: Option<Box<HostCall>>,
+    /// The answer given for that call, with the call, taken when the run
+    /// resumes and makes it.
+    pub(crate) answer: Option<Box<(HostCall, Answer)>>,
+    /// Every answer the run's suspending calls have taken, in order, with the
+    /// call: what a snapshot records (see [`crate::Snapshot`]).
+    pub(crate) journal: Vec<(HostCall, Answer)>,
+    /// Whether the run has been resumed (so has begun).
+    pub(crate) started: bool,
 }
 
 impl Budget {
@@ -204,6 +211,33 @@ impl Budget {
             until_poll: 0,
             memory: limits.memory,
             peak: 0,
+            suspended: None,
+            answer: None,
+            journal: Vec::new(),
+            started: false,
+        }
+    }
+
+    /// What a pause is: a wait on a suspended host call, or the end of the
+    /// fuel.
+    pub(crate) fn paused(&self) -> Outcome {
+        match &self.suspended {
+            Some(call) => Outcome::Suspended((**call).clone()),
+            None => Outcome::OutOfFuel,
+        }
+    }
+
+    /// The outcome `halt` stands for in this run.
+    pub(crate) fn outcome(&self, halt: Halt) -> Outcome {
+        halt.ended(self.memory)
+            .map_or_else(|| self.paused(), |e| e.outcome())
+    }
+
+    /// Answer the call the run is suspended at; an answer to a run that is
+    /// not suspended is dropped.
+    pub(crate) fn give(&mut self, answer: Answer) {
+        if let Some(call) = &self.suspended {
+            self.answer = Some(Box::new(((**call).clone(), answer)));
         }
     }
 
@@ -331,9 +365,12 @@ impl Budget {
         self.tank.left()
     }
 
-    /// Add `more` units of fuel (a resumed run).
-    pub(crate) fn add_fuel(&mut self, more: u64) {
+    /// A paused run resumes: add `more` units of fuel, and end the wait on
+    /// a suspended call (made again, it takes its answer or suspends again).
+    pub(crate) fn resumed(&mut self, more: u64) {
         self.tank.add(more);
+        self.suspended = None;
+        self.started = true;
     }
 }
 

@@ -15,10 +15,12 @@ use std::fmt;
 use std::panic::{catch_unwind, AssertUnwindSafe};
 use std::sync::Arc;
 
+use crate::budget::Budget;
 use crate::datum::{Datum, FromDatum, IntoDatum};
 use crate::error::{ErrorKind, EvalError};
 use crate::prim::{HostId, Prim};
 use crate::term::{Arena, Term};
+use crate::vocabulary::HostCall;
 
 /// The signature every host function has once its arguments are data.
 type DataFn =
@@ -37,6 +39,9 @@ struct Entry {
     id: HostId,
     function: Arc<DataFn>,
     cost: Option<Arc<CostFn>>,
+    /// Whether a call waits for an answer from outside the run (see
+    /// [`HostFunctions::register_suspending`]).
+    suspends: bool,
 }
 
 /// A table of host functions. Build it once, then give it to programs
@@ -259,6 +264,66 @@ impl HostFunctions {
         )
     }
 
+    /// Register a function whose answer comes later, from outside the run: a
+    /// stock database, a pricing service, a person approving. A call of it
+    /// stops the run with [`crate::Outcome::Suspended`], holding the call
+    /// (the name and the arguments as owned data); the caller answers with
+    /// [`crate::Paused::resume_with`], and the run goes on exactly as if the
+    /// function had returned that answer. Fuel for the call (one unit, plus
+    /// any cost set with [`HostFunctions::set_cost`]) is paid when the answer
+    /// is taken, as for any host call; a run without that fuel is out of
+    /// fuel before the call, and does not suspend.
+    ///
+    /// Only a paused run ([`crate::Machine::start`]) can take an answer: a
+    /// run of [`crate::Machine::run`] (and every run of the env machine,
+    /// which cannot pause) ends at the call with the `Suspended` outcome.
+    ///
+    /// # Errors
+    ///
+    /// [`HostDefinitionError`] for a bad or duplicate name, or too many
+    /// arguments.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Datum, HostFunctions, Limits, MachineKind, Outcome, Program};
+    /// let mut host = HostFunctions::new();
+    /// host.register_suspending("crates_in_bay", 1).unwrap();
+    /// let program = Program::parse_with("crates_in_bay 7 * 12", &host).unwrap();
+    /// // The first machine that can pause (env cannot).
+    /// let Some(mut run) = MachineKind::enabled()
+    ///     .iter()
+    ///     .find_map(|kind| kind.machine().start(&program, &Limits::default()))
+    /// else {
+    ///     return;
+    /// };
+    /// let report = run.resume(0);
+    /// let Outcome::Suspended(call) = &report.outcome else { panic!() };
+    /// assert_eq!((call.name.as_str(), &call.args[..]), ("crates_in_bay", &[Datum::Int(7)][..]));
+    /// let report = run.resume_with(Ok(Datum::Int(5)));
+    /// assert_eq!(report.outcome.value().unwrap().as_int(), Some(60));
+    /// ```
+    pub fn register_suspending(
+        &mut self,
+        name: &str,
+        arity: usize,
+    ) -> Result<HostId, HostDefinitionError> {
+        let function: Arc<DataFn> = Arc::new(|_: Context<'_>, _: &[Datum<'_>]| {
+            Err("waits for an answer from outside the run: call it from a run".to_string())
+        });
+        let id = self.register_entry(name, arity, function)?;
+        if let Some(entry) = self.table_mut().entries.get_mut(id.index()) {
+            entry.suspends = true;
+        }
+        Ok(id)
+    }
+
+    /// Whether calls of `id` suspend the run (see
+    /// [`HostFunctions::register_suspending`]).
+    pub fn suspends(&self, id: HostId) -> bool {
+        self.entry(id).is_some_and(|e| e.suspends)
+    }
+
     /// Register `function` under `name` with `arity`, checking both.
     fn register_entry(
         &mut self,
@@ -292,6 +357,7 @@ impl HostFunctions {
             id,
             function,
             cost: None,
+            suspends: false,
         });
         Ok(id)
     }
@@ -549,10 +615,14 @@ impl HostFunctions {
 /// 3. the call needs `1 + cost(args)` units: if fewer remain, the run is out
 ///    of fuel *before* the contraction, which is not counted (so a paused run
 ///    can resume with more fuel and make it);
-/// 4. otherwise the units are used, one `prim` contraction is counted (and
-///    the rest as host fuel), and the function is called.
+/// 4. a suspending function with no answer given yet suspends the run
+///    *before* the contraction, likewise: nothing used or counted;
+/// 5. otherwise the units are used, one `prim` contraction is counted (and
+///    the rest as host fuel), and the function is called (or its answer
+///    taken).
 pub(crate) enum HostStep<'t> {
-    /// Out of fuel before the contraction: nothing was used or counted.
+    /// Out of fuel, or suspended ([`Budget::suspended`] says which), before
+    /// the contraction: nothing was used or counted.
     OutOfFuel,
     /// The arguments are too large to convert: the memory limit.
     TooLarge,
@@ -566,15 +636,15 @@ pub(crate) enum HostStep<'t> {
 }
 
 /// Make the host-call contraction of `id` on `args` (already read by the
-/// machine, or why not) with `fuel_left` units of fuel. See [`HostStep`].
+/// machine, or why not) in the run of `budget`. See [`HostStep`].
 pub(crate) fn host_step<'t>(
     host: &HostFunctions,
     id: HostId,
-    context: Context<'_>,
+    budget: &mut Budget,
     args: Result<Vec<Datum<'t>>, crate::datum::NotData>,
-    fuel_left: u64,
 ) -> HostStep<'t> {
     use crate::datum::NotData;
+    let fuel_left = budget.fuel_left();
     if fuel_left == 0 {
         return HostStep::OutOfFuel;
     }
@@ -594,13 +664,35 @@ pub(crate) fn host_step<'t>(
             }
         }
     };
+    let context = budget.context();
     let fuel = host.fuel(id, context, &args);
     if fuel > fuel_left {
         return HostStep::OutOfFuel;
     }
-    HostStep::Made {
-        fuel,
-        result: host.call(id, context, &args),
+    if !host.suspends(id) {
+        return HostStep::Made {
+            fuel,
+            result: host.call(id, context, &args),
+        };
+    }
+    let call = HostCall {
+        name: host.name(id).unwrap_or_default().to_string(),
+        args: args.into_iter().map(Datum::into_owned).collect(),
+    };
+    match budget.answer.take() {
+        None => {
+            budget.suspended = Some(Box::new(call));
+            HostStep::OutOfFuel
+        }
+        Some(given) => {
+            let (_, answer) = *given;
+            let result = match &answer {
+                Ok(datum) => Ok(datum.clone()),
+                Err(message) => Err(host_error(format!("{}: {message}", call.name))),
+            };
+            budget.journal.push((call, answer));
+            HostStep::Made { fuel, result }
+        }
     }
 }
 

@@ -184,6 +184,7 @@ mod image;
 mod prim;
 mod program;
 mod scope;
+mod snapshot;
 mod span;
 mod subst;
 pub mod syntax;
@@ -208,6 +209,9 @@ pub use machines::{Machine, MachineKind, Paused};
 pub use prim::{HostId, Prim, STRING_UNIT};
 pub use program::{validate, validate_with, Program};
 pub use scope::{Built, Scope, UnboundName};
+#[cfg(feature = "snapshot")]
+pub use snapshot::FORMAT_VERSION;
+pub use snapshot::{fingerprint, Snapshot, SnapshotError};
 pub use span::{Backtrace, CallFrame, Location, Span, BACKTRACE_ENDS};
 pub use syntax::{
     parse, parse_bytes, parse_term, parse_with, print, print_limited, print_with, Printed,
@@ -217,8 +221,8 @@ pub use term::{Arena, Arm, Children, Node, Term};
 pub use value::Value;
 pub use vocabulary::Detached;
 pub use vocabulary::{
-    Cancel, Counts, Limits, Outcome, Report, Rule, RunContext, CANCEL_POLL_INTERVAL, DEFAULT_FUEL,
-    DEFAULT_MEMORY,
+    Answer, Cancel, Counts, HostCall, Limits, Outcome, Report, Rule, RunContext,
+    CANCEL_POLL_INTERVAL, DEFAULT_FUEL, DEFAULT_MEMORY,
 };
 
 /// The open-term toolkit, for tools built on the calculus rather than for

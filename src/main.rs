@@ -182,6 +182,9 @@ fn json_line(machine: &str, report: &Report) -> String {
             json_string(l.message())
         )),
         Outcome::Fault(f) => line.push_str(&format!(",\"message\":{}", json_string(f.message()))),
+        Outcome::Suspended(call) => {
+            line.push_str(&format!(",\"call\":{}", json_string(&call.to_string())))
+        }
     }
     let rules: Vec<String> = Rule::ALL
         .iter()
@@ -204,7 +207,9 @@ fn json_line(machine: &str, report: &Report) -> String {
 /// of fuel, a limit (a machine that does not say gives `None`).
 fn stop_location(report: &Report) -> Option<&Location> {
     match report.outcome {
-        Outcome::Error(_) | Outcome::OutOfFuel | Outcome::Limit(_) => report.location.as_ref(),
+        Outcome::Error(_) | Outcome::OutOfFuel | Outcome::Limit(_) | Outcome::Suspended(_) => {
+            report.location.as_ref()
+        }
         Outcome::Value(_) | Outcome::Fault(_) => None,
     }
 }
@@ -297,6 +302,7 @@ fn text_report(
         let (kind, message) = match &report.outcome {
             Outcome::Error(e) => (e.kind().name(), e.message().to_string()),
             Outcome::Limit(l) => (l.kind().name(), l.message().to_string()),
+            Outcome::Suspended(call) => ("suspended", format!("waits for an answer to {call}")),
             _ => (
                 "out_of_fuel",
                 format!("out of fuel after {} contractions", report.counts.total()),
@@ -326,6 +332,7 @@ fn text_report(
             l.message()
         )?,
         Outcome::Fault(f) => writeln!(stderr, "{machine}: {f}")?,
+        Outcome::Suspended(call) => writeln!(stderr, "{machine}: suspended at {call}")?,
     }
     writeln!(stderr, "{machine}: {}", report.counts)
 }
@@ -337,6 +344,8 @@ fn outcome_status(outcome: &Outcome) -> u8 {
         Outcome::OutOfFuel => status::OUT_OF_FUEL,
         Outcome::Limit(_) => status::LIMIT,
         Outcome::Fault(_) => status::FAULT,
+        // The command line has no way to answer a waiting call.
+        Outcome::Suspended(_) => status::ERROR,
     }
 }
 

@@ -544,11 +544,44 @@ pub enum Outcome {
     /// never the program's doing. No report with a fault agrees with any
     /// other (see [`crate::disagreement`]).
     Fault(Fault),
+    /// The run waits for the answer to a call of a suspending host function
+    /// (see [`crate::HostFunctions::register_suspending`]): nothing of the
+    /// call has been used or counted. A paused run continues with
+    /// [`Paused::resume_with`]; a run that cannot pause (any run of
+    /// [`Machine::run`]) ends here.
+    Suspended(HostCall),
 }
 
+/// A call of a suspending host function that a run waits on: the function's
+/// name and its arguments, as owned data.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{Datum, HostFunctions, Limits, MachineKind, Outcome, Program};
+/// let mut host = HostFunctions::new();
+/// host.register_suspending("shelf_count", 1).unwrap();
+/// let program = Program::parse_with("shelf_count \"aisle 3\" + 1", &host).unwrap();
+/// let report = MachineKind::fastest().unwrap().run(&program, &Limits::default());
+/// let Outcome::Suspended(call) = report.outcome else { panic!() };
+/// assert_eq!(call.name, "shelf_count");
+/// assert_eq!(call.args, [Datum::Str("aisle 3".into())]);
+/// ```
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct HostCall {
+    /// The host function's name.
+    pub name: String,
+    /// Its arguments.
+    pub args: Vec<crate::Datum<'static>>,
+}
+
+/// What a host answers a suspended call with: a datum, or the message of a
+/// `host_error` (see [`Paused::resume_with`]).
+pub type Answer = Result<crate::Datum<'static>, String>;
+
 impl Outcome {
-    /// `value`, `error`, `out_of_fuel`, `limit` or `fault`, as in the JSON
-    /// output.
+    /// `value`, `error`, `out_of_fuel`, `limit`, `fault` or `suspended`, as
+    /// in the JSON output.
     ///
     /// # Examples
     ///
@@ -567,6 +600,7 @@ impl Outcome {
             Outcome::OutOfFuel => "out_of_fuel",
             Outcome::Limit(_) => "limit",
             Outcome::Fault(_) => "fault",
+            Outcome::Suspended(_) => "suspended",
         }
     }
 
@@ -678,6 +712,44 @@ pub trait Paused {
     /// the end of the fuel; the report's counts are the run's totals so far.
     /// Once the run has ended, every resume reports the same end.
     fn resume(&mut self, more_fuel: u64) -> Report;
+
+    /// Answer the host call the run is suspended at ([`Outcome::Suspended`])
+    /// and resume it: `Ok(datum)` as if the function had returned the datum,
+    /// `Err(message)` as if it had failed with that message (a `host_error`).
+    /// Fuel for the call is paid now, as for any host call. The answer to a
+    /// run that is not suspended is dropped (and this is `resume(0)`).
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Datum, HostFunctions, Limits, MachineKind, Outcome, Program};
+    /// let mut host = HostFunctions::new();
+    /// host.register_suspending("approve", 1).unwrap();
+    /// let program = Program::parse_with("if approve \"pallet 12\" then 1 else 0", &host).unwrap();
+    /// for kind in MachineKind::enabled() {
+    ///     let Some(mut run) = kind.machine().start(&program, &Limits::default()) else {
+    ///         continue; // env cannot pause, so it cannot wait
+    ///     };
+    ///     assert_eq!(run.resume(0).outcome.name(), "suspended");
+    ///     let report = run.resume_with(Err("nobody on shift".into()));
+    ///     let Outcome::Error(e) = report.outcome else { panic!() };
+    ///     assert_eq!(e.message(), "approve: nobody on shift");
+    /// }
+    /// ```
+    fn resume_with(&mut self, answer: Answer) -> Report {
+        self.answer(answer);
+        self.resume(0)
+    }
+
+    /// Give the answer [`Paused::resume_with`] resumes with.
+    #[doc(hidden)]
+    fn answer(&mut self, answer: Answer);
+
+    /// The run as a [`crate::Snapshot`]: owned data that can be kept,
+    /// serialised (with the `snapshot` feature) and restored against the same
+    /// program, in this thread or another process. The run itself goes on
+    /// unchanged.
+    fn snapshot(&self) -> crate::Snapshot;
 
     /// The contractions made so far.
     fn counts(&self) -> Counts;

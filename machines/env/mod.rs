@@ -154,7 +154,7 @@ impl Machine for Env {
             Err(halt) => {
                 // A run stopped while compiling has no trail: no redex yet.
                 let trail = trail.unwrap_or_else(|| Trail::new(crate::image::NONE));
-                (halt.outcome(limits.memory), Some(program.image().location(&trail)))
+                (budget.outcome(halt), Some(program.image().location(&trail)))
             }
         };
         let counts: Counts = budget.counts;

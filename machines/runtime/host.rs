@@ -40,7 +40,7 @@ pub(crate) fn host_call<C: Code>(
     } else {
         Ok(Vec::new())
     };
-    let (value, new_tags) = match host_step(host, id, budget.context(), data, fuel_left) {
+    let (value, new_tags) = match host_step(host, id, budget, data) {
         HostStep::OutOfFuel => return Err(Halt::OutOfFuel),
         HostStep::TooLarge => return Err(Halt::Memory),
         HostStep::Made { fuel, result } => {

@@ -594,6 +594,6 @@ impl State {
 
     /// The outcome a halt stands for.
     pub(super) fn halted(&self, halt: Halt) -> Outcome {
-        halt.outcome(self.budget.memory)
+        self.budget.outcome(halt)
     }
 }

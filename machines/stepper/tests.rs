@@ -138,7 +138,7 @@ fn a_big_live_string_is_shared_not_copied() {
     let (len, at) = longest(&state);
     assert_eq!(len, 2 << 24);
     let collections = state.collections;
-    state.budget.add_fuel(1_000_000);
+    state.budget.resumed(1_000_000);
     assert!(matches!(
         state.reduce(image, &NO_HOST, &mut None),
         Err(Halt::OutOfFuel)
@@ -217,7 +217,7 @@ fn collections_anywhere_change_nothing() {
     // One contraction at a time, with a collection after each.
     let mut state = State::new(image, &Limits::default().with_fuel(0));
     let end = loop {
-        state.budget.add_fuel(1);
+        state.budget.resumed(1);
         match state.reduce(image, &host, &mut None) {
             Err(Halt::OutOfFuel) => state.collect(image).unwrap(),
             end => break end,

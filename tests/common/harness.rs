@@ -532,6 +532,7 @@ pub fn ending(report: &Report) -> String {
         Outcome::OutOfFuel => "out_of_fuel".to_string(),
         Outcome::Limit(l) => format!("limit {}", l.kind().name()),
         Outcome::Fault(f) => format!("fault {f}"),
+        Outcome::Suspended(call) => format!("suspended {call}"),
     }
 }
 

@@ -101,6 +101,7 @@ fn generated_programs_cover_every_outcome() {
             Outcome::OutOfFuel => diverging += 1,
             Outcome::Limit(_) => {}
             Outcome::Fault(f) => panic!("{f}"),
+            Outcome::Suspended(call) => panic!("no suspending host here: {call}"),
         }
         if report.counts.total() >= 100 {
             long += 1;
