@@ -3,7 +3,7 @@
 //! fail, and deep nesting. Generated as an owned tree, then built in an arena;
 //! free variables are folded into range, so every generated term is closed.
 
-use orrery::{Arena, Arm, Node, Prim, Term};
+use orrery::{Arena, Arm, HostId, Node, Prim, Term};
 use proptest::prelude::*;
 
 /// Constructor tags with their fixed arities.
@@ -38,6 +38,9 @@ pub enum Gen {
     Diverge,
     /// A chain of `depth` nested `1 + (…)` around the inner term.
     Deep(u16, Box<Gen>),
+    /// A call of host function `k` of the table given to [`build_with`]
+    /// (`hosted_program` only; without a table, the sum of its arguments).
+    Host(u8, Vec<Gen>),
 }
 
 fn leaf() -> impl Strategy<Value = Gen> {
@@ -49,6 +52,41 @@ fn leaf() -> impl Strategy<Value = Gen> {
         1 => (0u8..5).prop_map(|k| Gen::Con(k, vec![])),
         1 => Just(Gen::Diverge),
     ]
+}
+
+/// Closed programs of modest size that call host functions (build them with
+/// [`build_with`]): those of [`program`] with every fourth primitive (by its
+/// number) a host call instead, each odd integer `n` a call of host function
+/// 0 on `n`, and each string a call of host function 3 on it.
+pub fn hosted_program() -> impl Strategy<Value = Gen> {
+    program().prop_map(|g| with_hosts(&g))
+}
+
+/// `g` with each primitive `k` for `k` a multiple of four a host call.
+fn with_hosts(g: &Gen) -> Gen {
+    let b = |g: &Gen| Box::new(with_hosts(g));
+    let all = |gs: &[Gen]| gs.iter().map(with_hosts).collect::<Vec<_>>();
+    match g {
+        Gen::Prim(k, args) if k % 4 == 0 => Gen::Host(k / 4, all(args)),
+        Gen::Int(n) if n % 2 != 0 => Gen::Host(0, vec![Gen::Int(*n)]),
+        Gen::Str(k) => Gen::Host(3, vec![Gen::Str(*k)]),
+        Gen::Prim(k, args) => Gen::Prim(*k, all(args)),
+        Gen::Host(k, args) => Gen::Host(*k, all(args)),
+        Gen::Con(k, args) => Gen::Con(*k, all(args)),
+        Gen::Lam(t) => Gen::Lam(b(t)),
+        Gen::Rec(t) => Gen::Rec(b(t)),
+        Gen::App(f, a) => Gen::App(b(f), b(a)),
+        Gen::Let(a, t) => Gen::Let(b(a), b(t)),
+        Gen::If(c, t, e) => Gen::If(b(c), b(t), b(e)),
+        Gen::Case(s, arms, d) => Gen::Case(
+            b(s),
+            arms.iter().map(|(k, t)| (*k, with_hosts(t))).collect(),
+            d.as_ref().map(|d| b(d)),
+        ),
+        Gen::Loop(n, t) => Gen::Loop(*n, b(t)),
+        Gen::Deep(n, t) => Gen::Deep(*n, b(t)),
+        leaf => leaf.clone(),
+    }
 }
 
 /// Closed programs of modest size.
@@ -78,8 +116,23 @@ pub fn program() -> impl Strategy<Value = Gen> {
 
 /// Build `g` in `arena` under `depth` binders, folding variables into range.
 pub fn build<'a>(arena: &'a Arena, g: &Gen, depth: u32) -> &'a Term<'a> {
-    let sub = |g: &Gen, extra: u32| build(arena, g, depth + extra);
+    build_with(arena, g, depth, &[])
+}
+
+/// [`build`], with `hosts` the host functions of [`Gen::Host`] calls.
+pub fn build_with<'a>(arena: &'a Arena, g: &Gen, depth: u32, hosts: &[HostId]) -> &'a Term<'a> {
+    let sub = |g: &Gen, extra: u32| build_with(arena, g, depth + extra, hosts);
     match g {
+        Gen::Host(k, args) => match hosts.get(usize::from(*k) % hosts.len().max(1)) {
+            Some(&id) => {
+                let built = fill(arena, args, id.arity(), depth, hosts);
+                arena.prim(Prim::Host(id), &built)
+            }
+            None => {
+                let built = fill(arena, args, 2, depth, hosts);
+                arena.prim(Prim::Add, &built)
+            }
+        },
         Gen::Var(i) if depth == 0 => arena.int(i64::from(*i)),
         Gen::Var(i) => arena.var(i % depth),
         Gen::Lam(b) => arena.lam(sub(b, 1)),
@@ -92,12 +145,12 @@ pub fn build<'a>(arena: &'a Arena, g: &Gen, depth: u32) -> &'a Term<'a> {
         Gen::Str(k) => arena.string(STRINGS[usize::from(*k) % STRINGS.len()]),
         Gen::Prim(k, args) => {
             let op = Prim::ALL[usize::from(*k) % Prim::ALL.len()];
-            let built = fill(arena, args, op.arity(), depth);
+            let built = fill(arena, args, op.arity(), depth, hosts);
             arena.prim(op, &built)
         }
         Gen::Con(k, fields) => {
             let (tag, arity) = TAGS[usize::from(*k) % TAGS.len()];
-            let built = fill(arena, fields, arity, depth);
+            let built = fill(arena, fields, arity, depth, hosts);
             arena.con(tag, &built)
         }
         Gen::Case(s, arms, default) => {
@@ -140,10 +193,16 @@ pub fn build<'a>(arena: &'a Arena, g: &Gen, depth: u32) -> &'a Term<'a> {
 }
 
 /// `args` built and cut or padded (with `1`) to exactly `arity` terms.
-fn fill<'a>(arena: &'a Arena, args: &[Gen], arity: usize, depth: u32) -> Vec<&'a Term<'a>> {
+fn fill<'a>(
+    arena: &'a Arena,
+    args: &[Gen],
+    arity: usize,
+    depth: u32,
+    hosts: &[HostId],
+) -> Vec<&'a Term<'a>> {
     (0..arity)
         .map(|i| match args.get(i) {
-            Some(g) => build(arena, g, depth),
+            Some(g) => build_with(arena, g, depth, hosts),
             None => arena.int(1),
         })
         .collect()
