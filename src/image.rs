@@ -136,7 +136,8 @@ const LOOKUP_AFTER: u32 = 8;
 /// values of their own; its closure captures exactly its free variables.
 #[derive(Clone, Copy, Debug)]
 pub(crate) struct Func {
-    /// The head node.
+    /// The head node (read by the stepper).
+    #[cfg_attr(not(feature = "stepper"), allow(dead_code))]
     pub(crate) head: Id,
     /// The body under all the parameters.
     pub(crate) body: Id,
@@ -482,14 +483,17 @@ impl Image {
 
     /// Child `k` (0, 1 or 2, in evaluation order: a case's scrutinee, a
     /// λ's body) of node `from`, or [`NONE`] (always for an image without
-    /// spans or names).
+    /// spans or names). Used by the stepper.
+    #[cfg_attr(not(feature = "stepper"), allow(dead_code))]
     #[inline(always)]
     pub(crate) fn kid(&self, from: Id, k: u32) -> Id {
         let at = (from as usize).wrapping_mul(3).wrapping_add(k as usize);
         self.kids.get(at).copied().unwrap_or(NONE)
     }
 
-    /// The λ at place `pos` of function `func`'s chain, or [`NONE`].
+    /// The λ at place `pos` of function `func`'s chain, or [`NONE`]. Used by
+    /// the stepper.
+    #[cfg_attr(not(feature = "stepper"), allow(dead_code))]
     #[inline]
     pub(crate) fn lam_at(&self, func: u32, pos: u32) -> Id {
         self.funcs

@@ -221,7 +221,9 @@ impl Fnv {
 
 impl Snapshot {
     /// The snapshot of a run of `program` on `machine` whose budget is
-    /// `budget`.
+    /// `budget`. (A build whose only machine is env, which cannot pause,
+    /// takes no snapshots.)
+    #[allow(dead_code)]
     pub(crate) fn of(
         machine: &'static str,
         program: &Program,
@@ -279,6 +281,12 @@ impl Snapshot {
     /// order.
     pub fn answers(&self) -> &[(HostCall, Answer)] {
         &self.journal
+    }
+
+    /// An answer given to the pending call and not yet taken, with the call:
+    /// the run takes it when it resumes (see [`Paused::resume_with`]).
+    pub fn answer_given(&self) -> Option<&(HostCall, Answer)> {
+        self.given.as_ref()
     }
 
     /// The run again, exactly where it stood, on the machine it ran on:

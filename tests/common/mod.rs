@@ -4,6 +4,7 @@
 //! |---|---|---|
 //! | `harness` | the one harness: every machine of the table, compared with the reference stepper, every failure collected | every runner |
 //! | `fuzz_checks` | the properties the fuzz targets check (includes `harness` by path, for the fuzz crate) | `fuzz_replay`, `fuzz/` |
+//! | `fuzz_snapshot` | the property the `snapshot` fuzz target checks (with the `snapshot` feature) | `fuzz_replay`, `fuzz/` |
 //! | `corpus` | the formats of the corpus files: a program's header, a shapes file's blocks | `corpus`, `machines` |
 //! | `mixed` | a program of every construct with a costed host call, and its host table (also included by the stepper's unit tests) | `machines` |
 //! | `gen` | a proptest generator of closed programs, and all decompositions of a term | `agreement`, `determinism` |
@@ -14,6 +15,8 @@
 
 pub mod corpus;
 pub mod fuzz_checks;
+#[cfg(feature = "snapshot")]
+pub mod fuzz_snapshot;
 pub mod gen;
 
 mod mixed {

@@ -9,6 +9,8 @@
 use std::path::{Path, PathBuf};
 
 use crate::common::fuzz_checks::{check_agree, check_parse};
+#[cfg(feature = "snapshot")]
+use crate::common::fuzz_snapshot::{check_snapshot, SNAPSHOT_MUTATED, SNAPSHOT_UNSIGNED};
 
 /// Every saved fuzzer failure: target, file name under
 /// `tests/fuzz-crashes/<target>/`, and what caused it. The test below fails
@@ -18,8 +20,13 @@ const CRASHES: &[(&str, &str, &str)] = &[];
 /// A fuzz target's check: panics on a failure.
 type Check = fn(&[u8]);
 
-/// The fuzz targets and the check each runs.
-const TARGETS: [(&str, Check); 2] = [("parse", check_parse), ("agree", check_agree)];
+/// The fuzz targets and the check each runs (`snapshot` with the feature).
+const TARGETS: &[(&str, Check)] = &[
+    ("parse", check_parse),
+    ("agree", check_agree),
+    #[cfg(feature = "snapshot")]
+    ("snapshot", check_snapshot),
+];
 
 fn check_of(target: &str) -> Check {
     match TARGETS.iter().find(|(name, _)| *name == target) {
@@ -64,7 +71,7 @@ fn replay_folder(folder: &str) -> Vec<String> {
         .join("tests")
         .join(folder);
     let mut failures = Vec::new();
-    for (target, check) in TARGETS {
+    for &(target, check) in TARGETS {
         for file in files_in(&root.join(target)) {
             let input = std::fs::read(&file).expect("a readable input file");
             if let Err(why) = replay(check, input) {
@@ -78,7 +85,7 @@ fn replay_folder(folder: &str) -> Vec<String> {
 #[test]
 fn the_seed_corpus_passes_the_fuzz_checks() {
     let root = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/fuzz-corpus");
-    for (target, _) in TARGETS {
+    for &(target, _) in TARGETS {
         assert!(
             files_in(&root.join(target)).len() >= 5,
             "the {target} seed corpus has gone missing"
@@ -97,7 +104,7 @@ fn every_saved_fuzzer_failure_stays_fixed() {
         .collect();
     listed.sort();
     let mut present = Vec::new();
-    for (target, _) in TARGETS {
+    for &(target, _) in TARGETS {
         for file in files_in(&root.join(target)) {
             let name = file.file_name().expect("a file name").to_string_lossy();
             if name != ".gitkeep" {
@@ -156,6 +163,30 @@ fn pseudo_random_inputs_pass_the_fuzz_checks() {
             _ => (check_agree, stream.input(200, &[])),
         };
         if let Err(why) = replay(check, input.clone()) {
+            failures.push(format!("{input:?}: {why}"));
+        }
+    }
+    assert!(failures.is_empty(), "{}", failures.join("\n\n"));
+}
+
+/// The `snapshot` check on raw bytes, on bytes after a valid header, and on
+/// real snapshots mutated, signed again or left unsigned.
+#[cfg(feature = "snapshot")]
+#[test]
+fn pseudo_random_snapshots_pass_the_snapshot_check() {
+    let mut stream = Bytes(0x736E_6170_7368_6F74);
+    let mut header = b"orrsnap\0".to_vec();
+    header.extend_from_slice(&orrery::FORMAT_VERSION.to_le_bytes());
+    let mut failures = Vec::new();
+    for round in 0..1_500 {
+        let tail = stream.input(48, &[]);
+        let input = match round % 5 {
+            0 => tail,
+            1 => [header.as_slice(), &tail].concat(),
+            2 => [&[SNAPSHOT_UNSIGNED][..], &tail].concat(),
+            _ => [&[SNAPSHOT_MUTATED][..], &tail].concat(),
+        };
+        if let Err(why) = replay(check_snapshot, input.clone()) {
             failures.push(format!("{input:?}: {why}"));
         }
     }
