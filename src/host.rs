@@ -12,7 +12,9 @@
 
 use std::any::Any;
 use std::fmt;
+use std::future::Future;
 use std::panic::{catch_unwind, AssertUnwindSafe};
+use std::pin::Pin;
 use std::sync::Arc;
 
 use crate::budget::Budget;
@@ -20,7 +22,7 @@ use crate::datum::{Datum, FromDatum, IntoDatum};
 use crate::error::{ErrorKind, EvalError};
 use crate::prim::{HostId, Prim};
 use crate::term::{Arena, Term};
-use crate::vocabulary::HostCall;
+use crate::vocabulary::{Answer, HostCall};
 
 /// The signature every host function has once its arguments are data.
 type DataFn =
@@ -42,7 +44,18 @@ struct Entry {
     /// Whether a call waits for an answer from outside the run (see
     /// [`HostFunctions::register_suspending`]).
     suspends: bool,
+    /// The future that answers a waiting call, for [`crate::run_async`] (see
+    /// [`HostFunctions::register_async`]).
+    waits: Option<Arc<WaitFn>>,
 }
+
+/// A host function's answer still to come: what an asynchronous host
+/// function returns (see [`HostFunctions::register_async`]). Boxed and
+/// `Send`, so that a run awaiting it can move between threads.
+pub type HostFuture = Pin<Box<dyn Future<Output = Answer> + Send + 'static>>;
+
+/// The signature of an asynchronous host function.
+type WaitFn = dyn Fn(Vec<Datum<'static>>) -> HostFuture + Send + Sync;
 
 /// A table of host functions. Build it once, then give it to programs
 /// ([`crate::Program::parse_with`], [`crate::Program::with_host`],
@@ -318,6 +331,70 @@ impl HostFunctions {
         Ok(id)
     }
 
+    /// Register an asynchronous host function: `function` takes the
+    /// arguments as owned data and returns a future of the answer.
+    ///
+    /// A call of it suspends the run as a call of a
+    /// [`HostFunctions::register_suspending`] function does; [`crate::run_async`]
+    /// then awaits the future and resumes the run with its answer, as if the
+    /// function had returned it. Any other run ends (or pauses) at the call
+    /// with the `Suspended` outcome, and its caller may answer it. Fuel for
+    /// the call (see [`HostFunctions::set_cost`]) is paid when it is
+    /// answered. No async runtime is assumed: the futures are polled by
+    /// whatever executor polls `run_async`.
+    ///
+    /// # Errors
+    ///
+    /// [`HostDefinitionError`] for a bad or duplicate name, or too many
+    /// arguments.
+    ///
+    /// # Examples
+    ///
+    /// ```
+    /// use orrery::{Datum, HostFunctions};
+    /// let mut host = HostFunctions::new();
+    /// host.register_async("berth_free", 1, |args| {
+    ///     Box::pin(async move {
+    ///         let Some(Datum::Int(bay)) = args.first() else { return Err("a bay number".into()) };
+    ///         Ok(Datum::Bool(bay % 2 == 0))
+    ///     })
+    /// })
+    /// .unwrap();
+    /// assert!(host.suspends(host.id("berth_free").unwrap()));
+    /// ```
+    pub fn register_async<F>(
+        &mut self,
+        name: &str,
+        arity: usize,
+        function: F,
+    ) -> Result<HostId, HostDefinitionError>
+    where
+        F: Fn(Vec<Datum<'static>>) -> HostFuture + Send + Sync + 'static,
+    {
+        let id = self.register_suspending(name, arity)?;
+        if let Some(entry) = self.table_mut().entries.get_mut(id.index()) {
+            entry.waits = Some(Arc::new(function));
+        }
+        Ok(id)
+    }
+
+    /// The future answering `call`: its asynchronous host function's (see
+    /// [`HostFunctions::register_async`]), or, for a function with none, an
+    /// answer of `host_error` at once.
+    pub(crate) fn wait_on(&self, call: HostCall) -> HostFuture {
+        let waits = self
+            .id(&call.name)
+            .and_then(|id| self.entry(id))
+            .and_then(|e| e.waits.clone());
+        match waits {
+            Some(function) => function(call.args),
+            None => Box::pin(std::future::ready(Err(format!(
+                "no future answers {}: it was registered without one",
+                call.name
+            )))),
+        }
+    }
+
     /// Whether calls of `id` suspend the run (see
     /// [`HostFunctions::register_suspending`]).
     pub fn suspends(&self, id: HostId) -> bool {
@@ -358,6 +435,7 @@ impl HostFunctions {
             function,
             cost: None,
             suspends: false,
+            waits: None,
         });
         Ok(id)
     }

@@ -175,6 +175,7 @@
 #![forbid(unsafe_code)]
 
 mod agree;
+mod awaiting;
 mod budget;
 mod datum;
 mod equal;
@@ -199,11 +200,14 @@ mod vocabulary;
 pub mod machines;
 
 pub use agree::{disagreement, disagreement_within};
+pub use awaiting::drive_async;
 pub use datum::{
     extract, extract_within, Con, ConvertError, Datum, FromDatum, IntoDatum, MAX_DATUM_BYTES,
 };
 pub use error::{ErrorKind, EvalError, Fault, LimitError, LimitKind, ValidationError};
-pub use host::{HostDefinitionError, HostFn, HostFnWith, HostFunctions, MAX_HOST_ARITY};
+pub use host::{
+    HostDefinitionError, HostFn, HostFnWith, HostFunctions, HostFuture, MAX_HOST_ARITY,
+};
 pub use image::{MAX_ARMS, MAX_FIELDS, MAX_NODES};
 pub use machines::{Machine, MachineKind, Paused};
 pub use prim::{HostId, Prim, STRING_UNIT};

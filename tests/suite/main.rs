@@ -16,7 +16,7 @@
 //! | `syntax` | the text syntax (SEMANTICS §5) |
 //! | `toolkit` | shift, substitution and instantiation against Pierce's exercises |
 //! | `determinism` | one decomposition per closed non-value (the stepper's single steps) |
-//! | `suspend` | (with the `snapshot` feature) host calls that wait, and snapshots: generated programs with host calls interrupted at every contraction index and every suspension, sent through bytes and a fresh thread, end as uninterrupted runs; fingerprints, forks, refusals |
+//! | `suspend` | host calls that wait (and awaited, through `run_async`), and snapshots: generated programs with host calls interrupted at every contraction index and every suspension, sent through bytes (with the `snapshot` feature) and a fresh thread, end as uninterrupted runs; fingerprints, forks, refusals |
 //! | `fuzz_replay` | the fuzz targets' checks on the seed corpus, saved failures and a fixed stream |
 //! | `cli` | the command line (SEMANTICS §6), with the `cli` feature |
 
@@ -34,7 +34,6 @@ mod hostile;
 mod limit_shapes;
 mod locations;
 mod machines;
-#[cfg(feature = "snapshot")]
 mod suspend;
 mod syntax;
 mod toolkit;

@@ -42,15 +42,31 @@ fn oracle(name: &str, args: &[Datum<'_>]) -> Answer {
 
 const HOSTS: [(&str, usize); 4] = [("stock", 1), ("quote", 2), ("tick", 0), ("echo", 1)];
 
-/// The host table: the functions answering at once, or all suspending.
-fn table(suspending: bool) -> (HostFunctions, Vec<HostId>) {
+/// How the test's host functions answer.
+#[derive(Clone, Copy, PartialEq)]
+enum Answering {
+    /// At once, as ordinary host functions.
+    AtOnce,
+    /// Later: every call suspends the run.
+    Later,
+    /// Through a future (for `run_async`) that is pending once first.
+    Awaited,
+}
+
+/// The host table, its functions answering as `answering` says.
+fn table(answering: Answering) -> (HostFunctions, Vec<HostId>) {
     let mut host = HostFunctions::new();
     let mut ids = Vec::new();
     for (name, arity) in HOSTS {
-        let id = if suspending {
-            host.register_suspending(name, arity)
-        } else {
-            host.register_data(name, arity, move |args| oracle(name, args))
+        let id = match answering {
+            Answering::AtOnce => host.register_data(name, arity, move |args| oracle(name, args)),
+            Answering::Later => host.register_suspending(name, arity),
+            Answering::Awaited => host.register_async(name, arity, move |args| {
+                Box::pin(async move {
+                    Yield::default().await;
+                    oracle(name, &args)
+                })
+            }),
         };
         ids.push(id.expect("a valid host function"));
     }
@@ -58,8 +74,29 @@ fn table(suspending: bool) -> (HostFunctions, Vec<HostId>) {
     (host, ids)
 }
 
-fn program(g: &Gen, suspending: bool) -> Program {
-    let (host, ids) = table(suspending);
+/// A future that is pending once (waking itself), then ready: an answer
+/// that does not come at the first poll.
+#[derive(Default)]
+struct Yield(bool);
+
+impl std::future::Future for Yield {
+    type Output = ();
+
+    fn poll(
+        mut self: std::pin::Pin<&mut Self>,
+        cx: &mut std::task::Context<'_>,
+    ) -> std::task::Poll<()> {
+        if self.0 {
+            return std::task::Poll::Ready(());
+        }
+        self.0 = true;
+        cx.waker().wake_by_ref();
+        std::task::Poll::Pending
+    }
+}
+
+fn program(g: &Gen, answering: Answering) -> Program {
+    let (host, ids) = table(answering);
     let arena = Arena::new();
     Program::with_host(build_with(&arena, g, 0, &ids), &host).expect("a valid program")
 }
@@ -84,12 +121,12 @@ fn travel(
     program: &Program,
     tally: &Tally,
 ) -> Result<Box<dyn Paused>, String> {
-    let bytes = run.snapshot().to_bytes();
+    let (bytes, size) = to_bytes(&run.snapshot());
     tally.restores.fetch_add(1, Ordering::Relaxed);
-    tally.bytes.fetch_add(bytes.len() as u64, Ordering::Relaxed);
+    tally.bytes.fetch_add(size as u64, Ordering::Relaxed);
     let program = program.clone();
     let moved = std::thread::spawn(move || {
-        let snapshot = Snapshot::from_bytes(&bytes).map_err(|e| e.to_string())?;
+        let snapshot = from_bytes(bytes)?;
         let restored = snapshot
             .restore(&program, &limits())
             .map_err(|e| e.to_string())?;
@@ -98,6 +135,31 @@ fn travel(
     .join()
     .map_err(|_| "the restoring thread panicked".to_string())??;
     Ok(moved.attach())
+}
+
+/// A snapshot's bytes, and how many: its serialised form, with the
+/// `snapshot` feature.
+#[cfg(feature = "snapshot")]
+fn to_bytes(snapshot: &Snapshot) -> (Vec<u8>, usize) {
+    let bytes = snapshot.to_bytes();
+    let size = bytes.len();
+    (bytes, size)
+}
+
+#[cfg(feature = "snapshot")]
+fn from_bytes(bytes: Vec<u8>) -> Result<Snapshot, String> {
+    Snapshot::from_bytes(&bytes).map_err(|e| e.to_string())
+}
+
+/// Without the feature there is no format: the snapshot travels as itself.
+#[cfg(not(feature = "snapshot"))]
+fn to_bytes(snapshot: &Snapshot) -> (Snapshot, usize) {
+    (snapshot.clone(), 0)
+}
+
+#[cfg(not(feature = "snapshot"))]
+fn from_bytes(snapshot: Snapshot) -> Result<Snapshot, String> {
+    Ok(snapshot)
 }
 
 /// The run of `program` on `kind` paused after `index` units of fuel, and at
@@ -136,8 +198,8 @@ fn interrupted(
 
 /// Every contraction index of `g`'s run, on every machine that can pause.
 fn check(g: &Gen, tally: &Tally) -> Result<(), String> {
-    let at_once = program(g, false);
-    let waiting = program(g, true);
+    let at_once = program(g, Answering::AtOnce);
+    let waiting = program(g, Answering::Later);
     let reference = crate::common::harness::reference().ok_or("no reference machine")?;
     let whole = reference.machine().run(&at_once, &limits());
     tally.programs.fetch_add(1, Ordering::Relaxed);
@@ -214,6 +276,150 @@ fn interrupted_at_every_contraction_index_runs_end_as_uninterrupted_ones() {
     );
     // The generator must really exercise suspensions.
     assert!(calling >= 100, "only {calling} programs suspended");
+}
+
+/// `run_async` on generated programs whose host functions answer through
+/// futures (each pending once): every machine ends as the stepper's run
+/// with the functions answering at once — outcome, value, counts — and env,
+/// which cannot pause, stops at the first waiting call as the stepper does.
+#[test]
+fn awaited_runs_of_generated_programs_end_as_runs_answered_at_once() {
+    let Some(reference) = crate::common::harness::reference() else {
+        return;
+    };
+    let mut runner = TestRunner::deterministic();
+    let strategy = hosted_program();
+    let (mut awaited, mut failures) = (0, Vec::new());
+    for _ in 0..400 {
+        let g = strategy.new_tree(&mut runner).expect("a program").current();
+        let whole = reference
+            .machine()
+            .run(&program(&g, Answering::AtOnce), &limits());
+        let later = program(&g, Answering::Later);
+        let waiting = program(&g, Answering::Awaited);
+        let asks = reference.machine().run(&later, &limits()).outcome.name() == "suspended";
+        awaited += u64::from(asks);
+        for &kind in MachineKind::enabled() {
+            let report = pollster::block_on(kind.run_async(&waiting, &limits()));
+            let why = if kind.machine().start(&waiting, &limits()).is_some() {
+                differ(&whole, &report)
+            } else {
+                differ(&reference.machine().run(&later, &limits()), &report)
+            };
+            if let Some(why) = why {
+                failures.push(format!("{} on {g:?}: {why}", kind.name()));
+            }
+        }
+    }
+    assert!(failures.is_empty(), "{}", failures.join("\n"));
+    assert!(
+        awaited >= 40,
+        "only {awaited} programs awaited a host function"
+    );
+}
+
+/// A one-shot answer another thread gives: the future is pending until then.
+#[derive(Default)]
+struct Slot {
+    answer: Option<Answer>,
+    waker: Option<std::task::Waker>,
+}
+
+struct Later(std::sync::Arc<std::sync::Mutex<Slot>>);
+
+impl std::future::Future for Later {
+    type Output = Answer;
+
+    fn poll(
+        self: std::pin::Pin<&mut Self>,
+        cx: &mut std::task::Context<'_>,
+    ) -> std::task::Poll<Answer> {
+        let mut slot = self.0.lock().expect("an unpoisoned slot");
+        match slot.answer.take() {
+            Some(answer) => std::task::Poll::Ready(answer),
+            None => {
+                slot.waker = Some(cx.waker().clone());
+                std::task::Poll::Pending
+            }
+        }
+    }
+}
+
+/// An awaiting run is `Send`: it is polled on one thread while its host
+/// function's answer comes from another, and its fuel for the call is paid
+/// as the answer is given.
+#[test]
+fn an_awaiting_run_moves_between_threads_and_pays_for_its_calls() {
+    let mut host = HostFunctions::new();
+    let quote = host
+        .register_async("berth_quote", 1, |args| {
+            let slot = std::sync::Arc::new(std::sync::Mutex::new(Slot::default()));
+            let giver = slot.clone();
+            let tonnes = match args.first() {
+                Some(Datum::Int(n)) => *n,
+                _ => 0,
+            };
+            std::thread::spawn(move || {
+                let mut slot = giver.lock().expect("an unpoisoned slot");
+                slot.answer = Some(Ok(Datum::Int(tonnes * 11)));
+                if let Some(waker) = slot.waker.take() {
+                    waker.wake();
+                }
+            });
+            Box::pin(Later(slot))
+        })
+        .expect("valid");
+    host.set_cost(quote, |_| 4);
+    let source = "let rec sum n = if n == 0 then 0 else berth_quote n + sum (n - 1) in sum 5";
+    let program = Program::parse_with(source, &host).expect("parses");
+    let mut at_once = HostFunctions::new();
+    let quote = at_once
+        .register("berth_quote", |n: i64| Ok::<_, String>(n * 11))
+        .expect("valid");
+    at_once.set_cost(quote, |_| 4);
+    let plain = Program::parse_with(source, &at_once).expect("parses");
+    for &kind in MachineKind::enabled() {
+        if kind.machine().start(&program, &Limits::default()).is_none() {
+            continue;
+        }
+        let (program, limits) = (program.clone(), Limits::default());
+        let moving = async move { kind.run_async(&program, &limits).await };
+        let report = std::thread::spawn(move || pollster::block_on(moving))
+            .join()
+            .expect("the polling thread ends");
+        assert_eq!(report.outcome.value().and_then(|v| v.as_int()), Some(165));
+        assert_eq!(
+            report,
+            kind.run(&plain, &Limits::default()),
+            "{}",
+            kind.name()
+        );
+    }
+}
+
+/// `run_async` cannot answer a suspending function that has no future: the
+/// call gets a `host_error`; `drive_async` lets the caller answer it.
+#[test]
+fn a_suspending_function_without_a_future_is_answered_by_the_caller() {
+    let Some(kind) = pausing() else { return };
+    let (program, _) = rental();
+    let report = pollster::block_on(kind.run_async(&program, &Limits::default()));
+    let Outcome::Error(e) = &report.outcome else {
+        panic!("{report:?}")
+    };
+    assert!(e.message().contains("no future answers approve"), "{e}");
+    let run = kind
+        .machine()
+        .start(&program, &Limits::default())
+        .expect("pauses");
+    let mut asked = Vec::new();
+    let (report, run) = pollster::block_on(orrery::drive_async(run.detach(), |call| {
+        asked.push(call.to_string());
+        std::future::ready(Ok(Datum::Bool(true)))
+    }));
+    assert_eq!(asked, ["approve(\"crate rental\", 120)"]);
+    assert_eq!(report.outcome.value().and_then(|v| v.as_int()), Some(125));
+    assert_eq!(run.attach().resume(0), report);
 }
 
 /// A machine that can pause, if the build has one.
@@ -353,8 +559,7 @@ fn a_call_suspends_only_with_the_fuel_for_it_and_its_answer_is_replayed() {
     );
     let snapshot = run.snapshot();
     assert_eq!(snapshot.answers().len(), 1);
-    let bytes = snapshot.to_bytes();
-    let restored = Snapshot::from_bytes(&bytes).expect("reads");
+    let restored = from_bytes(to_bytes(&snapshot).0).expect("reads");
     let mut restored = restored
         .restore(&program, &Limits::default())
         .expect("restores");
