@@ -183,8 +183,11 @@ pub(crate) struct Budget {
     context: Option<RunContext>,
     /// Units of fuel-free work until the next look at the cancellation flag.
     until_poll: i64,
-    /// The memory limit, in bytes.
+    /// Bytes the run's own data may take: the memory limit, less what its
+    /// journal of answers holds (see [`crate::Snapshot`]).
     pub(crate) memory: usize,
+    /// The memory limit, in bytes (for the limit's report).
+    pub(crate) limit: usize,
     /// The most bytes held at any check.
     pub(crate) peak: usize,
     /// The suspending host call the run stopped at (its machine paused just
@@ -210,6 +213,7 @@ impl Budget {
             context: limits.context.clone(),
             until_poll: 0,
             memory: limits.memory,
+            limit: limits.memory,
             peak: 0,
             suspended: None,
             answer: None,
@@ -229,7 +233,7 @@ impl Budget {
 
     /// The outcome `halt` stands for in this run.
     pub(crate) fn outcome(&self, halt: Halt) -> Outcome {
-        halt.ended(self.memory)
+        halt.ended(self.limit)
             .map_or_else(|| self.paused(), |e| e.outcome())
     }
 

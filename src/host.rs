@@ -753,6 +753,21 @@ pub(crate) fn host_step<'t>(
             result: host.call(id, context, &args),
         };
     }
+    wait_step(host, id, budget, args, fuel)
+}
+
+/// The host-call contraction of a suspending function: it suspends the run
+/// (which then pauses as out of fuel), or takes the answer given to it. Kept
+/// out of line, so that runs that never wait do not carry it in their loop.
+#[cold]
+#[inline(never)]
+fn wait_step<'t>(
+    host: &HostFunctions,
+    id: HostId,
+    budget: &mut Budget,
+    args: Vec<Datum<'t>>,
+    fuel: u64,
+) -> HostStep<'t> {
     let call = HostCall {
         name: host.name(id).unwrap_or_default().to_string(),
         args: args.into_iter().map(Datum::into_owned).collect(),
@@ -764,6 +779,13 @@ pub(crate) fn host_step<'t>(
         }
         Some(given) => {
             let (_, answer) = *given;
+            // The journal keeps the call and its answer for the run's
+            // snapshots: they are held within the memory limit too.
+            let recorded = crate::snapshot::entry_bytes(&call, &answer);
+            if recorded > budget.memory {
+                return HostStep::TooLarge;
+            }
+            budget.memory -= recorded;
             let result = match &answer {
                 Ok(datum) => Ok(datum.clone()),
                 Err(message) => Err(host_error(format!("{}: {message}", call.name))),

@@ -391,18 +391,31 @@ impl Snapshot {
 
     /// Bytes the recorded calls and answers take, about as a run holds them.
     fn data_bytes(&self) -> usize {
-        let call = |c: &HostCall| c.name.len() + c.args.iter().map(datum_bytes).sum::<usize>();
-        let answer = |a: &Answer| match a {
-            Ok(d) => datum_bytes(d),
-            Err(m) => m.len(),
-        };
-        let pending = self.pending().map_or(0, call);
-        let given = self.given.as_ref().map_or(0, |(c, a)| call(c) + answer(a));
+        let pending = self.pending().map_or(0, call_bytes);
+        let given = self.given.as_ref().map_or(0, |(c, a)| entry_bytes(c, a));
         self.journal
             .iter()
-            .map(|(c, a)| call(c) + answer(a))
-            .fold(pending + given, usize::saturating_add)
+            .map(|(c, a)| entry_bytes(c, a))
+            .fold(pending.saturating_add(given), usize::saturating_add)
     }
+}
+
+/// Bytes a recorded call and its answer take in a run's journal: what the
+/// run's memory limit is charged when the answer is taken.
+pub(crate) fn entry_bytes(call: &HostCall, answer: &Answer) -> usize {
+    let answer = match answer {
+        Ok(d) => datum_bytes(d),
+        Err(m) => m.len(),
+    };
+    call_bytes(call).saturating_add(answer)
+}
+
+/// Bytes of a call: its name and its arguments.
+fn call_bytes(call: &HostCall) -> usize {
+    call.args
+        .iter()
+        .map(datum_bytes)
+        .fold(call.name.len(), usize::saturating_add)
 }
 
 /// Bytes of a datum, as [`std::mem::size_of`] its nodes and its text.

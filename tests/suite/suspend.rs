@@ -567,3 +567,38 @@ fn a_call_suspends_only_with_the_fuel_for_it_and_its_answer_is_replayed() {
     assert_eq!(end.outcome.value().and_then(|v| v.as_int()), Some(125));
     assert_eq!(end, run.resume(10));
 }
+
+/// A run's journal of answers (what its snapshots record) is held within its
+/// memory limit: a loop that asks without end stops at the limit, and the
+/// same loop asking a few times ends with its value.
+#[test]
+fn the_answers_a_run_records_count_against_its_memory_limit() {
+    let Some(kind) = pausing() else { return };
+    let mut host = HostFunctions::new();
+    host.register_suspending("parcel_weight", 1).expect("valid");
+    let answer_all = |asks: i64| {
+        let source = format!(
+            "let rec weigh n total = if n == 0 then total else weigh (n - 1) (total + parcel_weight n) in weigh {asks} 0"
+        );
+        let program = Program::parse_with(&source, &host).expect("parses");
+        let limits = Limits::default().with_fuel(u64::MAX).with_memory(256 << 10);
+        let run = kind.machine().start(&program, &limits).expect("pauses");
+        let (report, run) = pollster::block_on(orrery::drive_async(run.detach(), |call| {
+            std::future::ready(Ok(call.args[0].clone()))
+        }));
+        (report, run.attach().snapshot().answers().len())
+    };
+    let (few, recorded) = answer_all(100);
+    assert_eq!(few.outcome.value().and_then(|v| v.as_int()), Some(5050));
+    assert_eq!(recorded, 100);
+    let (endless, recorded) = answer_all(10_000_000);
+    let Outcome::Limit(limit) = &endless.outcome else {
+        panic!("{endless:?}")
+    };
+    assert_eq!(limit.kind(), orrery::LimitKind::Memory, "{limit}");
+    // About 256 KiB of answers, each a few dozen bytes: thousands, not millions.
+    assert!(
+        (1_000..20_000).contains(&recorded),
+        "{recorded} answers recorded"
+    );
+}
