@@ -44,7 +44,7 @@ struct Entry {
     /// Whether a call waits for an answer from outside the run (see
     /// [`HostFunctions::register_suspending`]).
     suspends: bool,
-    /// The future that answers a waiting call, for [`crate::run_async`] (see
+    /// The future that answers a waiting call, for [`crate::MachineKind::run_async`] (see
     /// [`HostFunctions::register_async`]).
     waits: Option<Arc<WaitFn>>,
 }
@@ -335,7 +335,7 @@ impl HostFunctions {
     /// arguments as owned data and returns a future of the answer.
     ///
     /// A call of it suspends the run as a call of a
-    /// [`HostFunctions::register_suspending`] function does; [`crate::run_async`]
+    /// [`HostFunctions::register_suspending`] function does; [`crate::MachineKind::run_async`]
     /// then awaits the future and resumes the run with its answer, as if the
     /// function had returned it. Any other run ends (or pauses) at the call
     /// with the `Suspended` outcome, and its caller may answer it. Fuel for

@@ -441,9 +441,8 @@ fn rental() -> (Program, HostFunctions) {
     (Program::parse_with(source, &host).expect("parses"), host)
 }
 
-#[test]
-fn a_fork_and_its_original_end_alike_and_apart() {
-    let Some(kind) = pausing() else { return };
+/// The rental rule's run on `kind`, waiting on its question, and the call.
+fn rental_asking(kind: MachineKind) -> (Program, Box<dyn Paused>, HostCall) {
     let (program, _) = rental();
     let mut run = kind
         .machine()
@@ -452,6 +451,13 @@ fn a_fork_and_its_original_end_alike_and_apart() {
     let Outcome::Suspended(call) = run.resume(0).outcome else {
         panic!("no question")
     };
+    (program, run, call)
+}
+
+#[test]
+fn a_fork_and_its_original_end_alike_and_apart() {
+    let Some(kind) = pausing() else { return };
+    let (program, mut run, call) = rental_asking(kind);
     assert_eq!(
         call.args,
         [Datum::Str("crate rental".into()), Datum::Int(120)]
@@ -476,12 +482,7 @@ fn a_fork_and_its_original_end_alike_and_apart() {
 #[test]
 fn a_snapshot_is_refused_by_another_program_or_table() {
     let Some(kind) = pausing() else { return };
-    let (program, _) = rental();
-    let mut run = kind
-        .machine()
-        .start(&program, &Limits::default())
-        .expect("pauses");
-    run.resume(0);
+    let (program, run, _) = rental_asking(kind);
     let snapshot = run.snapshot();
     let other = Program::parse_with(
         "let cost = rate 4 in if approve \"crate rental\" cost then cost + 5 else 0",
