@@ -129,6 +129,9 @@ pub struct SyntaxError {
     pub column: u32,
     /// What is wrong.
     pub message: String,
+    /// When the error is unbound names: every one, once, in the order of
+    /// first use, with the line and column of that use. Empty otherwise.
+    pub unbound: Vec<(String, u32, u32)>,
 }
 
 impl SyntaxError {
@@ -353,6 +356,8 @@ pub(crate) struct Failure {
     pub(crate) offset: usize,
     /// The message.
     pub(crate) message: String,
+    /// The unbound names it is about, each with the offset of its first use.
+    pub(crate) unbound: Vec<(String, usize)>,
 }
 
 impl Failure {
@@ -360,15 +365,25 @@ impl Failure {
         Failure {
             offset,
             message: message.into(),
+            unbound: Vec::new(),
         }
     }
 
     fn locate(self, source: &[u8]) -> SyntaxError {
         let (line, column) = line_column(source, self.offset);
+        let unbound = self
+            .unbound
+            .into_iter()
+            .map(|(name, at)| {
+                let (line, column) = line_column(source, at);
+                (name, line, column)
+            })
+            .collect();
         SyntaxError {
             line,
             column,
             message: self.message,
+            unbound,
         }
     }
 }
@@ -570,6 +585,7 @@ fn invalid_parse(error: crate::ValidationError) -> SyntaxError {
         line: 1,
         column: 1,
         message: format!("internal error: the parsed term is invalid: {error}"),
+        unbound: Vec::new(),
     }
 }
 
@@ -693,7 +709,21 @@ pub fn print_with(term: &Term<'_>, host: &HostFunctions) -> String {
     print_limited_with(term, PRINT_LIMIT, host).text
 }
 
-fn print_limited_with(term: &Term<'_>, max_bytes: usize, host: &HostFunctions) -> Printed {
+/// [`print_limited`] for a term that calls the host functions of `host`,
+/// written by name as [`print_with`] writes them.
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{parse_with, print_limited_with, Arena, HostFunctions};
+/// let mut host = HostFunctions::new();
+/// host.register("shade", |hour: i64| Ok::<_, String>(hour > 11)).unwrap();
+/// let arena = Arena::new();
+/// let program = parse_with(&arena, "\\h. shade h", &host).unwrap();
+/// let printed = print_limited_with(program.to_term(&arena), 8, &host);
+/// assert!(printed.truncated && printed.text.starts_with("\\a. shade"));
+/// ```
+pub fn print_limited_with(term: &Term<'_>, max_bytes: usize, host: &HostFunctions) -> Printed {
     let functions = Functions::with_host(host);
     let mut text = printer::Printer::new(&functions, max_bytes).run(term);
     let truncated = text.len() > max_bytes;

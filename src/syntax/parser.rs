@@ -358,7 +358,14 @@ impl<'s, 'a> Parser<'s, 'a> {
         match self.unbound.first() {
             Some(&(_, at)) => match parsed {
                 Err(failure) if failure.offset < at => Err(failure),
-                _ => Err(Failure::new(at, self.unbound_message())),
+                _ => Err(Failure {
+                    unbound: self
+                        .unbound
+                        .iter()
+                        .map(|&(name, at)| (name.to_string(), at))
+                        .collect(),
+                    ..Failure::new(at, self.unbound_message())
+                }),
             },
             _ => parsed,
         }

@@ -41,7 +41,9 @@ fn the_bundled_example_agrees_on_every_machine() {
     assert_eq!(lines.len(), orrery::MachineKind::enabled().len());
     for line in &lines {
         assert!(
-            line.contains(r#""outcome":"value","value":"\"due: 101.70\"","steps":"#),
+            line.contains(
+                r#""outcome":"value","value":"\"due: 101.70\"","data":"due: 101.70","steps":"#
+            ),
             "{line}"
         );
         // Everything after the machine name is identical across machines.
@@ -60,7 +62,7 @@ fn json_lines_have_the_documented_shape() {
         assert_eq!(
             stdout(&out).trim_end(),
             format!(
-                r#"{{"machine":"{name}","outcome":"value","value":"42","steps":2,"fuel":2,"rules":{{"beta":0,"beta_rec":0,"let":1,"if":0,"prim":1,"case":0}}}}"#
+                r#"{{"machine":"{name}","outcome":"value","value":"42","data":42,"steps":2,"fuel":2,"rules":{{"beta":0,"beta_rec":0,"let":1,"if":0,"prim":1,"case":0}}}}"#
             )
         );
     }
