@@ -720,7 +720,7 @@ pub fn print_with(term: &Term<'_>, host: &HostFunctions) -> String {
 /// host.register("shade", |hour: i64| Ok::<_, String>(hour > 11)).unwrap();
 /// let arena = Arena::new();
 /// let program = parse_with(&arena, "\\h. shade h", &host).unwrap();
-/// let printed = print_limited_with(program.to_term(&arena), 8, &host);
+/// let printed = print_limited_with(program.to_term(&arena), 9, &host);
 /// assert!(printed.truncated && printed.text.starts_with("\\a. shade"));
 /// ```
 pub fn print_limited_with(term: &Term<'_>, max_bytes: usize, host: &HostFunctions) -> Printed {
