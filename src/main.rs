@@ -15,7 +15,15 @@ use cli::{status, Io};
 
 fn main() -> ExitCode {
     let mut io = Io::new();
-    let code = match Cli::try_parse() {
+    let args: Vec<String> = std::env::args().collect();
+    let parsed = match repeated_flag(&args) {
+        Some(flag) => Err(Cli::command().error(
+            clap::error::ErrorKind::ArgumentConflict,
+            format!("the argument '{flag}' cannot be used multiple times"),
+        )),
+        None => Cli::try_parse_from(&args),
+    };
+    let code = match parsed {
         Ok(cli) => match &cli.command {
             Command::Run(args) => cli::run::run(args, &mut io),
             Command::Check(args) => cli::run::check(args, &mut io),
@@ -30,6 +38,40 @@ fn main() -> ExitCode {
     };
     let _ = io.stdout.flush();
     ExitCode::from(code)
+}
+
+/// The flags that take no value, given more than once: clap refuses a
+/// repeated option with a value but lets a repeated flag pass, and the
+/// command line refuses both.
+fn repeated_flag(args: &[String]) -> Option<&'static str> {
+    const FLAGS: [&str; 3] = ["--json", "--trace", "--stats"];
+    const TAKE_VALUES: [&str; 7] = [
+        "-e",
+        "--eval",
+        "--fuel",
+        "--memory",
+        "--machine",
+        "--host",
+        "--max-source",
+    ];
+    let mut seen = [0usize; FLAGS.len()];
+    let mut words = args.iter().skip(1);
+    while let Some(word) = words.next() {
+        if word == "--" {
+            break;
+        }
+        if TAKE_VALUES.contains(&word.as_str()) {
+            words.next();
+            continue;
+        }
+        if let Some(i) = FLAGS.iter().position(|f| f == word) {
+            seen[i] += 1;
+            if seen[i] > 1 {
+                return Some(FLAGS[i]);
+            }
+        }
+    }
+    None
 }
 
 /// A usage error is one line and a hint (as JSON under `--json`); help and

@@ -13,6 +13,12 @@ use orrery::{Datum, Location, Outcome, Report, Rule, SyntaxError};
 /// A value's data is given only up to this many bytes (as read back).
 const DATA_LIMIT: usize = 1 << 20;
 
+/// A value's data is given only when its constructors nest at most this
+/// deep: each level is two levels of JSON (an object and its `fields`
+/// list), and JSON readers commonly refuse more than 128 (serde_json's
+/// default), so that every line stays readable by them.
+pub const DATA_DEPTH: usize = 60;
+
 /// One machine's report.
 #[derive(Serialize)]
 struct Line<'a> {
@@ -214,28 +220,29 @@ pub fn plain_error(
 }
 
 /// A datum as JSON text: integers, booleans and strings as scalars, a
-/// constructor as `{"tag":…,"fields":[…]}`. Written without recursion, so a
-/// list a million long is no danger to the stack.
+/// constructor as `{"tag":…,"fields":[…]}`; `None` past [`DATA_DEPTH`].
+/// Written without recursion.
 pub fn data(datum: &Datum<'_>) -> Option<Box<RawValue>> {
     enum Task<'d, 't> {
-        Datum(&'d Datum<'t>),
+        Datum(&'d Datum<'t>, usize),
         Text(&'static str),
     }
     let mut text = String::new();
-    let mut tasks = vec![Task::Datum(datum)];
+    let mut tasks = vec![Task::Datum(datum, 0)];
     while let Some(task) = tasks.pop() {
         match task {
+            Task::Datum(_, depth) if depth > DATA_DEPTH => return None,
             Task::Text(t) => text.push_str(t),
-            Task::Datum(Datum::Int(n)) => text.push_str(&n.to_string()),
-            Task::Datum(Datum::Bool(b)) => text.push_str(if *b { "true" } else { "false" }),
-            Task::Datum(Datum::Str(s)) => text.push_str(&quoted(s)?),
-            Task::Datum(Datum::Con(c)) => {
+            Task::Datum(Datum::Int(n), _) => text.push_str(&n.to_string()),
+            Task::Datum(Datum::Bool(b), _) => text.push_str(if *b { "true" } else { "false" }),
+            Task::Datum(Datum::Str(s), _) => text.push_str(&quoted(s)?),
+            Task::Datum(Datum::Con(c), depth) => {
                 text.push_str("{\"tag\":");
                 text.push_str(&quoted(c.tag())?);
                 text.push_str(",\"fields\":[");
                 tasks.push(Task::Text("]}"));
                 for (i, field) in c.fields().iter().enumerate().rev() {
-                    tasks.push(Task::Datum(field));
+                    tasks.push(Task::Datum(field, depth + 1));
                     if i > 0 {
                         tasks.push(Task::Text(","));
                     }
