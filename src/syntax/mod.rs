@@ -371,13 +371,12 @@ impl Failure {
 
     fn locate(self, source: &[u8]) -> SyntaxError {
         let (line, column) = line_column(source, self.offset);
+        let places = line_columns(source, self.unbound.iter().map(|&(_, at)| at));
         let unbound = self
             .unbound
             .into_iter()
-            .map(|(name, at)| {
-                let (line, column) = line_column(source, at);
-                (name, line, column)
-            })
+            .zip(places)
+            .map(|((name, _), (line, column))| (name, line, column))
             .collect();
         SyntaxError {
             line,
@@ -402,6 +401,34 @@ pub(crate) fn line_column(source: &[u8], offset: usize) -> (u32, u32) {
     let width: u64 = prefix.chars().map(|c| u64::from(char_width(c))).sum();
     let clamp = |n: u64| u32::try_from(n.saturating_add(1)).unwrap_or(u32::MAX);
     (clamp(newlines), clamp(width))
+}
+
+/// [`line_column`] of many offsets in one pass over the source (so a
+/// million unbound names in a long line cost one reading of it): each
+/// offset's place, in the order given. Offsets are visited in increasing
+/// order; one smaller than the one before starts the count again.
+pub(crate) fn line_columns(source: &[u8], offsets: impl Iterator<Item = usize>) -> Vec<(u32, u32)> {
+    let clamp = |n: u64| u32::try_from(n.saturating_add(1)).unwrap_or(u32::MAX);
+    let (mut at, mut newlines, mut width) = (0usize, 0u64, 0u64);
+    let mut places = Vec::new();
+    for offset in offsets {
+        let offset = offset.min(source.len());
+        if offset < at {
+            (at, newlines, width) = (0, 0, 0);
+        }
+        let segment = String::from_utf8_lossy(&source[at..offset]);
+        for c in segment.chars() {
+            if c == '\n' {
+                newlines += 1;
+                width = 0;
+            } else {
+                width += u64::from(char_width(c));
+            }
+        }
+        at = offset;
+        places.push((clamp(newlines), clamp(width)));
+    }
+    places
 }
 
 /// `LINE:COL` of a byte offset, for messages that point at a second place.
@@ -736,4 +763,25 @@ pub fn print_limited_with(term: &Term<'_>, max_bytes: usize, host: &HostFunction
         let _ = write!(text, "{TRUNCATED}");
     }
     Printed { text, truncated }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::{line_column, line_columns};
+
+    #[test]
+    fn places_in_one_pass_are_the_places_one_by_one() {
+        let source = "ab\n日本 x\n\n  🙂 yz\r\nend".as_bytes();
+        let offsets: Vec<usize> = (0..=source.len())
+            .filter(|&i| std::str::from_utf8(&source[..i]).is_ok())
+            .collect();
+        let one_by_one: Vec<(u32, u32)> = offsets.iter().map(|&i| line_column(source, i)).collect();
+        assert_eq!(line_columns(source, offsets.iter().copied()), one_by_one);
+        // Out of order, the count starts again.
+        let back = [offsets[9], offsets[2]];
+        assert_eq!(
+            line_columns(source, back.iter().copied()),
+            [line_column(source, back[0]), line_column(source, back[1])]
+        );
+    }
 }
