@@ -1649,3 +1649,24 @@ fn an_excerpt_underlines_a_span_to_the_end_of_its_line() {
         "tab.orr:1:12: unbound name `oops`\n\t\"\u{FFFD}[0m\"\t++ oops\n\t      \t   ^\n"
     );
 }
+
+/// Every unbound name is reported with its place, even fifty thousand of
+/// them on one line (placed in one pass over the source, not one each).
+#[test]
+fn every_unbound_name_has_its_place_on_a_long_line() {
+    let names: Vec<String> = (0..50_000).map(|i| format!("crate{i}")).collect();
+    let source = format!("1 + {}", names.join(" + "));
+    let error = error(&source);
+    assert_eq!(error.unbound.len(), names.len());
+    let (first, last) = (&error.unbound[0], &error.unbound[names.len() - 1]);
+    assert_eq!(first, &("crate0".to_string(), 1, 5));
+    let last_col = source.rfind("crate49999").expect("the last name") as u32 + 1;
+    assert_eq!(last, &("crate49999".to_string(), 1, last_col));
+    assert!(
+        error
+            .message
+            .starts_with("50000 unbound names: `crate0` (1:5)"),
+        "{}",
+        &error.message[..80]
+    );
+}
