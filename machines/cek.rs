@@ -654,7 +654,7 @@ impl CekRun {
                 }
                 Err(halt) => {
                     let located = !matches!(halt, Halt::Fault(_));
-                    halt.ended(self.budget.limit).map(|ended| {
+                    halt.ended(self.budget.limit()).map(|ended| {
                         let location = located.then(|| self.location());
                         self.clear();
                         End::Ended(ended, location)
@@ -749,7 +749,7 @@ impl CekRun {
         match read {
             Ok(value) => End::Value(value),
             // Every contraction was made: no redex, and no call pending.
-            Err(halt) => match halt.ended(self.budget.limit) {
+            Err(halt) => match halt.ended(self.budget.limit()) {
                 Some(ended @ Ended::Fault(_)) => End::Ended(ended, None),
                 Some(ended) => End::Ended(ended, Some(Location::default())),
                 None => End::Ended(Ended::Fault(Fault::new("read-back asked for fuel")), None),

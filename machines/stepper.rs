@@ -1619,7 +1619,7 @@ impl State {
         self.done = Vec::new();
         // Out of fuel is no end: a paused run resumes from it.
         End::Ended(
-            halt.ended(self.budget.limit)
+            halt.ended(self.budget.limit())
                 .unwrap_or_else(|| Ended::Fault(Fault::new("the stepper ended a run out of fuel"))),
         )
     }

@@ -184,10 +184,8 @@ pub(crate) struct Budget {
     /// Units of fuel-free work until the next look at the cancellation flag.
     until_poll: i64,
     /// Bytes the run's own data may take: the memory limit, less what its
-    /// journal of answers holds (see [`crate::Snapshot`]).
+    /// journal of answers holds (see [`crate::Snapshot`] and [`Budget::limit`]).
     pub(crate) memory: usize,
-    /// The memory limit, in bytes (for the limit's report).
-    pub(crate) limit: usize,
     /// The most bytes held at any check.
     pub(crate) peak: usize,
     /// The suspending host call the run stopped at (its machine paused just
@@ -213,7 +211,6 @@ impl Budget {
             context: limits.context.clone(),
             until_poll: 0,
             memory: limits.memory,
-            limit: limits.memory,
             peak: 0,
             suspended: None,
             answer: None,
@@ -231,9 +228,20 @@ impl Budget {
         }
     }
 
+    /// The memory limit the run was given: the room its data has, and what
+    /// the journal of answers took from it. (Computed when a limit is
+    /// reported, rather than kept, so the budget the machines' loops carry
+    /// stays as it was.)
+    pub(crate) fn limit(&self) -> usize {
+        self.journal
+            .iter()
+            .map(|(call, answer)| crate::snapshot::entry_bytes(call, answer))
+            .fold(self.memory, usize::saturating_add)
+    }
+
     /// The outcome `halt` stands for in this run.
     pub(crate) fn outcome(&self, halt: Halt) -> Outcome {
-        halt.ended(self.limit)
+        halt.ended(self.limit())
             .map_or_else(|| self.paused(), |e| e.outcome())
     }
 
