@@ -78,18 +78,22 @@ fn repeated_flag(args: &[String]) -> Option<&'static str> {
 /// the version are printed whole, with status 0.
 fn usage_error(error: &clap::Error, io: &mut Io) -> u8 {
     use clap::error::ErrorKind;
-    if matches!(
-        error.kind(),
-        ErrorKind::DisplayHelp
-            | ErrorKind::DisplayVersion
-            | ErrorKind::DisplayHelpOnMissingArgumentOrSubcommand
-    ) {
-        let _ = write!(io.stdout, "{}", error.render());
-        return if error.kind() == ErrorKind::DisplayHelpOnMissingArgumentOrSubcommand {
-            status::USAGE
-        } else {
-            status::VALUE
-        };
+    match error.kind() {
+        ErrorKind::DisplayHelp | ErrorKind::DisplayVersion => {
+            let _ = write!(io.stdout, "{}", error.render());
+            return status::VALUE;
+        }
+        ErrorKind::DisplayHelpOnMissingArgumentOrSubcommand => {
+            let json = std::env::args().any(|a| a == "--json");
+            let message = "a subcommand is needed: run, check, fmt, repl or completions";
+            if json {
+                io.fail(true, "usage_error", message, None);
+            } else {
+                let _ = writeln!(io.stderr, "orrery: {message}\nhint: see `orrery --help`");
+            }
+            return status::USAGE;
+        }
+        _ => {}
     }
     // clap's first line, with the line after it when it ends in a colon
     // (the missing arguments).

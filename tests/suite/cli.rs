@@ -407,6 +407,7 @@ fn version_and_help_exit_0() {
 fn a_usage_error_is_one_line_and_a_hint() {
     let file = program_file("usage2.orr", "1");
     for args in [
+        vec![],
         vec!["run"],
         vec!["walk"],
         vec!["run", file.as_str(), "--fuel", "lots"],
