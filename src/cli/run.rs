@@ -4,8 +4,7 @@ use std::io::{IsTerminal, Write};
 use std::time::{Duration, Instant};
 
 use orrery::{
-    disagreement_within, print_limited, print_with, Arena, Limits, MachineKind, Outcome, Program,
-    Report,
+    disagreement_within, print_with, Arena, Limits, MachineKind, Outcome, Program, Report,
 };
 
 use super::args::{CheckArgs, RunArgs};
@@ -222,7 +221,7 @@ fn run_one(
         let mut stepper = orrery::machines::stepper::Stepper::new();
         let report = stepper.run_traced(program, limits, &mut |rule, redex| {
             n += 1;
-            let printed = print_limited(redex, TRACE_PRINT_LIMIT);
+            let printed = orrery::print_limited(redex, TRACE_PRINT_LIMIT);
             let place = match redex.span() {
                 Some(at) if at.line > 0 => format!("{}:{} ", at.line, at.col),
                 _ => String::new(),
@@ -232,7 +231,8 @@ fn run_one(
         });
         return (report, orrery::Machine::peak_bytes(&stepper));
     }
-    let _ = (trace, print_limited);
+    // Without the stepper there is nothing to trace (`run` refuses --trace).
+    let _ = trace;
     let sliced = if progress {
         kind.machine().start(program, &limits.clone().with_fuel(0))
     } else {
