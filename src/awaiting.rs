@@ -10,8 +10,9 @@
 //! so the futures returned here are `Send` whenever the caller's are: an
 //! awaiting run may move between a runtime's worker threads. Detaching and
 //! attaching again cost time proportional to the run's state, once per
-//! awaited call, and nothing otherwise: a run that never waits runs exactly
-//! as [`Paused::resume`](crate::Paused::resume) does.
+//! awaited call (and, for [`crate::MachineKind::run_async`], once for the
+//! fresh run, which holds next to nothing): a run that never waits runs
+//! exactly as [`Paused::resume`](crate::Paused::resume) does.
 
 use std::future::Future;
 
@@ -59,8 +60,7 @@ impl MachineKind {
             return self.run(program, limits);
         };
         let host = program.host();
-        let (report, _) = drive_async(run.detach(), |call| host.wait_on(call)).await;
-        report
+        drive(run.detach(), |call| host.wait_on(call)).await.0
     }
 }
 
@@ -87,29 +87,53 @@ impl MachineKind {
 ///     assert_eq!(report.outcome.value().and_then(|v| v.as_int()), Some(30));
 /// }
 /// ```
-pub async fn drive_async<A, F>(run: Detached, mut ask: A) -> (Report, Detached)
+pub async fn drive_async<A, F>(run: Detached, ask: A) -> (Report, Detached)
 where
     A: FnMut(HostCall) -> F,
     F: Future<Output = Answer>,
 {
-    let (mut report, mut run) = resumed(run, None);
+    let (report, paused) = drive(run, ask).await;
+    (report, paused.detach())
+}
+
+/// Resume `run` until it ends, awaiting `ask`'s answer at each suspension:
+/// the end's report and the run, on this thread. Only the detached run is
+/// held across an await; a run that has ended is not detached again.
+async fn drive<A, F>(mut run: Detached, mut ask: A) -> (Report, Box<dyn crate::Paused>)
+where
+    A: FnMut(HostCall) -> F,
+    F: Future<Output = Answer>,
+{
+    let mut answer = None;
     loop {
-        let Outcome::Suspended(call) = &report.outcome else {
-            return (report, run);
+        // Bound in one statement, so the attached run is gone before the await.
+        let (call, away) = match resumed(run, answer.take()) {
+            Stop::Waiting(call, away) => (call, away),
+            Stop::Ended(report, paused) => return (report, paused),
         };
-        let answer = ask(call.clone()).await;
-        (report, run) = resumed(run, Some(answer));
+        answer = Some(ask(call).await);
+        run = away;
     }
 }
 
+/// Where a resumed run stopped.
+enum Stop {
+    /// At a suspension: the call, and the run detached again.
+    Waiting(HostCall, Detached),
+    /// At its end: the report, and the run as it is.
+    Ended(Report, Box<dyn crate::Paused>),
+}
+
 /// `run` on this thread again, resumed (with `answer`, if any) until it
-/// stops, and detached: only the detached run, which is `Send`, is held while
-/// an answer is awaited.
-fn resumed(run: Detached, answer: Option<Answer>) -> (Report, Detached) {
+/// stops.
+fn resumed(run: Detached, answer: Option<Answer>) -> Stop {
     let mut paused = run.attach();
     let report = match answer {
         Some(answer) => paused.resume_with(answer),
         None => paused.resume(0),
     };
-    (report, paused.detach())
+    match report.outcome {
+        Outcome::Suspended(call) => Stop::Waiting(call, paused.detach()),
+        _ => Stop::Ended(report, paused),
+    }
 }

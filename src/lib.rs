@@ -218,8 +218,8 @@ pub use snapshot::FORMAT_VERSION;
 pub use snapshot::{fingerprint, Snapshot, SnapshotError};
 pub use span::{Backtrace, CallFrame, Location, Span, BACKTRACE_ENDS};
 pub use syntax::{
-    parse, parse_bytes, parse_term, parse_with, print, print_limited, print_limited_with,
-    print_with, Printed, SyntaxError, PRINT_LIMIT,
+    parse, parse_bytes, parse_bytes_with, parse_term, parse_with, print, print_limited,
+    print_limited_with, print_with, Printed, SyntaxError, PRINT_LIMIT,
 };
 pub use term::{Arena, Arm, Children, Node, Term};
 pub use value::Value;

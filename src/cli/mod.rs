@@ -12,8 +12,7 @@ use std::io::{self, Write};
 
 use orrery::syntax::excerpt;
 use orrery::{
-    parse_bytes, Arena, HostFunctions, Location, Outcome, Program, Report, SyntaxError,
-    BACKTRACE_ENDS,
+    Arena, HostFunctions, Location, Outcome, Program, Report, SyntaxError, BACKTRACE_ENDS,
 };
 
 /// Exit statuses of SEMANTICS §6.
@@ -133,22 +132,7 @@ pub fn host_table(
 pub fn parse_program(bytes: &[u8], host: &HostFunctions) -> Result<Program, SyntaxError> {
     // The parser's arena holds the terms only while the program is built:
     // the program owns its image.
-    let arena = Arena::new();
-    if host.iter().next().is_none() {
-        return parse_bytes(&arena, bytes);
-    }
-    let text = std::str::from_utf8(bytes).map_err(|e| {
-        let before = &bytes[..e.valid_up_to()];
-        let line = before.iter().filter(|&&b| b == b'\n').count() + 1;
-        let col = before.iter().rev().take_while(|&&b| b != b'\n').count() + 1;
-        SyntaxError {
-            line: u32::try_from(line).unwrap_or(u32::MAX),
-            column: u32::try_from(col).unwrap_or(u32::MAX),
-            message: "the source is not valid UTF-8".to_string(),
-            unbound: Vec::new(),
-        }
-    })?;
-    Program::parse_with(text, host)
+    orrery::parse_bytes_with(&Arena::new(), bytes, host)
 }
 
 /// Report a syntax error: JSON on stdout, or `FILE:LINE:COL: message` with

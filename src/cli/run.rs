@@ -80,7 +80,7 @@ pub fn run(args: &RunArgs, io: &mut Io) -> u8 {
         .with_memory(args.machine.memory);
     let shown = (source.name.as_str(), text.as_str());
     let mut code = None;
-    let mut limited = None;
+    let mut limited = false;
     // Every machine runs within the one memory limit: the first machine's
     // result is kept for the comparison, so the others get what it leaves,
     // and each later result is dropped once compared.
@@ -103,9 +103,7 @@ pub fn run(args: &RunArgs, io: &mut Io) -> u8 {
         if args.stats {
             let _ = stats(io, kind.name(), &report, elapsed, peak);
         }
-        if matches!(report.outcome, Outcome::Limit(_)) {
-            limited.get_or_insert(status::LIMIT);
-        }
+        limited |= matches!(report.outcome, Outcome::Limit(_));
         let made = match &report.outcome {
             Outcome::Value(v) => v.bytes(),
             _ => 0,
@@ -134,15 +132,16 @@ pub fn run(args: &RunArgs, io: &mut Io) -> u8 {
                     first.name(),
                     kind.name()
                 );
-                limited.get_or_insert(status::LIMIT);
+                limited = true;
             }
         }
     }
     let code = code.unwrap_or(status::USAGE);
-    match limited {
-        // When the machines agree but one stopped at a resource limit, say so.
-        Some(limit) if code != status::DISAGREE => limit,
-        _ => code,
+    // When the machines agree but one stopped at a resource limit, say so.
+    if limited && code != status::DISAGREE {
+        status::LIMIT
+    } else {
+        code
     }
 }
 

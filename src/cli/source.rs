@@ -56,7 +56,7 @@ pub fn read_file(path: &str, max: usize) -> Result<Vec<u8>, String> {
 fn read_at_most(reader: impl Read, name: &str, max: usize) -> Result<Vec<u8>, String> {
     let mut bytes = Vec::new();
     reader
-        .take(max as u64 + 1)
+        .take((max as u64).saturating_add(1))
         .read_to_end(&mut bytes)
         .map_err(|e| format!("cannot read {name}: {e}"))?;
     if bytes.len() > max {

@@ -169,7 +169,6 @@ pub fn load(bytes: &[u8]) -> Result<HostFunctions, StubError> {
             arity,
             answers,
         } = stub;
-        let shown = name.clone();
         let registered = host.register_data(&name, arity, move |args| match &answers {
             Answers::Constant(answer) => Ok(answer.clone()),
             Answers::Failing(message) => Err(message.clone()),
@@ -186,7 +185,7 @@ pub fn load(bytes: &[u8]) -> Result<HostFunctions, StubError> {
                 }),
         });
         registered.map_err(|e| StubError {
-            message: format!("stub `{shown}`: {e}"),
+            message: format!("stub `{name}`: {e}"),
             at: None,
         })?;
     }

@@ -665,8 +665,34 @@ pub fn parse_term<'a>(arena: &'a Arena, source: &str) -> Result<&'a Term<'a>, Sy
 /// assert_eq!((err.line, err.column), (2, 2));
 /// ```
 pub fn parse_bytes(arena: &Arena, source: &[u8]) -> Result<Program, SyntaxError> {
+    parse_bytes_with(arena, source, &NO_HOST)
+}
+
+/// [`parse_bytes`] for a program that may call the host functions of
+/// `host` by name (see [`parse_with`]).
+///
+/// # Errors
+///
+/// As [`parse_bytes`] and [`parse_with`].
+///
+/// # Examples
+///
+/// ```
+/// use orrery::{parse_bytes_with, Arena, HostFunctions};
+/// let mut host = HostFunctions::new();
+/// host.register("tide", |n: i64| Ok::<_, String>(n)).unwrap();
+/// let arena = Arena::new();
+/// assert!(parse_bytes_with(&arena, b"tide 3", &host).is_ok());
+/// let err = parse_bytes_with(&arena, b"tide\n \xff", &host).unwrap_err();
+/// assert_eq!((err.line, err.column), (2, 2));
+/// ```
+pub fn parse_bytes_with(
+    arena: &Arena,
+    source: &[u8],
+    host: &HostFunctions,
+) -> Result<Program, SyntaxError> {
     match std::str::from_utf8(source) {
-        Ok(text) => parse(arena, text),
+        Ok(text) => parse_with(arena, text, host),
         Err(error) => {
             let failure = Failure::new(error.valid_up_to(), "invalid UTF-8");
             Err(failure.locate(source))

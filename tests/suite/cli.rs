@@ -785,6 +785,12 @@ fn large_and_endless_sources_are_refused_without_reading_them_whole() {
     );
     assert_eq!(out.status.code(), Some(2));
     assert_eq!(json_lines(&out)[0]["outcome"], "input_error");
+    // The largest maximum there is reads a source as any other.
+    let out = orrery_with_input(
+        &["run", "-", "--max-source", "18446744073709551615"],
+        "6 * 7",
+    );
+    assert_eq!((out.status.code(), stdout(&out).trim()), (Some(0), "42"));
 }
 
 #[test]
