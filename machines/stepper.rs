@@ -201,6 +201,10 @@ struct State {
     due: bool,
     /// Collections made so far.
     collections: u64,
+    /// A collection was stopped part way by a limit (memory or a
+    /// cancellation): some roots name nodes of a heap that is gone, so the
+    /// run, which has ended, must not read its heap again.
+    torn: bool,
 }
 
 impl State {
@@ -223,6 +227,7 @@ impl State {
             string_live: 0,
             due: false,
             collections: 0,
+            torn: false,
         }
     }
 
@@ -328,8 +333,11 @@ impl State {
                 s.grow(|s| &mut s.ctx, 1)
             }
         };
+        let peak = self.budget.peak;
         match grow(self) {
             Err(Halt::Memory) if self.worth_collecting(0) => {
+                // The refused growth was never held: it is not a peak.
+                self.budget.peak = peak;
                 self.collect(image)?;
                 grow(self)
             }
@@ -467,40 +475,11 @@ impl State {
             }
         };
         let budget = &mut self.budget;
-        self.focus = c.forward(self.focus, budget)?;
-        for v in &mut self.values {
-            budget.work(1)?;
-            *v = c.forward(*v, budget)?;
+        let moved = forward_roots(image, &mut c, &mut self.focus, &mut self.values, &mut self.ctx, budget);
+        if let Err(halt) = moved {
+            self.torn = true;
+            return Err(halt);
         }
-        for frame in &mut self.ctx {
-            budget.work(1)?;
-            match frame {
-                ContextFrame::AppFunction { argument: t, .. }
-                | ContextFrame::AppArgument { function: t, .. }
-                | ContextFrame::LetBound { body: t, .. } => {
-                    *t = c.forward(*t, budget)?;
-                }
-                ContextFrame::IfCondition { yes, no, .. } => {
-                    *yes = c.forward(*yes, budget)?;
-                    *no = c.forward(*no, budget)?;
-                }
-                ContextFrame::Mark { .. } => {}
-                ContextFrame::Operand { next, left, .. }
-                | ContextFrame::Field { next, left, .. } => {
-                    *next = c.list(*next, *left, budget)?;
-                }
-                ContextFrame::Scrutinee { case, bodies, .. } => {
-                    if *bodies != NONE {
-                        let n = image
-                            .cases
-                            .get(*case as usize)
-                            .map_or(0, |k| k.len + u32::from(k.default != NONE));
-                        *bodies = c.list(*bodies, n, budget)?;
-                    }
-                }
-            }
-        }
-        c.scan(budget)?;
         self.heap = c.to;
         drop(old);
         self.collections += 1;
@@ -765,7 +744,7 @@ impl State {
     pub(super) fn trail(&self, image: &Image) -> Trail {
         let top = self.ctx.last().copied();
         let redex = match top.and_then(ContextFrame::redex) {
-            Some(at) if self.heap.is_value(image, self.focus) => at,
+            Some(at) if !self.torn && self.heap.is_value(image, self.focus) => at,
             _ => self.focus_at(image),
         };
         let mut trail = Trail::new(redex);
@@ -1566,6 +1545,54 @@ impl StepperRun {
     pub fn peak_bytes(&self) -> usize {
         self.state.budget.peak
     }
+}
+
+/// Forward every root of a collection — the focus, the value stack, the
+/// context — and scan what they reach into `c`'s new heap. A limit may stop
+/// it part way (see `State::torn`).
+fn forward_roots(
+    image: &Image,
+    c: &mut Collector<'_>,
+    focus: &mut Id,
+    values: &mut [Id],
+    ctx: &mut [ContextFrame],
+    budget: &mut Budget,
+) -> Result<(), Halt> {
+        *focus = c.forward(*focus, budget)?;
+        for v in values.iter_mut() {
+            budget.work(1)?;
+            *v = c.forward(*v, budget)?;
+        }
+        for frame in ctx.iter_mut() {
+            budget.work(1)?;
+            match frame {
+                ContextFrame::AppFunction { argument: t, .. }
+                | ContextFrame::AppArgument { function: t, .. }
+                | ContextFrame::LetBound { body: t, .. } => {
+                    *t = c.forward(*t, budget)?;
+                }
+                ContextFrame::IfCondition { yes, no, .. } => {
+                    *yes = c.forward(*yes, budget)?;
+                    *no = c.forward(*no, budget)?;
+                }
+                ContextFrame::Mark { .. } => {}
+                ContextFrame::Operand { next, left, .. }
+                | ContextFrame::Field { next, left, .. } => {
+                    *next = c.list(*next, *left, budget)?;
+                }
+                ContextFrame::Scrutinee { case, bodies, .. } => {
+                    if *bodies != NONE {
+                        let n = image
+                            .cases
+                            .get(*case as usize)
+                            .map_or(0, |k| k.len + u32::from(k.default != NONE));
+                        *bodies = c.list(*bodies, n, budget)?;
+                    }
+                }
+            }
+        }
+        c.scan(budget)?;
+        Ok(())
 }
 
 /// The location of a run that stopped with no redex to point at (its value
