@@ -136,6 +136,23 @@ impl Tank {
         true
     }
 
+    /// Pay `n` units from the slice if it holds them (a metered block's
+    /// fuel, paid on entry to it); `false`, paying nothing, otherwise.
+    #[inline(always)]
+    pub(crate) fn take_block(&mut self, n: u64) -> bool {
+        if self.slice < n {
+            return false;
+        }
+        self.slice -= n;
+        true
+    }
+
+    /// Give back `n` units a block took from the slice and did not use.
+    #[inline]
+    pub(crate) fn refund(&mut self, n: u64) {
+        self.slice = self.slice.saturating_add(n);
+    }
+
     /// Whether `n` units are left in all.
     #[inline(always)]
     pub(crate) fn has(&self, n: u64) -> bool {
@@ -396,6 +413,36 @@ pub(crate) fn growth<T>(v: &Vec<T>, extra: usize) -> Option<usize> {
     }
     let cap = need.max(v.capacity().saturating_mul(2)).max(4);
     Some(cap.saturating_mul(std::mem::size_of::<T>()))
+}
+
+/// Grow `v` to take `extra` more elements, within the limit of `budget`
+/// for a run holding `held` bytes (`v`'s capacity among them): doubling,
+/// or, when that would pass the limit, by an eighth (or `extra`), so that a
+/// stack can fill the limit rather than stop at half of it.
+#[cold]
+#[inline(never)]
+pub(crate) fn grow<T>(
+    v: &mut Vec<T>,
+    extra: usize,
+    held: usize,
+    budget: &mut Budget,
+) -> Result<(), Halt> {
+    let Some(doubled) = growth(v, extra) else {
+        return Ok(());
+    };
+    let size = std::mem::size_of::<T>().max(1);
+    let now = v.capacity() * size;
+    let others = held.saturating_sub(now);
+    let bytes = if others.saturating_add(doubled) > budget.memory {
+        let least = v.len().saturating_add(extra.max(v.capacity() / 8));
+        least.saturating_mul(size).min(doubled)
+    } else {
+        doubled
+    };
+    budget.check_memory(others.saturating_add(bytes))?;
+    let cap = bytes / size;
+    v.reserve_exact(cap.saturating_sub(v.len()));
+    Ok(())
 }
 
 /// Grow `v` to take `extra` more elements, within `room` bytes beyond what

@@ -280,17 +280,29 @@ impl Image {
     /// The arm of `case` for a constructor of `tag` with `arity` fields.
     #[inline]
     pub(crate) fn find_arm(&self, case: &CaseInfo, tag: TagId, arity: usize) -> Option<&ArmInfo> {
+        let k = self.find_arm_index(case, tag, arity)?;
+        self.case_arms(case).get(k)
+    }
+
+    /// [`Image::find_arm`], as the arm's place among the case's arms.
+    #[inline]
+    pub(crate) fn find_arm_index(
+        &self,
+        case: &CaseInfo,
+        tag: TagId,
+        arity: usize,
+    ) -> Option<usize> {
         let arms = self.case_arms(case);
-        let arm = if case.lookup == NONE {
-            arms.iter().find(|a| a.tag == tag)
+        let k = if case.lookup == NONE {
+            arms.iter().position(|a| a.tag == tag)
         } else {
             let order = &self.lookup[case.lookup as usize..(case.lookup + case.len) as usize];
             order
                 .binary_search_by(|&i| arms[i as usize].tag.cmp(&tag))
                 .ok()
-                .map(|k| &arms[order[k] as usize])
+                .map(|k| order[k] as usize)
         };
-        arm.filter(|a| a.arity as usize == arity)
+        k.filter(|&k| arms[k].arity as usize == arity)
     }
 
     /// A constructor tag's name (`"?"` for an id this image did not make).

@@ -396,6 +396,33 @@ impl Counts {
         self.by_rule[rule as usize] += 1;
     }
 
+    /// Count a block's contractions at once, `by_rule[r]` under rule `r`.
+    #[inline(always)]
+    #[cfg_attr(not(feature = "vm"), allow(dead_code))] // the metered blocks' machine
+    pub(crate) fn tally_block(&mut self, by_rule: &[u8; 6]) {
+        for (count, &n) in self.by_rule.iter_mut().zip(by_rule) {
+            *count += u64::from(n);
+        }
+    }
+
+    /// Take back a block's counts ([`Counts::tally_block`]).
+    #[inline]
+    #[cfg_attr(not(feature = "vm"), allow(dead_code))] // the metered blocks' machine
+    pub(crate) fn untally_block(&mut self, by_rule: &[u8; 6]) {
+        for (count, &n) in self.by_rule.iter_mut().zip(by_rule) {
+            *count = count.saturating_sub(u64::from(n));
+        }
+    }
+
+    /// Move `n` contractions counted under `from` to `to`.
+    #[inline]
+    #[cfg_attr(not(feature = "vm"), allow(dead_code))] // the metered blocks' machine
+    pub(crate) fn recount(&mut self, from: Rule, to: Rule, n: u64) {
+        let moved = n.min(self.by_rule[from as usize]);
+        self.by_rule[from as usize] -= moved;
+        self.by_rule[to as usize] += moved;
+    }
+
     /// Count `units` of fuel used beyond one unit per contraction: a
     /// data-sized primitive's (a string operation needs `1 + n / 1024`
     /// units) or a host function's declared cost (see

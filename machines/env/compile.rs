@@ -16,7 +16,8 @@
 use std::mem::size_of;
 use std::ops::Range;
 
-use crate::budget::{growth, Budget, Halt};
+pub(super) use crate::budget::grow;
+use crate::budget::{Budget, Halt};
 use crate::image::analysis::MAX_CHAIN;
 use crate::image::{INode, Id, Image, Capture, LOCAL, NONE};
 use crate::prim::Prim;
@@ -304,36 +305,6 @@ impl Workspace {
 #[cold]
 pub(super) fn broken() -> Halt {
     Halt::fault("the env machine was given code it cannot run")
-}
-
-/// Grow `v` to take `extra` more elements, within the limit of `budget`
-/// for a run holding `held` bytes (`v`'s capacity among them): doubling,
-/// or, when that would pass the limit, by an eighth (or `extra`), so that a
-/// stack can fill the limit rather than stop at half of it.
-#[cold]
-#[inline(never)]
-pub(super) fn grow<T>(
-    v: &mut Vec<T>,
-    extra: usize,
-    held: usize,
-    budget: &mut Budget,
-) -> Result<(), Halt> {
-    let Some(doubled) = growth(v, extra) else {
-        return Ok(());
-    };
-    let size = size_of::<T>().max(1);
-    let now = v.capacity() * size;
-    let others = held.saturating_sub(now);
-    let bytes = if others.saturating_add(doubled) > budget.memory {
-        let least = v.len().saturating_add(extra.max(v.capacity() / 8));
-        least.saturating_mul(size).min(doubled)
-    } else {
-        doubled
-    };
-    budget.check_memory(others.saturating_add(bytes))?;
-    let cap = bytes / size;
-    v.reserve_exact(cap.saturating_sub(v.len()));
-    Ok(())
 }
 
 /// Compile `image` into `c`, using the lists of `w`; the run holds `fixed`
