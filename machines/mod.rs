@@ -118,6 +118,8 @@ macro_rules! machine_table {
 }
 
 machine_table! {
+    /// The register bytecode machine.
+    "vm" => vm::Vm as Vm,
     /// The environment-based evaluator.
     "env" => env::Env as Env,
     /// The CEK machine.

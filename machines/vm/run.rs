@@ -1,0 +1,848 @@
+//! The vm's interpreter: one loop over the code, monomorphised twice, once
+//! taking each block's fuel on entry to it and once per contraction (see
+//! [`super::code`]). A block the fast loop cannot finish on its fast path
+//! (an operand that is not an integer, a contraction that fails, a closure
+//! of another arity, a limit) is *bailed*: its fuel and counts are given
+//! back, those of the instructions before the one that could not go on are
+//! taken again, and the slow loop carries on from that instruction, so that
+//! every stop is where, and counts what, the stepper's does.
+
+use std::rc::Rc;
+
+use smallvec::SmallVec;
+
+use super::code::{broken, op_prim, Code, Instr, Konst, Operand, Reg, Src, FINISH};
+use super::{Frame, Fun, Val, VmRun};
+use crate::budget::{grow, Halt};
+use crate::error::EvalError;
+use crate::image::{INode, Image, NONE};
+use crate::machines::runtime::host::host_call;
+use crate::machines::runtime::prims::{int_prim, int_test, prim_contraction};
+use crate::machines::runtime::value::{
+    data_field, values_bytes_for, Closure, ConCell, Value, Values,
+};
+use crate::{Prim, Rule};
+
+/// Why a loop left: to go on in the other loop, or the run's end.
+pub(super) enum Leave {
+    /// Per contraction, from the current pc.
+    Slow,
+    /// On the fast path again, at a block's start.
+    Fast,
+    /// The block could not go on at the current pc.
+    Bail,
+    /// A value, or a halt (at the current pc).
+    Done(Result<Val, Halt>),
+}
+
+/// Arguments of one call, kept inline for the usual few.
+type Args = SmallVec<[Val; 8]>;
+
+/// Where a call's value goes: a register of the caller and the pc after
+/// the call, or (a tail call) the caller's own caller.
+#[derive(Clone, Copy)]
+enum Ret {
+    To { dst: Reg, pc: u32 },
+    Tail,
+}
+
+impl VmRun {
+    /// The value of operand `src`.
+    #[inline(always)]
+    fn read(&self, code: &Code, src: Src) -> Val {
+        match src.get() {
+            Operand::Reg(r) => match self.regs.get((self.base + r) as usize) {
+                Some(v) => v.clone(),
+                None => Value::Int(0),
+            },
+            Operand::Cap(i) => match self.closure.as_ref().and_then(|c| c.captured.get(i as usize)) {
+                Some(v) => v.clone(),
+                None => Value::Int(0),
+            },
+            Operand::Int(n) => Value::Int(i64::from(n)),
+            Operand::Konst(k) => match code.konsts.get(k as usize) {
+                Some(&Konst::Int(n)) => Value::Int(n),
+                Some(&Konst::Bool(b)) => Value::Bool(b),
+                Some(&Konst::Lit(s)) => Value::Lit(s),
+                Some(&Konst::Tag(t)) => Value::Tag(t),
+                Some(&Konst::Data(d)) => Value::Data(d),
+                None => Value::Int(0),
+            },
+        }
+    }
+
+    /// The integer operand `src` is, if it is one (read without a clone).
+    #[inline(always)]
+    fn int(&self, src: Src) -> Option<i64> {
+        match src.get() {
+            Operand::Reg(r) => self.int_reg(r),
+            Operand::Int(n) => Some(i64::from(n)),
+            Operand::Cap(i) => match self.closure.as_ref().and_then(|c| c.captured.get(i as usize)) {
+                Some(Value::Int(n)) => Some(*n),
+                _ => None,
+            },
+            Operand::Konst(_) => None,
+        }
+    }
+
+    #[inline(always)]
+    fn int_reg(&self, r: Reg) -> Option<i64> {
+        match self.regs.get((self.base + r) as usize) {
+            Some(Value::Int(n)) => Some(*n),
+            _ => None,
+        }
+    }
+
+    #[inline(always)]
+    fn set(&mut self, dst: Reg, v: Val) {
+        if let Some(slot) = self.regs.get_mut((self.base + dst) as usize) {
+            *slot = v;
+        }
+    }
+
+    /// The rule applying `f` is counted under.
+    #[inline(always)]
+    fn rule_of(code: &Code, f: &Val) -> Rule {
+        match f {
+            Value::Fun(c) if c.applied == 0 && code.funcs.get(c.code as usize).is_some_and(|f| f.rec) => {
+                Rule::BetaRec
+            }
+            _ => Rule::Beta,
+        }
+    }
+
+    /// How many more arguments closure `c` takes before its body is
+    /// entered.
+    #[inline(always)]
+    fn wants(code: &Code, c: &Fun) -> u32 {
+        code.funcs
+            .get(c.code as usize)
+            .map_or(0, |f| f.params.saturating_sub(c.applied))
+    }
+
+    /// Bytes held: the stacks by capacity, the live cells, the tags made
+    /// up.
+    #[inline]
+    pub(super) fn held(&self) -> usize {
+        self.fixed
+            + self.meter.cells()
+            + (self.regs.capacity() + self.args.capacity()) * std::mem::size_of::<Val>()
+            + self.frames.capacity() * std::mem::size_of::<Frame>()
+    }
+
+    /// Room for a cell of `bytes`.
+    #[inline]
+    fn room_for<const M: bool>(&mut self, bytes: usize) -> Result<(), Halt> {
+        if M {
+            let held = self.held();
+            self.budget.check_memory(held.saturating_add(bytes))
+        } else {
+            Ok(())
+        }
+    }
+
+    /// Fuel-free work of `n` units (values copied), past a few.
+    #[inline(always)]
+    fn work<const M: bool>(&mut self, n: usize) -> Result<(), Halt> {
+        if M && n > 16 {
+            self.budget.work(n as u64)
+        } else {
+            Ok(())
+        }
+    }
+
+    /// The values of the `n` operands from `at`.
+    fn values(&self, code: &Code, at: u32, n: usize) -> Values<u32> {
+        let at = at as usize;
+        code.srcs
+            .get(at..at.saturating_add(n))
+            .unwrap_or(&[])
+            .iter()
+            .map(|&s| self.read(code, s))
+            .collect()
+    }
+
+    /// Run from the current pc: per contraction if `SLOW`, else block by
+    /// block; `M`: whether fuel, memory and cancellation are checked.
+    pub(super) fn exec<const M: bool, const SLOW: bool>(&mut self, code: &Code) -> Leave {
+        let program = self.program.clone();
+        let image = program.image();
+        // A contraction of the slow loop pays its unit first.
+        macro_rules! take {
+            ($rule:expr) => {
+                if SLOW {
+                    let paid = if M {
+                        self.budget.take($rule)
+                    } else {
+                        self.budget.counts.tally($rule);
+                        Ok(())
+                    };
+                    if let Err(halt) = paid {
+                        return Leave::Done(Err(halt));
+                    }
+                }
+            };
+        }
+        // A contraction that cannot take the fast path: bailed, or (per
+        // contraction) the run stops with `$halt`.
+        macro_rules! fail {
+            ($halt:expr) => {{
+                if SLOW {
+                    return Leave::Done(Err($halt));
+                }
+                return Leave::Bail;
+            }};
+        }
+        macro_rules! try_or_fail {
+            ($e:expr) => {
+                match $e {
+                    Ok(v) => v,
+                    Err(halt) => fail!(halt),
+                }
+            };
+        }
+        // The first application of a call, counted `beta` by its block, is
+        // `beta_rec` for a recursive function's own closure.
+        macro_rules! recount {
+            ($rule:expr) => {
+                if !SLOW && $rule == Rule::BetaRec {
+                    self.budget.counts.recount(Rule::Beta, Rule::BetaRec, 1);
+                }
+            };
+        }
+        loop {
+            let pc = self.pc;
+            let Some(&instr) = code.code.get(pc as usize) else {
+                return Leave::Done(Err(broken("a pc out of the code")));
+            };
+            match instr {
+                Instr::Meter { cost, rules } => {
+                    if SLOW {
+                        return Leave::Fast;
+                    }
+                    if M && !self.budget.tank.take_block(u64::from(cost)) {
+                        self.pc = pc + 1;
+                        return Leave::Slow;
+                    }
+                    self.budget.counts.tally_block(&rules);
+                    self.block = pc;
+                    self.pc = pc + 1;
+                }
+                Instr::Move { dst, src } => {
+                    let v = self.read(code, src);
+                    self.set(dst, v);
+                    self.pc = pc + 1;
+                }
+                Instr::Count { rule } => {
+                    take!(rule);
+                    self.pc = pc + 1;
+                }
+                Instr::Prim2Imm { op, dst, a, imm } => {
+                    let op = op_prim(op);
+                    match self.int_reg(a).and_then(|x| int_prim(op, x, i64::from(imm))) {
+                        Some(v) => {
+                            take!(Rule::Prim);
+                            self.set(dst, v);
+                        }
+                        None => {
+                            if !SLOW {
+                                return Leave::Bail;
+                            }
+                            let args = [self.read(code, Src::reg(a)), Value::Int(i64::from(imm))];
+                            match self.prim::<M>(image, op, &args) {
+                                Ok(v) => self.set(dst, v),
+                                Err(halt) => return Leave::Done(Err(halt)),
+                            }
+                        }
+                    }
+                    self.pc = pc + 1;
+                }
+                Instr::Prim2 { op, dst, a, b } => {
+                    let op = op_prim(op);
+                    let fast = match (self.int(a), self.int(b)) {
+                        (Some(x), Some(y)) => int_prim(op, x, y),
+                        _ => None,
+                    };
+                    match fast {
+                        Some(v) => {
+                            take!(Rule::Prim);
+                            self.set(dst, v);
+                        }
+                        None => {
+                            if !SLOW {
+                                return Leave::Bail;
+                            }
+                            let args = [self.read(code, a), self.read(code, b)];
+                            match self.prim::<M>(image, op, &args) {
+                                Ok(v) => self.set(dst, v),
+                                Err(halt) => return Leave::Done(Err(halt)),
+                            }
+                        }
+                    }
+                    self.pc = pc + 1;
+                }
+                Instr::Prim1 { op, dst, a } => {
+                    let op = op_prim(op);
+                    let fast = match (op, self.int(a)) {
+                        (Prim::Neg, Some(x)) => x.checked_neg().map(Value::Int),
+                        _ => None,
+                    };
+                    match fast {
+                        Some(v) => {
+                            take!(Rule::Prim);
+                            self.set(dst, v);
+                        }
+                        None => {
+                            if !SLOW {
+                                return Leave::Bail;
+                            }
+                            let args = [self.read(code, a)];
+                            match self.prim::<M>(image, op, &args) {
+                                Ok(v) => self.set(dst, v),
+                                Err(halt) => return Leave::Done(Err(halt)),
+                            }
+                        }
+                    }
+                    self.pc = pc + 1;
+                }
+                Instr::TestImm { op, a, imm, no } => {
+                    let op = op_prim(op);
+                    match self.int_reg(a).and_then(|x| int_test(op, x, i64::from(imm))) {
+                        Some(yes) if !SLOW => {
+                            self.pc = if yes { pc + 2 } else { no };
+                        }
+                        _ => {
+                            if !SLOW {
+                                return Leave::Bail;
+                            }
+                            let args = [self.read(code, Src::reg(a)), Value::Int(i64::from(imm))];
+                            if let Err(halt) = self.test::<M>(code, image, op, &args) {
+                                return Leave::Done(Err(halt));
+                            }
+                        }
+                    }
+                }
+                Instr::Test { op, a, b, no } => {
+                    let op = op_prim(op);
+                    let fast = match (self.int(a), self.int(b)) {
+                        (Some(x), Some(y)) => int_test(op, x, y),
+                        _ => None,
+                    };
+                    match fast {
+                        Some(yes) if !SLOW => {
+                            self.pc = if yes { pc + 2 } else { no };
+                        }
+                        _ => {
+                            if !SLOW {
+                                return Leave::Bail;
+                            }
+                            let args = [self.read(code, a), self.read(code, b)];
+                            if let Err(halt) = self.test::<M>(code, image, op, &args) {
+                                return Leave::Done(Err(halt));
+                            }
+                        }
+                    }
+                }
+                Instr::Branch { cond, no } => {
+                    let v = self.read(code, cond);
+                    take!(Rule::If);
+                    match v {
+                        Value::Bool(yes) => self.pc = if yes { pc + 1 } else { no },
+                        other => {
+                            let error = EvalError::not_a_boolean(other.operand(image, &self.tags));
+                            fail!(Halt::error(error))
+                        }
+                    }
+                }
+                Instr::Jump { to } => self.pc = to,
+                Instr::Host { host, dst, args } => {
+                    let Some(&id) = code.hosts.get(host as usize) else {
+                        return Leave::Done(Err(broken("a host call of no host function")));
+                    };
+                    let values = self.values(code, args, id.arity());
+                    let room = if M {
+                        self.budget.room(self.held())
+                    } else {
+                        usize::MAX
+                    };
+                    let host = program.host();
+                    match host_call(host, id, &values, image, &mut self.tags, &mut self.budget, room) {
+                        Ok(v) => {
+                            self.fixed = self.tags.bytes();
+                            drop(values);
+                            self.set(dst, v);
+                            if M {
+                                let held = self.held();
+                                if let Err(halt) = self.budget.check_memory(held) {
+                                    return Leave::Done(Err(halt));
+                                }
+                            }
+                        }
+                        Err(halt) => return Leave::Done(Err(halt)),
+                    }
+                    self.pc = pc + 1;
+                }
+                Instr::Closure {
+                    dst,
+                    func,
+                    captures,
+                } => {
+                    let n = code.funcs.get(func as usize).map_or(0, |f| f.captured as usize);
+                    try_or_fail!(self.room_for::<M>(Closure::<u32>::cell_bytes() + values_bytes_for::<u32>(n)));
+                    try_or_fail!(self.work::<M>(n));
+                    let captured = self.values(code, captures, n);
+                    self.set(dst, Value::Fun(Closure::new(func, 0, captured)));
+                    self.pc = pc + 1;
+                }
+                Instr::Con { dst, tag, fields } => {
+                    let n = image.tag_arity.get(tag as usize).map_or(0, |&a| a as usize);
+                    try_or_fail!(self.room_for::<M>(
+                        ConCell::<u32>::bytes(&Values::new()) + values_bytes_for::<u32>(n)
+                    ));
+                    try_or_fail!(self.work::<M>(n));
+                    let fields = self.values(code, fields, n);
+                    self.set(dst, Value::Con(ConCell::new(tag, fields)));
+                    self.pc = pc + 1;
+                }
+                Instr::Case {
+                    scrutinee,
+                    targets,
+                    fields,
+                } => {
+                    let v = self.read(code, scrutinee);
+                    take!(Rule::Case);
+                    match self.select::<M>(code, image, targets, fields, &v) {
+                        Ok(Some(to)) => self.pc = to,
+                        Ok(None) => {
+                            let error = EvalError::no_matching_case(v.operand(image, &self.tags));
+                            fail!(Halt::error(error))
+                        }
+                        Err(halt) => fail!(halt),
+                    }
+                }
+                Instr::Apply { dst, f, a } => {
+                    let fv = self.read(code, f);
+                    let rule = Self::rule_of(code, &fv);
+                    take!(rule);
+                    let Value::Fun(c) = fv else {
+                        let error = EvalError::not_a_function(fv.operand(image, &self.tags));
+                        fail!(Halt::error(error))
+                    };
+                    let av = self.read(code, a);
+                    try_or_fail!(self.apply::<M>(code, c, av, Ret::To { dst, pc: pc + 1 }));
+                    recount!(rule);
+                }
+                Instr::TailApply { f, a } => {
+                    let fv = self.read(code, f);
+                    let rule = Self::rule_of(code, &fv);
+                    take!(rule);
+                    let Value::Fun(c) = fv else {
+                        let error = EvalError::not_a_function(fv.operand(image, &self.tags));
+                        fail!(Halt::error(error))
+                    };
+                    let av = self.read(code, a);
+                    try_or_fail!(self.apply::<M>(code, c, av, Ret::Tail));
+                    recount!(rule);
+                }
+                Instr::CallN { dst, f, args, m } => {
+                    if SLOW {
+                        self.pc = pc + 1;
+                        continue;
+                    }
+                    let fv = self.read(code, f);
+                    let rule = Self::rule_of(code, &fv);
+                    match fv {
+                        Value::Fun(c) if Self::wants(code, &c) == u32::from(m) => {
+                            let values = self.args(code, args, m);
+                            let site = origin(code, pc);
+                            let after = pc + 1 + 2 * u32::from(m);
+                            try_or_fail!(self.enter::<M>(code, c, values, Ret::To { dst, pc: after }, site));
+                            recount!(rule);
+                        }
+                        _ => return Leave::Bail,
+                    }
+                }
+                Instr::TailCallN { f, args, m } => {
+                    if SLOW {
+                        self.pc = pc + 1;
+                        continue;
+                    }
+                    let fv = self.read(code, f);
+                    let rule = Self::rule_of(code, &fv);
+                    match fv {
+                        Value::Fun(c) if Self::wants(code, &c) == u32::from(m) => {
+                            let values = self.args(code, args, m);
+                            let site = origin(code, pc);
+                            try_or_fail!(self.enter::<M>(code, c, values, Ret::Tail, site));
+                            recount!(rule);
+                        }
+                        _ => return Leave::Bail,
+                    }
+                }
+                Instr::SelfCall { dst, args, m } => {
+                    let rule = if m == 1 { Rule::BetaRec } else { Rule::Beta };
+                    take!(rule);
+                    let Value::Fun(c) = self.read(code, Src::reg(0)) else {
+                        return Leave::Done(Err(broken("a self that is no closure")));
+                    };
+                    let values = self.args(code, args, m);
+                    let site = origin(code, pc);
+                    try_or_fail!(self.enter::<M>(code, c, values, Ret::To { dst, pc: pc + 1 }, site));
+                }
+                Instr::SelfTail { args, m } => {
+                    let rule = if m == 1 { Rule::BetaRec } else { Rule::Beta };
+                    take!(rule);
+                    let values = self.args(code, args, m);
+                    let base = self.base as usize + 1;
+                    for (i, v) in values.into_iter().enumerate() {
+                        if let Some(slot) = self.regs.get_mut(base + i) {
+                            *slot = v;
+                        }
+                    }
+                    self.site = origin(code, pc);
+                    let entry = self
+                        .closure
+                        .as_ref()
+                        .and_then(|c| code.funcs.get(c.code as usize))
+                        .map_or(NONE, |f| f.entry);
+                    self.pc = entry;
+                }
+                Instr::SpineStart { f, m, acc } => {
+                    let fv = self.read(code, f);
+                    let whole = matches!(&fv, Value::Fun(c) if Self::wants(code, c) == m);
+                    self.set(acc, fv);
+                    self.set(acc + 1, Value::Bool(whole));
+                    self.pc = pc + 1;
+                }
+                Instr::SpineStep { acc, arg, k } => {
+                    let fv = self.read(code, Src::reg(acc));
+                    if self.whole(acc) {
+                        let rule = if k == 0 { Self::rule_of(code, &fv) } else { Rule::Beta };
+                        take!(rule);
+                        recount!(rule);
+                        self.pc = pc + 1;
+                        continue;
+                    }
+                    let rule = Self::rule_of(code, &fv);
+                    take!(rule);
+                    let Value::Fun(c) = fv else {
+                        let error = EvalError::not_a_function(fv.operand(image, &self.tags));
+                        fail!(Halt::error(error))
+                    };
+                    let av = self.read(code, arg);
+                    try_or_fail!(self.apply::<M>(code, c, av, Ret::To { dst: acc, pc: pc + 1 }));
+                    recount!(rule);
+                }
+                Instr::SpineLast { acc, args, m, dst } => {
+                    let ret = if dst == NONE { Ret::Tail } else { Ret::To { dst, pc: pc + 1 } };
+                    let fv = self.read(code, Src::reg(acc));
+                    if self.whole(acc) {
+                        take!(Rule::Beta);
+                        let Value::Fun(c) = fv else {
+                            return Leave::Done(Err(broken("a saturated spine of no closure")));
+                        };
+                        let values = self.args(code, args, m);
+                        let site = origin(code, pc);
+                        try_or_fail!(self.enter::<M>(code, c, values, ret, site));
+                        continue;
+                    }
+                    let rule = Self::rule_of(code, &fv);
+                    take!(rule);
+                    let Value::Fun(c) = fv else {
+                        let error = EvalError::not_a_function(fv.operand(image, &self.tags));
+                        fail!(Halt::error(error))
+                    };
+                    let last = (args as usize + usize::from(m)).checked_sub(1);
+                    let av = last
+                        .and_then(|i| code.srcs.get(i))
+                        .map_or(Value::Int(0), |&s| self.read(code, s));
+                    try_or_fail!(self.apply::<M>(code, c, av, ret));
+                    recount!(rule);
+                }
+                Instr::Return { src } => {
+                    let v = self.read(code, src);
+                    self.ret(v);
+                }
+                Instr::Finish => {
+                    let v = match self.regs.first() {
+                        Some(v) => v.clone(),
+                        None => return Leave::Done(Err(broken("no value to finish with"))),
+                    };
+                    let Some(arg) = self.args.get(self.next_arg).cloned() else {
+                        return Leave::Done(Ok(v));
+                    };
+                    // The program's arguments: applications with no node,
+                    // paid here (outside any block).
+                    let rule = Self::rule_of(code, &v);
+                    let paid = if M {
+                        self.budget.take(rule)
+                    } else {
+                        self.budget.counts.tally(rule);
+                        Ok(())
+                    };
+                    if let Err(halt) = paid {
+                        return Leave::Done(Err(halt));
+                    }
+                    let Value::Fun(c) = v else {
+                        let error = EvalError::not_a_function(v.operand(image, &self.tags));
+                        return Leave::Done(Err(Halt::error(error)));
+                    };
+                    self.next_arg += 1;
+                    if let Err(halt) = self.apply::<M>(code, c, arg, Ret::To { dst: 0, pc: FINISH }) {
+                        return Leave::Done(Err(halt));
+                    }
+                }
+            }
+        }
+    }
+
+    /// A primitive contraction through the shared δ-rules (paying its units).
+    #[cold]
+    fn prim<const M: bool>(&mut self, image: &Image, op: Prim, args: &[Val]) -> Result<Val, Halt> {
+        let held = if M { self.held() } else { 0 };
+        prim_contraction(op, args, image, &self.tags, &mut self.budget, held)
+    }
+
+    /// The values of a call's `m` arguments, the operands from `at`.
+    #[inline(always)]
+    fn args(&self, code: &Code, at: u32, m: u8) -> Args {
+        let at = at as usize;
+        code.srcs
+            .get(at..at + usize::from(m))
+            .unwrap_or(&[])
+            .iter()
+            .map(|&s| self.read(code, s))
+            .collect()
+    }
+
+    /// Whether the spine whose registers start at `acc` is saturated.
+    #[inline(always)]
+    fn whole(&self, acc: Reg) -> bool {
+        matches!(self.regs.get((self.base + acc + 1) as usize), Some(Value::Bool(true)))
+    }
+
+    /// A comparison made per contraction: its value to the register the
+    /// branch after it reads, and on to that branch.
+    #[cold]
+    fn test<const M: bool>(&mut self, code: &Code, image: &Image, op: Prim, args: &[Val]) -> Result<(), Halt> {
+        let v = self.prim::<M>(image, op, args)?;
+        let Some(&Instr::Branch { cond, .. }) = code.code.get(self.pc as usize + 1) else {
+            return Err(broken("a test with no branch"));
+        };
+        if let Operand::Reg(r) = cond.get() {
+            self.set(r, v);
+        }
+        self.pc += 1;
+        Ok(())
+    }
+
+    /// The arm of case `case` for `v`: its code, with its fields in
+    /// registers from `fields`; `None` when no arm matches.
+    fn select<const M: bool>(
+        &mut self,
+        code: &Code,
+        image: &Image,
+        targets: u32,
+        fields: Reg,
+        v: &Val,
+    ) -> Result<Option<u32>, Halt> {
+        let case = code.targets.get(targets as usize).copied().unwrap_or(NONE);
+        let Some(info) = image.cases.get(case as usize).copied() else {
+            return Err(broken("a case of no case"));
+        };
+        let targets = targets + 1;
+        let target = |k: usize| code.targets.get(targets as usize + k).copied().unwrap_or(NONE);
+        if let Some((tag, values)) = v.constructor() {
+            if let Some(k) = image.find_arm_index(&info, tag, values.len()) {
+                self.work::<M>(values.len())?;
+                let at = (self.base + fields) as usize;
+                for (i, f) in values.iter().enumerate() {
+                    if let Some(slot) = self.regs.get_mut(at + i) {
+                        *slot = f.clone();
+                    }
+                }
+                return Ok(Some(target(k)));
+            }
+        }
+        if let Value::Data(d) = v {
+            if let INode::Con(tag, start, len) = image.node(*d) {
+                if let Some(k) = image.find_arm_index(&info, tag, len as usize) {
+                    self.work::<M>(len as usize)?;
+                    let at = (self.base + fields) as usize;
+                    for (i, &f) in image.list(start, len).iter().enumerate() {
+                        if let Some(slot) = self.regs.get_mut(at + i) {
+                            *slot = data_field(image, f);
+                        }
+                    }
+                    return Ok(Some(target(k)));
+                }
+            }
+        }
+        if info.default != NONE {
+            return Ok(Some(target(info.len as usize)));
+        }
+        Ok(None)
+    }
+
+    /// Apply closure `c` to one more argument `a`, its fuel paid: a partial
+    /// application, or the body entered.
+    #[inline]
+    fn apply<const M: bool>(
+        &mut self,
+        code: &Code,
+        c: Rc<Fun>,
+        a: Val,
+        ret: Ret,
+    ) -> Result<(), Halt> {
+        let pc = self.pc;
+        if Self::wants(code, &c) <= 1 {
+            let mut args = Args::new();
+            args.push(a);
+            return self.enter::<M>(code, c, args, ret, origin(code, pc));
+        }
+        // A partial application: the closure's values, its self if it is
+        // a recursive function's own, then the argument.
+        let rec = code.funcs.get(c.code as usize).is_some_and(|f| f.rec);
+        let me = rec && c.applied == 0;
+        let n = c.captured.len() + usize::from(me) + 1;
+        self.room_for::<M>(Closure::<u32>::cell_bytes() + values_bytes_for::<u32>(n))?;
+        self.work::<M>(n)?;
+        let mut captured: Values<u32> = Values::with_capacity(n);
+        captured.extend(c.captured.iter().cloned());
+        if me {
+            captured.push(Value::Fun(Rc::clone(&c)));
+        }
+        captured.push(a);
+        let made = Value::Fun(Closure::new(c.code, c.applied + 1, captured));
+        match ret {
+            Ret::To { dst, pc } => {
+                self.set(dst, made);
+                self.pc = pc;
+            }
+            Ret::Tail => self.ret(made),
+        }
+        Ok(())
+    }
+
+    /// Enter the body of closure `c` with its last `args`, called at `site`:
+    /// a new frame above the current one, or (a tail call) in its place.
+    /// Nothing is changed if the stacks cannot grow within the limit.
+    fn enter<const M: bool>(
+        &mut self,
+        code: &Code,
+        c: Rc<Fun>,
+        args: Args,
+        ret: Ret,
+        site: u32,
+    ) -> Result<(), Halt> {
+        let Some(f) = code.funcs.get(c.code as usize).copied() else {
+            return Err(broken("a closure of no function"));
+        };
+        let base = match ret {
+            Ret::To { .. } => self.top,
+            Ret::Tail => self.base,
+        };
+        let top = base as usize + f.frame as usize;
+        if M {
+            if let Ret::To { .. } = ret {
+                if self.frames.len() == self.frames.capacity() {
+                    let held = self.held();
+                    grow(&mut self.frames, 1, held, &mut self.budget)?;
+                }
+            }
+            if top > self.regs.capacity() {
+                if top >= u32::MAX as usize {
+                    return Err(Halt::Memory);
+                }
+                // Doubling from a power of two (see `even`), so that a run
+                // grows its stack at the same points whatever room a reused
+                // machine's stack had.
+                let held = self.held();
+                let extra = top - self.regs.len();
+                grow(&mut self.regs, extra, held, &mut self.budget)?;
+            }
+            self.work::<M>(f.frame as usize)?;
+        }
+        match ret {
+            Ret::To { dst, pc } => {
+                self.frames.push(Frame {
+                    ret: pc,
+                    base: self.base,
+                    top: self.top,
+                    dst,
+                    site: self.site,
+                    closure: self.closure.take(),
+                });
+            }
+            Ret::Tail => self.regs.truncate(base as usize),
+        }
+        if c.applied == 0 {
+            if f.rec {
+                self.regs.push(Value::Fun(Rc::clone(&c)));
+            }
+        } else if let Some(bound) = c.captured.get(f.captured as usize..) {
+            // A partial application holds its self (if recursive) and its
+            // arguments after the function's captured values.
+            for v in bound {
+                self.regs.push(v.clone());
+            }
+        }
+        self.regs.extend(args);
+        self.regs.resize(top, Value::Int(0));
+        self.base = base;
+        self.top = top as u32;
+        self.closure = Some(c);
+        self.site = site;
+        self.pc = f.entry;
+        Ok(())
+    }
+
+    /// Return `v` to the frame below.
+    #[inline]
+    fn ret(&mut self, v: Val) {
+        self.regs.truncate(self.base as usize);
+        let Some(frame) = self.frames.pop() else {
+            // The bottom frame is never returned from: only `Finish` ends.
+            self.pc = FINISH;
+            return;
+        };
+        self.base = frame.base;
+        self.top = frame.top;
+        self.closure = frame.closure;
+        self.site = frame.site;
+        self.set(frame.dst, v);
+        self.pc = frame.ret;
+    }
+
+    /// Give back the fuel and counts of the current block, then take those
+    /// of its instructions before the current pc again (they were made):
+    /// the slow loop goes on from the current pc.
+    pub(super) fn bail<const M: bool>(&mut self, code: &Code) {
+        let Some(&Instr::Meter { cost, rules }) = code.code.get(self.block as usize) else {
+            return;
+        };
+        if M {
+            self.budget.tank.refund(u64::from(cost));
+        }
+        self.budget.counts.untally_block(&rules);
+        let made = code
+            .code
+            .get(self.block as usize + 1..self.pc as usize)
+            .unwrap_or(&[]);
+        for instr in made {
+            let (rule, n) = instr.contractions();
+            for _ in 0..n {
+                if M {
+                    self.budget.tank.take_block(1);
+                }
+                self.budget.counts.tally(rule);
+            }
+        }
+    }
+}
+
+/// The node instruction `pc` was compiled from.
+#[inline]
+pub(super) fn origin(code: &Code, pc: u32) -> u32 {
+    code.origin.get(pc as usize).copied().unwrap_or(NONE)
+}
