@@ -76,7 +76,10 @@ struct Frame<F = Rc<Fun>> {
     dst: u32,
     /// The call site that entered the caller ([`NONE`] at the top level).
     site: Id,
-    /// The caller's closure ([`None`] at the top level).
+    /// Whether the caller's closure is the callee's (a function calling
+    /// itself), kept by the callee rather than here.
+    same: bool,
+    /// The caller's closure ([`None`] at the top level, or when `same`).
     closure: Option<F>,
 }
 
@@ -493,6 +496,7 @@ impl VmRun {
             top: 1,
             dst: 0,
             site: NONE,
+            same: false,
             closure: None,
         });
         self.base = 1;
@@ -520,8 +524,14 @@ impl VmRun {
             }
         };
         mark(&mut trail, &self.closure, self.site);
+        // A frame of a function calling itself has the closure of the
+        // activation above it.
+        let mut above = &self.closure;
         for frame in self.frames.iter().rev() {
-            mark(&mut trail, &frame.closure, frame.site);
+            if !frame.same {
+                above = &frame.closure;
+            }
+            mark(&mut trail, above, frame.site);
         }
         image.location(&trail)
     }

@@ -187,9 +187,9 @@ pub(super) enum Instr {
     /// The last application of a spine of `m` on the current function's own
     /// self (saturated by construction): enter the body with the operands
     /// from `args`.
-    SelfCall { dst: Reg, args: u32, m: u8 },
+    SelfCall { dst: Reg, args: u32, m: u8, entry: u32 },
     /// [`Instr::SelfCall`] in tail position: a jump to the body.
-    SelfTail { args: u32, m: u8 },
+    SelfTail { args: u32, m: u8, entry: u32 },
     /// The start of `f a₁ … aₘ` with arguments still to evaluate: `acc`
     /// takes `f`, and `acc + 1` whether `f` is a closure that exactly `m`
     /// more arguments saturate (then the applications before the last only
@@ -349,6 +349,8 @@ struct Compiler<'i, 'b> {
     me: Option<(Reg, u32)>,
     /// The current block's [`Instr::Meter`], while one is open.
     block: Option<usize>,
+    /// Where the current function's code starts.
+    entry: u32,
     /// Functions whose closures are made, to compile.
     queue: Vec<u32>,
 }
@@ -374,6 +376,7 @@ pub(super) fn compile(image: &Image, budget: &mut Budget) -> Result<Code, Halt> 
         frame: 0,
         me: None,
         block: None,
+        entry: 0,
         queue: Vec::new(),
     };
     c.code.funcs = vec![
@@ -565,6 +568,7 @@ impl Compiler<'_, '_> {
     fn body(&mut self, body: Id, depth: u32) -> Result<(), Halt> {
         self.next = depth;
         self.frame = depth;
+        self.entry = self.code.code.len() as u32;
         self.close_block();
         self.push_job(Job::Eval {
             node: body,
@@ -1368,8 +1372,23 @@ impl Compiler<'_, '_> {
             let args = self.list_from(at)?;
             let m = m as u8;
             match dest {
-                Dest::Reg(dst) => self.emit(Instr::SelfCall { dst, args, m }, app)?,
-                Dest::Tail => self.emit(Instr::SelfTail { args, m }, app)?,
+                Dest::Reg(dst) => self.emit(
+                    Instr::SelfCall {
+                        dst,
+                        args,
+                        m,
+                        entry: self.entry,
+                    },
+                    app,
+                )?,
+                Dest::Tail => self.emit(
+                    Instr::SelfTail {
+                        args,
+                        m,
+                        entry: self.entry,
+                    },
+                    app,
+                )?,
             };
             self.close_block();
             return Ok(());
@@ -1488,5 +1507,23 @@ mod tests {
         assert_eq!(Src::reg(7).get(), Operand::Reg(7));
         assert_eq!(Src::cap(9).get(), Operand::Cap(9));
         assert_eq!(Src::konst(PAYLOAD).get(), Operand::Konst(PAYLOAD));
+    }
+}
+
+#[cfg(test)]
+mod dump {
+    #[test]
+    #[ignore]
+    fn dump_fib() {
+        let program = crate::Program::parse(
+            "let rec fib n = if n < 2 then n else fib (n - 1) + fib (n - 2) in fib 25",
+        )
+        .unwrap();
+        let mut budget = crate::budget::Budget::new(&crate::Limits::default());
+        let code = super::compile(program.image(), &mut budget).unwrap();
+        for (pc, i) in code.code.iter().enumerate() {
+            eprintln!("{pc:3} {i:?}");
+        }
+        eprintln!("{:?}", code.funcs);
     }
 }

@@ -153,6 +153,7 @@ impl<F> Frame<F> {
             top: self.top,
             dst: self.dst,
             site: self.site,
+            same: self.same,
             closure,
         })
     }

@@ -19,7 +19,7 @@ use crate::image::{INode, Image, NONE};
 use crate::machines::runtime::host::host_call;
 use crate::machines::runtime::prims::{int_prim, int_test, prim_contraction};
 use crate::machines::runtime::value::{
-    data_field, values_bytes_for, Closure, ConCell, Value, Values,
+    cut, data_field, values_bytes_for, Closure, ConCell, Value, Values,
 };
 use crate::{Prim, Rule};
 
@@ -35,8 +35,13 @@ pub(super) enum Leave {
     Done(Result<Val, Halt>),
 }
 
-/// Arguments of one call, kept inline for the usual few.
-type Args = SmallVec<[Val; 8]>;
+/// The arguments of a call: one value, or operands of the caller.
+enum Pass {
+    One(Val),
+    Srcs { at: u32, m: u8 },
+    /// Read already (a tail call's), into the caller's list.
+    Gathered,
+}
 
 /// Where a call's value goes: a register of the caller and the pc after
 /// the call, or (a tail call) the caller's own caller.
@@ -68,6 +73,19 @@ impl VmRun {
                 Some(&Konst::Data(d)) => Value::Data(d),
                 None => Value::Int(0),
             },
+        }
+    }
+
+    /// The value of operand `src` in the frame whose registers start at
+    /// `base` (of the current closure).
+    #[inline(always)]
+    fn read_in(&self, code: &Code, src: Src, base: u32) -> Val {
+        match src.get() {
+            Operand::Reg(r) => match self.regs.get((base + r) as usize) {
+                Some(v) => v.clone(),
+                None => Value::Int(0),
+            },
+            _ => self.read(code, src),
         }
     }
 
@@ -453,10 +471,10 @@ impl VmRun {
                     let rule = Self::rule_of(code, &fv);
                     match fv {
                         Value::Fun(c) if Self::wants(code, &c) == u32::from(m) => {
-                            let values = self.args(code, args, m);
                             let site = origin(code, pc);
                             let after = pc + 1 + 2 * u32::from(m);
-                            try_or_fail!(self.enter::<M>(code, c, values, Ret::To { dst, pc: after }, site));
+                            let pass = Pass::Srcs { at: args, m };
+                            try_or_fail!(self.enter::<M>(code, c, pass, Ret::To { dst, pc: after }, site));
                             recount!(rule);
                         }
                         _ => return Leave::Bail,
@@ -471,40 +489,49 @@ impl VmRun {
                     let rule = Self::rule_of(code, &fv);
                     match fv {
                         Value::Fun(c) if Self::wants(code, &c) == u32::from(m) => {
-                            let values = self.args(code, args, m);
                             let site = origin(code, pc);
-                            try_or_fail!(self.enter::<M>(code, c, values, Ret::Tail, site));
+                            let pass = Pass::Srcs { at: args, m };
+                            try_or_fail!(self.enter::<M>(code, c, pass, Ret::Tail, site));
                             recount!(rule);
                         }
                         _ => return Leave::Bail,
                     }
                 }
-                Instr::SelfCall { dst, args, m } => {
+                Instr::SelfCall {
+                    dst,
+                    args,
+                    m,
+                    entry,
+                } => {
                     let rule = if m == 1 { Rule::BetaRec } else { Rule::Beta };
                     take!(rule);
-                    let Value::Fun(c) = self.read(code, Src::reg(0)) else {
-                        return Leave::Done(Err(broken("a self that is no closure")));
-                    };
-                    let values = self.args(code, args, m);
-                    let site = origin(code, pc);
-                    try_or_fail!(self.enter::<M>(code, c, values, Ret::To { dst, pc: pc + 1 }, site));
+                    try_or_fail!(self.self_call::<M>(code, args, m, dst, entry));
                 }
-                Instr::SelfTail { args, m } => {
+                Instr::SelfTail { args, m, entry } => {
                     let rule = if m == 1 { Rule::BetaRec } else { Rule::Beta };
                     take!(rule);
-                    let values = self.args(code, args, m);
-                    let base = self.base as usize + 1;
-                    for (i, v) in values.into_iter().enumerate() {
-                        if let Some(slot) = self.regs.get_mut(base + i) {
-                            *slot = v;
+                    let mut values: [Val; 4] = [Value::Int(0), Value::Int(0), Value::Int(0), Value::Int(0)];
+                    let srcs = self.srcs(code, args, m);
+                    if srcs.len() <= values.len() {
+                        for (slot, &src) in values.iter_mut().zip(srcs) {
+                            *slot = self.read(code, src);
+                        }
+                        let base = self.base as usize + 1;
+                        if let Some(params) = self.regs.get_mut(base..base + srcs.len()) {
+                            for (p, v) in params.iter_mut().zip(values) {
+                                *p = v;
+                            }
+                        }
+                    } else {
+                        let values: SmallVec<[Val; 8]> = srcs.iter().map(|&s| self.read(code, s)).collect();
+                        let base = self.base as usize + 1;
+                        for (i, v) in values.into_iter().enumerate() {
+                            if let Some(slot) = self.regs.get_mut(base + i) {
+                                *slot = v;
+                            }
                         }
                     }
                     self.site = origin(code, pc);
-                    let entry = self
-                        .closure
-                        .as_ref()
-                        .and_then(|c| code.funcs.get(c.code as usize))
-                        .map_or(NONE, |f| f.entry);
                     self.pc = entry;
                 }
                 Instr::SpineStart { f, m, acc } => {
@@ -541,9 +568,9 @@ impl VmRun {
                         let Value::Fun(c) = fv else {
                             return Leave::Done(Err(broken("a saturated spine of no closure")));
                         };
-                        let values = self.args(code, args, m);
                         let site = origin(code, pc);
-                        try_or_fail!(self.enter::<M>(code, c, values, ret, site));
+                        let pass = Pass::Srcs { at: args, m };
+                        try_or_fail!(self.enter::<M>(code, c, pass, ret, site));
                         continue;
                     }
                     let rule = Self::rule_of(code, &fv);
@@ -601,18 +628,6 @@ impl VmRun {
     fn prim<const M: bool>(&mut self, image: &Image, op: Prim, args: &[Val]) -> Result<Val, Halt> {
         let held = if M { self.held() } else { 0 };
         prim_contraction(op, args, image, &self.tags, &mut self.budget, held)
-    }
-
-    /// The values of a call's `m` arguments, the operands from `at`.
-    #[inline(always)]
-    fn args(&self, code: &Code, at: u32, m: u8) -> Args {
-        let at = at as usize;
-        code.srcs
-            .get(at..at + usize::from(m))
-            .unwrap_or(&[])
-            .iter()
-            .map(|&s| self.read(code, s))
-            .collect()
     }
 
     /// Whether the spine whose registers start at `acc` is saturated.
@@ -696,9 +711,7 @@ impl VmRun {
     ) -> Result<(), Halt> {
         let pc = self.pc;
         if Self::wants(code, &c) <= 1 {
-            let mut args = Args::new();
-            args.push(a);
-            return self.enter::<M>(code, c, args, ret, origin(code, pc));
+            return self.enter::<M>(code, c, Pass::One(a), ret, origin(code, pc));
         }
         // A partial application: the closure's values, its self if it is
         // a recursive function's own, then the argument.
@@ -724,14 +737,15 @@ impl VmRun {
         Ok(())
     }
 
-    /// Enter the body of closure `c` with its last `args`, called at `site`:
-    /// a new frame above the current one, or (a tail call) in its place.
-    /// Nothing is changed if the stacks cannot grow within the limit.
+    /// Enter the body of closure `c` with its last arguments `args`, called
+    /// at `site`: a new frame above the current one, or (a tail call) in its
+    /// place. Nothing is changed if the stacks cannot grow within the limit.
+    #[inline]
     fn enter<const M: bool>(
         &mut self,
         code: &Code,
         c: Rc<Fun>,
-        args: Args,
+        args: Pass,
         ret: Ret,
         site: u32,
     ) -> Result<(), Halt> {
@@ -744,63 +758,152 @@ impl VmRun {
         };
         let top = base as usize + f.frame as usize;
         if M {
-            if let Ret::To { .. } = ret {
-                if self.frames.len() == self.frames.capacity() {
-                    let held = self.held();
-                    grow(&mut self.frames, 1, held, &mut self.budget)?;
-                }
-            }
-            if top > self.regs.capacity() {
-                if top >= u32::MAX as usize {
-                    return Err(Halt::Memory);
-                }
-                // Doubling from a power of two (see `even`), so that a run
-                // grows its stack at the same points whatever room a reused
-                // machine's stack had.
-                let held = self.held();
-                let extra = top - self.regs.len();
-                grow(&mut self.regs, extra, held, &mut self.budget)?;
+            let full = matches!(ret, Ret::To { .. }) && self.frames.len() == self.frames.capacity();
+            if full || top > self.regs.capacity() {
+                self.grow_stacks(full, top)?;
             }
             self.work::<M>(f.frame as usize)?;
         }
-        match ret {
+        // A tail call's arguments are read before its caller's frame goes.
+        let mut gathered: SmallVec<[Val; 4]> = SmallVec::new();
+        let args = match (ret, args) {
+            (Ret::Tail, Pass::Srcs { at, m }) => {
+                gathered.extend(self.srcs(code, at, m).iter().map(|&s| self.read(code, s)));
+                Pass::Gathered
+            }
+            (_, args) => args,
+        };
+        let caller = self.base;
+        if let Ret::Tail = ret {
+            cut(&mut self.regs, base as usize);
+        }
+        if c.applied != 0 {
+            // A partial application holds its self (if recursive) and its
+            // arguments after the function's captured values.
+            if let Some(bound) = c.captured.get(f.captured as usize..) {
+                for v in bound {
+                    self.regs.push(v.clone());
+                }
+            }
+        } else if f.rec {
+            self.regs.push(Value::Fun(Rc::clone(&c)));
+        }
+        match args {
+            Pass::One(v) => self.regs.push(v),
+            Pass::Srcs { at, m } => {
+                for &src in self.srcs(code, at, m) {
+                    // Read in the caller's frame, which is still in place.
+                    let v = self.read_in(code, src, caller);
+                    self.regs.push(v);
+                }
+            }
+            Pass::Gathered => self.regs.extend(gathered),
+        }
+        let same = match ret {
             Ret::To { dst, pc } => {
+                // A call of the current closure (a function calling itself)
+                // keeps it: the frame only notes that it is the same.
+                let same = self.closure.as_ref().is_some_and(|k| Rc::ptr_eq(k, &c));
                 self.frames.push(Frame {
                     ret: pc,
                     base: self.base,
                     top: self.top,
                     dst,
                     site: self.site,
-                    closure: self.closure.take(),
+                    same,
+                    closure: if same { None } else { self.closure.take() },
                 });
+                same
             }
-            Ret::Tail => self.regs.truncate(base as usize),
-        }
-        if c.applied == 0 {
-            if f.rec {
-                self.regs.push(Value::Fun(Rc::clone(&c)));
-            }
-        } else if let Some(bound) = c.captured.get(f.captured as usize..) {
-            // A partial application holds its self (if recursive) and its
-            // arguments after the function's captured values.
-            for v in bound {
-                self.regs.push(v.clone());
-            }
-        }
-        self.regs.extend(args);
-        self.regs.resize(top, Value::Int(0));
+            Ret::Tail => false,
+        };
+        fill(&mut self.regs, top);
         self.base = base;
         self.top = top as u32;
-        self.closure = Some(c);
+        if !same {
+            self.closure = Some(c);
+        }
         self.site = site;
         self.pc = f.entry;
+        Ok(())
+    }
+
+    /// A call of the current function's own self (register 0) on the `m`
+    /// operands from `at`, its value to `dst`: a frame of the same size
+    /// above the current one, which keeps the current closure (its code and
+    /// captured values are the callee's).
+    #[inline(always)]
+    fn self_call<const M: bool>(&mut self, code: &Code, at: u32, m: u8, dst: Reg, entry: u32) -> Result<(), Halt> {
+        let caller = self.base as usize;
+        let base = self.top as usize;
+        let frame = base - caller;
+        let top = base + frame;
+        if M && (self.frames.len() == self.frames.capacity() || top > self.regs.capacity()) {
+            let full = self.frames.len() == self.frames.capacity();
+            self.grow_stacks(full, top)?;
+            self.work::<M>(frame)?;
+        }
+        let me = match self.regs.get(caller) {
+            Some(me) => me.clone(),
+            None => return Err(broken("a self call with no self")),
+        };
+        self.regs.push(me);
+        for &src in self.srcs(code, at, m) {
+            let v = self.read_in(code, src, caller as u32);
+            self.regs.push(v);
+        }
+        fill(&mut self.regs, top);
+        let pc = self.pc;
+        self.frames.push(Frame {
+            ret: pc + 1,
+            base: caller as u32,
+            top: base as u32,
+            dst,
+            site: self.site,
+            same: true,
+            closure: None,
+        });
+        self.base = base as u32;
+        self.top = top as u32;
+        self.site = origin(code, pc);
+        self.pc = entry;
+        Ok(())
+    }
+
+    /// The `m` operands from `at`.
+    #[inline(always)]
+    fn srcs<'c>(&self, code: &'c Code, at: u32, m: u8) -> &'c [Src] {
+        let at = at as usize;
+        code.srcs.get(at..at + usize::from(m)).unwrap_or(&[])
+    }
+
+    /// Grow the frame stack by one (if `full`) and the registers to `top`,
+    /// within the limit.
+    #[cold]
+    #[inline(never)]
+    fn grow_stacks(&mut self, full: bool, top: usize) -> Result<(), Halt> {
+        if full {
+            let held = self.held();
+            grow(&mut self.frames, 1, held, &mut self.budget)?;
+        }
+        if top > self.regs.capacity() {
+            if top >= u32::MAX as usize {
+                return Err(Halt::Memory);
+            }
+            // Doubling from a power of two (see `even`), so that a run grows
+            // its stack at the same points whatever room a reused machine's
+            // stack had.
+            let held = self.held();
+            let extra = top - self.regs.len();
+            grow(&mut self.regs, extra, held, &mut self.budget)?;
+        }
         Ok(())
     }
 
     /// Return `v` to the frame below.
     #[inline]
     fn ret(&mut self, v: Val) {
-        self.regs.truncate(self.base as usize);
+        cut(&mut self.regs, self.base as usize);
         let Some(frame) = self.frames.pop() else {
             // The bottom frame is never returned from: only `Finish` ends.
             self.pc = FINISH;
@@ -808,7 +911,9 @@ impl VmRun {
         };
         self.base = frame.base;
         self.top = frame.top;
-        self.closure = frame.closure;
+        if !frame.same {
+            self.closure = frame.closure;
+        }
         self.site = frame.site;
         self.set(frame.dst, v);
         self.pc = frame.ret;
@@ -838,6 +943,16 @@ impl VmRun {
                 self.budget.counts.tally(rule);
             }
         }
+    }
+}
+
+/// Fill `regs` up to `top` with placeholders (the registers a frame writes
+/// before it reads them). A loop of pushes: for the few registers a frame
+/// adds, cheaper than `resize` (fib 25: 16M instructions in `resize`).
+#[inline(always)]
+fn fill(regs: &mut Vec<Val>, top: usize) {
+    while regs.len() < top {
+        regs.push(Value::Int(0));
     }
 }
 
