@@ -3,8 +3,8 @@
 //! into metered blocks.
 //!
 //! **Registers.** A function's frame is a window of the register stack:
-//! self (of a `μλ`), its parameters, then its `let`-bound values, case
-//! fields and temporaries, allocated as a stack while its body is compiled
+//! its parameters, then its `let`-bound values, case fields and
+//! temporaries (a `μλ`'s self is the current closure, [`Src::me`]), allocated as a stack while its body is compiled
 //! (a construct's registers are free again once its value is made). A
 //! variable is resolved at compile time to a register, one of the values
 //! its closure captured, or a constant: an operand ([`Src`]) that costs
@@ -53,7 +53,8 @@ pub(super) struct Src(u32);
 pub(super) enum Operand {
     /// A register of the current frame.
     Reg(Reg),
-    /// A value the current closure captured.
+    /// A value the current closure captured (or, [`PAYLOAD`], the closure
+    /// itself: [`Src::me`]).
     Cap(u32),
     /// An integer of 30 bits.
     Int(i32),
@@ -62,7 +63,7 @@ pub(super) enum Operand {
 }
 
 /// The bits of a packed operand that hold its payload.
-const PAYLOAD: u32 = (1 << 30) - 1;
+pub(super) const PAYLOAD: u32 = (1 << 30) - 1;
 
 /// The most registers a frame may have: past it the operands could not
 /// name them, and the compile stops at the memory limit.
@@ -76,6 +77,12 @@ impl Src {
 
     fn cap(slot: u32) -> Src {
         Src(1 << 30 | (slot & PAYLOAD))
+    }
+
+    /// The current closure itself: a `μλ`'s self (the one captured slot no
+    /// closure has).
+    pub(super) fn me() -> Src {
+        Src(1 << 30 | PAYLOAD)
     }
 
     /// `n` as an operand, if it fits in 30 bits.
@@ -344,9 +351,9 @@ struct Compiler<'i, 'b> {
     /// The next free register, and one past the highest used.
     next: Reg,
     frame: Reg,
-    /// The register of the current function's self, if it is a `μλ`, and
-    /// its parameters.
-    me: Option<(Reg, u32)>,
+    /// The current function's parameters, if it is a `μλ` (whose self is
+    /// [`Src::me`]).
+    me: Option<u32>,
     /// The current block's [`Instr::Meter`], while one is open.
     block: Option<usize>,
     /// Where the current function's code starts.
@@ -396,10 +403,15 @@ pub(super) fn compile(image: &Image, budget: &mut Budget) -> Result<Code, Halt> 
         let Some(f) = image.funcs.get(func as usize).copied() else {
             return Err(broken("a closure of no function"));
         };
-        let depth = f.params + u32::from(f.rec);
+        // A `μλ`'s self is the current closure, read as an operand of its
+        // own; the parameters are the first registers.
+        let depth = f.params;
         c.binders.clear();
+        if f.rec {
+            c.binders.push(Src::me());
+        }
         c.binders.extend((0..depth).map(Src::reg));
-        c.me = f.rec.then_some((0, f.params));
+        c.me = f.rec.then_some(f.params);
         let entry = c.code.code.len() as u32;
         c.body(f.body, depth)?;
         c.code.funcs[func as usize] = Function {
@@ -1226,7 +1238,7 @@ impl Compiler<'_, '_> {
                 _ => NONE,
             })
             .collect();
-        let own = matches!((self.me, head.get()), (Some((me, params)), Operand::Reg(r)) if r == me && params == m);
+        let own = head == Src::me() && self.me == Some(m);
         let all_atoms = args.iter().all(|&a| !needs_code(image, a));
         let mark = self.next;
         if own {

@@ -11,7 +11,7 @@ use std::rc::Rc;
 
 use smallvec::SmallVec;
 
-use super::code::{broken, op_prim, Code, Instr, Konst, Operand, Reg, Src, FINISH};
+use super::code::{broken, op_prim, Code, Instr, Konst, Operand, Reg, Src, FINISH, PAYLOAD};
 use super::{Frame, Fun, Val, VmRun};
 use crate::budget::{grow, Halt};
 use crate::error::EvalError;
@@ -60,8 +60,12 @@ impl VmRun {
                 Some(v) => v.clone(),
                 None => Value::Int(0),
             },
-            Operand::Cap(i) => match self.closure.as_ref().and_then(|c| c.captured.get(i as usize)) {
-                Some(v) => v.clone(),
+            Operand::Cap(i) => match &self.closure {
+                Some(c) => match c.captured.get(i as usize) {
+                    Some(v) => v.clone(),
+                    None if i == PAYLOAD => Value::Fun(Rc::clone(c)),
+                    None => Value::Int(0),
+                },
                 None => Value::Int(0),
             },
             Operand::Int(n) => Value::Int(i64::from(n)),
@@ -516,7 +520,7 @@ impl VmRun {
                         for (slot, &src) in values.iter_mut().zip(srcs) {
                             *slot = self.read(code, src);
                         }
-                        let base = self.base as usize + 1;
+                        let base = self.base as usize;
                         if let Some(params) = self.regs.get_mut(base..base + srcs.len()) {
                             for (p, v) in params.iter_mut().zip(values) {
                                 *p = v;
@@ -524,7 +528,7 @@ impl VmRun {
                         }
                     } else {
                         let values: SmallVec<[Val; 8]> = srcs.iter().map(|&s| self.read(code, s)).collect();
-                        let base = self.base as usize + 1;
+                        let base = self.base as usize;
                         for (i, v) in values.into_iter().enumerate() {
                             if let Some(slot) = self.regs.get_mut(base + i) {
                                 *slot = v;
@@ -777,16 +781,24 @@ impl VmRun {
         if let Ret::Tail = ret {
             cut(&mut self.regs, base as usize);
         }
-        if c.applied != 0 {
+        // The closure the body runs in: a `μλ`'s own (its self, which a
+        // partial application holds first), else the one applied.
+        let mut callee = c;
+        if callee.applied != 0 {
             // A partial application holds its self (if recursive) and its
             // arguments after the function's captured values.
-            if let Some(bound) = c.captured.get(f.captured as usize..) {
-                for v in bound {
-                    self.regs.push(v.clone());
-                }
+            let bound = callee.captured.get(f.captured as usize..).unwrap_or(&[]);
+            let (me, bound) = match (f.rec, bound) {
+                (true, [Value::Fun(me), rest @ ..]) => (Some(Rc::clone(me)), rest),
+                (true, _) => return Err(broken("a partial application lost its self")),
+                (false, bound) => (None, bound),
+            };
+            for v in bound {
+                self.regs.push(v.clone());
             }
-        } else if f.rec {
-            self.regs.push(Value::Fun(Rc::clone(&c)));
+            if let Some(me) = me {
+                callee = me;
+            }
         }
         match args {
             Pass::One(v) => self.regs.push(v),
@@ -803,7 +815,7 @@ impl VmRun {
             Ret::To { dst, pc } => {
                 // A call of the current closure (a function calling itself)
                 // keeps it: the frame only notes that it is the same.
-                let same = self.closure.as_ref().is_some_and(|k| Rc::ptr_eq(k, &c));
+                let same = self.closure.as_ref().is_some_and(|k| Rc::ptr_eq(k, &callee));
                 self.frames.push(Frame {
                     ret: pc,
                     base: self.base,
@@ -821,14 +833,14 @@ impl VmRun {
         self.base = base;
         self.top = top as u32;
         if !same {
-            self.closure = Some(c);
+            self.closure = Some(callee);
         }
         self.site = site;
         self.pc = f.entry;
         Ok(())
     }
 
-    /// A call of the current function's own self (register 0) on the `m`
+    /// A call of the current function's own self ([`Src::me`]) on the `m`
     /// operands from `at`, its value to `dst`: a frame of the same size
     /// above the current one, which keeps the current closure (its code and
     /// captured values are the callee's).
@@ -843,11 +855,6 @@ impl VmRun {
             self.grow_stacks(full, top)?;
             self.work::<M>(frame)?;
         }
-        let me = match self.regs.get(caller) {
-            Some(me) => me.clone(),
-            None => return Err(broken("a self call with no self")),
-        };
-        self.regs.push(me);
         for &src in self.srcs(code, at, m) {
             let v = self.read_in(code, src, caller as u32);
             self.regs.push(v);
@@ -903,7 +910,7 @@ impl VmRun {
     /// Return `v` to the frame below.
     #[inline]
     fn ret(&mut self, v: Val) {
-        cut(&mut self.regs, self.base as usize);
+        self.regs.truncate(self.base as usize);
         let Some(frame) = self.frames.pop() else {
             // The bottom frame is never returned from: only `Finish` ends.
             self.pc = FINISH;
