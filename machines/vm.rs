@@ -226,8 +226,6 @@ pub struct VmRun {
     site: Id,
     /// Whether the current block runs per contraction.
     slow: bool,
-    /// The pc of the current block's meter.
-    block: u32,
     /// The program's arguments, once converted, and the next to apply.
     args: Vec<Val>,
     next_arg: usize,
@@ -282,7 +280,6 @@ impl VmRun {
             closure: None,
             site: NONE,
             slow: false,
-            block: 0,
             args: Vec::new(),
             next_arg: 0,
             budget,

@@ -47,7 +47,6 @@ struct Place {
     top: u32,
     site: Id,
     slow: bool,
-    block: u32,
     next_arg: usize,
 }
 
@@ -69,7 +68,6 @@ impl DetachedVm {
                 top: run.top,
                 site: run.site,
                 slow: run.slow,
-                block: run.block,
                 next_arg: run.next_arg,
             },
             program: run.program,
@@ -107,7 +105,6 @@ impl DetachedVm {
             closure: None,
             site: place.site,
             slow: place.slow,
-            block: place.block,
             args: Vec::new(),
             next_arg: place.next_arg,
             budget,

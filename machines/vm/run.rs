@@ -247,7 +247,6 @@ impl VmRun {
                         return Leave::Slow;
                     }
                     self.budget.counts.tally_block(&rules);
-                    self.block = pc;
                     self.pc = pc + 1;
                 }
                 Instr::Move { dst, src } => {
@@ -509,7 +508,7 @@ impl VmRun {
                 } => {
                     let rule = if m == 1 { Rule::BetaRec } else { Rule::Beta };
                     take!(rule);
-                    try_or_fail!(self.self_call::<M>(code, args, m, dst, entry));
+                    try_or_fail!(self.self_call::<M, SLOW>(code, args, m, dst, entry));
                 }
                 Instr::SelfTail { args, m, entry } => {
                     let rule = if m == 1 { Rule::BetaRec } else { Rule::Beta };
@@ -593,6 +592,9 @@ impl VmRun {
                 Instr::Return { src } => {
                     let v = self.read(code, src);
                     self.ret(v);
+                    if !SLOW {
+                        self.pc = self.open::<M>(code, self.pc);
+                    }
                 }
                 Instr::Finish => {
                     let v = match self.regs.first() {
@@ -845,7 +847,7 @@ impl VmRun {
     /// above the current one, which keeps the current closure (its code and
     /// captured values are the callee's).
     #[inline(always)]
-    fn self_call<const M: bool>(&mut self, code: &Code, at: u32, m: u8, dst: Reg, entry: u32) -> Result<(), Halt> {
+    fn self_call<const M: bool, const SLOW: bool>(&mut self, code: &Code, at: u32, m: u8, dst: Reg, entry: u32) -> Result<(), Halt> {
         let caller = self.base as usize;
         let base = self.top as usize;
         let frame = base - caller;
@@ -873,7 +875,7 @@ impl VmRun {
         self.base = base as u32;
         self.top = top as u32;
         self.site = origin(code, pc);
-        self.pc = entry;
+        self.pc = if SLOW { entry } else { self.open::<M>(code, entry) };
         Ok(())
     }
 
@@ -930,18 +932,21 @@ impl VmRun {
     /// of its instructions before the current pc again (they were made):
     /// the slow loop goes on from the current pc.
     pub(super) fn bail<const M: bool>(&mut self, code: &Code) {
-        let Some(&Instr::Meter { cost, rules }) = code.code.get(self.block as usize) else {
+        // The block runs straight from its meter to here: the nearest meter
+        // before the pc opened it.
+        let pc = self.pc as usize;
+        let before = code.code.get(..pc).unwrap_or(&[]);
+        let Some(start) = before.iter().rposition(|i| matches!(i, Instr::Meter { .. })) else {
+            return;
+        };
+        let Some(&Instr::Meter { cost, rules }) = before.get(start) else {
             return;
         };
         if M {
             self.budget.tank.refund(u64::from(cost));
         }
         self.budget.counts.untally_block(&rules);
-        let made = code
-            .code
-            .get(self.block as usize + 1..self.pc as usize)
-            .unwrap_or(&[]);
-        for instr in made {
+        for instr in &before[start + 1..] {
             let (rule, n) = instr.contractions();
             for _ in 0..n {
                 if M {
@@ -950,6 +955,21 @@ impl VmRun {
                 self.budget.counts.tally(rule);
             }
         }
+    }
+
+    /// Where the fast loop goes on at `pc`, a block's meter: past it, its
+    /// block paid for and counted, when the slice holds the block's fuel
+    /// (so a call or a return opens the next block without a dispatch of
+    /// its own); else at the meter, which runs the block per contraction.
+    #[inline(always)]
+    fn open<const M: bool>(&mut self, code: &Code, pc: u32) -> u32 {
+        if let Some(&Instr::Meter { cost, rules }) = code.code.get(pc as usize) {
+            if !M || self.budget.tank.take_block(u64::from(cost)) {
+                self.budget.counts.tally_block(&rules);
+                return pc + 1;
+            }
+        }
+        pc
     }
 }
 
