@@ -11,6 +11,7 @@ only.
 """
 
 import argparse
+import itertools
 import json
 import math
 import os
@@ -29,6 +30,20 @@ def machine_table():
 
 
 MACHINE_ORDER = machine_table()
+
+# The fast machines: every machine of the table but the reference stepper.
+FAST_MACHINES = [m for m in MACHINE_ORDER if m != "stepper"]
+
+# The chart's colours: env, cek and the stepper keep the colours of earlier
+# charts, and every other machine of the table takes the next of the palette
+# in table order (round again if the table outgrows it).
+FIXED_COLOURS = {"env": "#3b7dd8", "cek": "#e08a1e", "stepper": "#6a9f3a"}
+PALETTE = ("#b8408c", "#7a5cc7", "#2a9d8f")
+COLOURS = {**FIXED_COLOURS,
+           **dict(zip((m for m in MACHINE_ORDER if m not in FIXED_COLOURS), itertools.cycle(PALETTE)))}
+
+# The shapes of the `request N rules{shape}` groups of benches/machines.rs.
+REQUEST_SHAPES = ("", " (branches)", " (table)")
 
 
 def load_estimates(root):
@@ -95,16 +110,22 @@ def machines_in(names):
 
 
 def workload_table(estimates, contractions):
-    """Per workload: medians, ratios to rust, cek÷env, stepper÷cek per
-    contraction. Returns the markdown lines and the ratios for the chart."""
+    """Per workload: medians, ratios to rust, the fastest machine, each fast
+    machine ÷ env, stepper÷cek per contraction. Returns the markdown lines
+    and the ratios for the chart."""
     groups = {}
     for (group, function, value), est in estimates.items():
         if value is None:
             groups.setdefault(group, {})[function] = est
     machines = machines_in({f for g in groups.values() if "rust" in g for f in g})
+    # env is the baseline the other fast machines are measured against.
+    against_env = [m for m in machines if m in FAST_MACHINES and m != "env"] if "env" in machines else []
+    step_cek_column = "stepper" in machines and "cek" in machines
     header = ["workload", "rust"] + machines
     header += [f"{m} ÷ rust" for m in machines]
-    header += ["cek ÷ env", "stepper ÷ cek per contraction", "contractions"]
+    header += ["fastest machine"] + [f"{m} ÷ env" for m in against_env]
+    header += ["stepper ÷ cek per contraction"] if step_cek_column else []
+    header += ["contractions"]
     lines = ["| " + " | ".join(header) + " |", "|" + "---|" * len(header)]
     chart = []
     throughput_lines = []
@@ -122,12 +143,16 @@ def workload_table(estimates, contractions):
         ratios = {m: row[m]["median"] / rust if m in row else None for m in machines}
         cells += [ratio(ratios[m]) for m in machines]
         chart.append((group, ratios))
-        cek_env = row["cek"]["median"] / row["env"]["median"] if "cek" in row and "env" in row else None
-        step_cek = per_contraction_ratio(estimates, contractions, group, "stepper", "cek")
+        # Lowest median; a tie goes to the machine first in the table.
+        ran = [m for m in machines if m in row]
+        cells.append(min(ran, key=lambda m: row[m]["median"]) if ran else "–")
+        cells += [ratio(row[m]["median"] / row["env"]["median"] if m in row and "env" in row else None)
+                  for m in against_env]
+        if step_cek_column:
+            cells.append(ratio(per_contraction_ratio(estimates, contractions, group, "stepper", "cek")))
         counts = {contractions.get(full_id(group, m, None)) for m in machines if m in row}
         counts.discard(None)
-        count = ", ".join(str(c) for c in sorted(counts)) or "–"
-        cells += [ratio(cek_env), ratio(step_cek), count]
+        cells.append(", ".join(str(c) for c in sorted(counts)) or "–")
         lines.append("| " + " | ".join(cells) + " |")
         for m in machines:
             est = row.get(m)
@@ -210,16 +235,24 @@ def space_table(root):
     return lines
 
 
+def accounted_machines(estimates, group):
+    """The machines of an `accounting …` group with an `m unaccounted`
+    entry (a `without_accounting` build), in table order."""
+    suffix = " unaccounted"
+    return machines_in({f[:-len(suffix)] for (g, f, v) in estimates
+                        if g == group and v is None and f.endswith(suffix)})
+
+
 def accounting_table(estimates):
-    """env and cek beside their `without_accounting` builds: the share of
-    the run the accounting takes."""
+    """Each machine beside its `without_accounting` build: the share of the
+    run the accounting takes."""
     groups = sorted({g for (g, _f, v) in estimates if g.startswith("accounting ") and v is None},
                     key=workload_order)
     if not groups:
         return []
     lines = ["| workload | machine | accounted | unaccounted | accounting's share |", "|---|---|---|---|---|"]
     for group in groups:
-        for m in MACHINE_ORDER:
+        for m in accounted_machines(estimates, group):
             x, y = median(estimates, group, m), median(estimates, group, f"{m} unaccounted")
             if x and y:
                 lines.append(f"| {group[len('accounting '):]} | {m} | {human_time(x)} | {human_time(y)} "
@@ -251,11 +284,16 @@ def targets(estimates, contractions, root):
         return x / y if x and y else None
 
     for group in ("fib 25", "fib 30", "tak 18 12 6", "tak 24 16 8"):
-        for m in ("env", "cek"):
+        for m in FAST_MACHINES:
             add(f"{group}: {m} within 40× of plain Rust (aim 20×)", over(group, m, "rust"),
                 lambda r: r <= 40, "{:.3g}×")
     for group in ("fib 25", "fib 30", "tak 18 12 6", "tak 24 16 8"):
         add(f"{group}: cek within 1.5× of env", over(group, "cek", "env"), lambda r: r <= 1.5, "{:.3g}×")
+    # Issue 14's targets for the register bytecode machine.
+    for group in ("fib 30", "tak 24 16 8"):
+        add(f"{group}: vm within 20× of plain Rust", over(group, "vm", "rust"), lambda r: r <= 20, "{:.3g}×")
+    for group in ("fib 30", "tak 24 16 8", "queens 8"):
+        add(f"{group}: vm at least 3× faster than env", over(group, "env", "vm"), lambda r: r >= 3, "{:.3g}×")
     for group in ("tak 18 12 6", "fib 25"):
         add(f"{group}: stepper within 50× of cek per contraction",
             per_contraction_ratio(estimates, contractions, group, "stepper", "cek"),
@@ -282,12 +320,26 @@ def targets(estimates, contractions, root):
         if runs and function != "rust":
             add(f"{group}: {function} under 1 µs per run", est["median"] / runs / 1e3,
                 lambda us: us < 1, "{:.3g} µs")
+    watering = estimates.get(("watering plan x10^4", "vm", None))
+    vm_runs = ((watering or {}).get("throughput") or {}).get("Elements")
+    add("watering plan x10^4: vm at most 200 ns per run", watering["median"] / vm_runs if vm_runs else None,
+        lambda ns: ns <= 200, "{:.3g} ns")
+    # Per request, the size of the rule set must not matter: the shapes the
+    # bench defines, and any other `request N rules{shape}` group of the run.
+    hits = (re.fullmatch(r"request \d+ rules(.*)", g) for (g, _f, _v) in estimates)
+    found = {hit.group(1) for hit in hits if hit}
+    for shape in list(REQUEST_SHAPES) + sorted(found - set(REQUEST_SHAPES)):
+        for m in FAST_MACHINES:
+            big = median(estimates, f"request 1000 rules{shape}", m)
+            small = median(estimates, f"request 10 rules{shape}", m)
+            add(f"request 1000 rules{shape} ÷ request 10 rules{shape} on {m} at most 1.5×",
+                big / small if big and small else None, lambda r: r <= 1.5, "{:.3g}×")
     for row in load_tsv(os.path.join(root, "space.tsv")):
         if len(row) == 7:
             add(f"10^7-iteration tail loop on {row[0]}: peak RSS under 32 MiB",
                 int(row[2]) / 2**20, lambda mib: mib < 32, "{:.1f} MiB")
     for group in sorted({g for (g, f, _v) in estimates if g.startswith("accounting ")}):
-        for m in ("env", "cek"):
+        for m in accounted_machines(estimates, group):
             x, y = median(estimates, group, m), median(estimates, group, f"{m} unaccounted")
             add(f"{group}: {m}'s fuel and memory accounting under 5% of the run",
                 (x - y) / x * 100 if x and y else None, lambda pct: pct < 5, "{:.1f}%")
@@ -308,7 +360,6 @@ def svg_chart(chart, path):
     """Horizontal bars, one per workload and machine, on a log scale of the
     ratio to plain Rust."""
     machines = machines_in({m for _, r in chart for m in r if r[m] is not None})
-    colours = {"env": "#3b7dd8", "cek": "#e08a1e", "stepper": "#6a9f3a"}
     values = [r[m] for _, r in chart for m in machines if r.get(m)]
     if not values:
         return
@@ -341,13 +392,13 @@ def svg_chart(chart, path):
             v = ratios.get(m)
             if v:
                 out.append(f'<rect x="{left}" y="{y}" width="{x(v) - left:.1f}" height="{bar - 2}" '
-                           f'fill="{colours.get(m, "#888")}"><title>{m}: {v:.3g}×</title></rect>')
+                           f'fill="{COLOURS.get(m, "#888")}"><title>{m}: {v:.3g}×</title></rect>')
                 out.append(f'<text x="{x(v) + 3:.1f}" y="{y + bar - 3}" font-size="9">{v:.3g}</text>')
             y += bar
         y += gap
     lx = left
     for m in machines:
-        out.append(f'<rect x="{lx}" y="{height - 14}" width="10" height="10" fill="{colours.get(m, "#888")}"/>')
+        out.append(f'<rect x="{lx}" y="{height - 14}" width="10" height="10" fill="{COLOURS.get(m, "#888")}"/>')
         out.append(f'<text x="{lx + 14}" y="{height - 5}">{m}</text>')
         lx += 80
     out.append("</svg>")
