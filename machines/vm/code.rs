@@ -1246,8 +1246,11 @@ impl Compiler<'_, '_> {
             // applications before the last only count.
             let at = self.pending.len() as u32;
             let mut later = Vec::new();
+            // The call's destination is written only when it returns: its
+            // first argument that needs code can be made there.
+            let mut reuse = into(dest);
             for (k, (&app, &arg)) in apps.iter().zip(&args).enumerate() {
-                let src = self.operand(arg, &mut later)?;
+                let src = self.operand_into(arg, &mut reuse, &mut later)?;
                 self.push_pending(src)?;
                 later.push(Job::Step {
                     app,
@@ -1264,7 +1267,8 @@ impl Compiler<'_, '_> {
         if m == 1 && needs_code(image, args[0]) {
             let at = self.pending.len() as u32;
             let mut later = Vec::new();
-            let src = self.operand(args[0], &mut later)?;
+            let mut reuse = into(dest);
+            let src = self.operand_into(args[0], &mut reuse, &mut later)?;
             self.push_pending(src)?;
             self.push_pending(head)?;
             self.push_job(Job::Unbind { n: 0, mark })?;
@@ -1430,6 +1434,14 @@ impl Compiler<'_, '_> {
         )?;
         self.close_block();
         Ok(())
+    }
+}
+
+/// The register a construct's value goes to, if not back to the caller.
+fn into(dest: Dest) -> Option<Reg> {
+    match dest {
+        Dest::Reg(r) => Some(r),
+        Dest::Tail => None,
     }
 }
 
