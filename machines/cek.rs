@@ -49,14 +49,14 @@ use std::rc::Rc;
 
 use super::runtime::host::{cells_bytes, from_datum, host_call};
 use super::runtime::prims::{int_prim, int_test, prim_contraction};
+use super::runtime::end::{self, End};
 use super::runtime::readback::read_back;
 use super::runtime::value::{cut, data_field, recycle, Closure, ConCell, Meter, Value, Values};
-use crate::budget::{growth, reserve_within, Budget, Ended, Halt};
-use crate::error::Fault;
+use crate::budget::{growth, reserve_within, Budget, Halt};
 use crate::image::{Capture, INode, Id, Image, Tags, NONE};
 use crate::span::{Location, Trail};
 use crate::vocabulary::{Build, Detached, Machine, Paused};
-use crate::{Counts, Datum, EvalError, Limits, Outcome, Prim, Program, Report, Rule};
+use crate::{Counts, Datum, EvalError, Limits, Prim, Program, Report, Rule};
 
 /// A runtime value of this machine: a closure's code is its function's index
 /// in the image.
@@ -451,15 +451,6 @@ enum Control<V = Val> {
     Return(V),
 }
 
-/// How a run ended, kept so that a finished run reports the same outcome
-/// however often it is asked.
-enum End {
-    /// The value, read back.
-    Value(crate::Value),
-    /// How it ended, and where ([`None`] for a fault).
-    Ended(Ended, Option<Location>),
-}
-
 /// The state of one CEK run: control, environment, continuation, and the
 /// fuel, counts and memory accounting. When the fuel runs out the run
 /// pauses just before the contraction it could not pay for, and
@@ -538,15 +529,7 @@ impl CekRun {
         scratch: SpareStacks,
         metered: bool,
     ) -> Self {
-        let budget = if metered {
-            Budget::new(limits)
-        } else {
-            Budget::new(
-                &Limits::default()
-                    .with_fuel(u64::MAX)
-                    .with_memory(usize::MAX),
-            )
-        };
+        let budget = Budget::for_run(limits, metered);
         let tags = Tags::default();
         let fixed = tags.bytes();
         CekRun {
@@ -653,26 +636,17 @@ impl CekRun {
                     Some(self.read_back(value))
                 }
                 Err(halt) => {
-                    let located = !matches!(halt, Halt::Fault(_));
-                    halt.ended(self.budget.limit()).map(|ended| {
-                        let location = located.then(|| self.location());
+                    let end = End::of_halt(halt, &self.budget, || self.location());
+                    if end.is_some() {
                         self.clear();
-                        End::Ended(ended, location)
-                    })
+                    }
+                    end
                 }
             };
         }
-        let (outcome, location) = match &self.end {
-            None => (self.budget.paused(), Some(self.location())),
-            Some(End::Value(value)) => (Outcome::Value(value.clone()), None),
-            Some(End::Ended(ended, location)) => (ended.outcome(), location.clone()),
-        };
+        let report = end::report(&self.end, &self.budget, || self.location());
         self.cells = self.meter.cells();
-        Report {
-            outcome,
-            counts: self.budget.counts,
-            location,
-        }
+        report
     }
 
     /// Where the run stands (stopped by an error or a limit, or paused), as
@@ -746,15 +720,7 @@ impl CekRun {
             &mut self.budget,
             held,
         );
-        match read {
-            Ok(value) => End::Value(value),
-            // Every contraction was made: no redex, and no call pending.
-            Err(halt) => match halt.ended(self.budget.limit()) {
-                Some(ended @ Ended::Fault(_)) => End::Ended(ended, None),
-                Some(ended) => End::Ended(ended, Some(Location::default())),
-                None => End::Ended(Ended::Fault(Fault::new("read-back asked for fuel")), None),
-            },
-        }
+        End::of_read_back(read, &self.budget)
     }
 
     /// The contractions made so far, per rule.

@@ -49,10 +49,10 @@ use code::{compile, Code, FINISH};
 use run::Leave;
 
 use super::runtime::host::{cells_bytes, from_datum};
+use super::runtime::end::{self, End};
 use super::runtime::readback::read_back;
 use super::runtime::value::{recycle, Closure, Meter, Value};
-use crate::budget::{grow, Budget, Ended, Halt};
-use crate::error::Fault;
+use crate::budget::{grow, Budget, Halt};
 use crate::image::{Id, Tags, NONE};
 use crate::span::{Location, Trail};
 use crate::vocabulary::{Build, Detached, Machine, Paused};
@@ -157,7 +157,7 @@ impl Machine for Vm {
         let spare = std::mem::take(&mut self.spare);
         let mut run = VmRun::new(program, limits, self.metered, spare);
         let report = run.resume(0);
-        self.peak = run.peak_bytes();
+        self.peak = run.budget.peak;
         self.spare = run.into_spare();
         report
     }
@@ -184,13 +184,6 @@ impl Build for Vm {
     }
 }
 
-/// How a run ended, kept so that a finished run reports the same outcome
-/// however often it is asked.
-enum End {
-    Value(crate::Value),
-    Ended(Ended, Option<Location>),
-}
-
 /// The state of one vm run: the program's code, the registers and frames,
 /// the pc, and the fuel, counts and memory accounting. Out of fuel, it
 /// pauses just before the contraction it could not pay for, and
@@ -202,7 +195,7 @@ enum End {
 ///
 /// ```
 /// use orrery::machines::vm::Vm;
-/// use orrery::{Limits, Outcome, Program};
+/// use orrery::{Limits, Outcome, Paused, Program};
 /// let program = Program::parse("let rec drift n = drift (n + 1) in drift 0").unwrap();
 /// let mut run = Vm::start(&program, &Limits::default().with_fuel(0));
 /// for _ in 0..3 {
@@ -258,15 +251,7 @@ impl VmRun {
         metered: bool,
         spare: (Vec<[usize; 2]>, Vec<[usize; 4]>),
     ) -> Self {
-        let budget = if metered {
-            Budget::new(limits)
-        } else {
-            Budget::new(
-                &Limits::default()
-                    .with_fuel(u64::MAX)
-                    .with_memory(usize::MAX),
-            )
-        };
+        let budget = Budget::for_run(limits, metered);
         let tags = Tags::default();
         let fixed = tags.bytes();
         VmRun {
@@ -340,88 +325,17 @@ impl VmRun {
                     Some(self.read_back(value))
                 }
                 Err(halt) => {
-                    let located = !matches!(halt, Halt::Fault(_));
-                    halt.ended(self.budget.limit()).map(|ended| {
-                        let location = located.then(|| self.location());
+                    let end = End::of_halt(halt, &self.budget, || self.location());
+                    if end.is_some() {
                         self.clear();
-                        End::Ended(ended, location)
-                    })
+                    }
+                    end
                 }
             };
         }
-        let (outcome, location) = match &self.end {
-            None => (self.budget.paused(), Some(self.location())),
-            Some(End::Value(value)) => (crate::Outcome::Value(value.clone()), None),
-            Some(End::Ended(ended, location)) => (ended.outcome(), location.clone()),
-        };
+        let report = end::report(&self.end, &self.budget, || self.location());
         self.cells = self.meter.cells();
-        Report {
-            outcome,
-            counts: self.budget.counts,
-            location,
-        }
-    }
-
-    /// The contractions made so far, per rule.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// use orrery::machines::vm::Vm;
-    /// use orrery::{Limits, Program};
-    /// let run = Vm::start(&Program::parse("1").unwrap(), &Limits::default());
-    /// assert_eq!(run.counts().total(), 0);
-    /// ```
-    pub fn counts(&self) -> Counts {
-        self.budget.counts
-    }
-
-    /// The fuel left.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// use orrery::machines::vm::Vm;
-    /// use orrery::{Limits, Program};
-    /// let run = Vm::start(&Program::parse("1").unwrap(), &Limits::default().with_fuel(9));
-    /// assert_eq!(run.fuel_left(), 9);
-    /// ```
-    pub fn fuel_left(&self) -> u64 {
-        self.budget.fuel_left()
-    }
-
-    /// Whether the run has ended; a paused run has not.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// use orrery::machines::vm::Vm;
-    /// use orrery::{Limits, Program};
-    /// let mut run = Vm::start(&Program::parse("1").unwrap(), &Limits::default());
-    /// assert!(!run.is_finished());
-    /// run.resume(0);
-    /// assert!(run.is_finished());
-    /// ```
-    pub fn is_finished(&self) -> bool {
-        self.end.is_some()
-    }
-
-    /// The most memory this run has held at once, in bytes, as the memory
-    /// limit counts it: the register and frame stacks by capacity, the
-    /// cells it holds, the tags it made up, what its read-back built, and,
-    /// while it compiled the program, the code and the compiler's lists.
-    ///
-    /// # Examples
-    ///
-    /// ```
-    /// use orrery::machines::vm::Vm;
-    /// use orrery::{Limits, Program};
-    /// let mut run = Vm::start(&Program::parse("1").unwrap(), &Limits::default());
-    /// run.resume(0);
-    /// assert!(run.peak_bytes() <= Limits::default().memory);
-    /// ```
-    pub fn peak_bytes(&self) -> usize {
-        self.budget.peak
+        report
     }
 
     /// Compile the program (once for all runs), load its arguments, and run.
@@ -545,14 +459,7 @@ impl VmRun {
             &mut self.budget,
             held,
         );
-        match read {
-            Ok(value) => End::Value(value),
-            Err(halt) => match halt.ended(self.budget.limit()) {
-                Some(ended @ Ended::Fault(_)) => End::Ended(ended, None),
-                Some(ended) => End::Ended(ended, Some(Location::default())),
-                None => End::Ended(Ended::Fault(Fault::new("read-back asked for fuel")), None),
-            },
-        }
+        End::of_read_back(read, &self.budget)
     }
 }
 
@@ -573,19 +480,23 @@ impl Paused for VmRun {
     }
 
     fn counts(&self) -> Counts {
-        VmRun::counts(self)
+        self.budget.counts
     }
 
     fn fuel_left(&self) -> u64 {
-        VmRun::fuel_left(self)
+        self.budget.fuel_left()
     }
 
     fn is_finished(&self) -> bool {
-        VmRun::is_finished(self)
+        self.end.is_some()
     }
 
+    /// The most memory this run has held at once, as the memory limit
+    /// counts it: the register and frame stacks by capacity, the cells it
+    /// holds, the tags it made up, what its read-back built, and, while it
+    /// compiled the program, the code and the compiler's lists.
     fn peak_bytes(&self) -> usize {
-        VmRun::peak_bytes(self)
+        self.budget.peak
     }
 
     fn answer(&mut self, answer: crate::Answer) {
@@ -593,7 +504,7 @@ impl Paused for VmRun {
     }
 
     fn snapshot(&self) -> crate::Snapshot {
-        crate::Snapshot::of("vm", &self.program, &self.budget, VmRun::is_finished(self))
+        crate::Snapshot::of("vm", &self.program, &self.budget, self.end.is_some())
     }
 
     fn detach(self: Box<Self>) -> Detached {

@@ -236,6 +236,20 @@ impl Budget {
         }
     }
 
+    /// The budget of a run under `limits`, or, `metered` false (the
+    /// benchmark-only builds without accounting), of one with no limit.
+    pub(crate) fn for_run(limits: &Limits, metered: bool) -> Self {
+        if metered {
+            Budget::new(limits)
+        } else {
+            Budget::new(
+                &Limits::default()
+                    .with_fuel(u64::MAX)
+                    .with_memory(usize::MAX),
+            )
+        }
+    }
+
     /// What a pause is: a wait on a suspended host call, or the end of the
     /// fuel.
     pub(crate) fn paused(&self) -> Outcome {

@@ -9,10 +9,11 @@
 //! site and entry, an ended run's location) is plain already and goes
 //! along unchanged.
 
-use super::{CekRun, ContinuationFrame, Control, End, Environment};
+use super::{CekRun, ContinuationFrame, Control, Environment};
+use crate::machines::runtime::end::End;
 use crate::budget::{Budget, Halt};
 use crate::image::{Id, Tags};
-use crate::machines::runtime::plain::{detach_fault, translate_values, Attacher, Cells, Detacher, Plain, Translate};
+use crate::machines::runtime::plain::{translate_values, Attacher, Cells, Detacher, Plain, Translate};
 use crate::machines::runtime::value::Meter;
 use crate::vocabulary::{DetachedRun, Paused};
 use crate::Program;
@@ -121,7 +122,7 @@ impl DetachedRun for DetachedCek {
 
 /// How a halt while detaching or attaching ends the run.
 fn ended(halt: Halt) -> End {
-    End::Ended(detach_fault(halt, "cek"), None)
+    End::of_detach(halt, "cek")
 }
 
 impl State {

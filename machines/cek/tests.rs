@@ -9,6 +9,7 @@
 //! table, in `tests/`.
 
 use super::*;
+use crate::Outcome;
 use crate::{parse, Arena, Cancel, LimitError, LimitKind, Term};
 
 /// Gabriel's tak, curried: in the body z is #0, y #1, x #2, tak #3.

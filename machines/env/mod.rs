@@ -137,15 +137,7 @@ impl Machine for Env {
     }
 
     fn run(&mut self, program: &Program, limits: &Limits) -> Report {
-        let mut budget = if self.metered {
-            Budget::new(limits)
-        } else {
-            Budget::new(
-                &Limits::default()
-                    .with_fuel(u64::MAX)
-                    .with_memory(usize::MAX),
-            )
-        };
+        let mut budget = Budget::for_run(limits, self.metered);
         let (result, trail) = self.evaluate(program, &mut budget);
         self.peak = budget.peak;
         let (outcome, location) = match result {

@@ -7,6 +7,7 @@
 //! | [`prims`] | primitive contractions over values, integer shortcuts | the `prim` rule, data-sized fuel, chunked string work |
 //! | [`host`] | the host-call contraction, values to and from data | host functions |
 //! | [`readback`] | values to closed terms | a run's result, under the memory limit |
+//! | [`end`] | a run's end and its report, kept once made | the machines that pause |
 //! | [`plain`] | values as plain data and back, cells numbered once | moving a paused run to another thread |
 //!
 //! The functions and free variables these values are built on are found
@@ -16,6 +17,7 @@
 // part of it unused.
 #![cfg_attr(not(all(feature = "env", feature = "cek")), allow(dead_code))]
 
+pub(crate) mod end;
 pub(crate) mod host;
 pub(crate) mod plain;
 pub(crate) mod prims;

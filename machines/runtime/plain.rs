@@ -11,19 +11,8 @@ use std::rc::Rc;
 use hashbrown::HashMap;
 
 use super::value::{Closure, ConCell, Text, Value, Values};
-use crate::budget::{Ended, Halt};
-use crate::error::Fault;
+use crate::budget::Halt;
 use crate::image::{Id, TagId};
-
-/// How a halt while detaching or attaching a run of `machine` ends it (a
-/// broken invariant: the walks pay no fuel and ask for no memory).
-pub(crate) fn detach_fault(halt: Halt, machine: &str) -> Ended {
-    halt.ended(usize::MAX).unwrap_or_else(|| {
-        Ended::Fault(Fault::new(format!(
-            "in the {machine} machine: detaching ran out of fuel"
-        )))
-    })
-}
 
 /// A runtime value of the machines whose closures are function indices.
 type Val = Value<u32>;

@@ -443,40 +443,24 @@ impl Compiler<'_, '_> {
             + (self.labels.capacity() + self.queue.capacity()) * size_of::<u32>()
     }
 
-    /// Grow `v` for one more element within the limit.
-    fn reserve<T>(v: &mut Vec<T>, held: usize, budget: &mut Budget) -> Result<(), Halt> {
-        if v.len() == v.capacity() {
-            grow(v, 1, held, budget)?;
-        }
-        Ok(())
-    }
-
     fn push_job(&mut self, job: Job) -> Result<(), Halt> {
         let held = self.held();
-        Self::reserve(&mut self.jobs, held, self.budget)?;
-        self.jobs.push(job);
-        Ok(())
+        push_within(&mut self.jobs, job, held, self.budget)
     }
 
     fn push_pending(&mut self, src: Src) -> Result<(), Halt> {
         let held = self.held();
-        Self::reserve(&mut self.pending, held, self.budget)?;
-        self.pending.push(src);
-        Ok(())
+        push_within(&mut self.pending, src, held, self.budget)
     }
 
     fn push_label(&mut self, pc: u32) -> Result<(), Halt> {
         let held = self.held();
-        Self::reserve(&mut self.labels, held, self.budget)?;
-        self.labels.push(pc);
-        Ok(())
+        push_within(&mut self.labels, pc, held, self.budget)
     }
 
     fn push_binder(&mut self, src: Src) -> Result<(), Halt> {
         let held = self.held();
-        Self::reserve(&mut self.binders, held, self.budget)?;
-        self.binders.push(src);
-        Ok(())
+        push_within(&mut self.binders, src, held, self.budget)
     }
 
     /// Emit `instr`, compiled from `node`; an instruction that makes a
@@ -504,13 +488,11 @@ impl Compiler<'_, '_> {
     }
 
     fn push_instr(&mut self, instr: Instr, node: Id) -> Result<u32, Halt> {
-        let held = self.held();
-        Self::reserve(&mut self.code.code, held, self.budget)?;
-        let held = self.held();
-        Self::reserve(&mut self.code.origin, held, self.budget)?;
         let pc = self.code.code.len() as u32;
-        self.code.code.push(instr);
-        self.code.origin.push(node);
+        let held = self.held();
+        push_within(&mut self.code.code, instr, held, self.budget)?;
+        let held = self.held();
+        push_within(&mut self.code.origin, node, held, self.budget)?;
         Ok(pc)
     }
 
@@ -625,8 +607,7 @@ impl Compiler<'_, '_> {
             _ => return Ok(None),
         };
         let held = self.held();
-        Self::reserve(&mut self.code.konsts, held, self.budget)?;
-        self.code.konsts.push(konst);
+        push_within(&mut self.code.konsts, konst, held, self.budget)?;
         Ok(Some(Src::konst(self.code.konsts.len() as u32 - 1)))
     }
 
@@ -815,22 +796,16 @@ impl Compiler<'_, '_> {
                 self.closure(func, dst, node)?;
             }
             INode::Lam { .. } => return Err(broken("a λ inside a chain, alone")),
-            INode::Prim(op, start) => {
+            INode::Prim(..) | INode::Con(..) => {
+                let operands = match n {
+                    INode::Prim(op, start) => image.operands(op, start),
+                    INode::Con(_, start, len) => image.list(start, len),
+                    _ => &[],
+                };
                 let at = self.pending.len() as u32;
                 let mark = self.next;
                 let mut reuse = Some(dst);
-                for &o in image.operands(op, start) {
-                    let src = self.operand_into(o, &mut reuse, &mut later)?;
-                    self.push_pending(src)?;
-                }
-                self.push_job(Job::Emit { node, dst, at, mark })?;
-                self.push_in_order(later)?;
-            }
-            INode::Con(_, start, len) => {
-                let at = self.pending.len() as u32;
-                let mark = self.next;
-                let mut reuse = Some(dst);
-                for &o in image.list(start, len) {
+                for &o in operands {
                     let src = self.operand_into(o, &mut reuse, &mut later)?;
                     self.push_pending(src)?;
                 }
@@ -1185,8 +1160,7 @@ impl Compiler<'_, '_> {
         if self.code.funcs.get(func as usize).is_some_and(|f| f.entry == NONE) {
             self.code.funcs[func as usize].entry = NONE - 1;
             let held = self.held();
-            Self::reserve(&mut self.queue, held, self.budget)?;
-            self.queue.push(func);
+            push_within(&mut self.queue, func, held, self.budget)?;
         }
         self.emit(
             Instr::Closure {
@@ -1435,6 +1409,16 @@ impl Compiler<'_, '_> {
         self.close_block();
         Ok(())
     }
+}
+
+/// Push `x` on `v`, growing it within the limit of `budget` for a compile
+/// holding `held` bytes.
+fn push_within<T>(v: &mut Vec<T>, x: T, held: usize, budget: &mut Budget) -> Result<(), Halt> {
+    if v.len() == v.capacity() {
+        grow(v, 1, held, budget)?;
+    }
+    v.push(x);
+    Ok(())
 }
 
 /// The register a construct's value goes to, if not back to the caller.

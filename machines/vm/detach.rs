@@ -6,10 +6,11 @@
 use std::sync::Arc;
 
 use super::code::Code;
-use super::{End, Frame, VmRun};
+use super::{Frame, VmRun};
+use crate::machines::runtime::end::End;
 use crate::budget::{Budget, Halt};
 use crate::image::{Id, Tags};
-use crate::machines::runtime::plain::{detach_fault, translate_values, Attacher, Cells, Detacher, Plain, Translate};
+use crate::machines::runtime::plain::{translate_values, Attacher, Cells, Detacher, Plain, Translate};
 use crate::machines::runtime::value::Meter;
 use crate::vocabulary::{DetachedRun, Paused};
 use crate::Program;
@@ -134,7 +135,7 @@ impl DetachedRun for DetachedVm {
 
 /// How a halt while detaching or attaching ends the run.
 fn ended(halt: Halt) -> End {
-    End::Ended(detach_fault(halt, "vm"), None)
+    End::of_detach(halt, "vm")
 }
 
 impl<F> Frame<F> {

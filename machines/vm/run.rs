@@ -232,6 +232,86 @@ impl VmRun {
                 }
             };
         }
+        // A primitive into `dst`: its integer fast path's value, or (bailed,
+        // or per contraction) the δ-rules on `$args`, which pay for it.
+        macro_rules! primitive {
+            ($op:expr, $dst:expr, $fast:expr, $args:expr) => {{
+                match $fast {
+                    Some(v) => {
+                        take!(Rule::Prim);
+                        self.set($dst, v);
+                    }
+                    None => {
+                        if !SLOW {
+                            return Leave::Bail;
+                        }
+                        let args = $args;
+                        match self.prim::<M>(image, $op, &args) {
+                            Ok(v) => self.set($dst, v),
+                            Err(halt) => return Leave::Done(Err(halt)),
+                        }
+                    }
+                }
+                self.pc += 1;
+            }};
+        }
+        // Compare and branch: on the fast path, the branch taken; else the
+        // comparison made per contraction, for the branch after it.
+        macro_rules! compare {
+            ($op:expr, $no:expr, $fast:expr, $args:expr) => {{
+                match $fast {
+                    Some(yes) if !SLOW => self.pc = if yes { self.pc + 2 } else { $no },
+                    _ => {
+                        if !SLOW {
+                            return Leave::Bail;
+                        }
+                        let args = $args;
+                        if let Err(halt) = self.test::<M>(code, image, $op, &args) {
+                            return Leave::Done(Err(halt));
+                        }
+                    }
+                }
+            }};
+        }
+        // Apply `$f` to one argument: the contraction paid (per contraction)
+        // or recounted, a function's body entered or a partial application
+        // made; anything but a function is the error.
+        macro_rules! apply {
+            ($f:expr, $a:expr, $ret:expr) => {{
+                let fv = $f;
+                let rule = Self::rule_of(code, &fv);
+                take!(rule);
+                let Value::Fun(c) = fv else {
+                    let error = EvalError::not_a_function(fv.operand(image, &self.tags));
+                    fail!(Halt::error(error))
+                };
+                let av = $a;
+                try_or_fail!(self.apply::<M>(code, c, av, $ret));
+                recount!(rule);
+            }};
+        }
+        // A call of `$f` on `$m` operands from `$args`: entered whole if it
+        // takes exactly them, else (and per contraction) the applications
+        // one by one after the instruction.
+        macro_rules! call {
+            ($f:expr, $args:expr, $m:expr, $ret:expr) => {{
+                if SLOW {
+                    self.pc += 1;
+                    continue;
+                }
+                let fv = self.read(code, $f);
+                let rule = Self::rule_of(code, &fv);
+                match fv {
+                    Value::Fun(c) if Self::wants(code, &c) == u32::from($m) => {
+                        let site = origin(code, self.pc);
+                        let pass = Pass::Srcs { at: $args, m: $m };
+                        try_or_fail!(self.enter::<M>(code, c, pass, $ret, site));
+                        recount!(rule);
+                    }
+                    _ => return Leave::Bail,
+                }
+            }};
+        }
         loop {
             let pc = self.pc;
             let Some(&instr) = code.code.get(pc as usize) else {
@@ -260,23 +340,8 @@ impl VmRun {
                 }
                 Instr::Prim2Imm { op, dst, a, imm } => {
                     let op = op_prim(op);
-                    match self.int_reg(a).and_then(|x| int_prim(op, x, i64::from(imm))) {
-                        Some(v) => {
-                            take!(Rule::Prim);
-                            self.set(dst, v);
-                        }
-                        None => {
-                            if !SLOW {
-                                return Leave::Bail;
-                            }
-                            let args = [self.read(code, Src::reg(a)), Value::Int(i64::from(imm))];
-                            match self.prim::<M>(image, op, &args) {
-                                Ok(v) => self.set(dst, v),
-                                Err(halt) => return Leave::Done(Err(halt)),
-                            }
-                        }
-                    }
-                    self.pc = pc + 1;
+                    let fast = self.int_reg(a).and_then(|x| int_prim(op, x, i64::from(imm)));
+                    primitive!(op, dst, fast, [self.read(code, Src::reg(a)), Value::Int(i64::from(imm))]);
                 }
                 Instr::Prim2 { op, dst, a, b } => {
                     let op = op_prim(op);
@@ -284,23 +349,7 @@ impl VmRun {
                         (Some(x), Some(y)) => int_prim(op, x, y),
                         _ => None,
                     };
-                    match fast {
-                        Some(v) => {
-                            take!(Rule::Prim);
-                            self.set(dst, v);
-                        }
-                        None => {
-                            if !SLOW {
-                                return Leave::Bail;
-                            }
-                            let args = [self.read(code, a), self.read(code, b)];
-                            match self.prim::<M>(image, op, &args) {
-                                Ok(v) => self.set(dst, v),
-                                Err(halt) => return Leave::Done(Err(halt)),
-                            }
-                        }
-                    }
-                    self.pc = pc + 1;
+                    primitive!(op, dst, fast, [self.read(code, a), self.read(code, b)]);
                 }
                 Instr::Prim1 { op, dst, a } => {
                     let op = op_prim(op);
@@ -308,40 +357,12 @@ impl VmRun {
                         (Prim::Neg, Some(x)) => x.checked_neg().map(Value::Int),
                         _ => None,
                     };
-                    match fast {
-                        Some(v) => {
-                            take!(Rule::Prim);
-                            self.set(dst, v);
-                        }
-                        None => {
-                            if !SLOW {
-                                return Leave::Bail;
-                            }
-                            let args = [self.read(code, a)];
-                            match self.prim::<M>(image, op, &args) {
-                                Ok(v) => self.set(dst, v),
-                                Err(halt) => return Leave::Done(Err(halt)),
-                            }
-                        }
-                    }
-                    self.pc = pc + 1;
+                    primitive!(op, dst, fast, [self.read(code, a)]);
                 }
                 Instr::TestImm { op, a, imm, no } => {
                     let op = op_prim(op);
-                    match self.int_reg(a).and_then(|x| int_test(op, x, i64::from(imm))) {
-                        Some(yes) if !SLOW => {
-                            self.pc = if yes { pc + 2 } else { no };
-                        }
-                        _ => {
-                            if !SLOW {
-                                return Leave::Bail;
-                            }
-                            let args = [self.read(code, Src::reg(a)), Value::Int(i64::from(imm))];
-                            if let Err(halt) = self.test::<M>(code, image, op, &args) {
-                                return Leave::Done(Err(halt));
-                            }
-                        }
-                    }
+                    let fast = self.int_reg(a).and_then(|x| int_test(op, x, i64::from(imm)));
+                    compare!(op, no, fast, [self.read(code, Src::reg(a)), Value::Int(i64::from(imm))]);
                 }
                 Instr::Test { op, a, b, no } => {
                     let op = op_prim(op);
@@ -349,20 +370,7 @@ impl VmRun {
                         (Some(x), Some(y)) => int_test(op, x, y),
                         _ => None,
                     };
-                    match fast {
-                        Some(yes) if !SLOW => {
-                            self.pc = if yes { pc + 2 } else { no };
-                        }
-                        _ => {
-                            if !SLOW {
-                                return Leave::Bail;
-                            }
-                            let args = [self.read(code, a), self.read(code, b)];
-                            if let Err(halt) = self.test::<M>(code, image, op, &args) {
-                                return Leave::Done(Err(halt));
-                            }
-                        }
-                    }
+                    compare!(op, no, fast, [self.read(code, a), self.read(code, b)]);
                 }
                 Instr::Branch { cond, no } => {
                     let v = self.read(code, cond);
@@ -443,63 +451,17 @@ impl VmRun {
                 }
                 Instr::Apply { dst, f, a } => {
                     let fv = self.read(code, f);
-                    let rule = Self::rule_of(code, &fv);
-                    take!(rule);
-                    let Value::Fun(c) = fv else {
-                        let error = EvalError::not_a_function(fv.operand(image, &self.tags));
-                        fail!(Halt::error(error))
-                    };
-                    let av = self.read(code, a);
-                    try_or_fail!(self.apply::<M>(code, c, av, Ret::To { dst, pc: pc + 1 }));
-                    recount!(rule);
+                    apply!(fv, self.read(code, a), Ret::To { dst, pc: pc + 1 });
                 }
                 Instr::TailApply { f, a } => {
                     let fv = self.read(code, f);
-                    let rule = Self::rule_of(code, &fv);
-                    take!(rule);
-                    let Value::Fun(c) = fv else {
-                        let error = EvalError::not_a_function(fv.operand(image, &self.tags));
-                        fail!(Halt::error(error))
-                    };
-                    let av = self.read(code, a);
-                    try_or_fail!(self.apply::<M>(code, c, av, Ret::Tail));
-                    recount!(rule);
+                    apply!(fv, self.read(code, a), Ret::Tail);
                 }
                 Instr::CallN { dst, f, args, m } => {
-                    if SLOW {
-                        self.pc = pc + 1;
-                        continue;
-                    }
-                    let fv = self.read(code, f);
-                    let rule = Self::rule_of(code, &fv);
-                    match fv {
-                        Value::Fun(c) if Self::wants(code, &c) == u32::from(m) => {
-                            let site = origin(code, pc);
-                            let after = pc + 1 + 2 * u32::from(m);
-                            let pass = Pass::Srcs { at: args, m };
-                            try_or_fail!(self.enter::<M>(code, c, pass, Ret::To { dst, pc: after }, site));
-                            recount!(rule);
-                        }
-                        _ => return Leave::Bail,
-                    }
+                    let after = pc + 1 + 2 * u32::from(m);
+                    call!(f, args, m, Ret::To { dst, pc: after });
                 }
-                Instr::TailCallN { f, args, m } => {
-                    if SLOW {
-                        self.pc = pc + 1;
-                        continue;
-                    }
-                    let fv = self.read(code, f);
-                    let rule = Self::rule_of(code, &fv);
-                    match fv {
-                        Value::Fun(c) if Self::wants(code, &c) == u32::from(m) => {
-                            let site = origin(code, pc);
-                            let pass = Pass::Srcs { at: args, m };
-                            try_or_fail!(self.enter::<M>(code, c, pass, Ret::Tail, site));
-                            recount!(rule);
-                        }
-                        _ => return Leave::Bail,
-                    }
-                }
+                Instr::TailCallN { f, args, m } => call!(f, args, m, Ret::Tail),
                 Instr::SelfCall {
                     dst,
                     args,
@@ -553,15 +515,7 @@ impl VmRun {
                         self.pc = pc + 1;
                         continue;
                     }
-                    let rule = Self::rule_of(code, &fv);
-                    take!(rule);
-                    let Value::Fun(c) = fv else {
-                        let error = EvalError::not_a_function(fv.operand(image, &self.tags));
-                        fail!(Halt::error(error))
-                    };
-                    let av = self.read(code, arg);
-                    try_or_fail!(self.apply::<M>(code, c, av, Ret::To { dst: acc, pc: pc + 1 }));
-                    recount!(rule);
+                    apply!(fv, self.read(code, arg), Ret::To { dst: acc, pc: pc + 1 });
                 }
                 Instr::SpineLast { acc, args, m, dst } => {
                     let ret = if dst == NONE { Ret::Tail } else { Ret::To { dst, pc: pc + 1 } };
@@ -576,18 +530,11 @@ impl VmRun {
                         try_or_fail!(self.enter::<M>(code, c, pass, ret, site));
                         continue;
                     }
-                    let rule = Self::rule_of(code, &fv);
-                    take!(rule);
-                    let Value::Fun(c) = fv else {
-                        let error = EvalError::not_a_function(fv.operand(image, &self.tags));
-                        fail!(Halt::error(error))
-                    };
                     let last = (args as usize + usize::from(m)).checked_sub(1);
                     let av = last
                         .and_then(|i| code.srcs.get(i))
                         .map_or(Value::Int(0), |&s| self.read(code, s));
-                    try_or_fail!(self.apply::<M>(code, c, av, ret));
-                    recount!(rule);
+                    apply!(fv, av, ret);
                 }
                 Instr::Return { src } => {
                     let v = self.read(code, src);
