@@ -6,7 +6,8 @@
 //! | `stepper` | the reference: substitution with refocusing (SEMANTICS §4) |
 //! | `env` | the environment evaluator: compiled code run big-step |
 //! | `cek` | the CEK machine: control, environment and continuation as data |
-//! | `runtime` | what env and cek share: values, primitives, host calls, read-back |
+//! | `vm` | register bytecode in metered blocks, run over an explicit frame stack |
+//! | `runtime` | what env, cek and vm share: values, primitives, host calls, read-back, detaching, a run's end |
 //!
 //! To add a machine: write its module (a type implementing [`Machine`] and
 //! [`Build`]), add its feature to `Cargo.toml`, and add its line to the

@@ -1,6 +1,6 @@
 //! The vm: register bytecode with metered blocks. A program's image is
 //! compiled once (kept with the program, shared by every run and thread)
-//! into code for a register machine ([`code`]): each curried function's
+//! into code for a register machine (`code.rs`): each curried function's
 //! body under all its parameters, variables resolved to registers of the
 //! function's frame, to the values its flat closure (Cardelli, "Compiling a
 //! functional language", 1984) captured, or to constants, and the shapes
@@ -8,7 +8,7 @@
 //! arithmetic with a constant operand, a call on operands, a saturated
 //! curried call, a call and a tail call of a function's own self.
 //!
-//! The interpreter ([`run`]) runs the code over an explicit stack of
+//! The interpreter (`run.rs`) runs the code over an explicit stack of
 //! frames and one stack of registers, so a program's depth never becomes
 //! native recursion; a call in tail position replaces its caller's frame,
 //! so loops run in constant space. Integers and booleans are unboxed in
