@@ -37,10 +37,20 @@ fn main() -> ExitCode {
         .skip(1)
         .filter(|a| !a.starts_with('-'))
         .collect();
-    let [name, machine] = args.as_slice() else {
-        // Run as part of a plain `cargo bench`: nothing to do.
-        eprintln!("usage: once WORKLOAD MACHINE  (workloads: {NAMES})");
-        return ExitCode::SUCCESS;
+    let (name, machine, times) = match args.as_slice() {
+        [name, machine] => (name, machine, 1),
+        [name, machine, times] => match times.parse::<u32>() {
+            Ok(t) if t > 0 => (name, machine, t),
+            _ => {
+                eprintln!("TIMES must be a positive count, not {times}");
+                return ExitCode::FAILURE;
+            }
+        },
+        _ => {
+            // Run as part of a plain `cargo bench`: nothing to do.
+            eprintln!("usage: once WORKLOAD MACHINE [TIMES]  (workloads: {NAMES})");
+            return ExitCode::SUCCESS;
+        }
     };
     let Some((source, expected)) = workload(name) else {
         eprintln!("no workload {name}; workloads: {NAMES}");
@@ -65,7 +75,13 @@ fn main() -> ExitCode {
         return ExitCode::FAILURE;
     };
     let program = program(&source);
-    let report = runner.run(&program, &unlimited());
+    // Run TIMES times (one machine, as a server would): the instructions of
+    // TIMES runs less those of one give the cost of a run once the program
+    // is prepared.
+    let mut report = runner.run(&program, &unlimited());
+    for _ in 1..times {
+        report = runner.run(&program, &unlimited());
+    }
     match report.outcome {
         Outcome::Value(v) if v.to_string() == expected => {
             println!(

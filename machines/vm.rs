@@ -48,7 +48,6 @@ use std::sync::Arc;
 use code::{compile, Code, FINISH};
 use run::Leave;
 
-use super::runtime::host::{cells_bytes, from_datum};
 use super::runtime::end::{self, End};
 use super::runtime::readback::read_back;
 use super::runtime::value::{recycle, Closure, Meter, Value};
@@ -219,8 +218,7 @@ pub struct VmRun {
     site: Id,
     /// Whether the current block runs per contraction.
     slow: bool,
-    /// The program's arguments, once converted, and the next to apply.
-    args: Vec<Val>,
+    /// The next of the program's arguments to apply the root's value to.
     next_arg: usize,
     budget: Budget,
     tags: Tags,
@@ -265,7 +263,6 @@ impl VmRun {
             closure: None,
             site: NONE,
             slow: false,
-            args: Vec::new(),
             next_arg: 0,
             budget,
             tags,
@@ -290,7 +287,6 @@ impl VmRun {
     fn clear(&mut self) {
         self.regs.clear();
         self.frames.clear();
-        self.args.clear();
         self.closure = None;
     }
 
@@ -340,22 +336,32 @@ impl VmRun {
 
     /// Compile the program (once for all runs), load its arguments, and run.
     fn execute<const M: bool>(&mut self) -> Result<Val, Halt> {
-        let code = match &self.code {
-            Some(code) => Arc::clone(code),
+        // The run holds its program; the loops borrow this handle of it.
+        let program = self.program.clone();
+        // The code is taken out while the loops borrow it, and put back.
+        let code = match self.code.take() {
+            Some(code) => code,
             None => {
-                let program = self.program.clone();
                 let budget = &mut self.budget;
                 let code = program.prepared(|| compile(program.image(), budget))?;
-                self.code = Some(Arc::clone(&code));
-                self.load::<M>(&code)?;
+                if let Err(halt) = self.load::<M>(&code) {
+                    self.code = Some(code);
+                    return Err(halt);
+                }
+                // A first slice of fuel, so that the first block is paid on
+                // the fast path (a cancelled run, or one with no fuel, moves
+                // none, and its first contraction says so).
+                if M {
+                    self.budget.refill();
+                }
                 code
             }
         };
-        loop {
+        let result = loop {
             let leave = if self.slow {
-                self.exec::<M, true>(&code)
+                self.exec::<M, true>(&code, &program)
             } else {
-                self.exec::<M, false>(&code)
+                self.exec::<M, false>(&code, &program)
             };
             match leave {
                 Leave::Slow => self.slow = true,
@@ -364,35 +370,17 @@ impl VmRun {
                     self.bail::<M>(&code);
                     self.slow = true;
                 }
-                Leave::Done(result) => return result,
+                Leave::Done(result) => break result,
             }
-        }
+        };
+        self.code = Some(code);
+        result
     }
 
-    /// The initial state: the program's arguments converted, the bottom
-    /// frame, and the top level's frame.
+    /// The initial state: the bottom frame and the top level's frame. (The
+    /// program's arguments are converted as the bottom frame applies the
+    /// root's value to them, one by one.)
     fn load<const M: bool>(&mut self, code: &Code) -> Result<(), Halt> {
-        let program = self.program.clone();
-        let image = program.image();
-        for arg in program.args() {
-            if M {
-                let need = cells_bytes::<u32>(arg);
-                let held = self.held();
-                self.budget.check_memory(held.saturating_add(need))?;
-            }
-            let (argument, new_tags) = from_datum(arg, image, &self.tags);
-            self.tags.append(new_tags);
-            self.fixed = self.tags.bytes();
-            if M && self.args.len() == self.args.capacity() {
-                let held = self.held();
-                grow(&mut self.args, 1, held, &mut self.budget)?;
-            }
-            self.args.push(argument);
-            if M {
-                let held = self.held();
-                self.budget.check_memory(held)?;
-            }
-        }
         let top = 1 + code.root_frame as usize;
         if M {
             let held = self.held();

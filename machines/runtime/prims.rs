@@ -27,11 +27,42 @@ pub(crate) fn prim_contraction<C: Code>(
     let operands: SmallVec<[Operand<'_>; 2]> =
         args.iter().map(|v| v.operand(image, tags)).collect();
     budget.pay(Rule::Prim, fuel_units(op, &operands))?;
-    if let (Prim::Concat, [Operand::Str(a), Operand::Str(b)]) = (op, &operands[..]) {
+    delta_value(op, &operands, budget, held)
+}
+
+/// Contract `op` on `args` when the one unit of fuel it needs is paid
+/// already (by a metered block): its value, or `None` when it needs more
+/// units or fails — the caller then makes the contraction per contraction,
+/// through [`prim_contraction`], which says why.
+pub(crate) fn prepaid_prim<C: Code>(
+    op: Prim,
+    args: &[Value<C>],
+    image: &Image,
+    tags: &Tags,
+    budget: &mut Budget,
+    held: usize,
+) -> Option<Value<C>> {
+    let operands: SmallVec<[Operand<'_>; 2]> =
+        args.iter().map(|v| v.operand(image, tags)).collect();
+    if fuel_units(op, &operands) != 1 {
+        return None;
+    }
+    delta_value(op, &operands, budget, held).ok()
+}
+
+/// The δ-rule's value as a runtime value, a string refused before it is
+/// made if it would pass the limit.
+fn delta_value<C: Code>(
+    op: Prim,
+    operands: &[Operand<'_>],
+    budget: &mut Budget,
+    held: usize,
+) -> Result<Value<C>, Halt> {
+    if let (Prim::Concat, [Operand::Str(a), Operand::Str(b)]) = (op, operands) {
         let bytes = Text::bytes(a.len().saturating_add(b.len()));
         budget.check_memory(held.saturating_add(bytes))?;
     }
-    let result = delta_polled(op, &operands, &mut || budget.is_cancelled());
+    let result = delta_polled(op, operands, &mut || budget.is_cancelled());
     match result {
         Ok(PrimValue::Int(n)) => Ok(Value::Int(n)),
         Ok(PrimValue::Bool(b)) => Ok(Value::Bool(b)),

@@ -1,5 +1,5 @@
-//! A paused vm run detached from its thread: its registers, frames, closure
-//! and program arguments as plain data (see [`crate::machines::runtime::plain`]),
+//! A paused vm run detached from its thread: its registers, frames and
+//! closure as plain data (see [`crate::machines::runtime::plain`]),
 //! and everything else — the pc, the frames' places and call sites, the
 //! budget — as it was. Attaching makes the cells again on the new thread.
 
@@ -21,8 +21,7 @@ struct State {
     regs: Vec<Plain>,
     frames: Vec<Frame<usize>>,
     closure: Option<usize>,
-    args: Vec<Plain>,
-    capacities: [usize; 3],
+    capacities: [usize; 2],
     cells: Cells,
 }
 
@@ -106,7 +105,6 @@ impl DetachedVm {
             closure: None,
             site: place.site,
             slow: place.slow,
-            args: Vec::new(),
             next_arg: place.next_arg,
             budget,
             tags,
@@ -161,7 +159,6 @@ impl State {
     fn detach(run: &VmRun) -> Result<Self, Halt> {
         let mut d = Detacher::default();
         let regs = translate_values(&run.regs, &mut d)?;
-        let args = translate_values(&run.args, &mut d)?;
         let mut frames = Vec::with_capacity(run.frames.len());
         for frame in &run.frames {
             frames.push(frame.translate(&mut d)?);
@@ -174,8 +171,7 @@ impl State {
             regs,
             frames,
             closure,
-            args,
-            capacities: [run.regs.capacity(), run.frames.capacity(), run.args.capacity()],
+            capacities: [run.regs.capacity(), run.frames.capacity()],
             cells: d.cells,
         })
     }
@@ -183,7 +179,7 @@ impl State {
     fn attach(self, run: &mut VmRun) -> Result<(), Halt> {
         let meter = Meter::holding(0);
         let mut a = Attacher::make(self.cells)?;
-        let [regs, frames, args] = self.capacities;
+        let [regs, frames] = self.capacities;
         run.regs = Vec::with_capacity(regs.max(self.regs.len()));
         for value in &self.regs {
             run.regs.push(a.value(value)?);
@@ -191,10 +187,6 @@ impl State {
         run.frames = Vec::with_capacity(frames.max(self.frames.len()));
         for frame in &self.frames {
             run.frames.push(frame.translate(&mut a)?);
-        }
-        run.args = Vec::with_capacity(args.max(self.args.len()));
-        for value in &self.args {
-            run.args.push(a.value(value)?);
         }
         run.closure = match &self.closure {
             Some(c) => Some(a.closure(c)?),

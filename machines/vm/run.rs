@@ -16,12 +16,12 @@ use super::{Frame, Fun, Val, VmRun};
 use crate::budget::{grow, Halt};
 use crate::error::EvalError;
 use crate::image::{INode, Image, NONE};
-use crate::machines::runtime::host::host_call;
-use crate::machines::runtime::prims::{int_prim, int_test, prim_contraction};
+use crate::machines::runtime::host::{cells_bytes, from_datum, host_call};
+use crate::machines::runtime::prims::{int_prim, int_test, prepaid_prim, prim_contraction};
 use crate::machines::runtime::value::{
     cut, data_field, values_bytes_for, Closure, ConCell, Value, Values,
 };
-use crate::{Prim, Rule};
+use crate::{Prim, Program, Rule};
 
 /// Why a loop left: to go on in the other loop, or the run's end.
 pub(super) enum Leave {
@@ -148,7 +148,7 @@ impl VmRun {
     pub(super) fn held(&self) -> usize {
         self.fixed
             + self.meter.cells()
-            + (self.regs.capacity() + self.args.capacity()) * std::mem::size_of::<Val>()
+            + self.regs.capacity() * std::mem::size_of::<Val>()
             + self.frames.capacity() * std::mem::size_of::<Frame>()
     }
 
@@ -186,8 +186,7 @@ impl VmRun {
 
     /// Run from the current pc: per contraction if `SLOW`, else block by
     /// block; `M`: whether fuel, memory and cancellation are checked.
-    pub(super) fn exec<const M: bool, const SLOW: bool>(&mut self, code: &Code) -> Leave {
-        let program = self.program.clone();
+    pub(super) fn exec<const M: bool, const SLOW: bool>(&mut self, code: &Code, program: &Program) -> Leave {
         let image = program.image();
         // A contraction of the slow loop pays its unit first.
         macro_rules! take {
@@ -242,13 +241,28 @@ impl VmRun {
                         self.set($dst, v);
                     }
                     None => {
-                        if !SLOW {
-                            return Leave::Bail;
-                        }
                         let args = $args;
-                        match self.prim::<M>(image, $op, &args) {
-                            Ok(v) => self.set($dst, v),
-                            Err(halt) => return Leave::Done(Err(halt)),
+                        if !SLOW {
+                            // Strings and booleans of one unit, paid by the
+                            // block; anything else per contraction.
+                            let held = if M { self.held() } else { 0 };
+                            let made = prepaid_prim(
+                                $op,
+                                &args,
+                                image,
+                                &self.tags,
+                                &mut self.budget,
+                                held,
+                            );
+                            match made {
+                                Some(v) => self.set($dst, v),
+                                None => return Leave::Bail,
+                            }
+                        } else {
+                            match self.prim::<M>(image, $op, &args) {
+                                Ok(v) => self.set($dst, v),
+                                Err(halt) => return Leave::Done(Err(halt)),
+                            }
                         }
                     }
                 }
@@ -259,7 +273,20 @@ impl VmRun {
         // comparison made per contraction, for the branch after it.
         macro_rules! compare {
             ($op:expr, $no:expr, $fast:expr, $args:expr) => {{
-                match $fast {
+                let fast = match $fast {
+                    Some(yes) => Some(yes),
+                    // A comparison of strings of one unit, paid by the block.
+                    None if !SLOW => {
+                        let args = $args;
+                        let made = prepaid_prim($op, &args, image, &self.tags, &mut self.budget, 0);
+                        match made {
+                            Some(Value::Bool(yes)) => Some(yes),
+                            _ => None,
+                        }
+                    }
+                    None => None,
+                };
+                match fast {
                     Some(yes) if !SLOW => self.pc = if yes { self.pc + 2 } else { $no },
                     _ => {
                         if !SLOW {
@@ -548,7 +575,7 @@ impl VmRun {
                         Some(v) => v.clone(),
                         None => return Leave::Done(Err(broken("no value to finish with"))),
                     };
-                    let Some(arg) = self.args.get(self.next_arg).cloned() else {
+                    let Some(datum) = program.args().get(self.next_arg) else {
                         return Leave::Done(Ok(v));
                     };
                     // The program's arguments: applications with no node,
@@ -567,6 +594,10 @@ impl VmRun {
                         let error = EvalError::not_a_function(v.operand(image, &self.tags));
                         return Leave::Done(Err(Halt::error(error)));
                     };
+                    let arg = match self.argument::<M>(image, datum) {
+                        Ok(arg) => arg,
+                        Err(halt) => return Leave::Done(Err(halt)),
+                    };
                     self.next_arg += 1;
                     if let Err(halt) = self.apply::<M>(code, c, arg, Ret::To { dst: 0, pc: FINISH }) {
                         return Leave::Done(Err(halt));
@@ -574,6 +605,24 @@ impl VmRun {
                 }
             }
         }
+    }
+
+    /// A program argument as a value: refused before any of its cells is
+    /// made if it cannot fit, its cells and the tags it makes up charged.
+    fn argument<const M: bool>(&mut self, image: &Image, datum: &crate::Datum<'static>) -> Result<Val, Halt> {
+        if M {
+            let need = cells_bytes::<u32>(datum);
+            let held = self.held();
+            self.budget.check_memory(held.saturating_add(need))?;
+        }
+        let (argument, new_tags) = from_datum(datum, image, &self.tags);
+        self.tags.append(new_tags);
+        self.fixed = self.tags.bytes();
+        if M {
+            let held = self.held();
+            self.budget.check_memory(held)?;
+        }
+        Ok(argument)
     }
 
     /// A primitive contraction through the shared δ-rules (paying its units).
