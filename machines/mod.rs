@@ -131,12 +131,17 @@ machine_table! {
 
 impl MachineKind {
     /// The fastest enabled machine, or `None` in a build with no machine:
-    /// the first of the table, whose order is measured. For the shape an
-    /// embedder runs per request, env is fastest: in one run of
-    /// `cargo bench --bench machines` (medians), `request 1000 rules` took
-    /// env 328 ns, cek 376 ns and the stepper 519 ns, and `request loop
-    /// 10^6` (a function whose body defines a loop and runs it) env 69 ms
-    /// and cek 161 ms; env is also fastest on every other workload there
+    /// the first of the table, whose order is measured. The vm comes first:
+    /// in one run of `cargo bench --bench machines` (medians, 2026-12-04) it
+    /// was fastest on seven of ten workloads, among them the shape an
+    /// embedder runs many times per request (`request loop 10^6`: vm 64.1
+    /// ms, env 79.4 ms, cek 184 ms) and the configuration-sized program
+    /// (vm 765 ns a run, env 813 ns), and in callgrind it takes the fewest
+    /// instructions on every workload but fib 25 and Church numerals, where
+    /// env takes up to 4% fewer. env is faster on fib 30 in wall time and on
+    /// a single call into a 1,000-rule set (444 ns against 602 ns); pick
+    /// `MachineKind::Env` by name there if a run need not pause. The vm,
+    /// unlike env, pauses, resumes and waits for host answers
     /// (`benches/README.md`).
     ///
     /// # Examples

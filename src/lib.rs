@@ -35,7 +35,8 @@
 //! | machine | feature | what it is | use it for |
 //! |---|---|---|---|
 //! | [`machines::stepper`] | `stepper` | the reference: substitution, one contraction per step, refocusing | traces ([`machines::stepper::Stepper::run_traced`]), single steps, checking the others |
-//! | `machines::env` | `env` | compiles the program to flat closures and evaluates big-step with explicit stacks | the fastest runs |
+//! | `machines::vm` | `vm` | compiles the program to register bytecode and pays its fuel by metered blocks | the fastest runs, and runs that pause, wait or move to another thread |
+//! | `machines::env` | `env` | compiles the program to flat closures and evaluates big-step with explicit stacks | fast runs that need not pause |
 //! | `machines::cek` | `cek` | the CEK machine: control, environment, continuation as data | runs that pause when fuel runs out and resume later |
 //!
 //! [`MachineKind`] picks one at run time; [`MachineKind::fastest`] is the
